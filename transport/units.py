@@ -1,0 +1,176 @@
+"""Quantities in, SI floats out: the one place where units are parsed.
+
+stratiflux keeps plain SI floats everywhere inside (m, s, kg). Text from scenario
+files such as ``"0.05 m/yr"``, ``"5 cm/d"``, ``"1.6e-9 m^2/s"``, ``"120 mg/L"`` or
+``"60 L/kg"`` is converted here, once, with a single pint registry (``ureg``).
+
+Conventions
+-----------
+* ``yr`` / ``year`` / ``a`` is the Julian year, 365.25 d = 31 557 600 s, the year
+  used by the IAU for astronomical constants and by pint's default definitions.
+  A "calendar" year of 365 d differs by 0.07 %; write ``365 d`` if you mean that.
+* ``d`` is the day (86 400 s), ``L`` the litre (1e-3 m3).
+* ``ug``, ``mcg`` and ``µg`` are all the microgram.
+* UDUNITS-style exponents are accepted in unit text: ``m3``, ``kg m-3``, ``m2/s``.
+"""
+from __future__ import annotations
+
+import math
+import numbers
+import re
+
+import pint
+
+__all__ = ["ureg", "UnitError", "DIMENSIONS", "to_si", "si_unit"]
+
+#: The project's single unit registry. Never create another one.
+ureg = pint.UnitRegistry()
+
+# The Julian year, 365.25 d (IAU). pint's default definition is already this; the
+# check protects against a future change of that default.
+if not math.isclose(ureg.Quantity(1, "year").to("second").magnitude, 365.25 * 86400.0,
+                    rel_tol=0, abs_tol=0):  # pragma: no cover - depends on pint's defaults
+    raise ImportError("pint's year is not the Julian year (365.25 d); stratiflux relies on it")
+
+
+class UnitError(ValueError):
+    """A value that is not a number with units of the expected dimension.
+
+    Attributes ``where``, ``value``, ``dimension``, ``reason`` and ``example`` let
+    callers build their own messages.
+    """
+
+    def __init__(self, message, where="", value=None, dimension="", reason="", example=""):
+        super().__init__(message)
+        self.where, self.value, self.dimension = where, value, dimension
+        self.reason, self.example = reason, example
+
+
+# name -> (pint dimensionality, SI unit text, example of a valid value)
+DIMENSIONS = {
+    "length": ("[length]", "m", '"0.8 m"'),
+    "time": ("[time]", "s", '"5 yr"'),
+    "velocity": ("[length] / [time]", "m/s", '"0.05 m/yr"'),
+    "diffusivity": ("[length] ** 2 / [time]", "m^2/s", '"1.6e-9 m^2/s"'),
+    "concentration": ("[mass] / [length] ** 3", "kg/m^3", '"120 mg/L"'),
+    "density": ("[mass] / [length] ** 3", "kg/m^3", '"1.7 g/cm^3"'),
+    "specific_volume": ("[length] ** 3 / [mass]", "m^3/kg", '"60 L/kg"'),
+    "rate": ("1 / [time]", "1/s", '"0.1 1/d"'),
+    "mass_flux": ("[mass] / [length] ** 2 / [time]", "kg/(m^2 s)", '"2 g/m^2/d"'),
+    "mass_rate_density": ("[mass] / [length] ** 3 / [time]", "kg/(m^3 s)", '"0.5 mg/L/d"'),
+    "dimensionless": ("", "1", "0.35"),
+}
+
+_DIMENSIONALITY = {name: ureg.get_dimensionality(spec[0]) for name, spec in DIMENSIONS.items()}
+
+# A leading number, then the unit text.
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?|[+-]?(?:nan|inf|infinity))"
+                     r"(?=$|[\s*/(a-zA-Zµμ%])\s*(.*?)\s*$", re.IGNORECASE)
+# Unit text may only hold names, small exponents, * / ^ ( ) and spaces. This keeps the
+# expression evaluator away from arbitrary input (e.g. huge powers).
+_UNIT_TOKEN = re.compile(r"\s*(?:[A-Za-zµμ_%][A-Za-z_µμ]*(?:-?\d{1,2}(?![\d.]))?"
+                         r"|(?:\*\*|\^)\s*[+-]?\d{1,2}(?:\.\d{1,3})?(?![\d.])"
+                         r"|[*/()]|1(?![\d.]))")
+_CHAINED_POWER = re.compile(r"(?:\*\*|\^)\s*[+-]?[\d.]+\s*(?:\*\*|\^)")
+_UDUNITS_EXPONENT = re.compile(r"(?<=[A-Za-zµμ_])(-?\d{1,2})(?![\d.])")
+
+
+def si_unit(dimension: str) -> str:
+    """SI unit text used inside stratiflux for ``dimension`` (e.g. ``"m/s"``)."""
+    return DIMENSIONS[dimension][1]
+
+
+def _fail(value, dimension: str, where: str, reason: str) -> UnitError:
+    example = DIMENSIONS[dimension][2] if dimension in DIMENSIONS else '"1 m"'
+    what = "dimensionless number" if dimension == "dimensionless" else dimension.replace("_", " ")
+    hint = "give a number" if dimension == "dimensionless" else "give a number with units"
+    return UnitError(f"{where}: {value!r} is not a valid {what} ({reason}); "
+                     f"{hint}, for example {example}", where, value, dimension, reason, example)
+
+
+def _check_unit_text(unit_text: str) -> bool:
+    pos = 0
+    while pos < len(unit_text):
+        match = _UNIT_TOKEN.match(unit_text, pos)
+        if match is None or match.end() == pos:
+            return False
+        pos = match.end()
+    return True
+
+
+def _parse(text: str, dimension: str, where: str):
+    match = _NUMBER.match(text)
+    if match is None:
+        raise _fail(text, dimension, where, "it does not start with a number")
+    magnitude = float(match.group(1))
+    unit_text = match.group(2)
+    if (len(unit_text) > 80 or not _check_unit_text(unit_text)
+            or _CHAINED_POWER.search(unit_text)):
+        raise _fail(text, dimension, where, f"cannot read the units {unit_text!r}")
+    unit_text = _UDUNITS_EXPONENT.sub(r"**\1", unit_text)
+    if unit_text.startswith("/"):
+        unit_text = "1" + unit_text
+    try:
+        units = ureg.parse_units(unit_text) if unit_text else ureg.dimensionless
+    except Exception as exc:  # pint raises many kinds (undefined unit, syntax ...)
+        raise _fail(text, dimension, where, f"cannot read the units {unit_text!r}: {exc}") from None
+    return ureg.Quantity(magnitude, units)
+
+
+def to_si(value, dimension: str, where: str = "value") -> float:
+    """Convert a quantity given as text (or a pint Quantity) to an SI float.
+
+    Parameters
+    ----------
+    value : str, number or pint.Quantity
+        Text such as ``"0.05 m/yr"`` or ``"120 mg/L"``. A bare number is only
+        accepted for ``dimension="dimensionless"``.
+    dimension : str
+        One of the keys of :data:`DIMENSIONS`: length, time, velocity, diffusivity,
+        concentration, density, specific_volume, rate, mass_flux,
+        mass_rate_density, dimensionless.
+    where : str
+        Key path used in error messages, e.g. ``"layers[2].thickness"``.
+
+    Returns
+    -------
+    float
+        The magnitude in the SI unit of that dimension (see :func:`si_unit`).
+        NaN and infinities are rejected.
+
+    Raises
+    ------
+    UnitError
+        Unparsable text, wrong dimension, missing units or a non-finite value. The
+        message names ``where``, the value and an example of a valid value.
+    """
+    if dimension not in DIMENSIONS:
+        raise ValueError(f"unknown dimension {dimension!r}; use one of {', '.join(DIMENSIONS)}")
+    if isinstance(value, bool) or value is None:
+        raise _fail(value, dimension, where, "not a number")
+    if isinstance(value, pint.Quantity):
+        quantity = value
+    elif isinstance(value, numbers.Real):
+        if dimension != "dimensionless":
+            raise _fail(value, dimension, where, "units are missing")
+        quantity = ureg.Quantity(float(value), ureg.dimensionless)
+    elif isinstance(value, str):
+        if len(value) > 200:
+            raise _fail(value[:40] + "...", dimension, where, "text too long")
+        quantity = _parse(value, dimension, where)
+    else:
+        raise _fail(value, dimension, where, f"a {type(value).__name__} is not a quantity")
+
+    if quantity.dimensionality != _DIMENSIONALITY[dimension]:
+        got = str(quantity.dimensionality) if quantity.dimensionality else "no units"
+        raise _fail(value, dimension, where, f"its units have dimension {got}")
+    try:
+        if dimension == "dimensionless":
+            magnitude = float(quantity.to(ureg.dimensionless).magnitude)
+        else:
+            magnitude = float(quantity.to_base_units().magnitude)
+    except Exception as exc:  # pragma: no cover - dimension already checked
+        raise _fail(value, dimension, where, str(exc)) from None
+    if not math.isfinite(magnitude):
+        raise _fail(value, dimension, where, "it is not a finite number")
+    return magnitude
