@@ -23,7 +23,7 @@ whose eigenvalues 1 +- tanh(x) are positive so the angle change is below pi.  At
 the angle is remapped to the next layer's scale inside its branch [n pi, (n+1) pi).
 The eigenvalue count N(lambda) = ceil((theta(L) - beta) / pi) is therefore exact: no
 eigenvalue is ever missed, whatever the contrast or thinness of the layers.  Each root
-is bracketed on the count and polished by a safeguarded Illinois iteration on the
+is bracketed on the count and polished by a safeguarded regula falsi iteration on the
 (continuous, single-crossing) angle mismatch, vectorised across modes.
 
 Eigenfunctions are obtained by shooting from both ends with normalised states and a
@@ -274,7 +274,8 @@ def _mismatch(op, lam, j):
 
 
 def _polish(op, a, b, j):
-    """Safeguarded Illinois iteration on the angle mismatch in each bracket."""
+    """Safeguarded Illinois iteration (regula falsi with halving) on the angle mismatch
+    in each bracket, vectorised over the modes."""
     fa = _mismatch(op, a, j)
     fb = _mismatch(op, b, j)
     x = 0.5 * (a + b)
@@ -288,7 +289,7 @@ def _polish(op, a, b, j):
         denom = FB - FA
         xs = np.where(denom != 0, B_ - FB * (B_ - A_) / np.where(denom != 0, denom, 1.0),
                       0.5 * (A_ + B_))
-        bad = ~((xs > A_) & (xs < B_)) | (it % 4 == 3)
+        bad = ~((xs > A_) & (xs < B_)) | (it % 12 == 11)
         xs = np.where(bad, 0.5 * (A_ + B_), xs)
         fx = _mismatch(op, xs, j[idx])
         left = fx < 0  # root lies in (xs, B)
@@ -303,8 +304,10 @@ def _polish(op, a, b, j):
         side[idx] = np.where(left, -1, 1)
         x[idx] = xs
         width = b[idx] - a[idx]
-        done = (fx == 0) | (width <= _ROOT_ULPS * np.finfo(float).eps
-                            * np.maximum(abs(a[idx]), abs(b[idx])))
+        # stop at the angle's own rounding level, or when the bracket is a few ulps wide
+        angle_noise = 4 * np.finfo(float).eps * (j[idx] + 1) * np.pi * (1 + op.n_layers)
+        done = (np.abs(fx) <= angle_noise) | (width <= _ROOT_ULPS * np.finfo(float).eps
+                                              * np.maximum(abs(a[idx]), abs(b[idx])))
         active[idx[done]] = False
     x = np.where(active, 0.5 * (a + b), x)
     return x
