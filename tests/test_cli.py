@@ -1,0 +1,307 @@
+"""Command line (click CliRunner): run, check, modes, plot, new, and clean errors.
+
+External references:
+
+* Crank (1975), *The Mathematics of Diffusion*, 2nd ed., eq. 2.45: semi-infinite
+  medium, fixed surface concentration C0: C = C0 erfc(z / (2 sqrt(D t / R))), so C
+  reaches c at t = R z^2 / (4 D erfcinv(c / C0)^2).
+* Crank (1975) ch. 2, instantaneous plane source in an infinite medium (eq. 2.6, from
+  memory): C = M / (2 sqrt(pi D t)) exp(-z^2 / (4 D t)); at fixed z its peak is at
+  t = z^2 / (2 D).
+* Crank (1975) eq. 4.17 / Carslaw & Jaeger (1959) sec. 3.3: a slab 0 < z < L with fixed
+  concentrations at both faces decays in modes exp(-lambda_n t),
+  lambda_n = D n^2 pi^2 / (R L^2).
+* The NetCDF written by ``run`` is compared with ``transport.modal.solve`` on the same
+  scenario (the CLI must add nothing and lose nothing but float32 rounding).
+"""
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from scipy.special import erfc, erfcinv
+
+from transport.cli import first_crossing, main, peak
+from transport.io.netcdf import elapsed_seconds, read_column_netcdf
+from transport.modal import solve
+from transport.scenario import load_scenario, starter_scenario_text
+
+SCENARIOS = sorted((Path(__file__).resolve().parent.parent / "scenarios").glob("*.toml"))
+YEAR = 365.25 * 86400.0  # Julian year, as transport.units
+
+# An invented single-layer slab (demo inputs; the check values come from Crank 1975).
+SLAB = """\
+title = "Invented test slab"
+
+[[layers]]
+name = "uniform clay"
+thickness = "3 m"
+porosity = 0.4
+retardation_factor = 2.0
+pore_diffusivity = "1e-9 m^2/s"
+
+[top]
+kind = "concentration"
+concentration = "100 mg/L"
+
+[bottom]
+kind = "concentration"
+concentration = "0 mg/L"
+
+[output]
+times = { start = "0.1 yr", stop = "5 yr", count = 6 }
+depth_spacing = "5 cm"
+receptor_depth = "0.5 m"
+screening_level = "10 mg/L"
+"""
+SLAB_D, SLAB_R, SLAB_L, SLAB_Z, SLAB_C0, SLAB_LEVEL = 1e-9, 2.0, 3.0, 0.5, 0.1, 0.01
+
+
+def invoke(*args):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def assert_clean_failure(result, *fragments):
+    """Exit status 2, a message naming ``fragments``, no traceback."""
+    assert result.exit_code == 2, result.output
+    assert isinstance(result.exception, SystemExit)
+    assert "Traceback" not in result.output
+    text = " ".join(result.output.split())  # the message is wrapped to 88 columns
+    for fragment in fragments:
+        assert fragment in text, (fragment, result.output)
+
+
+@pytest.fixture
+def slab(tmp_path):
+    path = tmp_path / "slab.toml"
+    path.write_text(SLAB, encoding="utf-8")
+    return path
+
+
+# --------------------------------------------------------------------------------- run
+@pytest.mark.parametrize("scenario", SCENARIOS, ids=lambda p: p.stem)
+def test_run_writes_the_core_solution(scenario, tmp_path):
+    """run: the NetCDF fields equal transport.modal.solve on the same scenario."""
+    out = tmp_path / f"{scenario.stem}.nc"
+    result = invoke("run", scenario, "-o", out)
+    assert result.exit_code == 0, result.output
+    assert "CAUTION" in result.output and "Mass budget" in result.output
+    sc = load_scenario(scenario)
+    ref = solve(sc.column, sc.times, sc.depths, initial=sc.initial,
+                tolerance=sc.output.tolerance)
+    ds = read_column_netcdf(out, decode_times=False)  # stored float64 days, no ms rounding
+    np.testing.assert_allclose(elapsed_seconds(ds), ref.times, rtol=1e-15)
+    np.testing.assert_array_equal(ds["depth"].values, ref.depths)
+    for name in ("concentration", "total_flux", "cumulative_mass"):
+        expected = getattr(ref, name)
+        scale = np.max(np.abs(expected)) or 1.0
+        # float32 storage: 2**-24 relative rounding, up to 6e-8 of the largest value
+        np.testing.assert_allclose(ds[name].values, expected, rtol=1e-6, atol=1e-7 * scale)
+    np.testing.assert_allclose(ds["mass_balance_residual"].values, ref.budget["residual"],
+                               rtol=1e-9, atol=1e-15)
+    assert ds.attrs["scenario_text"] == scenario.read_text(encoding="utf-8")
+    assert "stratiflux run" in ds.attrs["history"]
+    assert float(ds["receptor_depth"]) == sc.output.receptor_depth
+
+
+@pytest.mark.parametrize("scenario", SCENARIOS[:1], ids=lambda p: p.stem)
+def test_run_output_passes_cf_checker(scenario, tmp_path):
+    """The file written for a demo scenario passes CF-1.11 (IOOS compliance-checker)."""
+    from test_netcdf import failed_items, run_cf_checker
+
+    out = tmp_path / "demo.nc"
+    assert invoke("run", scenario, "-o", out).exit_code == 0
+    report = run_cf_checker(out)
+    assert failed_items(report, "high") == [] and failed_items(report, "medium") == []
+
+
+def test_run_default_output_and_plots(tmp_path):
+    """run without -o writes next to the scenario (.nc); --plots writes two PNGs."""
+    scenario = tmp_path / "site.toml"
+    scenario.write_text(SLAB, encoding="utf-8")
+    result = invoke("run", scenario, "--plots", tmp_path / "figs")
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "site.nc").is_file()
+    pngs = sorted(p.name for p in (tmp_path / "figs").glob("*.png"))
+    assert pngs == ["site_breakthrough.png", "site_profiles.png"]
+
+
+def test_run_breakthrough_matches_crank_erfc(slab, tmp_path):
+    """Summary breakthrough time = Crank (1975) eq. 2.45 inverted (4 significant digits).
+
+    The receptor is 0.5 m into a 3 m slab; until t = 5 yr the far face changes the
+    erfc solution by less than erfc(2.5 m / sqrt(4 D t / R)) ~ 1e-50.
+    """
+    result = invoke("run", slab, "-o", tmp_path / "slab.nc")
+    assert result.exit_code == 0, result.output
+    match = re.search(r"first reached at ([0-9.]+) yr", result.output)
+    assert match, result.output
+    expected = SLAB_R * SLAB_Z ** 2 / (4 * SLAB_D * erfcinv(SLAB_LEVEL / SLAB_C0) ** 2)
+    assert float(match.group(1)) == pytest.approx(expected / YEAR, rel=5e-4)
+
+
+def test_run_refuses_missing_output_directory(slab, tmp_path):
+    """An output in a missing directory fails before the solve, exit 2, no traceback."""
+    result = invoke("run", slab, "-o", tmp_path / "nowhere" / "x.nc")
+    assert_clean_failure(result, "does not exist")
+
+
+# -------------------------------------------------------------------- metric functions
+def test_first_crossing_inverts_crank_erfc():
+    """first_crossing on eq. 2.45 returns the closed-form time to 1e-9 (relative)."""
+    d, c0, z, level = 2e-10, 1.0, 0.3, 0.05
+
+    def conc(depth, t):
+        return c0 * erfc(depth / np.sqrt(4 * d * np.asarray(t, dtype=float)))
+
+    expected = z ** 2 / (4 * d * erfcinv(level / c0) ** 2)
+    t = first_crossing(conc, z, level, t_end=50 * YEAR, t_start=0.01 * YEAR)
+    assert t == pytest.approx(expected, rel=1e-9)
+    assert first_crossing(conc, z, level, t_end=expected / 2, t_start=0.01 * YEAR) is None
+
+
+def test_peak_of_plane_source():
+    """peak() finds t = z^2 / (2 D) and C = M / (z sqrt(2 pi e)) for a plane source."""
+    d, m, z = 1e-9, 1.0, 0.2
+
+    def conc(depth, t):
+        t = np.asarray(t, dtype=float)
+        return m / (2 * np.sqrt(np.pi * d * t)) * np.exp(-depth ** 2 / (4 * d * t))
+
+    t_peak, c_peak = peak(conc, z, t_end=100 * YEAR, t_start=0.01 * YEAR)
+    assert t_peak == pytest.approx(z ** 2 / (2 * d), rel=1e-6)
+    assert c_peak == pytest.approx(m / (z * math.sqrt(2 * math.pi * math.e)), rel=1e-12)
+
+
+def test_summary_flags_breakthrough_within_solver_error():
+    """A crossing where the solver's error estimate rivals the level is flagged.
+
+    Curve: Crank (1975) eq. 2.45 (stand-in solution of tests/test_netcdf.py).
+    """
+    from types import SimpleNamespace
+
+    from test_netcdf import fake_solution
+    from transport.cli import _summary_lines
+
+    base = fake_solution()
+    scenario = SimpleNamespace(title="stand-in", receptor_depth=0.3, screening_level=0.05,
+                               design_life=None, tolerance=1e-8)
+
+    class WithBound(type(base)):
+        def roundoff_bound(self, z, t):
+            return np.full((np.size(t), np.size(z)), self.error)
+
+    for error, flagged in ((1e-9, False), (2e-2, True)):
+        solution = WithBound(**{f: getattr(base, f) for f in base.__dataclass_fields__})
+        object.__setattr__(solution, "error", error)
+        text = " ".join(_summary_lines(scenario, solution))
+        assert "first reached at" in text
+        assert ("not reliable" in text) is flagged
+
+
+# ------------------------------------------------------------------------------- check
+@pytest.mark.parametrize("scenario", SCENARIOS, ids=lambda p: p.stem)
+def test_check_prints_layer_table(scenario):
+    """check: exit 0, each layer named, retardation factors as derived."""
+    result = invoke("check", scenario)
+    assert result.exit_code == 0, result.output
+    sc = load_scenario(scenario)
+    for row in sc.derived_table():
+        assert row["name"] in result.output
+        assert f"{row['retardation_factor']:.4g}" in result.output
+    assert "OK:" in result.output
+
+
+def test_check_bad_value_names_key_path(tmp_path):
+    """A porosity above 1 exits 2 with the file and key path, no traceback."""
+    bad = tmp_path / "bad.toml"
+    bad.write_text(SLAB.replace("porosity = 0.4", "porosity = 1.4"), encoding="utf-8")
+    for command in ("check", "run", "modes"):
+        assert_clean_failure(invoke(command, bad), "bad.toml", "layers[1].porosity")
+
+
+def test_bad_units_and_bad_toml_and_missing_file(tmp_path):
+    """Wrong units, broken TOML and a missing file all exit 2 with a clear message."""
+    units = tmp_path / "units.toml"
+    units.write_text(SLAB.replace('"3 m"', '"3 kg"'), encoding="utf-8")
+    assert_clean_failure(invoke("check", units), "layers[1].thickness")
+    broken = tmp_path / "broken.toml"
+    broken.write_text(SLAB.replace('title = "Invented test slab"', "title = Invented"),
+                      encoding="utf-8")
+    assert_clean_failure(invoke("check", broken), "broken.toml")
+    assert_clean_failure(invoke("check", tmp_path / "absent.toml"), "absent.toml")
+
+
+# ------------------------------------------------------------------------------- modes
+def test_modes_match_slab_eigenvalues(slab):
+    """modes: lambda_n = D n^2 pi^2 / (R L^2), Crank (1975) eq. 4.17, to 6 digits."""
+    result = invoke("modes", slab, "-n", "4")
+    assert result.exit_code == 0, result.output
+    rows = re.findall(r"^\s+(\d+)\s+([0-9.eE+-]+)\s", result.output, flags=re.MULTILINE)
+    assert [int(n) for n, _ in rows] == [1, 2, 3, 4]
+    for n, value in rows:
+        expected = SLAB_D * (int(n) * math.pi / SLAB_L) ** 2 / SLAB_R
+        assert float(value) == pytest.approx(expected, rel=1e-6)
+    assert re.search(r"Modes used: \d+", result.output)
+
+
+@pytest.mark.parametrize("scenario", SCENARIOS[:1], ids=lambda p: p.stem)
+def test_modes_runs_on_demo(scenario):
+    """modes on a demo scenario lists increasing eigenvalues."""
+    result = invoke("modes", scenario)
+    assert result.exit_code == 0, result.output
+    values = [float(v) for v in re.findall(r"^\s+\d+\s+([0-9.eE+-]+)\s", result.output,
+                                            flags=re.MULTILINE)]
+    assert len(values) >= 2 and np.all(np.diff(values) > 0)
+
+
+# -------------------------------------------------------------------------------- plot
+def test_plot_from_netcdf(slab, tmp_path):
+    """plot FILE.nc writes the profile and breakthrough PNGs into --out."""
+    nc = tmp_path / "slab.nc"
+    assert invoke("run", slab, "-o", nc).exit_code == 0
+    result = invoke("plot", nc, "--out", tmp_path / "figs")
+    assert result.exit_code == 0, result.output
+    for name in ("slab_profiles.png", "slab_breakthrough.png"):
+        assert (tmp_path / "figs" / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_plot_rejects_non_netcdf(slab):
+    """plot on a TOML file exits 2 with a message, no traceback."""
+    assert_clean_failure(invoke("plot", slab), "Cannot read", "slab.toml")
+
+
+# --------------------------------------------------------------------------------- new
+def test_new_writes_starter_that_checks(tmp_path):
+    """new writes the starter text, which passes check; refuses to overwrite."""
+    target = tmp_path / "mine.toml"
+    result = invoke("new", target)
+    assert result.exit_code == 0, result.output
+    assert target.read_text(encoding="utf-8") == starter_scenario_text()
+    assert invoke("check", target).exit_code == 0
+    target.write_text("# my edits\n", encoding="utf-8")
+    assert_clean_failure(invoke("new", target), "already exists", "--force")
+    assert target.read_text(encoding="utf-8") == "# my edits\n"
+    assert invoke("new", target, "--force").exit_code == 0
+    assert target.read_text(encoding="utf-8") == starter_scenario_text()
+
+
+def test_new_default_path(tmp_path, monkeypatch):
+    """new without PATH writes scenario.toml in the current directory."""
+    monkeypatch.chdir(tmp_path)
+    result = invoke("new")
+    assert result.exit_code == 0, result.output
+    assert (tmp_path / "scenario.toml").read_text(encoding="utf-8") == starter_scenario_text()
+
+
+# -------------------------------------------------------------------------------- help
+@pytest.mark.parametrize("command", ["run", "check", "modes", "plot", "new"])
+def test_help_has_an_example(command):
+    """Every command's --help shows an example invocation."""
+    result = invoke(command, "--help")
+    assert result.exit_code == 0
+    assert "Example:" in result.output and f"stratiflux {command}" in result.output

@@ -1,0 +1,520 @@
+"""Command line: ``stratiflux run | check | modes | plot | new``.
+
+A thin layer over the Python API (``transport.scenario``, ``transport.modal``,
+``transport.io.netcdf``, ``transport.plots``). Input errors end the program with a
+one-paragraph message and exit status 2, never a traceback.
+"""
+from __future__ import annotations
+
+import math
+import os
+import shlex
+import textwrap
+import warnings
+from pathlib import Path
+
+import click
+import numpy as np
+
+from transport import __version__
+from transport.caution import CAUTION
+
+__all__ = ["main", "first_crossing", "peak", "earliest_resolved_time",
+           "format_concentration", "format_time", "format_layer_table"]
+
+SECONDS_PER_YEAR = 365.25 * 86400.0  # Julian year, as transport.units
+SECONDS_PER_DAY = 86400.0
+#: Samples of the continuous receptor curve used to bracket crossings and the peak.
+#: A crossing narrower than the spacing (a spike that rises above the level and falls
+#: back between two samples) can be missed; 2048 samples resolve 0.05 % of the run.
+N_SCAN = 2048
+#: Relative tolerance of the Brent root and peak refinement on time.
+TIME_RTOL = 1e-10
+#: A maximum within this relative distance of the end value is a plateau, not a peak
+#: (the series is accurate to the solver tolerance, 1e-8 by default).
+PLATEAU_RTOL = 1e-6
+#: A breakthrough time is flagged as unreliable when the solver's error estimate at that
+#: point exceeds this fraction of the screening level.
+RELIABLE_FRACTION = 0.1
+EXIT_INPUT = 2
+
+# Prefix per error class; a ScenarioError already starts with the file and key path.
+_ERROR_KIND = {
+    "ScenarioError": "",
+    "UnitError": "invalid units: ",
+    "InputError": "invalid input: ",
+    "TOMLDecodeError": "the scenario file is not valid TOML: ",
+}
+
+
+class UserError(click.ClickException):
+    """A user-facing failure: printed as one paragraph, exit status 2."""
+
+    exit_code = EXIT_INPUT
+
+    def format_message(self):
+        return textwrap.fill(self.message, width=88, break_long_words=False,
+                             break_on_hyphens=False)
+
+
+def _describe(exc: BaseException) -> str:
+    if isinstance(exc, OSError):
+        target = exc.filename if exc.filename is not None else ""
+        reason = exc.strerror or str(exc)
+        return (f"Cannot read or write {target!s}: {reason}. Check that the path exists, "
+                "that its directory is writable and that no other program holds the file.")
+    # other ValueErrors keep their class name so that a bug report can be traced
+    kind = _ERROR_KIND.get(type(exc).__name__, f"invalid input ({type(exc).__name__}): ")
+    return f"{kind}{exc}"
+
+
+class _Group(click.Group):
+    """Turns the expected input errors into a clean message and exit status 2."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except (click.exceptions.ClickException, click.exceptions.Exit,
+                click.exceptions.Abort):
+            raise
+        except (ValueError, OSError) as exc:  # ScenarioError, UnitError, InputError: ValueError
+            raise UserError(_describe(exc)) from None
+
+
+# ----------------------------------------------------------------------------- formatting
+def format_concentration(c: float) -> str:
+    """A concentration in kg m-3 as mg/L, or ug/L below 0.1 mg/L."""
+    mg_per_l = c * 1000.0  # 1 kg m-3 = 1000 mg/L
+    if mg_per_l != 0 and abs(mg_per_l) < 0.1:
+        return f"{mg_per_l * 1000.0:.4g} ug/L"
+    return f"{mg_per_l:.4g} mg/L"
+
+
+def format_time(t: float) -> str:
+    """Elapsed seconds as years (days below one year)."""
+    if abs(t) >= SECONDS_PER_YEAR:
+        return f"{t / SECONDS_PER_YEAR:.4g} yr"
+    return f"{t / SECONDS_PER_DAY:.4g} d"
+
+
+# ---------------------------------------------------------------------- receptor metrics
+def _scan_times(t_end: float, t_start: float, n: int = N_SCAN) -> np.ndarray:
+    """Uniform samples on [t_start, t_end] plus log-spaced ones (sharp early fronts)."""
+    uniform = np.linspace(t_start, t_end, n)
+    if t_start > 0 and t_end > t_start:
+        return np.union1d(uniform, np.geomspace(t_start, t_end, n // 2))
+    return uniform
+
+
+def earliest_resolved_time(times) -> float:
+    """Earliest positive output time: the modal series meets its tolerance from there on.
+
+    The solver sizes the mode count for this time (tail bound, see
+    ``transport.modal.required_modes``); earlier times are not resolved.
+    """
+    times = np.asarray(times, dtype=float)
+    positive = times[times > 0]
+    if positive.size == 0:
+        raise ValueError("the run has no positive output time; add output.times")
+    return float(positive.min())
+
+
+def first_crossing(concentration_at, depth: float, level: float, t_end: float,
+                   t_start: float, n: int = N_SCAN):
+    """First time the continuous C(depth, t) reaches ``level``, or None.
+
+    The curve is sampled (``_scan_times``) to bracket the first sign change of
+    C - level, then the root is polished with Brent's method
+    (:func:`scipy.optimize.brentq`; Brent 1973, *Algorithms for Minimization without
+    Derivatives*, ch. 4) to a relative time tolerance ``TIME_RTOL``.
+    Returns ``t_start`` if the level is already reached there.
+    """
+    from scipy.optimize import brentq
+
+    t = _scan_times(t_end, t_start, n)
+    excess = np.asarray(concentration_at(depth, t), dtype=float) - level
+    above = np.flatnonzero(excess >= 0)
+    if above.size == 0:
+        return None
+    i = int(above[0])
+    if i == 0:
+        return float(t[0])
+
+    def f(s):
+        return float(np.asarray(concentration_at(depth, np.array([s])))[0]) - level
+
+    root, info = brentq(f, t[i - 1], t[i], rtol=TIME_RTOL, full_output=True)
+    if not info.converged:  # pragma: no cover - brentq converges on a valid bracket
+        raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
+    return float(root)
+
+
+def peak(concentration_at, depth: float, t_end: float, t_start: float,
+         n: int = N_SCAN):
+    """(time, concentration) of the largest C(depth, t) on [t_start, t_end].
+
+    Sampled, then refined by bounded Brent minimisation of -C between the neighbours of
+    the best sample (:func:`scipy.optimize.minimize_scalar`).
+    """
+    from scipy.optimize import minimize_scalar
+
+    t = _scan_times(t_end, t_start, n)
+    c = np.asarray(concentration_at(depth, t), dtype=float)
+    i = int(np.argmax(c))
+    best_t, best_c = float(t[i]), float(c[i])
+    if 0 < i < t.size - 1:
+        res = minimize_scalar(
+            lambda s: -float(np.asarray(concentration_at(depth, np.array([s])))[0]),
+            bounds=(t[i - 1], t[i + 1]), method="bounded",
+            options={"xatol": TIME_RTOL * max(t_end, 1.0)})
+        if res.success and -res.fun > best_c:
+            best_t, best_c = float(res.x), float(-res.fun)
+    return best_t, best_c
+
+
+# ------------------------------------------------------------------------------ helpers
+def _load(path):
+    from transport.scenario import load_scenario
+
+    return load_scenario(path)
+
+
+def _setting(scenario, name):
+    """An output setting (receptor_depth, screening_level, design_life, tolerance).
+
+    Read from the scenario itself, else from its ``output`` specification.
+    """
+    if hasattr(scenario, name):
+        return getattr(scenario, name)
+    return getattr(getattr(scenario, "output", None), name, None)
+
+
+def _solve(scenario, depths=None):
+    from transport.modal import solve
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        solution = solve(scenario.column, np.asarray(scenario.times, dtype=float),
+                         np.asarray(scenario.depths if depths is None else depths, dtype=float),
+                         initial=scenario.initial, tolerance=_setting(scenario, "tolerance"))
+    for w in caught:
+        click.echo(textwrap.fill(f"Warning: {w.message}", width=88), err=True)
+    return solution
+
+
+def _progress(step: int, total: int, text: str):
+    click.echo(f"[{step}/{total}] {text}", err=True)
+
+
+def _horizon(scenario, solution) -> float:
+    t_end = float(np.max(solution.times))
+    life = _setting(scenario, "design_life")
+    return max(t_end, float(life)) if life else t_end
+
+
+def _error_at(solution, depth: float, t: float):
+    """The solver's rounding-error estimate of C (kg m-3) at (depth, t), if it gives one."""
+    bound = getattr(solution, "roundoff_bound", None)
+    if bound is None:
+        return None
+    try:
+        value = np.asarray(bound(np.array([float(depth)]), np.array([float(t)])), float)
+    except (AttributeError, TypeError, ValueError):  # an engine without the estimate
+        return None
+    return float(np.max(value)) if value.size else None
+
+
+def _reliability_note(solution, depth: float, t: float, level: float) -> str:
+    """A warning sentence when the solver's error estimate is not small against the level."""
+    error = _error_at(solution, depth, t)
+    if error is None or error < RELIABLE_FRACTION * level:
+        return ""
+    return (f" CAUTION: the solver's error estimate there ({format_concentration(error)}) "
+            f"is not small compared with the screening level; this time is not reliable. "
+            "Cross-check with another engine or use later output times.")
+
+
+def _summary_lines(scenario, solution):
+    lines = [f"Scenario: {scenario.title}"]
+    receptor = _setting(scenario, "receptor_depth")
+    level = _setting(scenario, "screening_level")
+    t_end = _horizon(scenario, solution)
+    t_start = earliest_resolved_time(solution.times)
+    if receptor is not None:
+        where = f"Receptor at {receptor:g} m"
+        if level is not None:
+            t_cross = first_crossing(solution.concentration_at, receptor, level, t_end,
+                                     t_start)
+            shown = format_concentration(level)
+            if t_cross is None:
+                lines.append(f"{where}: screening level {shown} not reached within the run "
+                             f"({format_time(t_start)} to {format_time(t_end)}).")
+            elif t_cross <= t_start:
+                lines.append(f"{where}: screening level {shown} already reached at the "
+                             f"earliest output time {format_time(t_start)}; earlier times "
+                             "are not resolved (add earlier output times)."
+                             + _reliability_note(solution, receptor, t_start, level))
+            else:
+                life = _setting(scenario, "design_life")
+                against = ""
+                if life:
+                    side = "within" if t_cross <= life else "after"
+                    against = f", {side} the {format_time(life)} design life"
+                lines.append(f"{where}: screening level {shown} first reached at "
+                             f"{format_time(t_cross)}{against}."
+                             + _reliability_note(solution, receptor, t_cross, level))
+        t_peak, c_peak = peak(solution.concentration_at, receptor, t_end, t_start)
+        c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
+        if c_peak - c_end <= PLATEAU_RTOL * max(abs(c_peak), 1e-300):
+            lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
+                         f"the end of the run ({format_time(t_end)}); it is still rising or "
+                         "at steady state, so the peak lies beyond the run.")
+        else:
+            lines.append(f"{where}: peak {format_concentration(c_peak)} at "
+                         f"{format_time(t_peak)}.")
+    budget = getattr(solution, "budget", None) or {}
+    if budget:
+        last = {k: float(np.asarray(v)[-1]) for k, v in budget.items()}
+        scale = max([abs(v) for k, v in last.items() if k != "residual"] + [1e-300])
+        lines.append(
+            f"Mass budget at {format_time(float(solution.times[-1]))} (kg/m2): "
+            f"stored {last.get('stored', math.nan):.6g}, initial "
+            f"{last.get('initial_stored', math.nan):.6g}, entered top "
+            f"{last.get('entered_top', math.nan):.6g}, left bottom "
+            f"{last.get('left_bottom', math.nan):.6g}, decayed "
+            f"{last.get('decayed', math.nan):.6g}, produced {last.get('produced', math.nan):.6g}; "
+            f"residual {last.get('residual', math.nan):.3g} "
+            f"({abs(last.get('residual', math.nan)) / scale:.2g} of the largest term).")
+    return lines
+
+
+def _write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title):
+    from transport.plots import plot_breakthrough, plot_profiles
+
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    written = [plot_profiles(source, out_dir / f"{stem}_profiles.png",
+                             screening_level=screening_level, title=title)]
+    if receptor_depth is not None:
+        written.append(plot_breakthrough(source, out_dir / f"{stem}_breakthrough.png",
+                                         receptor_depth=receptor_depth,
+                                         screening_level=screening_level, title=title))
+    return written
+
+
+#: Columns of the ``check`` table: (key in derived_table rows, heading, SI -> shown factor,
+#: format). Shown units: m, m2/s, years, m/yr.
+_TABLE_COLUMNS = (
+    ("top", "top m", 1.0, "{:.3g}"),
+    ("bottom", "bottom m", 1.0, "{:.3g}"),
+    ("water_content", "theta", 1.0, "{:.3g}"),
+    ("retardation_factor", "R", 1.0, "{:.4g}"),
+    ("diffusivity", "D m2/s", 1.0, "{:.3e}"),
+    ("half_life", "half-life yr", 1.0 / SECONDS_PER_YEAR, "{:.4g}"),
+    ("pore_velocity", "v m/yr", SECONDS_PER_YEAR, "{:.4g}"),
+    ("peclet_number", "Peclet", 1.0, "{:.3g}"),
+    ("diffusion_time", "t_diff yr", 1.0 / SECONDS_PER_YEAR, "{:.4g}"),
+    ("advection_time", "t_adv yr", 1.0 / SECONDS_PER_YEAR, "{:.4g}"),
+)
+
+
+def format_layer_table(rows) -> str:
+    """Plain-text table of derived per-layer properties (rows of SI floats).
+
+    t_diff = R h^2 / D and t_adv = R h / v are the usual layer time scales
+    (common practice); "-" marks a value that does not apply (no decay, no flow).
+    """
+    header = ["layer"] + [heading for _, heading, _, _ in _TABLE_COLUMNS]
+    body = []
+    for i, row in enumerate(rows, start=1):
+        cells = [str(row.get("name") or f"layer {i}")]
+        for key, _, factor, fmt in _TABLE_COLUMNS:
+            value = row.get(key)
+            if value is None or (isinstance(value, float) and not math.isfinite(value)):
+                cells.append("-")
+            else:
+                cells.append(fmt.format(float(value) * factor))
+        body.append(cells)
+    widths = [max(len(r[j]) for r in [header] + body) for j in range(len(header))]
+    lines = ["  ".join(c.ljust(w) if j == 0 else c.rjust(w)
+                       for j, (c, w) in enumerate(zip(r, widths)))
+             for r in [header] + body]
+    sources = []
+    for row in rows:
+        for key in ("sorption_source", "diffusion_source"):
+            text = row.get(key)
+            if text and text not in sources:
+                sources.append(text)
+    if sources:
+        lines.append("Sources: " + "; ".join(sources))
+    return "\n".join(lines)
+
+
+def _echo_wrapped(text: str):
+    click.echo(textwrap.fill(text, width=88))
+
+
+# ----------------------------------------------------------------------------- commands
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="stratiflux")
+def main():
+    """stratiflux: dissolved contaminants through layered soil columns (1-D).
+
+    \b
+    Example:
+      stratiflux new site.toml && stratiflux run site.toml --plots figures
+
+    A screening-level model under stated assumptions; decisions rest with the
+    regulator, local codes and licensed professionals.
+    """
+
+
+@main.command()
+@click.argument("scenario", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+              help="NetCDF file to write (default: the scenario path with .nc).")
+@click.option("--plots", "plots_dir", type=click.Path(file_okay=False), default=None,
+              help="Directory for PNG figures (profiles, breakthrough).")
+def run(scenario, output, plots_dir):
+    """Solve SCENARIO, write a CF NetCDF file and print a summary.
+
+    \b
+    Example:
+      stratiflux run scenarios/spill-layered-column.toml -o spill.nc --plots figures
+    """
+    from transport.io.netcdf import write_column_netcdf
+
+    total = 4 if plots_dir else 3
+    output = output or str(Path(scenario).with_suffix(".nc"))
+    target_dir = os.path.dirname(os.path.abspath(output))
+    if not os.path.isdir(target_dir):  # fail before the solve, not after it
+        raise UserError(f"Cannot write {output}: the directory {target_dir} does not exist. "
+                        "Create it or choose another path with -o.")
+    _progress(1, total, f"reading {scenario}")
+    sc = _load(scenario)
+    _progress(2, total, f"solving {len(sc.column.layers)} layer(s), "
+                        f"{len(sc.times)} time(s) x {len(sc.depths)} depth(s)")
+    solution = _solve(sc)
+    click.echo(f"      {solution.n_modes} modes ({solution.engine} engine)", err=True)
+    _progress(3, total, f"writing {output}")
+    command = ["stratiflux", "run", str(scenario), "-o", str(output)]
+    if plots_dir:
+        command += ["--plots", str(plots_dir)]
+    receptor, level = _setting(sc, "receptor_depth"), _setting(sc, "screening_level")
+    write_column_netcdf(solution, output, title=sc.title,
+                        scenario_text=getattr(sc, "source_text", None),
+                        screening_level=level, receptor_depth=receptor,
+                        history=shlex.join(command))
+    if plots_dir:
+        _progress(4, total, f"drawing figures in {plots_dir}")
+        for path in _write_plots(solution, plots_dir, Path(output).stem,
+                                 receptor_depth=receptor, screening_level=level,
+                                 title=sc.title):
+            click.echo(f"      {path}", err=True)
+    click.echo("")
+    for line in _summary_lines(sc, solution):
+        _echo_wrapped(line)
+    click.echo(f"Results: {output}")
+    click.echo("")
+    _echo_wrapped(CAUTION)
+
+
+@main.command()
+@click.argument("scenario", type=click.Path(dir_okay=False))
+def check(scenario):
+    """Validate SCENARIO and print the derived per-layer properties.
+
+    \b
+    Example:
+      stratiflux check scenarios/spill-layered-column.toml
+    """
+    sc = _load(scenario)
+    click.echo(f"Scenario: {sc.title}")
+    table = sc.derived_table()
+    click.echo(table if isinstance(table, str) else format_layer_table(table))
+    click.echo(f"OK: {scenario} is valid ({len(sc.column.layers)} layer(s), "
+               f"{sc.column.length:g} m).")
+
+
+@main.command()
+@click.argument("scenario", type=click.Path(dir_okay=False))
+@click.option("-n", "--show", default=10, show_default=True,
+              help="How many of the slowest modes to list.")
+def modes(scenario, show):
+    """List the decay rates (eigenvalues) and time constants of SCENARIO's column.
+
+    The mode count is the one the solver needs for the scenario's earliest output
+    time and tolerance.
+
+    \b
+    Example:
+      stratiflux modes scenarios/sediment-cap.toml -n 5
+    """
+    sc = _load(scenario)
+    solution = _solve(sc, depths=[0.0, sc.column.length])
+    lam = np.asarray(solution.eigenvalues, dtype=float)
+    click.echo(f"Scenario: {sc.title}")
+    tolerance = _setting(sc, "tolerance")
+    click.echo(f"Modes used: {solution.n_modes} (tolerance {tolerance:g}, earliest "
+               f"output time {format_time(float(np.min(sc.times)))})")
+    click.echo(f"{'mode':>5}  {'eigenvalue (1/s)':>17}  {'time constant 1/lambda':>22}")
+    for i, value in enumerate(lam[:show], start=1):
+        tau = format_time(1.0 / value) if value > 0 else "inf"
+        click.echo(f"{i:>5}  {value:>17.6e}  {tau:>22}")
+    if lam.size > show:
+        click.echo(f"  ... {lam.size - show} more; fastest {lam[-1]:.6e} 1/s "
+                   f"({format_time(1.0 / lam[-1])})")
+
+
+@main.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", type=click.Path(file_okay=False), default=None,
+              help="Directory for the PNG figures (default: next to FILE).")
+def plot(file, out_dir):
+    """Draw figures from a NetCDF FILE written by 'stratiflux run'.
+
+    \b
+    Example:
+      stratiflux plot spill.nc --out figures
+    """
+    from transport.io.netcdf import read_column_netcdf
+
+    if not os.path.exists(file):
+        raise FileNotFoundError(2, "no such file", file)
+    try:
+        ds = read_column_netcdf(file)
+    except (ValueError, OSError) as exc:
+        raise UserError(f"Cannot read {file} as a stratiflux NetCDF file: {exc}") from None
+    missing = [v for v in ("concentration", "depth", "time") if v not in ds.variables]
+    if missing:
+        raise UserError(f"{file} lacks the variable(s) {', '.join(missing)}; give a file "
+                        "written by 'stratiflux run'.")
+    receptor = float(ds["receptor_depth"]) if "receptor_depth" in ds.variables else None
+    level = float(ds["screening_level"]) if "screening_level" in ds.variables else None
+    out_dir = out_dir or (os.path.dirname(os.path.abspath(file)))
+    for path in _write_plots(ds, out_dir, Path(file).stem, receptor_depth=receptor,
+                             screening_level=level, title=ds.attrs.get("title", "")):
+        click.echo(path)
+
+
+@main.command()
+@click.argument("path", type=click.Path(dir_okay=False), default="scenario.toml")
+@click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
+def new(path, force):
+    """Write a commented starter scenario to PATH (default: scenario.toml).
+
+    \b
+    Example:
+      stratiflux new my-site.toml
+    """
+    from transport.scenario import starter_scenario_text
+
+    if os.path.exists(path) and not force:
+        raise UserError(f"{path} already exists; choose another name or pass --force to "
+                        "overwrite it.")
+    Path(path).write_text(starter_scenario_text(), encoding="utf-8")
+    click.echo(f"Wrote {path}. Next: stratiflux check {path}  then  stratiflux run {path}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,375 @@
+"""CF-1.11 NetCDF output for one layered column.
+
+The file is a single-station ``timeSeriesProfile`` (CF Conventions 1.11, section 9 and
+Appendix H.5, "single time series profile"): dimensions ``(time, depth)``, a scalar
+``station_id`` with ``cf_role = "timeseries_id"``, depth positive down with cell
+bounds, time as float64 ``days since 2000-01-01 00:00:00`` (a nominal start: the model
+knows elapsed time only, and says so in the ``comment``). Units follow UDUNITS-2.
+
+Per-layer properties (``layer`` dimension) and the mass budget ``(time,)`` are stored
+beside the fields so that a reviewer can re-check the run from the file alone.
+
+Writing is atomic: the dataset goes to a temporary file in the output directory, which
+is renamed over the target with :func:`os.replace` only once it is complete. On any
+failure the temporary file is removed and an existing output is left untouched.
+"""
+from __future__ import annotations
+
+import contextlib
+import datetime as _dt
+import os
+import tempfile
+
+import numpy as np
+import xarray as xr
+
+from transport.caution import CAUTION
+
+__all__ = [
+    "NOMINAL_START",
+    "column_dataset",
+    "write_column_netcdf",
+    "read_column_netcdf",
+    "elapsed_seconds",
+]
+
+#: Nominal start of the run. The model has no calendar; times are elapsed times.
+NOMINAL_START = "2000-01-01 00:00:00"
+TIME_UNITS = f"days since {NOMINAL_START}"
+SECONDS_PER_DAY = 86400.0
+#: Fill value of the float32 fields (NETCDF.md); budgets are float64 with the same fill.
+FILL_VALUE = -9999.0
+#: zlib level 4 + shuffle: readable by every GDAL and netCDF-C build (NETCDF.md).
+_COMPRESSION = {"zlib": True, "complevel": 4, "shuffle": True}
+
+_BUDGET_TERMS = (
+    # key in solution.budget, variable name, long_name
+    ("stored", "stored_mass", "dissolved plus sorbed mass stored in the column per unit area"),
+    ("initial_stored", "initial_stored_mass",
+     "dissolved plus sorbed mass stored in the column per unit area at time 0"),
+    ("entered_top", "mass_entered_top",
+     "cumulative mass per unit area that entered through the top of the column"),
+    ("left_bottom", "mass_left_bottom",
+     "cumulative mass per unit area that left through the bottom of the column"),
+    ("decayed", "mass_decayed", "cumulative mass per unit area removed by first-order decay"),
+    ("produced", "mass_produced",
+     "cumulative mass per unit area added by zero-order sources"),
+    ("residual", "mass_balance_residual",
+     "mass balance residual per unit area: stored - initial - entered + left + decayed "
+     "- produced (zero for an exact solution)"),
+)
+
+
+def _version() -> str:
+    """Installed distribution version, else the package's ``__version__``."""
+    try:
+        from importlib.metadata import PackageNotFoundError, version
+
+        return version("stratiflux")
+    except (ImportError, PackageNotFoundError):
+        try:
+            from transport import __version__
+        except ImportError:  # pragma: no cover - the package always defines it
+            return "unknown"
+        return str(__version__)
+
+
+def _utc_now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace(
+        "+00:00", "Z")
+
+
+def _depth_bounds(depths: np.ndarray, length: float) -> np.ndarray:
+    """Cell bounds around each depth node: midpoints inside, the column faces outside."""
+    edges = np.empty(depths.size + 1)
+    edges[1:-1] = 0.5 * (depths[1:] + depths[:-1])
+    edges[0] = min(0.0, depths[0])
+    edges[-1] = max(length, depths[-1])
+    return np.column_stack([edges[:-1], edges[1:]])
+
+
+def _as_array(name: str, value, shape: tuple) -> np.ndarray:
+    arr = np.asarray(value, dtype=float)
+    if arr.shape != shape:
+        raise ValueError(f"solution.{name} has shape {arr.shape}, expected {shape} "
+                         "(times, depths)")
+    return arr
+
+
+def column_dataset(solution, *, title: str, scenario_text: str | None = None,
+                   screening_level: float | None = None,
+                   receptor_depth: float | None = None,
+                   history: str | None = None, station_id: str = "column") -> xr.Dataset:
+    """Build the CF dataset of one column run (no file is written).
+
+    Parameters
+    ----------
+    solution : ColumnSolution
+        Result of ``transport.modal.solve`` (or any object with the same attributes:
+        ``column, times, depths, concentration, total_flux, cumulative_mass, budget,
+        n_modes, engine``), SI units.
+    title : str
+        Short title of the run (the scenario title).
+    scenario_text : str, optional
+        Full text of the scenario file, stored verbatim in the ``scenario_text``
+        global attribute so the file documents its own inputs.
+    screening_level : float, optional
+        Screening level, kg m-3; stored as a scalar variable.
+    receptor_depth : float, optional
+        Depth of the receptor (point of compliance), m; stored as a scalar variable.
+    history : str, optional
+        Command line or call that produced the file; prefixed with the UTC time.
+    station_id : str
+        Name of the single station (CF ``timeseries_id``).
+
+    Returns
+    -------
+    xarray.Dataset
+        Encodings (compression, fill values, dtypes) are set on each variable.
+    """
+    times = np.asarray(solution.times, dtype=float)
+    depths = np.asarray(solution.depths, dtype=float)
+    if times.ndim != 1 or depths.ndim != 1 or times.size == 0 or depths.size == 0:
+        raise ValueError("solution.times and solution.depths must be non-empty 1-D arrays")
+    if np.any(np.diff(depths) <= 0):
+        raise ValueError("solution.depths must increase strictly (m, positive down)")
+    if np.any(np.diff(times) <= 0):
+        raise ValueError("solution.times must increase strictly (s)")
+    shape = (times.size, depths.size)
+    column = solution.column
+    layers = column.layers
+    interfaces = np.asarray(column.interfaces, dtype=float)
+    created = _utc_now()
+    caution = CAUTION
+
+    def field(values, units, long_name, extra=""):
+        return (("time", "depth"), values, {
+            "long_name": long_name, "units": units,
+            "coverage_content_type": "modelResult",
+            "comment": (extra + " " if extra else "") + caution})
+
+    data_vars = {
+        "concentration": field(
+            _as_array("concentration", solution.concentration, shape), "kg m-3",
+            "pore-water concentration of the dissolved contaminant",
+            "At a face with a partition jump the value just below the face is given."),
+        "total_flux": field(
+            _as_array("total_flux", solution.total_flux, shape), "kg m-2 s-1",
+            "total (advective plus dispersive) contaminant mass flux, positive downward",
+            "F = q C - theta D dC/dz per unit area of the column."),
+        "cumulative_mass": field(
+            _as_array("cumulative_mass", solution.cumulative_mass, shape), "kg m-2",
+            "cumulative contaminant mass per unit area that crossed the depth downward "
+            "since time 0"),
+    }
+    budget = getattr(solution, "budget", {}) or {}
+    for key, name, long_name in _BUDGET_TERMS:
+        if key in budget:
+            values = np.asarray(budget[key], dtype=float)
+            if values.shape != (times.size,):
+                raise ValueError(f"solution.budget[{key!r}] has shape {values.shape}, "
+                                 f"expected ({times.size},)")
+            data_vars[name] = (("time",), values, {
+                "long_name": long_name, "units": "kg m-2",
+                "coverage_content_type": "modelResult", "comment": caution})
+
+    layer_attrs = {"coverage_content_type": "modelResult"}
+    data_vars.update({
+        "layer_name": (("layer",), np.array([lay.name or f"layer {i + 1}"
+                                             for i, lay in enumerate(layers)], dtype=object),
+                       {"long_name": "name of the layer", **layer_attrs}),
+        "layer_top": (("layer",), interfaces[:-1],
+                      {"long_name": "depth of the top face of the layer", "units": "m",
+                       **layer_attrs}),
+        "layer_bottom": (("layer",), interfaces[1:],
+                         {"long_name": "depth of the bottom face of the layer", "units": "m",
+                          **layer_attrs}),
+        "porosity": (("layer",), [lay.porosity for lay in layers],
+                     {"long_name": "water-filled porosity of the layer", "units": "1",
+                      **layer_attrs}),
+        "diffusivity": (("layer",), [lay.diffusivity for lay in layers],
+                        {"long_name": "pore-water diffusion plus mechanical dispersion "
+                                      "coefficient of the layer", "units": "m2 s-1",
+                         **layer_attrs}),
+        "retardation_factor": (("layer",), [lay.retardation for lay in layers],
+                               {"long_name": "retardation factor of the layer", "units": "1",
+                                **layer_attrs}),
+        "decay_rate": (("layer",), [lay.decay_rate for lay in layers],
+                       {"long_name": "first-order decay rate of the layer", "units": "s-1",
+                        **layer_attrs}),
+        "source_rate": (("layer",), [lay.source_rate for lay in layers],
+                        {"long_name": "zero-order production rate per bulk volume of the "
+                                      "layer", "units": "kg m-3 s-1", **layer_attrs}),
+        "partition_to_next": (("layer",), [lay.partition_to_next for lay in layers],
+                              {"long_name": "partition coefficient at the lower face of the "
+                                            "layer (C below = K C above)", "units": "1",
+                               **layer_attrs}),
+        # a data variable, not a coordinate: xarray would list a bounds coordinate in a
+        # non-standard global "coordinates" attribute
+        "depth_bnds": (("depth", "nv"), _depth_bounds(depths, float(column.length)),
+                       {"units": "m"}),
+        "darcy_flux": ((), float(column.darcy_flux),
+                       {"long_name": "steady Darcy flux, positive downward",
+                        "units": "m s-1", **layer_attrs}),
+    })
+    if screening_level is not None:
+        data_vars["screening_level"] = ((), float(screening_level), {
+            "long_name": "screening level of pore-water concentration used in the summary",
+            "units": "kg m-3", "comment": caution})
+    if receptor_depth is not None:
+        data_vars["receptor_depth"] = ((), float(receptor_depth), {
+            "long_name": "depth of the receptor (point of compliance) below the column top",
+            "units": "m"})
+
+    coords = {
+        "time": (("time",), times / SECONDS_PER_DAY, {
+            "standard_name": "time", "long_name": "elapsed time since the start of the run",
+            "units": TIME_UNITS, "calendar": "proleptic_gregorian",
+            "units_metadata": "leap_seconds: none", "axis": "T",
+            "comment": f"The run starts at time 0; {NOMINAL_START} is a nominal start "
+                       "date, not a real one: read the values as elapsed days."}),
+        "depth": (("depth",), depths, {
+            "standard_name": "depth", "long_name": "depth below the top of the column",
+            "units": "m", "positive": "down", "axis": "Z", "bounds": "depth_bnds"}),
+        "layer": (("layer",), np.arange(1, len(layers) + 1, dtype=np.int32),
+                  {"long_name": "layer index, 1 at the top"}),
+        "station_id": ((), station_id, {"long_name": "station identifier",
+                                        "cf_role": "timeseries_id"}),
+    }
+
+    n_layers = len(layers)
+    attrs = {
+        "Conventions": "CF-1.11",
+        "featureType": "timeSeriesProfile",
+        "title": str(title),
+        "summary": (
+            f"Dissolved-contaminant pore-water concentration, total mass flux and "
+            f"cumulative mass versus depth and elapsed time in a layered soil column "
+            f"({n_layers} layer{'s' if n_layers != 1 else ''}, {column.length:g} m), "
+            f"with the column mass budget."),
+        "source": (f"stratiflux {_version()}; engine {getattr(solution, 'engine', 'unknown')}: "
+                   f"eigenfunction expansion on the exact layered spectrum "
+                   f"({int(getattr(solution, 'n_modes', 0))} modes)"),
+        "history": f"{created} {history or 'transport.io.netcdf.write_column_netcdf'}",
+        "references": (
+            "CF Conventions 1.11 (https://cfconventions.org); "
+            "Pruess and Fulton 1993, ACM TOMS 19:360; "
+            "Hickson, Barry and Mercer 2009, Int. J. Heat Mass Transfer 52:5776; "
+            "Carr and Turner 2016, Appl. Math. Model. 40:7034"),
+        "comment": caution,
+        "date_created": created,
+    }
+    if scenario_text is not None:
+        attrs["scenario_text"] = str(scenario_text)
+
+    ds = xr.Dataset(data_vars=data_vars, coords=coords, attrs=attrs)
+    for name, var in ds.variables.items():
+        if name in ds.coords or name in ("layer_name", "depth_bnds"):
+            var.encoding = {"_FillValue": None}
+        elif var.dims in (("time", "depth"),):
+            var.encoding = {**_COMPRESSION, "dtype": "float32", "_FillValue": FILL_VALUE}
+        elif var.dims == ("time",):
+            var.encoding = {**_COMPRESSION, "dtype": "float64", "_FillValue": FILL_VALUE}
+        else:
+            var.encoding = {"_FillValue": None}
+    ds["time"].encoding["dtype"] = "float64"
+    return ds
+
+
+def _new_file_mode(path: str) -> int:
+    """Permissions for the output: those of the file replaced, else 0o666 minus umask."""
+    try:
+        return os.stat(path).st_mode & 0o7777
+    except OSError:
+        umask = os.umask(0)
+        os.umask(umask)
+        return 0o666 & ~umask
+
+
+def write_dataset_atomic(ds: xr.Dataset, path) -> str:
+    """Write ``ds`` to ``path`` as NETCDF4 through a temporary file and a rename.
+
+    The temporary file lives in the same directory (same file system, so
+    :func:`os.replace` is atomic on POSIX and Windows). On any exception it is removed
+    and the exception re-raised; an existing ``path`` is then untouched.
+    """
+    path = os.fspath(path)
+    directory = os.path.dirname(os.path.abspath(path))
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".part",
+                                   dir=directory)
+    except OSError as exc:  # name the file the user asked for, not the temporary one
+        raise type(exc)(exc.errno, f"{exc.strerror} (directory {directory})", path) from None
+    os.close(fd)
+    try:
+        ds.to_netcdf(tmp, mode="w", format="NETCDF4", engine="netcdf4")
+        os.chmod(tmp, _new_file_mode(path))
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.remove(tmp)
+        raise
+    return path
+
+
+def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None = None,
+                        screening_level: float | None = None,
+                        receptor_depth: float | None = None,
+                        history: str | None = None) -> str:
+    """Write one column run to a CF-1.11 NetCDF file, atomically.
+
+    See :func:`column_dataset` for the parameters and the layout. Returns the path.
+
+    Examples
+    --------
+    >>> write_column_netcdf(solution, "b3.nc", title="Invented depot, B-3")  # doctest: +SKIP
+    """
+    ds = column_dataset(solution, title=title, scenario_text=scenario_text,
+                        screening_level=screening_level, receptor_depth=receptor_depth,
+                        history=history)
+    return write_dataset_atomic(ds, path)
+
+
+def read_column_netcdf(path, *, decode_times: bool = True) -> xr.Dataset:
+    """Read a column file written by :func:`write_column_netcdf` into memory.
+
+    With ``decode_times`` (default) the time coordinate becomes ``datetime64[ms]``
+    counted from the nominal start: millisecond resolution over +-2.9e8 years, so long
+    design lives stay exact numpy datetimes. (xarray's own decoder silently switches to
+    nanoseconds, which overflow after 2262, when float days are not whole units.)
+    ``units``/``calendar`` move to ``encoding`` so the dataset can be written back.
+    Pass ``decode_times=False`` to keep the stored float days. :func:`elapsed_seconds`
+    gives elapsed seconds either way. The file is closed on return.
+    """
+    with xr.open_dataset(path, engine="netcdf4", decode_times=False,
+                         decode_timedelta=False) as ds:
+        ds = ds.load()
+    if not decode_times or "time" not in ds.variables:
+        return ds
+    time = ds["time"]
+    units = time.attrs.get("units", "")
+    if units.replace("T", " ") != TIME_UNITS:
+        raise ValueError(f"{path}: time units {units!r} are not {TIME_UNITS!r}; "
+                         "read it with decode_times=False")
+    milliseconds = np.round(np.asarray(time.values, dtype=float) * SECONDS_PER_DAY * 1e3)
+    start = np.datetime64(NOMINAL_START.replace(" ", "T"), "ms")
+    attrs = {k: v for k, v in time.attrs.items() if k not in ("units", "calendar")}
+    decoded = xr.Variable(("time",), start + milliseconds.astype("int64").astype(
+        "timedelta64[ms]"), attrs)
+    decoded.encoding = {"units": TIME_UNITS, "calendar": time.attrs.get(
+        "calendar", "proleptic_gregorian"), "dtype": "float64", "_FillValue": None}
+    return ds.assign_coords(time=decoded)
+
+
+def elapsed_seconds(ds: xr.Dataset) -> np.ndarray:
+    """Elapsed time of each ``time`` value in seconds, decoded or not."""
+    time = ds["time"]
+    values = np.asarray(time.values)
+    if np.issubdtype(values.dtype, np.datetime64):
+        start = np.datetime64(NOMINAL_START.replace(" ", "T"))
+        return (values - start) / np.timedelta64(1, "s")
+    units = time.attrs.get("units", TIME_UNITS)
+    if not units.startswith("days since"):
+        raise ValueError(f"time units {units!r}: expected 'days since ...' as written by "
+                         "write_column_netcdf")
+    return values.astype(float) * SECONDS_PER_DAY
