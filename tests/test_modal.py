@@ -245,3 +245,53 @@ def test_high_peclet_rounding_is_reported():
                  darcy_flux=0.05 / YEAR)
     with pytest.warns(AccuracyWarning):
         solve(col, np.array([1.0, 10.0]) * YEAR, [0.4, 1.5])
+
+
+def test_steady_profile_with_decay_matches_danckwerts():
+    """Late time, Dirichlet top, no-flux bottom, decay: C/C0 = cosh(sqrt(Da)(1 - z/l)) /
+    cosh(sqrt(Da)), Da = mu R l^2 / D (Danckwerts 1951; FIELD notes)."""
+    L, D, R, mu = 1.0, 1e-9, 2.0, 5e-9
+    col = Column(layers=(Layer(0.4, 0.3, D, R, decay_rate=mu), Layer(0.6, 0.3, D, R, decay_rate=mu)),
+                 top=Boundary("concentration", 1.0), bottom=Boundary("sealed"))
+    z = np.linspace(0, L, 11)
+    sol = solve(col, [1e4 * YEAR], z)
+    da = np.sqrt(mu * R * L ** 2 / D)
+    np.testing.assert_allclose(sol.concentration[0], np.cosh(da * (1 - z / L)) / np.cosh(da),
+                               rtol=1e-12)
+
+
+from hypothesis import given, settings, strategies as st  # noqa: E402
+
+_layer = st.builds(Layer, thickness=st.floats(0.01, 1.0), porosity=st.floats(0.1, 0.6),
+                   diffusivity=st.floats(1e-11, 1e-9), retardation=st.floats(1.0, 20.0),
+                   decay_rate=st.sampled_from([0.0, 1e-9]),
+                   source_rate=st.sampled_from([0.0, 1e-13]))
+
+
+@settings(max_examples=15, deadline=None)
+@given(layers=st.lists(_layer, min_size=1, max_size=6),
+       top=st.sampled_from(["concentration", "mass-transfer", "sealed", "flux"]),
+       bottom=st.sampled_from(["concentration", "free-outflow", "sealed", "mass-transfer"]))
+def test_random_stacks_budget_closes(layers, top, bottom):
+    """Property: the mass budget closes (identity) for random stacks and boundaries."""
+    def bc(kind):
+        return Boundary(kind, 1e-9 if kind == "flux" else 1.0,
+                        1e-8 if kind == "mass-transfer" else 0.0)
+    col = Column(layers=tuple(layers), top=bc(top), bottom=bc(bottom))
+    t = np.array([1.0, 10.0, 100.0]) * YEAR
+    sol = solve(col, t, [0.0, col.length], initial=InitialState.uniform([0.5] * len(layers)))
+    b = sol.budget
+    scale = max(np.abs(b[k]).max() for k in ("stored", "entered_top", "left_bottom",
+                                              "decayed", "produced", "initial_stored"))
+    assert np.abs(b["residual"]).max() <= 1e-9 * scale
+
+
+def test_to_dataset_carries_units_and_values():
+    """The notebook path: xarray Dataset with UDUNITS units (CF conventions 1.11)."""
+    col = Column(layers=(Layer(1.0, 0.3, 1e-9),), top=Boundary("concentration", 1.0),
+                 bottom=Boundary("sealed"))
+    sol = solve(col, [YEAR, 2 * YEAR], [0.0, 0.5, 1.0])
+    ds = sol.to_dataset()
+    assert ds["concentration"].attrs["units"] == "kg m-3"
+    assert ds["depth"].attrs["positive"] == "down"
+    np.testing.assert_allclose(ds["concentration"].values, sol.concentration, rtol=1e-6)

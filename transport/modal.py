@@ -366,6 +366,11 @@ class ColumnSolution:
     def concentration_at(self, depth, times):
         return self.series.concentration_at(depth, times)
 
+    def to_dataset(self, title: str = "stratiflux column"):
+        """The fields as an xarray.Dataset (CF layout, units in the attributes)."""
+        from .io.netcdf import column_dataset
+        return column_dataset(self, title=title)
+
 
 def solve(column: Column, times, depths, initial: InitialState = None,
           tolerance: float = 1e-8, max_modes: int = 4000, n_modes: int = None):
