@@ -119,6 +119,7 @@ class ModalSeries:
     mass_lift: np.ndarray  # int a phi_k over each layer, (N, 3)
     initial: InitialState = field(default_factory=InitialState.clean)
     initial_mass: float = 0.0
+    lift_coef: np.ndarray = None  # c_n, projections of the lifting (n,)
 
     @property
     def eigenvalues(self):
@@ -160,8 +161,16 @@ class ModalSeries:
         relative size eps in its terms are multiplied by e^{A(z)} on the way back.  At
         high Peclet numbers and early times this bound, not the mode count, limits the
         accuracy."""
-        c_modes, _, _, _ = self._fields(z)
-        return 4 * np.finfo(float).eps * (np.abs(c_modes) @ np.abs(self.coefficients(t))).T
+        c_modes, _, c_lift, _ = self._fields(z)
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        # magnitudes before cancellation: projection of the initial state and of the
+        # lifting enter a_n separately; each is a sum over many quadrature nodes/terms
+        lam = self.modes.lam[:, None]
+        size = (np.abs(self.a0) + np.abs(self.forcing / np.where(self.modes.lam != 0,
+                                                               self.modes.lam, 1.0))
+                + np.abs(self.lift_coef))[:, None] * np.exp(-lam * t[None, :])
+        n = max(self.modes.lam.size, 1)
+        return 16 * np.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
 
     def concentration_at(self, depth, times):
         """C at one depth for any times: 1-D array (continuous in time)."""
@@ -296,7 +305,8 @@ def build_series(column: Column, initial: InitialState = None, t_min: float = No
     initial_mass = float(np.sum(wq * op.a[lq] * u0))
     return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
                        a0=proj0 - c_lift, forcing=eps * c_lift, mass_modes=mass_modes,
-                       mass_lift=mass_lift, initial=initial, initial_mass=initial_mass)
+                       mass_lift=mass_lift, initial=initial, initial_mass=initial_mass,
+                       lift_coef=c_lift)
 
 
 def _transient_flux_integral(series: "ModalSeries", z):
@@ -360,8 +370,16 @@ class ColumnSolution:
         relative size eps in its terms are multiplied by e^{A(z)} on the way back.  At
         high Peclet numbers and early times this bound, not the mode count, limits the
         accuracy."""
-        c_modes, _, _, _ = self._fields(z)
-        return 4 * np.finfo(float).eps * (np.abs(c_modes) @ np.abs(self.coefficients(t))).T
+        c_modes, _, c_lift, _ = self._fields(z)
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        # magnitudes before cancellation: projection of the initial state and of the
+        # lifting enter a_n separately; each is a sum over many quadrature nodes/terms
+        lam = self.modes.lam[:, None]
+        size = (np.abs(self.a0) + np.abs(self.forcing / np.where(self.modes.lam != 0,
+                                                               self.modes.lam, 1.0))
+                + np.abs(self.lift_coef))[:, None] * np.exp(-lam * t[None, :])
+        n = max(self.modes.lam.size, 1)
+        return 16 * np.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
 
     def concentration_at(self, depth, times):
         return self.series.concentration_at(depth, times)
