@@ -364,22 +364,8 @@ class ColumnSolution:
     series: ModalSeries = field(default=None, repr=False, compare=False)
 
     def roundoff_bound(self, z, t):
-        """Estimated rounding error of C (kg m-3), shape (t.size, z.size).
-
-        The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
-        relative size eps in its terms are multiplied by e^{A(z)} on the way back.  At
-        high Peclet numbers and early times this bound, not the mode count, limits the
-        accuracy."""
-        c_modes, _, c_lift, _ = self._fields(z)
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        # magnitudes before cancellation: projection of the initial state and of the
-        # lifting enter a_n separately; each is a sum over many quadrature nodes/terms
-        lam = self.modes.lam[:, None]
-        size = (np.abs(self.a0) + np.abs(self.forcing / np.where(self.modes.lam != 0,
-                                                               self.modes.lam, 1.0))
-                + np.abs(self.lift_coef))[:, None] * np.exp(-lam * t[None, :])
-        n = max(self.modes.lam.size, 1)
-        return 16 * np.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
+        """Estimated rounding error of C (kg m-3), shape (t.size, z.size)."""
+        return self.series.roundoff_bound(z, t)
 
     def concentration_at(self, depth, times):
         return self.series.concentration_at(depth, times)
