@@ -102,6 +102,29 @@ def _gauss_solve(M, rhs):
     return x
 
 
+def _signal_transform(bc, s, t_eval=None):
+    """Laplace transform of a boundary value: value/s, or for a schedule the sum of its
+    atoms: step A e^{-s t0}/s, ramp S e^{-s t0}/s^2, exponential A e^{-s t0}/(s + r)
+    (standard transform pairs, e.g. Abramowitz & Stegun 1964, table 29.3).  Atoms that
+    switch on after the evaluation time ``t_eval`` contribute nothing there (causality)
+    and are left out, since their delay factor grows on the inversion contour."""
+    sched = getattr(bc, "schedule", None)
+    if sched is None:
+        return mp.mpf(bc.value) / s
+    out = mp.mpf(0)
+    for kind, t0, amp, rate in sched.atoms:
+        if t_eval is not None and t0 >= t_eval:
+            continue
+        delay = mp.exp(-s * mp.mpf(t0))
+        if kind == "step":
+            out += mp.mpf(amp) * delay / s
+        elif kind == "ramp":
+            out += mp.mpf(amp) * delay / (s * s)
+        else:
+            out += mp.mpf(amp) * delay / (s + mp.mpf(rate))
+    return out
+
+
 class _LaplaceColumn:
     """Exact Laplace-domain solution C^(z, s) of the layered column.
 
@@ -122,6 +145,7 @@ class _LaplaceColumn:
         self.segs = _segments(column, initial)
         self.q = column.darcy_flux
         self._cache = {}
+        self.t_eval = None  # output time being inverted (for switched signals)
 
     # -- one Laplace parameter ----------------------------------------------------------
     def _solve(self, s):
@@ -171,7 +195,7 @@ class _LaplaceColumn:
         for row, end, i, zeta in ((0, "top", 0, mp.mpf(0)),
                                   (2 * n - 1, "bottom", n - 1, parts[-1]["L"])):
             bc = getattr(self.column, end)
-            val = mp.mpf(bc.value) / s
+            val = _signal_transform(bc, s, self.t_eval)
             sign = 1 if end == "top" else -1
             if bc.kind == "concentration":
                 put(row, i, *row_c(i, zeta))
@@ -280,6 +304,7 @@ def laplace_reference(column: Column, depths, times, initial: InitialState | Non
     with mp.workdps(dps):
         for it, t in enumerate(times):
             model.clear()  # Talbot/de Hoog nodes depend on t only: share them across depths
+            model.t_eval = float(t)
             for iz, z in enumerate(depths):
                 val = mp.invertlaplace(lambda s, z=z: model.transform(s, z), mp.mpf(t),
                                        method=method)

@@ -31,7 +31,8 @@ __all__ = ["SteadyResponses", "steady_responses"]
 
 @dataclass(frozen=True)
 class SteadyResponses:
-    """Coefficients of the steady responses; columns: 0 top, 1 bottom, 2 sources.
+    """Coefficients of the steady responses; columns: 0 top, 1 bottom, 2 + i the source
+    of layer i.
 
     Column 0 solves the top row  alpha_u u + beta_u k u' = 1  with a homogeneous bottom
     row (and no source), column 1 the converse; the physical lifting for a boundary
@@ -44,25 +45,26 @@ class SteadyResponses:
     r_minus: np.ndarray  # (N,)
     r_plus: np.ndarray
     exp_form: np.ndarray  # bool (N,): second basis function e^{r+(s-l)}
-    c1: np.ndarray  # (N, 3)
-    c2: np.ndarray  # (N, 3)
+    c1: np.ndarray  # (N, K)
+    c2: np.ndarray  # (N, K)
     m_eff: np.ndarray
 
     def evaluate(self, z):
-        """u and k u' of each response at depths z: arrays (z.size, 3)."""
+        """u and k u' of each response at depths z: arrays (z.size, K), K = N + 2."""
         op = self.op
         z = np.atleast_1d(np.asarray(z, dtype=float))
         lay = np.clip(np.searchsorted(op.z, z, side="right") - 1, 0, op.n_layers - 1)
-        u = np.zeros((z.size, 3))
-        du = np.zeros((z.size, 3))
+        K = self.c1.shape[1]
+        u = np.zeros((z.size, K))
+        du = np.zeros((z.size, K))
         for i in np.unique(lay):
             sel = np.flatnonzero(lay == i)
             s = z[sel] - op.z[i]
             f1, d1, f2, d2, pp, dp = _basis(self, i, s)
             u[sel] = f1[:, None] * self.c1[i] + f2[:, None] * self.c2[i]
             du[sel] = d1[:, None] * self.c1[i] + d2[:, None] * self.c2[i]
-            u[sel, 2] += op.source[i] * pp
-            du[sel, 2] += op.source[i] * dp
+            u[sel, 2 + i] += op.source[i] * pp
+            du[sel, 2 + i] += op.source[i] * dp
         return u, op.k[lay][:, None] * du
 
 
@@ -115,10 +117,11 @@ def steady_responses(op: Operator, eps: float = 0.0) -> SteadyResponses:
     m_eff = op.m + eps * op.a
     rm, rp = _roots(op, m_eff)
     exp_form = (rp - rm) * op.thickness > 1.0
-    resp = SteadyResponses(op, eps, rm, rp, exp_form, np.zeros((N, 3)), np.zeros((N, 3)), m_eff)
+    K = N + 2
+    resp = SteadyResponses(op, eps, rm, rp, exp_form, np.zeros((N, K)), np.zeros((N, K)), m_eff)
     n = 2 * N
     ab = np.zeros((5, n))  # bands: u=2, l=2 ; ab[2 + r - c, c] = A[r, c]
-    rhs = np.zeros((n, 3))
+    rhs = np.zeros((n, K))
 
     def put(r, c, val):
         ab[2 + r - c, c] = val
@@ -136,7 +139,7 @@ def steady_responses(op: Operator, eps: float = 0.0) -> SteadyResponses:
     put(0, 0, sc * (al * f1[0] + be * d1[0]))
     put(0, 1, sc * (al * f2[0] + be * d2[0]))
     rhs[0, 0] = sc
-    rhs[0, 2] = -sc * (al * pp[0] + be * dp[0])
+    rhs[0, 2] = -sc * (al * pp[0] + be * dp[0])  # layer 0 source
     for i in range(N - 1):
         A_, B_ = ends[i], ends[i + 1]
         r1, r2 = 2 * i + 1, 2 * i + 2
@@ -145,13 +148,15 @@ def steady_responses(op: Operator, eps: float = 0.0) -> SteadyResponses:
         put(r1, c0 + 1, A_[2][1])
         put(r1, c0 + 2, -B_[0][0])
         put(r1, c0 + 3, -B_[2][0])
-        rhs[r1, 2] = -(A_[4][1] - B_[4][0])
+        rhs[r1, 2 + i] = -A_[4][1]
+        rhs[r1, 3 + i] = B_[4][0]
         fs = 1.0 / max(op.k[i] / op.thickness[i], op.k[i + 1] / op.thickness[i + 1], abs(op.q))
         put(r2, c0, fs * A_[1][1])
         put(r2, c0 + 1, fs * A_[3][1])
         put(r2, c0 + 2, -fs * B_[1][0])
         put(r2, c0 + 3, -fs * B_[3][0])
-        rhs[r2, 2] = -fs * (A_[5][1] - B_[5][0])
+        rhs[r2, 2 + i] = -fs * A_[5][1]
+        rhs[r2, 3 + i] = fs * B_[5][0]
     al, be, ga = op.bottom_u
     f1, d1, f2, d2, pp, dp = ends[-1]
     sc = 1.0 / max(abs(al), abs(be) * op.k[-1] / op.thickness[-1], 1e-300)
@@ -159,7 +164,7 @@ def steady_responses(op: Operator, eps: float = 0.0) -> SteadyResponses:
     put(r, n - 2, sc * (al * f1[1] + be * d1[1]))
     put(r, n - 1, sc * (al * f2[1] + be * d2[1]))
     rhs[r, 1] = sc
-    rhs[r, 2] = -sc * (al * pp[1] + be * dp[1])
+    rhs[r, 1 + N] = -sc * (al * pp[1] + be * dp[1])  # last layer source
     sol = solve_banded((2, 2), ab, rhs)
     if not np.all(np.isfinite(sol)):
         raise ArithmeticError("steady response is not finite: the column has no steady state "

@@ -1,20 +1,21 @@
 """Modal superposition on the exact layered spectrum.
 
-With u = C / kappa and the steady responses phi_k of :mod:`transport.lifting`,
+With u = C / kappa, the steady responses phi_k of :mod:`transport.lifting` (k = top value,
+bottom value, source of each layer) and their signals b_k(t) (:mod:`transport.schedules`):
 
-    u(z, t) = sum_k b_k phi_k(z) + e^{A(z)} sum_n a_n(t) psi_n(z),
-    a_n(t)  = a_n(0) e^{-lambda_n t} + eps c_n (1 - e^{-lambda_n t}) / lambda_n,
+    u(z, t) = sum_k b_k(t) phi_k(z) + e^{A(z)} sum_n a_n(t) psi_n(z),
+    a_n' + lambda_n a_n = sum_k c_kn (eps b_k - b_k'),   a_n(0) = P_n - sum_k b_k(0) c_kn,
 
 where psi_n are the weight-normalised eigenfunctions (:mod:`transport.spectrum`),
-c_n = sum_k b_k c_kn are the projections of the lifting, obtained from Green's identity
-(boundary term plus source projection, divided by lambda_n + eps: no quadrature of the
-lifting), and a_n(0) = P_n - c_n with P_n the projection of the initial state.
-Projections of the initial profile and the sources are integrated by Gauss-Legendre on
-panels short enough (frequency x length <= 20, 32 nodes) to be exact to machine
-precision for the trigonometric/exponential integrands.
+c_kn the projections of phi_k from Green's identity (boundary term plus source
+projection, divided by lambda_n + eps: no quadrature of the lifting), P_n the projection
+of the initial state (Gauss-Legendre, :mod:`transport.projection`).  ``eps`` is 0 when
+a steady state exists, else a positive shift giving a smooth lifting.  The modal ODEs
+are solved exactly for steps, ramps and exponential depletion (Duhamel).
 
-Fluxes, cumulative mass through any depth and the full mass budget follow termwise in
-closed form in time.
+Fluxes, cumulative mass through any depth and the full budget follow termwise in closed
+form in time; the slowly converging 1/lambda part of the time integrals is replaced by
+its exact Green's-function value (no truncation error in cumulative masses).
 """
 from __future__ import annotations
 
@@ -26,14 +27,12 @@ import numpy as np
 
 from .lifting import SteadyResponses, steady_responses
 from .model import Column, InitialState, InputError
+from .projection import gauss_nodes, green_flux, initial_profile
+from .schedules import Schedule, phi
 from .spectrum import Modes, Operator, build_operator, eigenvalues, modes
 
 __all__ = ["solve", "ColumnSolution", "ModalSeries", "ModeCapWarning", "AccuracyWarning",
-           "build_series",
-           "required_modes"]
-
-_GL_NODES = 32
-_GL_PANEL = 20.0  # max (frequency x panel length) per Gauss-Legendre panel
+           "build_series", "required_modes", "initial_profile", "column_signals"]
 
 
 class ModeCapWarning(UserWarning):
@@ -44,64 +43,21 @@ class AccuracyWarning(UserWarning):
     """Rounding error (high Peclet number, early time) exceeds the requested tolerance."""
 
 
-def _phi1(lam, t):
-    """(1 - e^{-lam t}) / lam, with the limit t at lam = 0."""
-    x = lam * t
-    small = np.abs(x) < 1e-8
-    xs = np.where(small, 1.0, x)
-    return np.where(small, t * (1 - x / 2), t * (-np.expm1(-xs)) / xs)
-
-
-def _phi2(lam, t):
-    """int_0^t phi1(lam, s) ds = (lam t - 1 + e^{-lam t}) / lam^2, limit t^2/2."""
-    x = lam * t
-    small = np.abs(x) < 0.1
-    series = 0.5 - x / 6 + x ** 2 / 24 - x ** 3 / 120 + x ** 4 / 720 - x ** 5 / 5040 \
-        + x ** 6 / 40320 - x ** 7 / 362880 + x ** 8 / 3628800
-    xs = np.where(small, 1.0, x)
-    direct = (xs + np.expm1(-xs)) / (xs * xs)
-    return t * t * np.where(small, series, direct)
-
-
-def _gauss_nodes(op: Operator, lam: np.ndarray, breaks=()):
-    """Gauss-Legendre nodes/weights over the column, split at faces and ``breaks``."""
-    xg, wg = np.polynomial.legendre.leggauss(_GL_NODES)
-    lam_hi, lam_lo = float(np.max(lam)), float(np.min(lam))
-    zs, ws, lays = [], [], []
-    for i in range(op.n_layers):
-        z0, z1 = op.z[i], op.z[i + 1]
-        w_hi = math.sqrt(max(lam_hi * op.a[i] - op.s[i], 0.0) / op.k[i])
-        b_hi = math.sqrt(max(op.s[i] - lam_lo * op.a[i], 0.0) / op.k[i])
-        rate = w_hi + b_hi + 2 * abs(op.alpha[i]) + 1.0 / (z1 - z0)
-        cuts = [z0] + [b for b in breaks if z0 < b < z1] + [z1]
-        for a_, b_ in zip(cuts[:-1], cuts[1:]):
-            npan = max(1, int(math.ceil(rate * (b_ - a_) / _GL_PANEL)))
-            edges = np.linspace(a_, b_, npan + 1)
-            h = np.diff(edges)[:, None]
-            mid = 0.5 * (edges[:-1] + edges[1:])[:, None]
-            zs.append((mid + 0.5 * h * xg).ravel())
-            ws.append((0.5 * h * wg).ravel())
-            lays.append(np.full(npan * _GL_NODES, i))
-    return np.concatenate(zs), np.concatenate(ws), np.concatenate(lays)
-
-
-def initial_profile(column: Column, initial: InitialState, z):
-    """Initial pore-water concentration C0 at depths z (kg m-3)."""
-    z = np.asarray(z, dtype=float)
-    if initial.kind == "clean":
-        return np.zeros_like(z)
-    if initial.kind == "uniform":
-        if len(initial.values) != len(column.layers):
-            raise InputError(f"a uniform initial state needs one value per layer "
-                             f"({len(column.layers)}), got {len(initial.values)}")
-        lay = np.clip(np.searchsorted(column.interfaces, z, side="right") - 1, 0,
-                      len(column.layers) - 1)
-        return np.asarray(initial.values)[lay]
-    d = np.asarray(initial.depths)
-    if d[-1] > column.length * (1 + 1e-12):
-        raise InputError(f"initial profile sample at {d[-1]} m lies below the column bottom "
-                         f"({column.length} m); remove it or extend the column")
-    return np.interp(z, d, np.asarray(initial.values))
+def column_signals(column: Column, op: Operator):
+    """Signals b_k(t) (Schedules) of the top, bottom and per-layer source responses."""
+    def bc_signal(bc, gamma):
+        if gamma == 0.0:
+            return Schedule()
+        sched = bc.schedule if bc.schedule is not None else Schedule.constant(bc.value)
+        return sched.scaled(gamma)
+    sig = [bc_signal(column.top, op.top_u[2]), bc_signal(column.bottom, op.bottom_u[2])]
+    for lay in column.layers:
+        if lay.source_rate == 0.0:
+            sig.append(Schedule())
+        else:
+            sig.append(lay.source_schedule if lay.source_schedule is not None
+                       else Schedule.constant(1.0))
+    return tuple(sig)
 
 
 @dataclass(frozen=True)
@@ -112,65 +68,78 @@ class ModalSeries:
     op: Operator
     modes: Modes
     lifting: SteadyResponses
-    signals: np.ndarray  # b_k, (3,)
-    a0: np.ndarray  # a_n(0), (n,)
-    forcing: np.ndarray  # eps c_n, (n,)
+    signals: tuple  # Schedules, (K,)
+    proj0: np.ndarray  # P_n, projection of the initial state, (n,)
+    lift_coef: np.ndarray  # c_kn, (K, n)
     mass_modes: np.ndarray  # int a e^A psi_n over each layer, (N, n)
-    mass_lift: np.ndarray  # int a phi_k over each layer, (N, 3)
-    initial: InitialState = field(default_factory=InitialState.clean)
+    mass_lift: np.ndarray  # int a phi_k over each layer, (N, K)
+    initial: object = field(default_factory=InitialState.clean)
     initial_mass: float = 0.0
-    lift_coef: np.ndarray = None  # c_n, projections of the lifting (n,)
+    breaks: tuple = ()
+    extra_rate: float = 0.0
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def eigenvalues(self):
         return self.modes.lam
 
+    @property
+    def eps(self):
+        return self.lifting.eps
+
+    def _active(self):
+        return [k for k, s in enumerate(self.signals) if s.atoms]
+
+    def signal_values(self, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([s.value(t) for s in self.signals])
+
+    def signal_integrals(self, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([s.integral(t) for s in self.signals])
+
     def coefficients(self, t):
-        t = np.atleast_1d(np.asarray(t, dtype=float))[None, :]
-        lam = self.modes.lam[:, None]
-        return self.a0[:, None] * np.exp(-lam * t) + self.forcing[:, None] * _phi1(lam, t)
+        """a_n(t), shape (n, t.size)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam
+        out = self.proj0[:, None] * phi(0, lam[:, None], t[None, :])
+        for k in self._active():
+            out += self.lift_coef[k][:, None] * self.signals[k].modal(lam, t, self.eps)
+        return out
 
     def integrated_coefficients(self, t):
-        t = np.atleast_1d(np.asarray(t, dtype=float))[None, :]
-        lam = self.modes.lam[:, None]
-        return self.a0[:, None] * _phi1(lam, t) + self.forcing[:, None] * _phi2(lam, t)
+        """int_0^t a_n, shape (n, t.size)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam
+        out = self.proj0[:, None] * phi(1, lam[:, None], t[None, :])
+        for k in self._active():
+            out += self.lift_coef[k][:, None] * self.signals[k].modal(lam, t, self.eps, True)
+        return out
 
     def _fields(self, z):
-        """Matrices for C and F at depths z: (z, modes) and lifting (z, 3)."""
+        """Matrices for C and F at depths z: (z, modes) and lifting (z, K)."""
         op = self.op
         z = np.atleast_1d(np.asarray(z, dtype=float))
         lay = self.modes.layer_of(z)
         kap = op.kappa[lay][:, None]
         psi, dpsi = self.modes.evaluate(z, exp_sign=+1)
         u_l, du_l = self.lifting.evaluate(z)
-        c_modes = kap * psi
-        f_modes = 0.5 * op.q * psi - dpsi
-        c_lift = kap * u_l
-        f_lift = op.q * u_l - du_l
-        return c_modes, f_modes, c_lift, f_lift
+        return kap * psi, 0.5 * op.q * psi - dpsi, kap * u_l, op.q * u_l - du_l
+
+    def _drive(self, t):
+        """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([self.eps * s.value(t) - s.derivative(t) for s in self.signals])
 
     def concentration(self, z, t):
         """C (kg m-3), shape (t.size, z.size)."""
         c_modes, _, c_lift, _ = self._fields(z)
-        return (c_modes @ self.coefficients(t)).T + c_lift @ self.signals
-
-    def roundoff_bound(self, z, t):
-        """Estimated rounding error of C (kg m-3), shape (t.size, z.size).
-
-        The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
-        relative size eps in its terms are multiplied by e^{A(z)} on the way back.  At
-        high Peclet numbers and early times this bound, not the mode count, limits the
-        accuracy."""
-        c_modes, _, c_lift, _ = self._fields(z)
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        # magnitudes before cancellation: projection of the initial state and of the
-        # lifting enter a_n separately; each is a sum over many quadrature nodes/terms
-        lam = self.modes.lam[:, None]
-        size = (np.abs(self.a0) + np.abs(self.forcing / np.where(self.modes.lam != 0,
-                                                               self.modes.lam, 1.0))
-                + np.abs(self.lift_coef))[:, None] * np.exp(-lam * t[None, :])
-        n = max(self.modes.lam.size, 1)
-        return 16 * np.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
+        out = (c_modes @ self.coefficients(t) + c_lift @ self.signal_values(t)).T
+        drive = self._drive(t)
+        if np.any(drive):
+            corr = self._tail_corrections(z)["C"][:, 1:]
+            out = out + (corr @ drive).T
+        return out
 
     def concentration_at(self, depth, times):
         """C at one depth for any times: 1-D array (continuous in time)."""
@@ -178,49 +147,108 @@ class ModalSeries:
 
     def total_flux(self, z, t):
         _, f_modes, _, f_lift = self._fields(z)
-        return (f_modes @ self.coefficients(t)).T + f_lift @ self.signals
+        out = (f_modes @ self.coefficients(t) + f_lift @ self.signal_values(t)).T
+        drive = self._drive(t)
+        if np.any(drive):
+            corr = self._tail_corrections(z)["F"][:, 1:]
+            out = out + (corr @ drive).T
+        return out
+
+    def roundoff_bound(self, z, t):
+        """Estimated rounding error of C (kg m-3), shape (t.size, z.size).
+
+        The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
+        the terms, before they cancel, are multiplied by e^{A(z)} on the way back.  At
+        high Peclet numbers and early times this, not the mode count, limits accuracy."""
+        c_modes, _, _, _ = self._fields(z)
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam[:, None]
+        size = np.abs(self.proj0)[:, None] * np.exp(-lam * t[None, :])
+        for k in self._active():
+            sched = self.signals[k]
+            amp = sum(abs(a) for _, _, a, _ in sched.atoms)
+            last = np.array([max([t0 for t0 in sched.change_times if t0 <= tt] or [0.0])
+                             for tt in t])
+            size = size + np.abs(self.lift_coef[k])[:, None] * amp * np.exp(
+                -lam * np.maximum(t - last, 0.0)[None, :])
+        n = max(self.modes.lam.size, 1)
+        return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
+
+    # --- exact corrections of the time integrals (steady-state case) -----------------
+    def _w0_functions(self, zq, lq):
+        """u-space initial state and lifting functions at nodes: (nq, 1 + K)."""
+        u0 = initial_profile(self.column, self.initial, zq) / self.op.kappa[lq]
+        uq, _ = self.lifting.evaluate(zq)
+        return np.column_stack([u0, uq])
+
+    def _tail_corrections(self, z):
+        """Exact minus truncated 1/(lambda + eps) sums, for the initial state (column 0)
+        and each lifting (columns 1..K): "C" values (nz, 1+K) and "F" fluxes at z, and
+        "D" for the decayed mass (1+K,).  Modes beyond the truncation respond
+        quasi-statically, a_n ~ c_kn (eps b_k - b_k') / (lambda_n + eps); these sums
+        replace their slowly converging tails by Green's-function values."""
+        op = self.op
+        z = np.atleast_1d(np.asarray(z, dtype=float))
+        key = z.tobytes()
+        cache = self._cache
+        if key in cache:
+            return cache[key]
+        ends = np.array([0.0, op.z[-1]])
+        nodes = gauss_nodes(op, np.array([0.0]), tuple(self.breaks) + tuple(z.tolist()),
+                            self.extra_rate)
+        zq, wq, lq = nodes
+        w0 = self._w0_functions(zq, lq)
+        F, U = green_flux(op, self.lifting, np.concatenate([z, ends]), w0, nodes, values=True)
+        Fz, Fe = F[:z.size], F[z.size:]
+        integ = (wq * op.a[lq]) @ w0
+        lam_e = self.modes.lam + self.eps
+        coef = np.vstack([self.proj0, self.lift_coef]) / lam_e[None, :]  # (1+K, n)
+        stored_w = coef @ self.mass_modes.sum(axis=0)  # int a W, converges fast
+        QD = Fe[0] - Fe[1] + integ - self.eps * stored_w
+        c_modes, f_modes, _, _ = self._fields(z)
+        D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
+        lay = self.modes.layer_of(z)
+        out = {"C": op.kappa[lay][:, None] * U[:z.size] - c_modes @ coef.T,
+               "F": Fz - f_modes @ coef.T, "D": QD - coef @ D}
+        if len(cache) > 64:
+            cache.clear()
+        cache[key] = out
+        return out
+
+    def _integrated_correction(self, corr, t):
+        """corr_0 H(t) + sum_k (eps int_0^t b_k - b_k(t)) corr_k  (corr: (..., 1+K))."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        weight = self.eps * self.signal_integrals(t) - self.signal_values(t)  # (K, nt)
+        corr = np.atleast_2d(corr)
+        return (np.outer((t > 0).astype(float), corr[:, 0])
+                + (corr[:, 1:] @ weight).T)
 
     def cumulative_mass(self, z, t):
         """Mass per area that crossed depth z downward during (0, t) (kg m-2)."""
-        _, f_modes, _, f_lift = self._fields(z)
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        steady = np.outer(t, f_lift @ self.signals)
-        if self.lifting.eps > 0:
-            return (f_modes @ self.integrated_coefficients(t)).T + steady
-        # int_0^t = int_0^inf - int_t^inf ; the tail sum converges fast for t > 0
-        lam = self.modes.lam[:, None]
-        tail = self.a0[:, None] * np.exp(-lam * t[None, :]) / lam
-        total = _transient_flux_integral(self, z)
-        out = steady + total[None, :] - (f_modes @ tail).T
+        _, f_modes, _, f_lift = self._fields(z)
+        out = (f_modes @ self.integrated_coefficients(t) + f_lift @ self.signal_integrals(t)).T
+        out = out + self._integrated_correction(self._tail_corrections(z)["F"], t)
         return np.where(t[:, None] == 0, 0.0, out)
 
     def budget(self, t):
-        """Mass budget per unit area (kg m-2) at times t; closes by construction only if
-        the series is right: stored, entered and left are computed independently."""
+        """Mass budget per unit area (kg m-2) at times t.  Stored mass comes from the
+        series, entered/left from the boundary fluxes and decayed from the decay terms,
+        independently, so the residual measures the solution's consistency."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
         op = self.op
         coef = self.coefficients(t)
         icoef = self.integrated_coefficients(t)
-        lift_layer = self.mass_lift @ self.signals  # (N,)
-        stored = self.mass_modes.sum(axis=0) @ coef + lift_layer.sum()
-        decay_modes = (op.decay[:, None] * self.mass_modes).sum(axis=0)
-        if self.lifting.eps > 0:
-            decayed_tr = decay_modes @ icoef
-        else:
-            # int_0^t = int_0^inf - int_t^inf.  Over (0, inf) the transient part decays
-            # what it does not carry out:  D_inf = F_W(0) - F_W(L) + M_tr(0)
-            fw = _transient_flux_integral(self, np.array([0.0, op.z[-1]]))
-            d_inf = fw[0] - fw[1] + (self.initial_mass - lift_layer.sum())
-            lam = self.modes.lam[:, None]
-            tail = self.a0[:, None] * np.exp(-lam * t[None, :]) / lam
-            decayed_tr = d_inf - decay_modes @ tail
-            decayed_tr = np.where(t == 0, 0.0, decayed_tr)
-        decayed = decayed_tr + t * (op.decay @ lift_layer)
-        produced = t * float(np.sum(op.source * op.thickness))
-        ends = np.array([0.0, op.z[-1]])
-        cum = self.cumulative_mass(ends, t)
-        zero = t == 0
-        stored = np.where(zero, self.initial_mass, stored)
+        b, ib = self.signal_values(t), self.signal_integrals(t)
+        stored = self.mass_modes.sum(axis=0) @ coef + self.mass_lift.sum(axis=0) @ b
+        D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
+        decayed = D @ icoef + (op.decay @ self.mass_lift) @ ib
+        corr_d = self._tail_corrections(np.array([0.0]))["D"]
+        decayed = decayed + self._integrated_correction(corr_d[None, :], t)[:, 0]
+        decayed = np.where(t == 0, 0.0, decayed)
+        produced = (op.source * op.thickness) @ ib[2:]
+        cum = self.cumulative_mass(np.array([0.0, op.z[-1]]), t)
+        stored = np.where(t == 0, self.initial_mass, stored)
         entered, left = cum[:, 0], cum[:, 1]
         residual = stored - self.initial_mass - entered + left + decayed - produced
         return {"stored": stored, "initial_stored": np.full(t.size, self.initial_mass),
@@ -244,49 +272,60 @@ def required_modes(op: Operator, t_min: float, tolerance: float, n_max: int) -> 
     return max(n, 8)
 
 
-def build_series(column: Column, initial: InitialState = None, t_min: float = None,
-                 tolerance: float = 1e-8, max_modes: int = 4000, n_modes: int = None):
-    """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`."""
-    initial = initial or InitialState.clean()
+def _mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
+    n_modes = required_modes(op, t_min, tolerance, max_modes)
+    lam = eigenvalues(op, n_modes)
+    target = max((math.log(1 / tolerance) + math.log(n_modes) + 2) / t_min, lam_floor)
+    while lam[-1] < target and n_modes < max_modes:
+        n_modes = min(max_modes, int(n_modes * 1.5) + 8)
+        lam = eigenvalues(op, n_modes)
+    if lam[-1] < target:
+        t_ok = (math.log(1 / tolerance) + math.log(n_modes) + 2) / lam[-1]
+        warnings.warn(
+            f"{n_modes} modes (the cap) do not meet the tolerance {tolerance:g} at the "
+            f"earliest time {t_min:.4g} s after a change; results are accurate from about "
+            f"{t_ok:.4g} s after it. Raise max_modes or use later output times.",
+            ModeCapWarning, stacklevel=4)
+    return lam
+
+
+def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
+                 max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0):
+    """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`.
+
+    ``initial`` is an :class:`InitialState` or a callable C0(z) (then give its kinks in
+    ``breaks`` and its highest spatial frequency in ``extra_rate``).
+    """
+    initial = initial if initial is not None else InitialState.clean()
     op = build_operator(column)
     if n_modes is None:
         if t_min is None or t_min <= 0:
             raise InputError("give the earliest positive output time (t_min) or n_modes")
-        n_modes = required_modes(op, t_min, tolerance, max_modes)
-        lam = eigenvalues(op, n_modes)
-        target = (math.log(1 / tolerance) + math.log(n_modes) + 2) / t_min
-        while lam[-1] < target and n_modes < max_modes:
-            n_modes = min(max_modes, int(n_modes * 1.5) + 8)
-            lam = eigenvalues(op, n_modes)
-        if lam[-1] < target:
-            t_ok = (math.log(1 / tolerance) + math.log(n_modes) + 2) / lam[-1]
-            warnings.warn(
-                f"{n_modes} modes (the cap) do not meet the tolerance {tolerance:g} at the "
-                f"earliest time {t_min:.4g} s; results are accurate from about {t_ok:.4g} s "
-                "on. Raise max_modes or use later output times.", ModeCapWarning, stacklevel=3)
+        # exponential signals: the quasi-static tail is exact to first order in
+        # rate / lambda; the second order is made negligible by lambda_N >= rate/sqrt(tol)
+        rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
+                 if kind == "decay"]
+        floor = max(rates, default=0.0) / math.sqrt(tolerance)
+        lam = _mode_count(op, t_min, tolerance, max_modes, floor)
     else:
         lam = eigenvalues(op, n_modes)
     md = modes(op, lam)
     lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
-    scale = max(abs(lam1), 1e-300)
-    eps = 0.0
-    if lam[0] <= 1e-9 * scale:
-        eps = abs(lam1)
+    eps = abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
     lift = steady_responses(op, eps)
-    top, bot = column.top, column.bottom
-    signals = np.array([op.top_u[2] * top.value, op.bottom_u[2] * bot.value, 1.0])
+    signals = column_signals(column, op)
+    K = len(signals)
     # Green's identity: (lambda + eps) c_kn = boundary term + source projection
-    green = np.zeros((3, lam.size))
-    ends = np.array([0.0, op.z[-1]])
-    psi_e, dpsi_e = md.evaluate(ends, exp_sign=0)
-    for col, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
+    green = np.zeros((K, lam.size))
+    psi_e, dpsi_e = md.evaluate(np.array([0.0, op.z[-1]]), exp_sign=0)
+    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
         c_v, c_p, G = op.v_condition(end)
         j = 0 if end == "top" else 1
-        green[col] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
-    breaks = tuple(initial.depths) if initial.kind == "profile" else ()
-    zq, wq, lq = _gauss_nodes(op, lam, breaks)
-    c0 = initial_profile(column, initial, zq)
-    u0 = c0 / op.kappa[lq]
+        green[k] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
+    if not callable(initial) and initial.kind == "profile":
+        breaks = tuple(breaks) + tuple(initial.depths)
+    zq, wq, lq = gauss_nodes(op, lam, breaks, extra_rate)
+    u0 = initial_profile(column, initial, zq) / op.kappa[lq]
     proj0 = np.zeros(lam.size)
     mass_modes = np.zeros((op.n_layers, lam.size))
     chunk = max(1, 4_000_000 // max(lam.size, 1))
@@ -295,56 +334,21 @@ def build_series(column: Column, initial: InitialState = None, t_min: float = No
         psi_m, _ = md.evaluate(zq[sl], exp_sign=-1)
         wa = wq[sl] * op.a[lq[sl]]
         proj0 += (wa * u0[sl]) @ psi_m
-        green[2] += (wq[sl] * op.source[lq[sl]]) @ psi_m
+        for i in np.unique(lq[sl]):
+            if op.source[i] != 0.0:
+                sel = lq[sl] == i
+                green[2 + i] += (wq[sl][sel] * op.source[i]) @ psi_m[sel]
         psi_p, _ = md.evaluate(zq[sl], exp_sign=+1)
         np.add.at(mass_modes, lq[sl], wa[:, None] * psi_p)
-    c_lift = (signals @ green) / (lam + eps)
+    lift_coef = green / (lam + eps)[None, :]
     u_lift, _ = lift.evaluate(zq)
-    mass_lift = np.zeros((op.n_layers, 3))
+    mass_lift = np.zeros((op.n_layers, K))
     np.add.at(mass_lift, lq, (wq * op.a[lq])[:, None] * u_lift)
     initial_mass = float(np.sum(wq * op.a[lq] * u0))
     return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
-                       a0=proj0 - c_lift, forcing=eps * c_lift, mass_modes=mass_modes,
+                       proj0=proj0, lift_coef=lift_coef, mass_modes=mass_modes,
                        mass_lift=mass_lift, initial=initial, initial_mass=initial_mass,
-                       lift_coef=c_lift)
-
-
-def _transient_flux_integral(series: "ModalSeries", z):
-    """int_0^inf of the transient total flux at depths z, exactly (steady state case).
-
-    W = int_0^inf w dt solves L W = a w0 with homogeneous boundary rows, so its flux is
-    given by the Green's function of the layered operator built from the two
-    homogeneous solutions (the unit boundary responses):
-    F_W(z) = [F_top(z) I_L(z) + F_bot(z) I_R(z)] / Wr with
-    I_L(z) = int_0^z a e^{-2A} phi_bot (u0 - lift), I_R(z) = int_z^L a e^{-2A} phi_top (u0 - lift)
-    and Wr = k phi_bot' phi_top - phi_bot k phi_top' (constant), evaluated at z = 0.
-    The truncated series of the same quantity converges only like 1/N at a
-    concentration boundary; this form has no truncation error.
-    """
-    op, lift = series.op, series.lifting
-    z = np.atleast_1d(np.asarray(z, dtype=float))
-    breaks = set(z.tolist())
-    if series.initial.kind == "profile":
-        breaks |= set(series.initial.depths)
-    zq, wq, lq = _gauss_nodes(op, np.array([0.0]), tuple(sorted(breaks)))
-    u0 = initial_profile(series.column, series.initial, zq) / op.kappa[lq]
-    uq, _ = lift.evaluate(zq)
-    w0 = u0 - uq @ series.signals
-    A = op.A[lq] + op.alpha[lq] * (zq - op.z[lq])
-    g = wq * op.a[lq] * np.exp(-2 * A) * w0
-    gl = g * uq[:, 1]
-    gr = g * uq[:, 0]
-    cl = np.concatenate([[0.0], np.cumsum(gl)])
-    cr = np.concatenate([[0.0], np.cumsum(gr)])
-    idx = np.searchsorted(zq, z)  # nodes strictly above z (z is a break point)
-    I_L = cl[idx]
-    I_R = cr[-1] - cr[idx]
-    u_e, du_e = lift.evaluate(np.array([0.0]))
-    wr = du_e[0, 1] * u_e[0, 0] - u_e[0, 1] * du_e[0, 0]
-    u_z, du_z = lift.evaluate(z)
-    f_top = op.q * u_z[:, 0] - du_z[:, 0]
-    f_bot = op.q * u_z[:, 1] - du_z[:, 1]
-    return (f_top * I_L + f_bot * I_R) / wr
+                       breaks=tuple(breaks), extra_rate=extra_rate)
 
 
 @dataclass(frozen=True)
@@ -376,16 +380,29 @@ class ColumnSolution:
         return column_dataset(self, title=title)
 
 
-def solve(column: Column, times, depths, initial: InitialState = None,
-          tolerance: float = 1e-8, max_modes: int = 4000, n_modes: int = None):
+def earliest_time_after_change(column: Column, times) -> float | None:
+    """Smallest positive (t - t_change) over output times and signal switch-on times."""
+    times = np.asarray(times, dtype=float)
+    changes = {0.0}
+    for sched in (column.top.schedule, column.bottom.schedule,
+                  *(lay.source_schedule for lay in column.layers)):
+        if sched is not None:
+            changes.update(sched.change_times)
+    gaps = [t - c for t in times for c in changes if t - c > 0]
+    return min(gaps) if gaps else None
+
+
+def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,
+          max_modes: int = 4000, n_modes: int = None):
     """Solve the layered column at ``times`` (s) and ``depths`` (m).
 
     Returns a :class:`ColumnSolution`.  At t = 0 the initial profile itself is returned
-    (the series is not used there).  Mode count: from the earliest positive time and the
-    tolerance, unless ``n_modes`` is given; a :class:`ModeCapWarning` is issued if the
-    cap ``max_modes`` prevents meeting the tolerance.
+    (the series is not used there).  Mode count: from the earliest positive time after a
+    change of a boundary or source signal and the tolerance, unless ``n_modes`` is
+    given; :class:`ModeCapWarning` if the cap prevents meeting the tolerance,
+    :class:`AccuracyWarning` if rounding (high Peclet, early time) exceeds it.
     """
-    initial = initial or InitialState.clean()
+    initial = initial if initial is not None else InitialState.clean()
     times = np.asarray(times, dtype=float).ravel()
     depths = np.asarray(depths, dtype=float).ravel()
     if times.size == 0 or depths.size == 0:
@@ -397,29 +414,28 @@ def solve(column: Column, times, depths, initial: InitialState = None,
     L = column.length
     if np.any(depths < 0) or np.any(depths > L * (1 + 1e-12)):
         raise InputError(f"output depths must lie in the column [0, {L}] m")
-    positive = times[times > 0]
-    t_min = float(positive.min()) if positive.size else None
+    t_min = earliest_time_after_change(column, times)
     if t_min is None and n_modes is None:
         n_modes = 8
     series = build_series(column, initial, t_min, tolerance, max_modes, n_modes)
     conc = series.concentration(depths, times)
     flux = series.total_flux(depths, times)
     cum = series.cumulative_mass(depths, times)
-    scale = max(float(np.max(np.abs(conc))), 1e-300)
-    bound = series.roundoff_bound(depths, times[times > 0]) if t_min else np.zeros(1)
-    if bound.max() > tolerance * scale:
-        bad_t = times[times > 0][np.any(bound > tolerance * scale, axis=1)]
-        warnings.warn(
-            f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the column "
-            f"Peclet number is about {2 * (series.op.A.max() - series.op.A.min()):.0f}) exceeds "
-            f"the tolerance at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; "
-            "use later output times or cross-check with the finite-volume engine",
-            AccuracyWarning, stacklevel=2)
+    positive = times > 0
+    if positive.any():
+        scale = max(float(np.max(np.abs(conc))), 1e-300)
+        bound = series.roundoff_bound(depths, times[positive])
+        if bound.max() > tolerance * scale:
+            bad_t = times[positive][np.any(bound > tolerance * scale, axis=1)]
+            warnings.warn(
+                f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
+                f"column Peclet number is about {2 * (series.op.A.max() - series.op.A.min()):.0f})"
+                f" exceeds the tolerance at {bad_t.size} output time(s), the latest "
+                f"{bad_t.max():.4g} s; use later output times or cross-check with another "
+                "engine", AccuracyWarning, stacklevel=2)
     zero = times == 0
     if zero.any():
-        c0 = initial_profile(column, initial, depths)
-        conc[zero] = c0
-        cum[zero] = 0.0
+        conc[zero] = initial_profile(column, initial, depths)
     return ColumnSolution(column=column, times=times, depths=depths, concentration=conc,
                           total_flux=flux, cumulative_mass=cum, budget=series.budget(times),
                           eigenvalues=series.eigenvalues, n_modes=series.eigenvalues.size,

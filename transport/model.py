@@ -65,6 +65,8 @@ class Layer:
     source_rate : zero-order production sigma, kg m-3 s-1 per bulk volume
     partition_to_next : K at the lower face, C(next layer) = K C(this layer), > 0
     name : label used in messages and plots
+    source_schedule : optional :class:`transport.schedules.Schedule`; the source is
+        source_rate times its value (constant 1 when absent)
     """
 
     thickness: float
@@ -75,6 +77,7 @@ class Layer:
     source_rate: float = 0.0
     partition_to_next: float = 1.0
     name: str = ""
+    source_schedule: object = None  # Schedule multiplying source_rate in time, or None
 
     def __post_init__(self):
         label = f"layer {self.name!r}" if self.name else "layer"
@@ -105,11 +108,14 @@ class Boundary:
     value : concentration (kg m-3) for concentration / inlet / mass-transfer (outside
         concentration); total flux (kg m-2 s-1) for flux; ignored otherwise
     transfer_coefficient : h (m s-1) for mass-transfer
+    schedule : optional :class:`transport.schedules.Schedule` giving the value in time
+        (replaces ``value``)
     """
 
     kind: str
     value: float = 0.0
     transfer_coefficient: float = 0.0
+    schedule: object = None  # transport.schedules.Schedule of the value in time, or None
 
     def __post_init__(self):
         if self.kind not in BOUNDARY_KINDS:
