@@ -1,0 +1,80 @@
+"""Engine selection: the auto choice against the independent mpmath reference."""
+import warnings
+
+import numpy as np
+import pytest
+
+from transport.engines import solve_column
+from transport.modal import solve
+from transport.model import Boundary, Column, InputError, Layer
+
+from reference import laplace_reference
+
+YEAR = 365.25 * 86400.0  # Julian year (IAU), s
+
+# column Peclet number about 100 (the case the modal engine reports as inaccurate early on)
+PECLET = Column(layers=(Layer(0.8, 0.35, 2e-10, 2.0), Layer(1.2, 0.4, 5e-11, 4.0)),
+                top=Boundary("concentration", 0.12), bottom=Boundary("free-outflow"),
+                darcy_flux=0.05 / YEAR)
+
+
+def test_auto_uses_laplace_early_and_matches_mpmath_reference():
+    """Early times at column Peclet ~100: auto must choose the Laplace engine there, pass
+    no modal warning on, and match the mpmath Laplace reference (tests/reference.py,
+    Talbot inversion per Abate & Valko 2004 at 30+ digits) to 1e-7 of the source
+    concentration; where modal is fine it is used."""
+    t = np.array([0.3, 1.0, 100.0]) * YEAR
+    z = np.array([0.1, 0.4, 0.9, 1.5])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        sol = solve_column(PECLET, t, z, engine="auto")
+    assert list(sol.engine_by_time[:2]) == ["laplace", "laplace"]
+    assert sol.engine_by_time[2] == "modal"
+    assert np.all(sol.error_estimate <= 1e-8 * 0.12)
+    ref = laplace_reference(PECLET, z, t)
+    np.testing.assert_allclose(sol.concentration, ref, rtol=0, atol=1e-7 * 0.12)
+    mask = ref > 1e-7 * 0.12
+    assert np.all(np.abs(sol.concentration - ref)[mask] <= 1e-7 * ref[mask])
+
+
+def test_auto_uses_laplace_below_the_mode_cap():
+    """A time far below what max_modes can resolve (1e-4 of the diffusion time) goes to
+    the Laplace engine; the result matches the mpmath reference to 1e-7."""
+    col = Column(layers=(Layer(0.5, 0.3, 1e-9, 1.0), Layer(1.5, 0.4, 2e-10, 2.0)),
+                 top=Boundary("concentration", 1.0), bottom=Boundary("sealed"))
+    t_diff = col.length ** 2 / 1e-9
+    t = np.array([1e-4, 0.5]) * t_diff
+    z = np.array([0.0, 0.005, 0.02, 1.0])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        sol = solve_column(col, t, z, max_modes=200)
+    assert list(sol.engine_by_time) == ["laplace", "modal"]
+    ref = laplace_reference(col, z, t)
+    np.testing.assert_allclose(sol.concentration, ref, rtol=1e-7, atol=1e-12)
+
+
+def test_auto_equals_modal_where_modal_is_fine():
+    """Diffusion-only column at ordinary times: auto returns the modal result exactly."""
+    col = Column(layers=(Layer(1.0, 0.3, 1e-9, 1.5), Layer(0.5, 0.4, 1e-10, 3.0)),
+                 top=Boundary("concentration", 1.0), bottom=Boundary("mass-transfer", 0.0, 1e-8))
+    t = np.array([1.0, 10.0, 50.0]) * YEAR
+    z = np.linspace(0, col.length, 7)
+    auto = solve_column(col, t, z)
+    modal = solve(col, t, z)
+    assert set(auto.engine_by_time) == {"modal"}
+    np.testing.assert_array_equal(auto.concentration, modal.concentration)
+    np.testing.assert_array_equal(auto.budget["stored"], modal.budget["stored"])
+
+
+def test_semi_infinite_and_engine_names():
+    """Semi-infinite bottom always goes to the Laplace engine; unknown engines are refused."""
+    col = Column(layers=(Layer(1.0, 0.3, 1e-9),), top=Boundary("concentration", 1.0),
+                 bottom=Boundary("sealed"))
+    sol = solve_column(col, [YEAR], [0.0, 3.0], semi_infinite_bottom=True)
+    assert list(sol.engine_by_time) == ["laplace"]
+    with pytest.raises(InputError, match="engine"):
+        solve_column(col, [YEAR], [0.5], engine="magic")
+    with pytest.raises(InputError, match="semi-infinite"):
+        solve_column(col, [YEAR], [0.5], engine="modal", semi_infinite_bottom=True)
+    fv = solve_column(col, [YEAR], [0.5], engine="finite-volume")
+    assert fv.engine_by_time[0] == "finite-volume" and np.isnan(fv.error_estimate[0])
