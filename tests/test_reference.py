@@ -239,13 +239,6 @@ def test_fv_profile_initial_and_source():
     assert np.max(np.abs(got - ref)) < 1e-3 * np.max(np.abs(ref))
 
 
-def test_fv_nonlinear_isotherm_not_yet():
-    """Nonlinear sorption is announced but not implemented: it must refuse, not guess
-    (common practice: fail loudly on an unsupported option)."""
-    with pytest.raises(NotImplementedError):
-        solve_fv(_contrast_column(), [YEAR], [0.1], isotherm=("freundlich", 1.0, 0.8))
-
-
 _KINDS = {"concentration": Boundary("concentration", 1.0), "flux": Boundary("flux", 2e-10),
           "inlet": Boundary("inlet", 1.0), "free-outflow": Boundary("free-outflow"),
           "mass-transfer": Boundary("mass-transfer", 0.5, 2e-9), "sealed": Boundary("sealed")}

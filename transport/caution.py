@@ -11,8 +11,8 @@ __all__ = ["CAUTION", "CAUTION_SHORT", "ASSUMPTIONS"]
 #: The modelling assumptions behind every result, in the order a reviewer checks them.
 ASSUMPTIONS = (
     "one-dimensional (vertical) transport",
-    "linear, instantaneous sorption",
-    "steady flow",
+    "instantaneous sorption, linear unless the finite-volume engine is given an isotherm",
+    "steady flow within each stage",
     "homogeneous layers",
 )
 
