@@ -50,6 +50,7 @@ import numpy as np
 
 from . import chemicals, media
 from .model import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, Layer
+from .scenario_stages import parse_actions, parse_value
 from .units import UnitError, si_unit, to_si
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
@@ -61,7 +62,8 @@ DEFAULT_DEPTH_INTERVALS = 200
 DEFAULT_TOLERANCE = 1e-8
 _MISSING = object()
 
-TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output")
+TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
+            "actions")
 CHEMICAL_KEYS = ("name", "free_water_diffusivity", "organic_carbon_partition", "half_life")
 FLOW_KEYS = ("darcy_flux",)
 LAYER_KEYS = ("name", "thickness", "porosity", "water_content", "bulk_density",
@@ -144,6 +146,7 @@ class Scenario:
     output: OutputSpec
     source_text: str
     layer_details: tuple = ()
+    timeline: object = None  # transport.timeline.Timeline when [[actions]] are given
 
     @property
     def times(self) -> np.ndarray:
@@ -262,8 +265,9 @@ def _chemical(r: _Reader, data) -> ChemicalSpec:
     return ChemicalSpec(entry.name if entry else None, dw, koc, half_life, sources, entry)
 
 
-def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, last: bool):
-    key = f"layers[{i}]"
+def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, last: bool,
+           key: str = None):
+    key = key or f"layers[{i}]"
     t = r.table(raw, key, required=True)
     r.keys(t, LAYER_KEYS, key)
     name = r.text(t, "name", key, default=f"layer {i}")
@@ -376,15 +380,16 @@ def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, la
     return layer, detail, initial
 
 
-def _boundary(r: _Reader, data, end: str, q: float) -> Boundary:
-    t = r.table(data.get(end), end, required=True)
+def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary:
+    where = key or end
+    t = r.table(data.get(end), where, required=True)
     kind = t.get("kind", _MISSING)
     if kind is _MISSING:
-        raise r.error(f"{end}.kind", problem="missing", allowed=" | ".join(BOUNDARY_KINDS),
-                      fix=f'add kind = "concentration" (or another kind) to [{end}]')
+        raise r.error(f"{where}.kind", problem="missing", allowed=" | ".join(BOUNDARY_KINDS),
+                      fix=f'add kind = "concentration" (or another kind) to [{where}]')
     if kind not in BOUNDARY_KINDS:
         close = difflib.get_close_matches(str(kind), BOUNDARY_KINDS, n=1)
-        raise r.error(f"{end}.kind", kind, "unknown boundary kind",
+        raise r.error(f"{where}.kind", kind, "unknown boundary kind",
                       allowed=" | ".join(BOUNDARY_KINDS),
                       fix=f"did you mean {close[0]!r}?" if close else "pick one of the kinds")
     wanted = BOUNDARY_VALUE_KEYS[kind]
@@ -393,36 +398,42 @@ def _boundary(r: _Reader, data, end: str, q: float) -> Boundary:
             known = {k for ks in BOUNDARY_VALUE_KEYS.values() for k in ks}
             problem = (f"not used by kind {kind!r}" if name in known else "unknown key")
             close = difflib.get_close_matches(str(name), wanted, n=1, cutoff=0.6)
-            raise r.error(f"{end}.{name}", t[name], problem,
+            raise r.error(f"{where}.{name}", t[name], problem,
                           allowed=", ".join(("kind",) + wanted),
                           fix=f"did you mean {close[0]!r}?" if close else "remove it")
     for name in wanted:
-        if isinstance(t.get(name), (list, dict)):
-            raise r.error(f"{end}.{name}", t[name], "time-varying boundary values (schedules) "
-                          "are not supported by this version", fix="give one constant value")
+        if isinstance(t.get(name), list):
+            raise r.error(f"{where}.{name}", t[name], "a list is not a boundary value",
+                          fix='give one value, or a schedule table such as '
+                          '{ steps = [["0 yr", "120 mg/L"], ["10 yr", "0 mg/L"]] }')
     if kind in ("concentration", "inlet"):
         if "concentration" not in t:
-            raise r.error(f"{end}.concentration", problem=f"missing for kind {kind!r}",
+            raise r.error(f"{where}.concentration", problem=f"missing for kind {kind!r}",
                           fix='add concentration = "120 mg/L" (your value)')
         if kind == "inlet" and q == 0:
-            raise r.error(f"{end}.kind", kind, "an inlet boundary carries q C_in and needs a "
+            raise r.error(f"{where}.kind", kind, "an inlet boundary carries q C_in and needs a "
                           "nonzero flow.darcy_flux", fix='use kind = "concentration" for '
                           "diffusion only, or give the Darcy flux")
-        value = r.quantity(t["concentration"], "concentration", f"{end}.concentration", low=0)
-        return Boundary(kind, value)
+        value, sched = parse_value(r, t["concentration"], "concentration",
+                                   f"{where}.concentration", low=0)
+        return Boundary(kind, value, schedule=sched)
     if kind == "flux":
         if "flux" not in t:
-            raise r.error(f"{end}.flux", problem="missing for kind 'flux'",
+            raise r.error(f"{where}.flux", problem="missing for kind 'flux'",
                           fix='add flux = "0 g/m^2/d" (positive downward)')
-        return Boundary(kind, r.quantity(t["flux"], "mass_flux", f"{end}.flux"))
+        value, sched = parse_value(r, t["flux"], "mass_flux", f"{where}.flux")
+        return Boundary(kind, value, schedule=sched)
     if kind == "mass-transfer":
         if "transfer_coefficient" not in t:
-            raise r.error(f"{end}.transfer_coefficient", problem="missing for kind "
+            raise r.error(f"{where}.transfer_coefficient", problem="missing for kind "
                           "'mass-transfer'", fix='add transfer_coefficient = "1e-6 m/s"')
-        h = r.quantity(t["transfer_coefficient"], "velocity", f"{end}.transfer_coefficient",
+        h = r.quantity(t["transfer_coefficient"], "velocity", f"{where}.transfer_coefficient",
                        low=0, low_open=True)
-        outside = r.optional(t, "outside_concentration", "concentration", end, default=0.0, low=0)
-        return Boundary(kind, outside, h)
+        outside, sched = 0.0, None
+        if "outside_concentration" in t:
+            outside, sched = parse_value(r, t["outside_concentration"], "concentration",
+                                         f"{where}.outside_concentration", low=0)
+        return Boundary(kind, outside, h, schedule=sched)
     return Boundary(kind)
 
 
@@ -616,9 +627,32 @@ def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
         initial = InitialState.clean()
 
     output = _output(r, data, column)
+    timeline = parse_actions(
+        r, data, column, q, raw_layers,
+        make_layer=lambda raw, key, q_, top_, last_: _layer(r, raw, 0, chem, q_, top_, last_,
+                                                             key=key)[0],
+        make_boundary=lambda table, end, q_, key: _boundary(r, table, end, q_, key=key),
+        t_end=float(output.times.max()))
+    if timeline is not None:
+        output = _with_cap_depths(output, timeline)
     return Scenario(title=title, path=None if file == "<string>" else file, column=column,
                     initial=initial, chemical=chem, output=output, source_text=text,
-                    layer_details=tuple(details))
+                    layer_details=tuple(details), timeline=timeline)
+
+
+def _with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
+    """Add output depths above the original top where a cap is placed (negative depths)."""
+    top = min(st.offset for st in timeline.stages)
+    if top >= 0:
+        return output
+    d = np.asarray(output.depths)
+    step = float(np.min(np.diff(d))) if d.size > 1 else -top / 20
+    faces = [f + st.offset for st in timeline.stages for f in st.column.interfaces]
+    extra = np.concatenate([np.arange(top, 0.0, step), faces])
+    depths = np.unique(np.concatenate([d, extra[extra < d.max()]]))
+    depths.setflags(write=False)
+    return OutputSpec(output.times, depths, output.receptor_depth, output.screening_level,
+                      output.design_life, output.tolerance)
 
 
 def load_scenario(path: str | Path) -> Scenario:
