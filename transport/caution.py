@@ -27,7 +27,8 @@ CAUTION = (
 
 #: One-line form for figure footers, where space is short; same content.
 CAUTION_SHORT = (
-    "Screening-level model (1-D, linear sorption, steady flow, homogeneous layers). "
+    "Screening-level model (1-D, instantaneous sorption, steady flow per stage, homogeneous "
+    "layers). "
     "Results do not establish that any concentration is safe; decisions rest with the "
     "regulator, local codes and licensed professionals."
 )

@@ -1,4 +1,4 @@
-"""Command line: ``stratiflux run | check | modes | plot | new``.
+"""Command line: ``stratiflux run | check | modes | plot | new | compare | site | verify``.
 
 A thin layer over the Python API (``transport.scenario``, ``transport.modal``,
 ``transport.io.netcdf``, ``transport.plots``). Input errors end the program with a
@@ -19,17 +19,11 @@ import numpy as np
 from transport import __version__
 from transport.caution import CAUTION
 
-__all__ = ["main", "first_crossing", "peak", "earliest_resolved_time",
-           "format_concentration", "format_time", "format_layer_table"]
+__all__ = ["main", "earliest_resolved_time", "format_concentration", "format_time",
+           "format_layer_table"]
 
 SECONDS_PER_YEAR = 365.25 * 86400.0  # Julian year, as transport.units
 SECONDS_PER_DAY = 86400.0
-#: Samples of the continuous receptor curve used to bracket crossings and the peak.
-#: A crossing narrower than the spacing (a spike that rises above the level and falls
-#: back between two samples) can be missed; 2048 samples resolve 0.05 % of the run.
-N_SCAN = 2048
-#: Relative tolerance of the Brent root and peak refinement on time.
-TIME_RTOL = 1e-10
 #: A maximum within this relative distance of the end value is a plateau, not a peak
 #: (the series is accurate to the solver tolerance, 1e-8 by default).
 PLATEAU_RTOL = 1e-6
@@ -98,78 +92,13 @@ def format_time(t: float) -> str:
 
 
 # ---------------------------------------------------------------------- receptor metrics
-def _scan_times(t_end: float, t_start: float, n: int = N_SCAN) -> np.ndarray:
-    """Uniform samples on [t_start, t_end] plus log-spaced ones (sharp early fronts)."""
-    uniform = np.linspace(t_start, t_end, n)
-    if t_start > 0 and t_end > t_start:
-        return np.union1d(uniform, np.geomspace(t_start, t_end, n // 2))
-    return uniform
-
-
 def earliest_resolved_time(times) -> float:
-    """Earliest positive output time: the modal series meets its tolerance from there on.
-
-    The solver sizes the mode count for this time (tail bound, see
-    ``transport.modal.required_modes``); earlier times are not resolved.
-    """
+    """Earliest positive output time: the series meets its tolerance from there on."""
     times = np.asarray(times, dtype=float)
     positive = times[times > 0]
     if positive.size == 0:
         raise ValueError("the run has no positive output time; add output.times")
     return float(positive.min())
-
-
-def first_crossing(concentration_at, depth: float, level: float, t_end: float,
-                   t_start: float, n: int = N_SCAN):
-    """First time the continuous C(depth, t) reaches ``level``, or None.
-
-    The curve is sampled (``_scan_times``) to bracket the first sign change of
-    C - level, then the root is polished with Brent's method
-    (:func:`scipy.optimize.brentq`; Brent 1973, *Algorithms for Minimization without
-    Derivatives*, ch. 4) to a relative time tolerance ``TIME_RTOL``.
-    Returns ``t_start`` if the level is already reached there.
-    """
-    from scipy.optimize import brentq
-
-    t = _scan_times(t_end, t_start, n)
-    excess = np.asarray(concentration_at(depth, t), dtype=float) - level
-    above = np.flatnonzero(excess >= 0)
-    if above.size == 0:
-        return None
-    i = int(above[0])
-    if i == 0:
-        return float(t[0])
-
-    def f(s):
-        return float(np.asarray(concentration_at(depth, np.array([s])))[0]) - level
-
-    root, info = brentq(f, t[i - 1], t[i], rtol=TIME_RTOL, full_output=True)
-    if not info.converged:  # pragma: no cover - brentq converges on a valid bracket
-        raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
-    return float(root)
-
-
-def peak(concentration_at, depth: float, t_end: float, t_start: float,
-         n: int = N_SCAN):
-    """(time, concentration) of the largest C(depth, t) on [t_start, t_end].
-
-    Sampled, then refined by bounded Brent minimisation of -C between the neighbours of
-    the best sample (:func:`scipy.optimize.minimize_scalar`).
-    """
-    from scipy.optimize import minimize_scalar
-
-    t = _scan_times(t_end, t_start, n)
-    c = np.asarray(concentration_at(depth, t), dtype=float)
-    i = int(np.argmax(c))
-    best_t, best_c = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1:
-        res = minimize_scalar(
-            lambda s: -float(np.asarray(concentration_at(depth, np.array([s])))[0]),
-            bounds=(t[i - 1], t[i + 1]), method="bounded",
-            options={"xatol": TIME_RTOL * max(t_end, 1.0)})
-        if res.success and -res.fun > best_c:
-            best_t, best_c = float(res.x), float(-res.fun)
-    return best_t, best_c
 
 
 # ------------------------------------------------------------------------------ helpers
@@ -189,16 +118,12 @@ def _setting(scenario, name):
     return getattr(getattr(scenario, "output", None), name, None)
 
 
-def _solve(scenario, depths=None):
-    from transport.modal import solve
+def _solve(scenario, depths=None, engine="auto"):
+    from transport.runner import solve_scenario
 
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        solution = solve(scenario.column, np.asarray(scenario.times, dtype=float),
-                         np.asarray(scenario.depths if depths is None else depths, dtype=float),
-                         initial=scenario.initial, tolerance=_setting(scenario, "tolerance"))
-    for w in caught:
-        click.echo(textwrap.fill(f"Warning: {w.message}", width=88), err=True)
+    solution, caught = solve_scenario(scenario, depths=depths, engine=engine)
+    for message in caught:
+        click.echo(textwrap.fill(f"Warning: {message}", width=88), err=True)
     return solution
 
 
@@ -241,10 +166,12 @@ def _summary_lines(scenario, solution):
     t_end = _horizon(scenario, solution)
     t_start = earliest_resolved_time(solution.times)
     if receptor is not None:
+        from transport.metrics import receptor_metrics
+
         where = f"Receptor at {receptor:g} m"
+        m = receptor_metrics(solution, receptor, level, t_end)
         if level is not None:
-            t_cross = first_crossing(solution.concentration_at, receptor, level, t_end,
-                                     t_start)
+            t_cross = m.first_exceedance
             shown = format_concentration(level)
             if t_cross is None:
                 lines.append(f"{where}: screening level {shown} not reached within the run "
@@ -261,9 +188,10 @@ def _summary_lines(scenario, solution):
                     side = "within" if t_cross <= life else "after"
                     against = f", {side} the {format_time(life)} design life"
                 lines.append(f"{where}: screening level {shown} first reached at "
-                             f"{format_time(t_cross)}{against}."
+                             f"{format_time(t_cross)}{against}; above it for "
+                             f"{format_time(m.time_above_level)} up to {format_time(t_end)}."
                              + _reliability_note(solution, receptor, t_cross, level))
-        t_peak, c_peak = peak(solution.concentration_at, receptor, t_end, t_start)
+        t_peak, c_peak = m.peak_time, m.peak_concentration
         c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
         if c_peak - c_end <= PLATEAU_RTOL * max(abs(c_peak), 1e-300):
             lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
@@ -272,6 +200,13 @@ def _summary_lines(scenario, solution):
         else:
             lines.append(f"{where}: peak {format_concentration(c_peak)} at "
                          f"{format_time(t_peak)}.")
+        if m.cumulative_mass is not None:
+            lines.append(f"{where}: {m.cumulative_mass * 1e6:.4g} mg/m2 passed downward up to "
+                         f"{format_time(t_end)}.")
+        if m.time_to_95_percent_steady is not None:
+            lines.append(f"{where}: 95 % of the steady value "
+                         f"{format_concentration(m.steady_concentration)} is reached at "
+                         f"{format_time(m.time_to_95_percent_steady)}.")
     budget = getattr(solution, "budget", None) or {}
     if budget:
         last = {k: float(np.asarray(v)[-1]) for k, v in budget.items()}
@@ -375,7 +310,10 @@ def main():
               help="NetCDF file to write (default: the scenario path with .nc).")
 @click.option("--plots", "plots_dir", type=click.Path(file_okay=False), default=None,
               help="Directory for PNG figures (profiles, breakthrough).")
-def run(scenario, output, plots_dir):
+@click.option("--engine", type=click.Choice(["auto", "modal", "laplace", "finite-volume"]),
+              default="auto", show_default=True,
+              help="Solution method; auto picks modal or Laplace per output time.")
+def run(scenario, output, plots_dir, engine):
     """Solve SCENARIO, write a CF NetCDF file and print a summary.
 
     \b
@@ -394,10 +332,12 @@ def run(scenario, output, plots_dir):
     sc = _load(scenario)
     _progress(2, total, f"solving {len(sc.column.layers)} layer(s), "
                         f"{len(sc.times)} time(s) x {len(sc.depths)} depth(s)")
-    solution = _solve(sc)
-    click.echo(f"      {solution.n_modes} modes ({solution.engine} engine)", err=True)
+    solution = _solve(sc, engine=engine)
+    by_time = getattr(solution, "engine_by_time", None)
+    used = sorted(set([solution.engine] if by_time is None else list(by_time)) - {"initial"})
+    click.echo(f"      engine(s): {', '.join(used)}; {solution.n_modes} modes", err=True)
     _progress(3, total, f"writing {output}")
-    command = ["stratiflux", "run", str(scenario), "-o", str(output)]
+    command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
     if plots_dir:
         command += ["--plots", str(plots_dir)]
     receptor, level = _setting(sc, "receptor_depth"), _setting(sc, "screening_level")
@@ -515,6 +455,17 @@ def new(path, force):
     Path(path).write_text(starter_scenario_text(), encoding="utf-8")
     click.echo(f"Wrote {path}. Next: stratiflux check {path}  then  stratiflux run {path}")
 
+
+def _register():
+    from transport.cli_compare import compare
+    from transport.cli_site import site
+    from transport.cli_verify import verify
+
+    for command in (compare, site, verify):
+        main.add_command(command)
+
+
+_register()
 
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -20,8 +20,27 @@ TIME_RTOL = 1e-10  # relative time tolerance of the root polish
 N_SCAN = 800
 
 
-def scan_times(t_start: float, t_end: float, extra=(), n: int = N_SCAN) -> np.ndarray:
-    """Uniform and log-spaced samples on [t_start, t_end], with change times bracketed."""
+def unresolved_windows(solution, tolerance: float = 1e-8):
+    """Intervals (c, c + tau) just after each signal change or stage start where the
+    truncated modal series does not meet the tolerance; metrics never sample inside."""
+    series = getattr(solution, "series", None)
+    out = []
+    if series is None:
+        return out
+    if hasattr(series, "timeline"):
+        for st, ser in zip(series.timeline.stages, series.series):
+            tau = ser.resolved_after(tolerance)
+            out += [(st.start + c, st.start + c + tau) for c in ser.change_times()]
+    else:
+        tau = series.resolved_after(tolerance)
+        out += [(c, c + tau) for c in series.change_times()]
+    return out
+
+
+def scan_times(t_start: float, t_end: float, extra=(), n: int = N_SCAN,
+               windows=()) -> np.ndarray:
+    """Uniform and log-spaced samples on [t_start, t_end], with change times bracketed;
+    samples inside unresolved windows are replaced by the window's ends."""
     t = np.linspace(t_start, t_end, n)
     if t_start > 0:
         t = np.union1d(t, np.geomspace(t_start, t_end, n // 2))
@@ -32,7 +51,15 @@ def scan_times(t_start: float, t_end: float, extra=(), n: int = N_SCAN) -> np.nd
         if t_start < c < t_end:
             d = 1e-9 * max(t_end, 1.0)
             pts += [c - d, c, c + d]
-    return np.union1d(t, pts)
+    t = np.union1d(t, pts)
+    for a, b in windows:
+        inside = (t > a) & (t < b)
+        t = np.union1d(t[~inside], [x for x in (a, b) if t_start <= x <= t_end])
+    return t
+
+
+def _gap(a, b, windows):
+    return any(a <= w0 and b >= w1 and a < b for w0, w1 in windows)
 
 
 def _value(conc_at, depth, s):
@@ -40,9 +67,13 @@ def _value(conc_at, depth, s):
 
 
 def crossings(conc_at, depth: float, level: float, t_start: float, t_end: float,
-              extra=(), n: int = N_SCAN):
-    """Times (and +1 up / -1 down directions) where C(depth, t) crosses ``level``."""
-    t = scan_times(t_start, t_end, extra, n)
+              extra=(), n: int = N_SCAN, windows=()):
+    """Times (and +1 up / -1 down directions) where C(depth, t) crosses ``level``.
+
+    A crossing inside an unresolved window (just after a change) is reported at the
+    window's start, the conservative end for a first exceedance."""
+    windows = [w for w in windows if w[1] > t_start and w[0] < t_end]
+    t = scan_times(t_start, t_end, extra, n, windows)
     c = np.asarray(conc_at(depth, t), float)
     ex = c - level
     out = []
@@ -53,25 +84,28 @@ def crossings(conc_at, depth: float, level: float, t_start: float, t_end: float,
             continue
         if ex[i + 1] == 0:
             continue  # counted at the next interval
+        if _gap(a, b, windows):
+            out.append((float(a), 1 if ex[i + 1] > ex[i] else -1))
+            continue
         root = brentq(lambda s: _value(conc_at, depth, s) - level, a, b,
                       rtol=TIME_RTOL, xtol=1e-12 * max(abs(b), 1.0))
         out.append((float(root), 1 if ex[i + 1] > ex[i] else -1))
     return out, bool(ex[0] >= 0)
 
 
-def first_exceedance(conc_at, depth, level, t_start, t_end, extra=()):
+def first_exceedance(conc_at, depth, level, t_start, t_end, extra=(), windows=()):
     """First time C reaches the level in [t_start, t_end]; t_start if already above;
     None if never."""
-    cr, above0 = crossings(conc_at, depth, level, t_start, t_end, extra)
+    cr, above0 = crossings(conc_at, depth, level, t_start, t_end, extra, windows=windows)
     if above0:
         return float(t_start)
     ups = [t for t, d in cr if d > 0]
     return ups[0] if ups else None
 
 
-def time_above(conc_at, depth, level, t_start, t_end, extra=()):
+def time_above(conc_at, depth, level, t_start, t_end, extra=(), windows=()):
     """Total time in [t_start, t_end] with C >= level."""
-    cr, above = crossings(conc_at, depth, level, t_start, t_end, extra)
+    cr, above = crossings(conc_at, depth, level, t_start, t_end, extra, windows=windows)
     total, since = 0.0, (t_start if above else None)
     for t, d in cr:
         if d > 0 and since is None:
@@ -84,13 +118,14 @@ def time_above(conc_at, depth, level, t_start, t_end, extra=()):
     return total
 
 
-def peak(conc_at, depth, t_start, t_end, extra=()):
+def peak(conc_at, depth, t_start, t_end, extra=(), windows=()):
     """(time, concentration) of the largest C(depth, t) on [t_start, t_end]."""
-    t = scan_times(t_start, t_end, extra)
+    t = scan_times(t_start, t_end, extra, windows=windows)
     c = np.asarray(conc_at(depth, t), float)
     i = int(np.nanargmax(c))
     best_t, best_c = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1:
+    if 0 < i < t.size - 1 and not (_gap(t[i - 1], t[i], windows)
+                                   or _gap(t[i], t[i + 1], windows)):
         res = minimize_scalar(lambda s: -_value(conc_at, depth, s), bounds=(t[i - 1], t[i + 1]),
                               method="bounded", options={"xatol": TIME_RTOL * max(t_end, 1.0)})
         if res.success and -res.fun > best_c:
@@ -125,7 +160,7 @@ class ReceptorMetrics:
     time_above_level: float | None  # s within the horizon
     peak_time: float  # s
     peak_concentration: float  # kg m-3
-    cumulative_mass: float  # kg m-2 through the receptor depth over the horizon
+    cumulative_mass: float | None  # kg m-2 through the receptor depth over the horizon
     steady_concentration: float | None  # kg m-3
     time_to_95_percent_steady: float | None  # s
     stays_below_level: bool | None
@@ -156,21 +191,25 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     t_start = min(t_start, horizon)
     conc_at = solution.concentration_at
     extra = _change_times(solution)
+    win = unresolved_windows(solution)
     first = above = None
     if screening_level is not None:
         first = first_exceedance(conc_at, receptor_depth, screening_level, t_start, horizon,
-                                 extra)
-        above = time_above(conc_at, receptor_depth, screening_level, t_start, horizon, extra)
-    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra)
-    cum = float(solution.series.cumulative_mass(np.array([receptor_depth]),
-                                                np.array([horizon]))[0, 0])
-    # steady state of the last stage
-    last = solution.series
-    offset = 0.0
-    if hasattr(last, "timeline"):
-        offset = last.timeline.stages[-1].offset
-        last = last.series[-1]
-    c_ss = steady_concentration(last, receptor_depth - offset)
+                                 extra, win)
+        above = time_above(conc_at, receptor_depth, screening_level, t_start, horizon, extra,
+                           win)
+    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win)
+    series = getattr(solution, "series", None)
+    cum = c_ss = None
+    if series is not None:
+        cum = float(series.cumulative_mass(np.array([receptor_depth]),
+                                           np.array([horizon]))[0, 0])
+        # steady state of the last stage
+        last, offset = series, 0.0
+        if hasattr(last, "timeline"):
+            offset = last.timeline.stages[-1].offset
+            last = last.series[-1]
+        c_ss = steady_concentration(last, receptor_depth - offset)
     t95 = None
     if c_ss is not None and abs(c_ss) > 0:
         band = 0.05 * abs(c_ss)
@@ -178,7 +217,8 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
         lam1 = float(last.modes.lam[0])
         t_far = late + 40.0 / max(lam1, 1e-300)
         f = lambda d, t: np.abs(np.asarray(conc_at(d, t), float) - c_ss)  # noqa: E731
-        cr, outside0 = crossings(f, receptor_depth, band, t_start, t_far, extra)
+        cr, outside0 = crossings(f, receptor_depth, band, t_start, t_far, extra,
+                                 windows=win)
         downs = [t for t, d in cr if d < 0]
         t95 = downs[-1] if downs else (t_start if not outside0 else None)
     stays = None if screening_level is None else first is None

@@ -83,6 +83,18 @@ class ModalSeries:
     def eigenvalues(self):
         return self.modes.lam
 
+    def resolved_after(self, tolerance: float = 1e-8) -> float:
+        """Time after a signal change from which the truncated series meets
+        ``tolerance`` (the tail bound used to size it): lambda_N t >= ln(1/tol) + ln N + 2."""
+        lam = self.modes.lam
+        return (math.log(1 / tolerance) + math.log(lam.size) + 2) / max(float(lam[-1]), 1e-300)
+
+    def change_times(self):
+        out = {0.0}
+        for sig in self.signals:
+            out.update(sig.change_times)
+        return sorted(out)
+
     @property
     def eps(self):
         return self.lifting.eps
@@ -389,7 +401,11 @@ def earliest_time_after_change(column: Column, times) -> float | None:
         if sched is not None:
             changes.update(sched.change_times)
     gaps = [t - c for t in times for c in changes if t - c > 0]
-    return min(gaps) if gaps else None
+    if not gaps:
+        return None
+    # resolve every change as finely as the run's start, so that continuous-time
+    # metrics are accurate after each change, not only at the output times
+    return min(min(gaps), float(times[times > 0].min()))
 
 
 def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,

@@ -91,7 +91,17 @@ def _extract(source):
         "bands": _layer_bands(source.column),
         "title": "",
         "concentration_at": getattr(source, "concentration_at", None),
+        "windows": _windows(source),
     }
+
+
+def _windows(source):
+    from transport.metrics import unresolved_windows
+
+    try:
+        return unresolved_windows(source)
+    except (AttributeError, TypeError):  # a result without a modal series
+        return []
 
 
 def _time_scale(t_max: float):
@@ -205,6 +215,8 @@ def _breakthrough_curve(run, receptor_depth: float, n_samples: int):
                        np.geomspace(t0, times[-1], n_samples // 2))
     dense = np.union1d(dense, positive)
     conc = np.asarray(run["concentration_at"](receptor_depth, dense), float)
+    for a, b in run.get("windows", ()):  # just after a change: not resolved, not drawn
+        conc[(dense > a) & (dense < b)] = np.nan
     early = times < t0
     return (np.concatenate([times[early], dense]), np.concatenate([stored[early], conc]),
             True)

@@ -279,12 +279,15 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
     series, carried = [], []
     init = initial if initial is not None else InitialState.clean()
     totals = dict(entered_top=0.0, left_bottom=0.0, decayed=0.0, produced=0.0, removed=0.0)
+    positive = times[times > 0]
     for i, st in enumerate(stages):
         end = stages[i + 1].start if i + 1 < len(stages) else np.inf
         local = times[(times > st.start) & (times <= end)] - st.start
         if i + 1 < len(stages):
             local = np.append(local, end - st.start)
         t_min = earliest_time_after_change(st.column, local)
+        if t_min is not None and positive.size:
+            t_min = min(t_min, float(positive.min()))
         if i == 0:
             ser = build_series(st.column, init, t_min, tolerance, max_modes,
                                None if t_min else 8)

@@ -1,0 +1,90 @@
+"""Comparison of remediation alternatives: command, table, CF file, verdicts."""
+import csv
+from pathlib import Path
+
+import netCDF4
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from transport.cli import main
+from transport.compare import comparison_table, compare_alternatives
+from transport.metrics import receptor_metrics
+from transport.scenario import load_scenario
+from transport.runner import solve_scenario
+
+from test_netcdf import failed_items, run_cf_checker
+
+ALTS = sorted((Path(__file__).resolve().parent.parent / "scenarios" / "alternatives")
+              .glob("*.toml"))
+
+
+@pytest.fixture(scope="module")
+def compared(tmp_path_factory):
+    out = tmp_path_factory.mktemp("cmp")
+    result = CliRunner().invoke(main, ["compare", *map(str, ALTS), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    return out, result.output
+
+
+def test_demo_has_four_alternatives():
+    assert len(ALTS) >= 4
+
+
+def test_comparison_netcdf_passes_cf_checker(compared):
+    """IOOS compliance-checker, CF 1.11: zero failed HIGH and MEDIUM items (as single runs)."""
+    out, _ = compared
+    report = run_cf_checker(out / "comparison.nc")
+    assert failed_items(report, "high") == []
+    assert failed_items(report, "medium") == []
+
+
+def test_comparison_file_matches_each_single_run(compared):
+    """Each scenario slice equals that alternative solved alone (same engine, same grid)."""
+    out, _ = compared
+    with netCDF4.Dataset(out / "comparison.nc") as nc:
+        labels = list(nc["label"][:])
+        conc = nc["concentration"][:]
+        depth = nc["depth"][:]
+        time_days = nc["time"][:]
+        assert nc["concentration"].dimensions == ("scenario", "time", "depth")
+    for k, path in enumerate(ALTS):
+        sc = load_scenario(path)
+        assert labels[k] == sc.title
+        z = np.array([1.0, 4.0])
+        t = np.asarray(time_days)[-3:] * 86400.0
+        sol, _ = solve_scenario(sc, depths=z, times=t)
+        iz = [int(np.argmin(np.abs(depth - v))) for v in z]
+        np.testing.assert_allclose(conc[k][-3:, iz], sol.concentration, rtol=1e-5, atol=1e-12)
+
+
+def test_table_csv_and_markdown_and_verdicts(compared):
+    out, text = compared
+    rows = list(csv.DictReader(open(out / "comparison.csv", encoding="utf-8")))
+    assert [r["alternative"] for r in rows] == [load_scenario(p).title for p in ALTS]
+    md = (out / "comparison.md").read_text(encoding="utf-8")
+    assert "| alternative |" in md and "regulator" in md
+    assert "screening tool" in text and "licensed professionals" in text
+    for name in ("breakthrough", "metrics", "profiles"):
+        assert (out / f"comparison_{name}.png").stat().st_size > 10_000
+
+
+def test_metrics_in_table_are_the_single_run_metrics():
+    """Table values are the receptor metrics of each alternative's continuous solution."""
+    scenarios = [load_scenario(p) for p in ALTS[:2]]
+    alts = compare_alternatives(scenarios)
+    rows = comparison_table(alts)
+    for sc, row in zip(scenarios, rows):
+        sol, _ = solve_scenario(sc, times=np.unique(np.concatenate(
+            [s.output.times for s in scenarios])))
+        m = receptor_metrics(sol, sc.output.receptor_depth, sc.output.screening_level,
+                             sc.output.design_life)
+        assert row["peak_mg_L"] == pytest.approx(m.peak_concentration * 1e3, rel=1e-9)
+        assert row["first_exceedance_yr"] == pytest.approx(m.first_exceedance / 365.25 / 86400,
+                                                           rel=1e-9)
+
+
+def test_duplicate_labels_are_refused():
+    sc = load_scenario(ALTS[0])
+    with pytest.raises(ValueError, match="labels must differ"):
+        compare_alternatives([sc, sc])

@@ -1,0 +1,348 @@
+"""Whole sites: log validation, station = single column, Monte Carlo, Dask.
+
+External references used here:
+
+* the single-column path of this project (``transport.scenario.load_scenario`` +
+  ``transport.modal.solve``) on a scenario file written out by hand for one boring;
+* Crank 1975, *The Mathematics of Diffusion*, 2nd ed., ch. 4: plane sheet with a held
+  surface and a sealed face (``tests/reference.py: crank_slab_series``) for the
+  exact exceedance probability;
+* scipy.stats.lognorm (the lognormal CDF) and the binomial standard error
+  sqrt(p (1 - p) / N) of a Monte Carlo fraction (e.g. Rubinstein and Kroese 2017,
+  *Simulation and the Monte Carlo Method*, 3rd ed., sec. 4.2 (from memory)); with a
+  Latin hypercube in one dimension each of the N equal-probability strata holds one
+  draw, so the fraction below a quantile p is within 1/N of p (McKay, Beckman and
+  Conover 1979, Technometrics 21:239).
+
+All site data below are invented test inputs (an invented site), not check values.
+"""
+from __future__ import annotations
+
+import math
+import textwrap
+
+import numpy as np
+import pytest
+from scipy import stats
+from scipy.optimize import brentq
+
+from reference import crank_slab_series
+from transport.modal import solve
+from transport.scenario import ScenarioError, load_scenario
+from transport.site import load_site, parse_site
+from transport.site_batch import solve_site
+
+YEAR = 365.25 * 86400.0
+
+SITE_TOML = """\
+title = "Test yard (invented)"
+crs = "EPSG:32631"
+borings_file = "borings.csv"
+log_file = "log.csv"
+
+[chemical]
+free_water_diffusivity = "1.0e-9 m^2/s"
+half_life = "10 yr"
+
+[flow]
+darcy_flux = "0.05 m/yr"
+
+[materials.sand]
+porosity = 0.35
+bulk_density = "1.7 g/cm^3"
+distribution_coefficient = "0.2 L/kg"
+tortuosity = 0.6
+dispersivity = "0.1 m"
+
+[materials.clay]
+porosity = 0.45
+bulk_density = "1.5 g/cm^3"
+distribution_coefficient = "1.0 L/kg"
+pore_diffusivity = "2e-10 m^2/s"
+dispersivity = "0.02 m"
+
+[top]
+kind = "concentration"
+concentration = "10 mg/L"
+
+[bottom]
+kind = "free-outflow"
+
+[output]
+times = ["1 yr", "5 yr", "20 yr"]
+depth_spacing = "25 cm"
+receptor_depth = "2 m"
+screening_level = "50 ug/L"
+design_life = "30 yr"
+{extra}
+"""
+
+BORINGS = """\
+id,x [m],y [m],ground_elevation [m]
+T-1,500000.0,5600000.0,20.0
+T-2,500030.5,5600010.25,20.4
+T-3,500061.0,5600020.5,20.9
+T-4,500091.5,5600030.75,21.1
+T-5,500122.0,5600041.0,21.6
+"""
+
+LOG = """\
+id,top [m],bottom [m],material
+T-1,0,2.5,sand
+T-2,0,0.8,sand
+T-2,0.8,1.3,clay
+T-2,1.3,2.6,sand
+T-3,0,1.0,sand
+T-3,1.0,2.2,clay
+T-4,0,3.0,sand
+T-5,0,1.2,sand
+T-5,1.2,1.6,clay
+T-5,1.6,2.8,sand
+"""
+
+
+def write_small_site(folder, extra="", borings=BORINGS, log=LOG, toml=SITE_TOML):
+    """Write the invented test site into ``folder``; return the site file path."""
+    (folder / "borings.csv").write_text(borings, encoding="utf-8")
+    (folder / "log.csv").write_text(log, encoding="utf-8")
+    path = folder / "site.toml"
+    path.write_text(toml.replace("{extra}", extra), encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="module")
+def small_site(tmp_path_factory):
+    return load_site(write_small_site(tmp_path_factory.mktemp("site")))
+
+
+@pytest.fixture(scope="module")
+def deterministic(small_site):
+    return solve_site(small_site, realizations=0, workers=1, chunk_size=2)
+
+
+# ------------------------------------------------------------------------ validation
+def test_bad_logs_list_every_offending_boring(tmp_path):
+    """Gaps, overlaps, unknown material, boring without log, log without boring: ONE
+    ScenarioError naming every offending boring with the file and line (common practice:
+    report all input problems at once)."""
+    log = textwrap.dedent("""\
+        id,top [m],bottom [m],material
+        T-1,0,1.0,sand
+        T-1,1.2,2.5,sand
+        T-2,0,1.0,sand
+        T-2,0.9,2.6,clay
+        T-3,0,2.2,gravel
+        T-5,0,2.8,sand
+        T-9,0,2.0,sand
+        """)
+    with pytest.raises(ScenarioError) as info:
+        load_site(write_small_site(tmp_path, log=log))
+    message = str(info.value)
+    assert set(info.value.borings) == {"T-1", "T-2", "T-3", "T-4", "T-9"}
+    assert "log.csv" in message
+    assert "lines 2-3: gap from 1 m to 1.2 m" in message
+    assert "lines 4-5: overlap from 0.9 m to 1 m" in message
+    assert "line 6: unknown material 'gravel'" in message
+    assert "T-4: borings.csv line 5: no rows in log.csv" in message
+    assert "line 8: no such boring in borings.csv" in message
+    assert "T-5" not in message
+
+
+def test_receptor_elevation_gives_depth_below_ground(tmp_path):
+    """receptor_elevation: depth = ground elevation - receptor elevation (definition)."""
+    path = write_small_site(tmp_path)
+    text = path.read_text().replace('receptor_depth = "2 m"', 'receptor_elevation = "19.5 m"')
+    site = parse_site(text, path)
+    for b in site.borings:
+        assert b.receptor_depth == pytest.approx(b.ground_elevation - 19.5, abs=1e-12)
+
+
+def test_lon_lat_borings_are_projected_with_pyproj(tmp_path):
+    """Borings given as lon/lat land at pyproj's UTM x/y (EPSG:4326 -> EPSG:32631)."""
+    import pyproj
+
+    lon, lat = [3.01, 3.02], [50.51, 50.52]
+    rows = "id,lon [deg],lat [deg],ground_elevation [m]\n" + "".join(
+        f"T-{i + 1},{a},{b},20\n" for i, (a, b) in enumerate(zip(lon, lat)))
+    log = "id,top [m],bottom [m],material\nT-1,0,2.5,sand\nT-2,0,2.5,sand\n"
+    site = load_site(write_small_site(tmp_path, borings=rows, log=log))
+    x, y = pyproj.Transformer.from_crs(4326, 32631, always_xy=True).transform(lon, lat)
+    assert [b.x for b in site.borings] == pytest.approx(x, abs=1e-6)
+    assert [b.y for b in site.borings] == pytest.approx(y, abs=1e-6)
+
+
+# ------------------------------------------------------------ station = single column
+def test_station_equals_single_column_run(tmp_path, small_site, deterministic):
+    """Boring T-2 written by hand as a single-column scenario file and run through
+    load_scenario + modal.solve equals the site station to 1e-12 (same column)."""
+    scenario = tmp_path / "t2.toml"
+    scenario.write_text(textwrap.dedent("""\
+        title = "T-2 by hand"
+        [chemical]
+        free_water_diffusivity = "1.0e-9 m^2/s"
+        half_life = "10 yr"
+        [flow]
+        darcy_flux = "0.05 m/yr"
+        [[layers]]
+        name = "sand"
+        thickness = "0.8 m"
+        porosity = 0.35
+        bulk_density = "1.7 g/cm^3"
+        distribution_coefficient = "0.2 L/kg"
+        tortuosity = 0.6
+        dispersivity = "0.1 m"
+        [[layers]]
+        name = "clay"
+        thickness = "0.5 m"
+        porosity = 0.45
+        bulk_density = "1.5 g/cm^3"
+        distribution_coefficient = "1.0 L/kg"
+        pore_diffusivity = "2e-10 m^2/s"
+        dispersivity = "0.02 m"
+        [[layers]]
+        name = "sand"
+        thickness = "1.3 m"
+        porosity = 0.35
+        bulk_density = "1.7 g/cm^3"
+        distribution_coefficient = "0.2 L/kg"
+        tortuosity = 0.6
+        dispersivity = "0.1 m"
+        [top]
+        kind = "concentration"
+        concentration = "10 mg/L"
+        [bottom]
+        kind = "free-outflow"
+        [output]
+        times = ["1 yr", "5 yr", "20 yr"]
+        receptor_depth = "2 m"
+        """))
+    sc = load_scenario(scenario)
+    k = small_site.ids.index("T-2")
+    grid = small_site.depths
+    inside = grid <= sc.column.length + 1e-12
+    ref = solve(sc.column, sc.times, grid[inside], sc.initial, sc.output.tolerance)
+    got = deterministic.fields["concentration"][k][:, inside]
+    scale = np.max(np.abs(ref.concentration))
+    assert np.max(np.abs(got - ref.concentration)) <= 1e-12 * scale
+    mass = deterministic.fields["cumulative_mass"][k][:, inside]
+    assert np.max(np.abs(mass - ref.cumulative_mass)) <= 1e-12 * np.max(
+        np.abs(ref.cumulative_mass))
+    assert np.all(np.isnan(deterministic.fields["concentration"][k][:, ~inside]))
+    # breakthrough: Brent root of the same continuous series (scipy.optimize.brentq)
+    t_b = deterministic.metrics["breakthrough_time"][k]
+    level = small_site.screening_level
+    assert ref.concentration_at(2.0, [t_b])[0] == pytest.approx(level, rel=1e-8)
+
+
+# --------------------------------------------------------------------- Monte Carlo
+DEGENERATE = """
+[uncertainty]
+realizations = 6
+seed = 11
+[[uncertainty.parameters]]
+parameter = "chemical.half_life"
+distribution = "lognormal"
+median = "10 yr"
+log_sd = 0
+[[uncertainty.parameters]]
+parameter = "materials.clay.distribution_coefficient"
+distribution = "uniform"
+low = "1.0 L/kg"
+high = "1.0 L/kg"
+"""
+
+
+def test_degenerate_monte_carlo_equals_deterministic(tmp_path, deterministic):
+    """Zero-spread distributions: every realization is the deterministic run, so the
+    exceedance probability is 0 or 1 and the percentiles are the deterministic values
+    (identity)."""
+    site = load_site(write_small_site(tmp_path, extra=DEGENERATE))
+    mc = solve_site(site, workers=1, chunk_size=5)
+    det = deterministic.metrics
+    assert mc.realizations == 6
+    np.testing.assert_array_equal(mc.metrics["exceedance_probability"],
+                                  (~np.isnan(det["breakthrough_time"])).astype(float))
+    for q in ("p5", "p50", "p95"):
+        np.testing.assert_allclose(mc.metrics[f"breakthrough_time_{q}"],
+                                   det["breakthrough_time"], rtol=1e-12)
+        np.testing.assert_allclose(mc.metrics[f"peak_concentration_{q}"],
+                                   det["peak_concentration"], rtol=1e-12)
+
+
+ANALYTIC_TOML = """\
+title = "One sand layer (invented)"
+crs = "EPSG:32631"
+borings_file = "borings.csv"
+log_file = "log.csv"
+
+[materials.sand]
+porosity = 0.3
+bulk_density = "1.6 g/cm^3"
+distribution_coefficient = "1 L/kg"
+pore_diffusivity = "5e-10 m^2/s"
+
+[top]
+kind = "concentration"
+concentration = "1 kg/m^3"
+
+[bottom]
+kind = "sealed"
+
+[output]
+times = ["2 yr", "20 yr"]
+depth_spacing = "50 cm"
+receptor_depth = "0.5 m"
+screening_level = "0.1 kg/m^3"
+design_life = "20 yr"
+tolerance = 1e-9
+
+[uncertainty]
+realizations = 2000
+seed = 4
+sampling = "latin-hypercube"
+[[uncertainty.parameters]]
+parameter = "materials.sand.distribution_coefficient"
+distribution = "lognormal"
+median = "1 L/kg"
+log_sd = 0.8
+"""
+
+
+def test_exceedance_probability_matches_lognormal_cdf(tmp_path):
+    """Single layer, diffusion only, held surface, sealed base: C(z, t; R) depends on
+    t/R only, so breakthrough is monotone in R and P(exceed) = P(Kd <= Kd*) with R* the
+    root of C_Crank(z_r, T; D/R*) = level (Crank 1975 ch. 4 plane sheet; brentq) and
+    the lognormal CDF at Kd* = (R* - 1) theta / rho_b. MC at N = 2000 (Latin
+    hypercube) within one binomial standard error."""
+    borings = "id,x [m],y [m],ground_elevation [m]\nA,500000,5600000,10\n"
+    log = "id,top [m],bottom [m],material\nA,0,1.0,sand\n"
+    site = load_site(write_small_site(tmp_path, borings=borings, log=log,
+                                      toml=ANALYTIC_TOML))
+    theta, rho_b, d, level, life = 0.3, 1600.0, 5e-10, 0.1, 20 * YEAR
+
+    def excess(r):
+        return crank_slab_series([0.5], [life], 1.0, d / r, surface=1.0)[0, 0] - level
+
+    r_star = brentq(excess, 1.0 + 1e-9, 1e4, xtol=1e-14)
+    kd_star = (r_star - 1.0) * theta / rho_b
+    p_exact = stats.lognorm(s=0.8, scale=1e-3).cdf(kd_star)
+    assert 0.2 < p_exact < 0.8  # the case is informative
+    result = solve_site(site, workers=2, chunk_size=1)
+    p_mc = result.metrics["exceedance_probability"][0]
+    n = 2000
+    assert abs(p_mc - p_exact) <= math.sqrt(p_exact * (1 - p_exact) / n)
+
+
+# ----------------------------------------------------------------------------- Dask
+def test_dask_local_cluster_equals_local_path(small_site, deterministic):
+    """The same chunks on a dask.distributed LocalCluster (2 workers, threads) give the
+    same numbers as the in-process path (identity)."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        result = solve_site(small_site, realizations=0, scheduler=cluster.scheduler_address,
+                            chunk_size=2)
+    for key, values in deterministic.fields.items():
+        np.testing.assert_array_equal(result.fields[key], values)
+    for key, values in deterministic.metrics.items():
+        np.testing.assert_array_equal(result.metrics[key], values)

@@ -1,0 +1,58 @@
+"""The ``compare`` command: remediation alternatives side by side."""
+from __future__ import annotations
+
+import shlex
+import sys
+import textwrap
+
+import click
+
+from .caution import CAUTION
+
+__all__ = ["compare"]
+
+
+@click.command()
+@click.argument("scenarios", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False), default="comparison",
+              show_default=True, help="Directory for the table (CSV, Markdown), NetCDF and "
+              "figures.")
+@click.option("--engine", type=click.Choice(["auto", "modal", "laplace", "finite-volume"]),
+              default="auto", show_default=True, help="Solution method for unstaged runs.")
+def compare(scenarios, out_dir, engine):
+    """Run remediation alternatives (one scenario file each) and compare them.
+
+    Every alternative is solved on a common time and depth grid; the table reports
+    breakthrough at the receptor, time above the screening level, peak, mass to the
+    receptor over the design life, time to steady state and the mass budget.
+
+    \b
+    Example:
+      stratiflux compare scenarios/alternatives/*.toml -o comparison
+    """
+    from .compare import comparison_table, compare_alternatives, table_text, verdict_lines
+    from .compare import write_outputs
+    from .scenario import load_scenario
+
+    loaded = [load_scenario(p) for p in scenarios]
+    labels = [sc.title for sc in loaded]
+    with click.progressbar(length=len(loaded), label="solving alternatives",
+                           file=sys.stderr) as bar:
+        def step(label):
+            bar.update(1)
+        alts = compare_alternatives(loaded, labels, engine=engine, progress=step)
+    for a in alts:
+        for message in a.warnings:
+            click.echo(textwrap.fill(f"Warning ({a.label}): {message}", width=88), err=True)
+    history = shlex.join(["stratiflux", "compare", *scenarios, "-o", out_dir, "--engine",
+                          engine])
+    paths = write_outputs(alts, out_dir, history=history, title="Comparison of alternatives")
+    click.echo(table_text(comparison_table(alts)))
+    click.echo("")
+    for line in verdict_lines(alts):
+        click.echo(textwrap.fill(line, width=88))
+    click.echo("")
+    for p in paths:
+        click.echo(f"wrote {p}")
+    click.echo("")
+    click.echo(textwrap.fill(CAUTION, width=88))

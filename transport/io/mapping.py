@@ -1,0 +1,184 @@
+"""Per-boring results for GIS: GeoPackage, GeoJSON (RFC 7946), CSV and a map figure.
+
+A site DSG NetCDF file is not usable as a GIS layer through GDAL, so point exports
+ship beside it. Field names carry their unit (``peak_conc_mg_L``); times are in years
+(Julian year, 365.25 d, stated in the metadata) from the start of the run; a
+breakthrough that does not happen within the design life is empty (NULL), with
+``exceeds_in_design_life`` = 0. GeoJSON follows RFC 7946 (WGS 84 lon/lat, written by
+GDAL's GeoJSON driver with ``RFC7946=YES``); the GeoPackage keeps the site CRS.
+Every file is written under a temporary name and renamed when complete; the caution
+travels in the layer metadata (GeoPackage), the ``description`` member (GeoJSON) and
+``#`` comment lines heading the CSV (pandas: ``read_csv(path, comment="#")``).
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+import textwrap
+
+import numpy as np
+
+from transport.caution import CAUTION, CAUTION_SHORT
+
+__all__ = ["station_table", "write_geopackage", "write_geojson", "write_metrics_csv",
+           "plot_site_map", "SECONDS_PER_YEAR", "MG_PER_L"]
+
+SECONDS_PER_YEAR = 365.25 * 86400.0
+SECONDS_PER_DAY = 86400.0
+MG_PER_L = 1000.0  # 1 kg m-3 = 1000 mg/L
+#: GeoJSON decimals: 1e-10 degree is about 0.01 mm on the ground (GDAL's default, 7
+#: decimals, is about 1 cm: too coarse to round-trip survey coordinates to 1 mm).
+GEOJSON_DECIMALS = 10
+_TIME = ("breakthrough_time", "peak_time", "breakthrough_time_p5", "breakthrough_time_p50",
+         "breakthrough_time_p95")
+_CONC = ("peak_concentration", "peak_concentration_p5", "peak_concentration_p50",
+         "peak_concentration_p95")
+_NAMES = {"breakthrough_time": "breakthrough_yr", "peak_time": "peak_time_yr",
+          "peak_concentration": "peak_conc_mg_L", "receptor_mass": "mass_to_receptor_kg_m2",
+          "receptor_depth": "receptor_depth_m", "boring_depth": "boring_depth_m",
+          "exceedance_probability": "exceedance_probability"}
+
+
+def station_table(path):
+    """Per-station metrics of a site NetCDF file as a pandas DataFrame (export units)."""
+    import netCDF4
+    import pandas as pd
+
+    with netCDF4.Dataset(path) as nc:
+        cols = {"station_id": list(nc["station_id"][:]),
+                "x_m": nc["x"][:].filled(np.nan), "y_m": nc["y"][:].filled(np.nan),
+                "lon_deg": nc["lon"][:].filled(np.nan), "lat_deg": nc["lat"][:].filled(np.nan),
+                "ground_elevation_m": nc["ground_elevation"][:].filled(np.nan)}
+        for name in ("receptor_depth", "boring_depth", "breakthrough_time", "peak_time",
+                     "peak_concentration", "receptor_mass", "exceedance_probability",
+                     "breakthrough_time_p5", "breakthrough_time_p50", "breakthrough_time_p95",
+                     "peak_concentration_p5", "peak_concentration_p50",
+                     "peak_concentration_p95"):
+            if name not in nc.variables:
+                continue
+            values = np.ma.filled(nc[name][:].astype(float), np.nan)
+            if name in _TIME:
+                values = values * SECONDS_PER_DAY / SECONDS_PER_YEAR
+                label = _NAMES.get(name, name.replace("breakthrough_time", "breakthrough")
+                                   + "_yr")
+            elif name in _CONC:
+                values = values * MG_PER_L
+                label = _NAMES.get(name, name.replace("peak_concentration", "peak_conc")
+                                   + "_mg_L")
+            else:
+                label = _NAMES[name]
+            cols[label] = values
+            if name == "breakthrough_time":
+                cols["exceeds_in_design_life"] = (~np.isnan(values)).astype(int)
+        meta = {"title": nc.title, "screening_level_mg_L": float(nc["screening_level"][...])
+                * MG_PER_L, "design_life_yr": float(nc["design_life"][...]) * SECONDS_PER_DAY
+                / SECONDS_PER_YEAR, "crs_wkt": nc["crs"].crs_wkt,
+                "realizations": int(getattr(nc, "monte_carlo_realizations", 0))}
+    table = pd.DataFrame(cols)
+    table.attrs.update(meta)
+    return table
+
+
+def _frame(table):
+    import geopandas as gpd
+
+    return gpd.GeoDataFrame(table.copy(), geometry=gpd.points_from_xy(table["x_m"],
+                                                                     table["y_m"]),
+                            crs=table.attrs["crs_wkt"])
+
+
+def _atomic(path, write):
+    path = os.fspath(path)
+    root, ext = os.path.splitext(path)
+    tmp = f"{root}.part{os.getpid()}{ext}"
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.remove(tmp)
+        raise
+    return path
+
+
+def _description(table) -> str:
+    a = table.attrs
+    return (f"{a['title']}. Per-boring results at the receptor against the screening level "
+            f"{a['screening_level_mg_L']:.4g} mg/L over a design life of "
+            f"{a['design_life_yr']:.4g} yr; times in years (365.25 d) from the start of the "
+            f"run; empty breakthrough: not reached within the design life. {CAUTION}")
+
+
+def write_geopackage(table, path):
+    """GeoPackage 1.3 point layer ``borings`` in the site CRS, caution in the metadata."""
+    frame = _frame(table)
+    return _atomic(path, lambda tmp: frame.to_file(
+        tmp, driver="GPKG", layer="borings", engine="pyogrio",
+        dataset_options={"VERSION": "1.3"},
+        metadata={"DESCRIPTION": _description(table)}))
+
+
+def write_geojson(table, path):
+    """GeoJSON per RFC 7946: WGS 84 lon/lat, caution in the ``description`` member."""
+    frame = _frame(table).to_crs("EPSG:4326")
+    return _atomic(path, lambda tmp: frame.to_file(
+        tmp, driver="GeoJSON", engine="pyogrio",
+        layer_options={"RFC7946": "YES", "COORDINATE_PRECISION": str(GEOJSON_DECIMALS),
+                       "DESCRIPTION": _description(table), "WRITE_NAME": "NO"}))
+
+
+def write_metrics_csv(table, path, epsg=None):
+    """CSV of per-boring metrics, with ``#`` header lines (CRS, units, caution)."""
+    head = [f"# {line}" for line in textwrap.wrap(_description(table), 100)]
+    head.append(f"# x_m, y_m: site CRS EPSG:{epsg}" if epsg else
+                "# x_m, y_m: site CRS (WKT in the NetCDF crs variable)")
+    head.append("# lon_deg, lat_deg: base geographic CRS of the site CRS")
+
+    def write(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write("\n".join(head) + "\n")
+            table.to_csv(fh, index=False, float_format="%.10g")
+    return _atomic(path, write)
+
+
+def plot_site_map(table, path, *, dpi=150):
+    """Map of breakthrough time per boring (and exceedance probability after Monte
+    Carlo), screening level in the title, caution in the footer. Returns the path."""
+    from matplotlib.figure import Figure
+
+    mc = "exceedance_probability" in table and table.attrs.get("realizations", 0) > 0
+    fig = Figure(figsize=(12 if mc else 7, 6.2), layout="constrained")
+    axes = fig.subplots(1, 2 if mc else 1, squeeze=False)[0]
+    x, y = table["x_m"].to_numpy(), table["y_m"].to_numpy()
+    bt = table["breakthrough_yr"].to_numpy()
+    never = np.isnan(bt)
+    ax = axes[0]
+    if (~never).any():
+        sc = ax.scatter(x[~never], y[~never], c=bt[~never], cmap="viridis_r", s=60,
+                        edgecolors="k", linewidths=0.4)
+        fig.colorbar(sc, ax=ax, label="breakthrough time (years)")
+    if never.any():
+        ax.scatter(x[never], y[never], facecolors="none", edgecolors="k", s=60,
+                   label="not reached within the design life")
+        ax.legend(loc="lower left", fontsize=8)
+    ax.set_title("Breakthrough at the receptor", fontsize=10)
+    if mc:
+        p = table["exceedance_probability"].to_numpy()
+        sc2 = axes[1].scatter(x, y, c=p, cmap="magma_r", vmin=0, vmax=1, s=60,
+                              edgecolors="k", linewidths=0.4)
+        fig.colorbar(sc2, ax=axes[1], label="probability of exceeding within design life")
+        axes[1].set_title(f"Exceedance probability ({table.attrs['realizations']} "
+                          "realizations)", fontsize=10)
+    for a in axes:
+        a.set_aspect("equal", adjustable="datalim")
+        a.set_xlabel("easting (m)")
+        a.set_ylabel("northing (m)")
+        a.ticklabel_format(useOffset=False, style="plain")
+        a.tick_params(labelsize=7)
+    at = table.attrs
+    fig.suptitle(f"{at['title']}\nscreening level {at['screening_level_mg_L']:.4g} mg/L, "
+                 f"design life {at['design_life_yr']:.4g} yr", fontsize=11)
+    fig.get_layout_engine().set(rect=(0, 0.07, 1, 0.93))
+    fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION_SHORT, 150)), fontsize=7,
+             va="bottom", ha="left")
+    return _atomic(path, lambda tmp: fig.savefig(tmp, dpi=dpi, format="png"))

@@ -1,0 +1,533 @@
+"""Whole sites: many borings sharing one chemical, source and materials.
+
+A site file (TOML) names the coordinate reference system, a borings CSV and a layer-log
+CSV, defines each material once and gives the shared settings::
+
+    title = "Invented works yard"
+    crs = "EPSG:32631"                 # EPSG code or WKT (pyproj); projected, metres
+    borings_file = "borings.csv"       # id, x [m], y [m] (or lon [deg], lat [deg]),
+                                       # ground_elevation [m]
+    log_file = "layer-log.csv"         # id, top [m], bottom [m], material (depths below ground)
+    [chemical]  [flow]  [top]  [bottom]          # exactly as in a scenario file
+    [materials.sand]                   # scenario layer keys, without name and thickness
+    porosity = 0.33
+    ...
+    [output]
+    times = {...}; depth_spacing = "5 cm"
+    receptor_depth = "4 m"  OR  receptor_elevation = "38.5 m"   (default: boring bottom)
+    screening_level = "5 ug/L"; design_life = "50 yr"; tolerance = 1e-8
+    [uncertainty]                      # optional, see transport.uncertainty
+    realizations = 200; seed = 1; sampling = "latin-hypercube"
+    [[uncertainty.parameters]] ...
+
+Each boring becomes the column a single-column scenario with the same layers would
+give (:func:`boring_scenario` goes through the scenario module's own readers), so a
+station of the site equals the single-column run of that boring. Every problem in the
+borings and logs is collected and raised as ONE :class:`ScenarioError` naming each
+offending boring with its file and line.
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import scenario as _sc
+from .model import InitialState
+from .scenario import ScenarioError
+from .uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
+from .units import UnitError, si_unit, to_si, ureg
+
+__all__ = ["Boring", "Site", "load_site", "parse_site", "boring_scenario", "solve_site",
+           "UNCERTAIN_KEYS"]
+
+SITE_KEYS = ("title", "crs", "borings_file", "log_file", "chemical", "flow", "materials",
+             "top", "bottom", "output", "uncertainty")
+MATERIAL_KEYS = tuple(k for k in _sc.LAYER_KEYS if k not in ("name", "thickness",
+                                                            "initial_concentration"))
+SITE_OUTPUT_KEYS = ("times", "depth_spacing", "receptor_depth", "receptor_elevation",
+                    "screening_level", "design_life", "tolerance")
+UNCERTAINTY_KEYS = ("realizations", "seed", "sampling", "parameters")
+#: Numeric keys that may be given as distributions, with their dimension.
+UNCERTAIN_KEYS = {
+    "chemical": {"free_water_diffusivity": "diffusivity",
+                 "organic_carbon_partition": "specific_volume", "half_life": "time"},
+    "flow": {"darcy_flux": "velocity"},
+    "materials": {"porosity": "dimensionless", "water_content": "dimensionless",
+                  "bulk_density": "density", "organic_carbon_fraction": "dimensionless",
+                  "distribution_coefficient": "specific_volume",
+                  "retardation_factor": "dimensionless", "tortuosity": "dimensionless",
+                  "pore_diffusivity": "diffusivity", "dispersivity": "length",
+                  "half_life": "time", "source_rate": "mass_rate_density"},
+}
+#: Two log depths closer than this are the same face (m); larger mismatches are gaps
+#: or overlaps (common practice: logs are recorded to the centimetre at best).
+FACE_TOLERANCE = 1e-6
+DEFAULT_DEPTH_INTERVALS = 200
+MAX_REALIZATIONS = 1_000_000
+
+
+@dataclass(frozen=True)
+class Boring:
+    """One boring: map position (site CRS, and lon/lat in its base geographic CRS),
+    ground elevation (m) and its log as (top, bottom, material) tuples, m below ground."""
+
+    id: str
+    x: float
+    y: float
+    lon: float
+    lat: float
+    ground_elevation: float
+    intervals: tuple
+    receptor_depth: float
+
+    @property
+    def depth(self) -> float:
+        return float(self.intervals[-1][1])
+
+
+@dataclass(frozen=True, eq=False)
+class Site:
+    """A loaded, validated site (SI floats inside; raw material tables kept so that each
+    boring is built by the scenario readers)."""
+
+    title: str
+    path: str
+    crs_text: str
+    epsg: int | None
+    borings: tuple
+    data: dict = field(repr=False)
+    times: np.ndarray = field(repr=False)
+    depths: np.ndarray = field(repr=False)
+    screening_level: float = 0.0
+    design_life: float = 0.0
+    tolerance: float = _sc.DEFAULT_TOLERANCE
+    distributions: tuple = ()
+    realizations: int = 0
+    seed: int | None = None
+    sampling: str = "random"
+    fingerprint: str = ""
+    source_text: str = field(default="", repr=False)
+
+    @property
+    def crs(self):
+        import pyproj
+
+        return pyproj.CRS.from_user_input(self.crs_text)
+
+    @property
+    def ids(self) -> list:
+        return [b.id for b in self.borings]
+
+
+# ------------------------------------------------------------------------------ CSV files
+def _read_table(r, key: str, raw, required: dict):
+    """Rows of a CSV named at ``key``: (path, text, [(line, {column: (text, unit)})])."""
+    if not isinstance(raw, str) or not raw.strip():
+        raise r.error(key, raw, "must be a file name", fix=f'e.g. {key} = "borings.csv"')
+    path = Path(raw) if Path(raw).is_absolute() else r.base_dir / raw
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeError) as exc:
+        raise r.error(key, raw, f"cannot read {path}: {exc}",
+                      fix="check the path (relative to the site file)") from None
+    numbered = [(i, ln) for i, ln in enumerate(text.splitlines(), start=1)
+                if ln.strip() and not ln.lstrip().startswith("#")]
+    if not numbered:
+        raise r.error(key, raw, f"{path.name} is empty", fix="add a header and rows")
+    header = next(csv.reader([numbered[0][1]]))
+    columns = {}
+    for j, cell in enumerate(header):
+        m = re.match(r"^\s*([^\[]+?)\s*(?:\[(.+)\])?\s*$", cell)
+        name = m.group(1).strip().lower().replace(" ", "_") if m else cell
+        columns[name] = (j, m.group(2).strip() if m and m.group(2) else None)
+    rows = []
+    for line, text_line in numbered[1:]:
+        cells = next(csv.reader([text_line]))
+        rows.append((line, {n: (cells[j].strip() if j < len(cells) else "", u)
+                            for n, (j, u) in columns.items()}))
+    return path, text, columns, rows
+
+
+def _unit_factor(path, column, unit, dimension):
+    if unit is None:
+        raise ScenarioError(str(path), f"header column {column!r}", problem="no unit given",
+                            fix=f"write the unit in brackets, e.g. '{column} [m]'")
+    try:
+        return to_si(f"1 {unit}", dimension, f"{path.name} header {column}")
+    except UnitError as exc:
+        raise ScenarioError(str(path), f"header column {column!r}", unit,
+                            f"not a {dimension} unit: {exc.reason}", fix="use e.g. [m]") from None
+
+
+def _number(cell):
+    try:
+        value = float(cell)
+    except ValueError:
+        return None
+    return value if math.isfinite(value) else None
+
+
+def _read_borings(r, data, crs):
+    import pyproj
+
+    path, text, cols, rows = _read_table(r, "borings_file", data.get("borings_file"), {})
+    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    has_xy = "x" in cols and "y" in cols
+    has_ll = ("lon" in cols or "longitude" in cols) and ("lat" in cols or "latitude" in cols)
+    if id_col is None or not (has_xy or has_ll) or "ground_elevation" not in cols:
+        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, x and "
+                            "y (or lon and lat) and ground_elevation",
+                            fix="write e.g. 'id,x [m],y [m],ground_elevation [m]'")
+    f_elev = _unit_factor(path, "ground_elevation", cols["ground_elevation"][1], "length")
+    if has_xy:
+        for c in ("x", "y"):
+            if cols[c][1] not in (None, "m", "metre", "meter"):
+                raise ScenarioError(str(path), f"header column {c!r}", cols[c][1],
+                                    "x and y are in the site CRS's metres",
+                                    fix=f"write '{c} [m]'")
+    lon_c = "lon" if "lon" in cols else "longitude"
+    lat_c = "lat" if "lat" in cols else "latitude"
+    problems, borings = [], {}
+    for line, row in rows:
+        bid = row[id_col][0]
+        where = f"{path.name} line {line}"
+        if not bid:
+            problems.append(f"{where}: empty id")
+            continue
+        if bid in borings:
+            problems.append(f"boring {bid} ({where}): listed twice (first on line "
+                            f"{borings[bid][0]})")
+            continue
+        names = ("x", "y") if has_xy else (lon_c, lat_c)
+        vals = [_number(row[n][0]) for n in names + ("ground_elevation",)]
+        if any(v is None for v in vals):
+            bad = [n for n, v in zip(names + ("ground_elevation",), vals) if v is None]
+            problems.append(f"boring {bid} ({where}): {', '.join(bad)} not a finite number")
+            continue
+        if not has_xy and not (-180 <= vals[0] <= 180 and -90 <= vals[1] <= 90):
+            problems.append(f"boring {bid} ({where}): lon/lat out of range")
+            continue
+        borings[bid] = (line, vals[0], vals[1], vals[2] * f_elev)
+    if problems:
+        raise ScenarioError(str(path), "borings", problem=f"{len(problems)} problem(s):\n  "
+                            + "\n  ".join(problems), fix="correct the listed rows")
+    ids = list(borings)
+    a = np.array([borings[i][1] for i in ids])
+    b = np.array([borings[i][2] for i in ids])
+    geo = crs.geodetic_crs
+    if has_xy:
+        lon, lat = pyproj.Transformer.from_crs(crs, geo, always_xy=True).transform(a, b)
+        x, y = a, b
+    else:
+        lon, lat = a, b
+        x, y = pyproj.Transformer.from_crs(geo, crs, always_xy=True).transform(a, b)
+    return path, text, {i: (borings[i][0], float(x[k]), float(y[k]), float(lon[k]),
+                            float(lat[k]), borings[i][3]) for k, i in enumerate(ids)}
+
+
+def _read_log(r, data, materials, boring_ids, borings_path):
+    path, text, cols, rows = _read_table(r, "log_file", data.get("log_file"), {})
+    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    if id_col is None or not {"top", "bottom", "material"} <= set(cols):
+        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, top, "
+                            "bottom and material", fix="write 'id,top [m],bottom [m],material'")
+    f_top = _unit_factor(path, "top", cols["top"][1], "length")
+    f_bot = _unit_factor(path, "bottom", cols["bottom"][1], "length")
+    problems, logs = {}, {}
+    for line, row in rows:
+        bid = row[id_col][0]
+        where = f"{path.name} line {line}"
+        top, bot, mat = _number(row["top"][0]), _number(row["bottom"][0]), row["material"][0]
+        if bid not in boring_ids:
+            problems.setdefault(bid or "(empty id)", []).append(
+                f"{where}: no such boring in {borings_path.name}")
+            continue
+        if top is None or bot is None:
+            problems.setdefault(bid, []).append(f"{where}: top/bottom not a number")
+            continue
+        top, bot = top * f_top, bot * f_bot
+        if mat not in materials:
+            problems.setdefault(bid, []).append(
+                f"{where}: unknown material {mat!r} (defined: {', '.join(materials)})")
+        if not bot > top or top < 0:
+            problems.setdefault(bid, []).append(f"{where}: needs 0 <= top < bottom, got "
+                                                f"{top:g} m to {bot:g} m")
+            continue
+        logs.setdefault(bid, []).append((top, bot, mat, line))
+    for bid in boring_ids:
+        if bid not in logs:
+            if bid not in problems:
+                problems.setdefault(bid, []).append(f"{boring_ids[bid]}: no rows in "
+                                                    f"{path.name}")
+            continue
+        ivs = sorted(logs[bid])
+        if ivs[0][0] > FACE_TOLERANCE:
+            problems.setdefault(bid, []).append(f"{path.name} line {ivs[0][3]}: the log "
+                                                f"starts at {ivs[0][0]:g} m, not at 0 m")
+        for a, b in zip(ivs, ivs[1:]):
+            if b[0] > a[1] + FACE_TOLERANCE:
+                problems.setdefault(bid, []).append(
+                    f"{path.name} lines {a[3]}-{b[3]}: gap from {a[1]:g} m to {b[0]:g} m")
+            elif b[0] < a[1] - FACE_TOLERANCE:
+                problems.setdefault(bid, []).append(
+                    f"{path.name} lines {a[3]}-{b[3]}: overlap from {b[0]:g} m to {a[1]:g} m")
+        logs[bid] = ivs
+    if problems:
+        listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
+        err = ScenarioError(str(path), "log", problem=f"{len(problems)} boring(s) with "
+                            "problems:\n  " + "\n  ".join(listed),
+                            fix="correct every listed boring (each log from 0 m down, no gaps "
+                            "or overlaps, materials defined under [materials])")
+        err.borings = tuple(problems)
+        raise err
+    return path, text, logs
+
+
+# --------------------------------------------------------------------------- site parsing
+def _distribution(r, raw, j, data):
+    key = f"uncertainty.parameters[{j}]"
+    t = r.table(raw, key, required=True)
+    target = t.get("parameter")
+    parts = target.split(".") if isinstance(target, str) else []
+    group = parts[0] if parts else None
+    name = parts[-1] if parts else None
+    ok = (group in ("chemical", "flow") and len(parts) == 2 and name in UNCERTAIN_KEYS[group]) \
+        or (group == "materials" and len(parts) == 3 and name in UNCERTAIN_KEYS["materials"])
+    if not ok:
+        raise r.error(f"{key}.parameter", target, "not a parameter that can be uncertain",
+                      allowed="chemical.<key>, flow.darcy_flux, materials.<name>.<key> with "
+                      "keys " + ", ".join(sorted({k for g in UNCERTAIN_KEYS.values() for k in g})))
+    if group == "materials":
+        mats = data.get("materials") or {}
+        if parts[1] not in mats:
+            raise r.error(f"{key}.parameter", target, f"no material {parts[1]!r}",
+                          allowed=", ".join(mats))
+        if name not in mats[parts[1]]:
+            raise r.error(f"{key}.parameter", target, f"material {parts[1]!r} does not give "
+                          f"{name}", fix=f"give a deterministic {name} in [materials."
+                          f"{parts[1]}] (the value used without Monte Carlo)")
+    dim = UNCERTAIN_KEYS["materials" if group == "materials" else group][name]
+    kind = t.get("distribution")
+    if kind not in DISTRIBUTION_PARAMETERS:
+        raise r.error(f"{key}.distribution", kind, "unknown distribution",
+                      allowed=" | ".join(DISTRIBUTION_PARAMETERS))
+    names = DISTRIBUTION_PARAMETERS[kind]
+    r.keys(t, ("parameter", "distribution", "lower", "upper") + names, key)
+    values = []
+    for pn in names:
+        if pn not in t:
+            raise r.error(f"{key}.{pn}", problem=f"missing for a {kind} distribution",
+                          fix="give " + ", ".join(names))
+        values.append(r.quantity(t[pn], "dimensionless" if pn == "log_sd" else dim,
+                                 f"{key}.{pn}"))
+    lower = r.optional(t, "lower", dim, key)
+    upper = r.optional(t, "upper", dim, key)
+    try:
+        dist = Distribution(target, kind, tuple(values), lower, upper)
+    except ValueError as exc:
+        raise r.error(key, problem=str(exc), fix="correct the distribution") from None
+    if dist.support_min() < 0 and dim != "velocity":
+        raise r.error(f"{key}.lower", problem=f"the {kind} distribution can draw negative "
+                      f"values of {name}", fix='add a lower bound, e.g. lower = "0 ..."')
+    return dist
+
+
+def _uncertainty(r, data):
+    t = r.table(data.get("uncertainty"), "uncertainty")
+    r.keys(t, UNCERTAINTY_KEYS, "uncertainty")
+    n = t.get("realizations", 0)
+    if isinstance(n, bool) or not isinstance(n, int) or not 0 <= n <= MAX_REALIZATIONS:
+        raise r.error("uncertainty.realizations", n, "must be a whole number",
+                      allowed=f"0 to {MAX_REALIZATIONS}")
+    seed = t.get("seed")
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, int) or seed < 0):
+        raise r.error("uncertainty.seed", seed, "must be a whole number >= 0")
+    sampling = t.get("sampling", "random")
+    if sampling not in SAMPLING_METHODS:
+        raise r.error("uncertainty.sampling", sampling, "unknown sampling",
+                      allowed=" | ".join(SAMPLING_METHODS))
+    raw = t.get("parameters", [])
+    if not isinstance(raw, list):
+        raise r.error("uncertainty.parameters", raw, "must be [[uncertainty.parameters]] tables")
+    dists = tuple(_distribution(r, p, j, data) for j, p in enumerate(raw, start=1))
+    if len({d.parameter for d in dists}) != len(dists):
+        raise r.error("uncertainty.parameters", problem="a parameter is listed twice")
+    return dists, n, seed, sampling
+
+
+def _common_grid(r, out, max_depth):
+    step = r.optional(out, "depth_spacing", "length", "output",
+                      default=max_depth / DEFAULT_DEPTH_INTERVALS, low=0, low_open=True)
+    count = max_depth / step
+    if count > _sc.MAX_DEPTHS - 1:
+        raise r.error("output.depth_spacing", out.get("depth_spacing"),
+                      f"gives {count:.3g} depths", allowed=f"at most {_sc.MAX_DEPTHS}",
+                      fix="use a coarser spacing")
+    grid = np.arange(int(math.floor(count * (1 + 1e-12))) + 1) * step
+    grid = np.unique(np.concatenate([grid[grid < max_depth * (1 - 1e-12)], [max_depth]]))
+    grid.setflags(write=False)
+    return grid
+
+
+def parse_site(text: str, path: str | Path = "<string>") -> Site:
+    """Parse and validate site TOML text (relative file names from ``path``'s folder)."""
+    import pyproj
+
+    file = str(path)
+    r = _sc._Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise r.error("(TOML syntax)", problem=str(exc), fix="correct the TOML syntax") from None
+    r.keys(data, SITE_KEYS, "")
+    title = r.text(data, "title", "", default=Path(file).stem)
+    crs_raw = data.get("crs")
+    try:
+        crs = pyproj.CRS.from_user_input(crs_raw)
+    except (pyproj.exceptions.CRSError, TypeError):
+        raise r.error("crs", crs_raw, "not a coordinate reference system pyproj knows",
+                      fix='give an EPSG code such as "EPSG:32631" or a WKT string') from None
+    if not crs.is_projected or crs.axis_info[0].unit_name not in ("metre", "meter"):
+        raise r.error("crs", crs_raw, "must be a projected CRS in metres",
+                      fix="use the site's UTM zone, e.g. EPSG:326xx (north) / 327xx (south)")
+    materials = r.table(data.get("materials"), "materials", required=True)
+    for name, mat in materials.items():
+        r.keys(r.table(mat, f"materials.{name}", required=True), MATERIAL_KEYS,
+               f"materials.{name}")
+    chem = _sc._chemical(r, data)  # validates [chemical] once, with its key paths
+    flow = r.table(data.get("flow"), "flow")
+    r.keys(flow, _sc.FLOW_KEYS, "flow")
+    q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
+    for name, mat in materials.items():  # each material as a 1 m layer, to validate keys
+        _sc._layer(r, {**mat, "thickness": "1 m"}, name, chem, q, 0.0, True)
+    _sc._boundary(r, data, "top", q)
+    _sc._boundary(r, data, "bottom", q)
+    out = r.table(data.get("output"), "output", required=True)
+    r.keys(out, SITE_OUTPUT_KEYS, "output")
+    times = _sc._times(r, out.get("times"))
+    level = r.optional(out, "screening_level", "concentration", "output", low=0, low_open=True)
+    life = r.optional(out, "design_life", "time", "output", low=0, low_open=True)
+    for k, v in (("screening_level", level), ("design_life", life)):
+        if v is None:
+            raise r.error(f"output.{k}", problem="missing (a site run reports against it)",
+                          fix='e.g. screening_level = "5 ug/L", design_life = "50 yr"')
+    positive = times[times > 0]
+    if positive.size == 0 or life <= positive.min():
+        raise r.error("output.design_life", out["design_life"], "must exceed the earliest "
+                      "positive output time", fix="add an earlier output time")
+    tol = r.optional(out, "tolerance", "dimensionless", "output",
+                     default=_sc.DEFAULT_TOLERANCE, low=1e-14, high=1e-2)
+    if "receptor_depth" in out and "receptor_elevation" in out:
+        raise r.error("output.receptor_elevation", out["receptor_elevation"],
+                      "given together with receptor_depth", fix="keep one")
+    rec_depth = r.optional(out, "receptor_depth", "length", "output", low=0, low_open=True)
+    rec_elev = r.optional(out, "receptor_elevation", "length", "output")
+    dists, n_real, seed, sampling = _uncertainty(r, data)
+
+    bpath, btext, braw = _read_borings(r, data, crs)
+    lpath, ltext, logs = _read_log(r, data, materials,
+                                   {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
+                                   bpath)
+    borings, bad = [], []
+    for bid, (line, x, y, lon, lat, elev) in braw.items():
+        ivs = tuple((a, b, m) for a, b, m, _ in logs[bid])
+        bottom = ivs[-1][1]
+        depth = bottom if rec_depth is None and rec_elev is None else (
+            rec_depth if rec_depth is not None else elev - rec_elev)
+        if not 0 < depth <= bottom * (1 + 1e-12):
+            bad.append(f"boring {bid} ({bpath.name} line {line}): receptor at {depth:g} m "
+                       f"below ground, the log ends at {bottom:g} m")
+        borings.append(Boring(bid, x, y, lon, lat, elev, ivs, min(depth, bottom)))
+    if bad:
+        key = "output.receptor_elevation" if rec_elev is not None else "output.receptor_depth"
+        raise r.error(key, problem=f"outside {len(bad)} boring(s):\n  " + "\n  ".join(bad),
+                      fix="deepen those logs or move the receptor")
+    grid = _common_grid(r, out, max(b.depth for b in borings))
+    digest = hashlib.sha256()
+    for part in (text, btext, ltext):
+        digest.update(part.encode("utf-8") + b"\0")
+    times.setflags(write=False)
+    return Site(title=title, path=file, crs_text=crs.to_wkt(), epsg=crs.to_epsg(),
+                borings=tuple(borings), data=data, times=times, depths=grid,
+                screening_level=level, design_life=life, tolerance=tol, distributions=dists,
+                realizations=n_real, seed=seed, sampling=sampling,
+                fingerprint=digest.hexdigest(), source_text=text)
+
+
+def load_site(path: str | Path) -> Site:
+    """Read and validate a site file and the CSV files it names."""
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeError) as exc:
+        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
+                            fix="check the path") from None
+    return parse_site(text, path)
+
+
+# ------------------------------------------------------------------------ one boring
+def _si_value(value: float, dimension: str):
+    return float(value) if dimension == "dimensionless" else ureg.Quantity(
+        float(value), si_unit(dimension))
+
+
+def boring_scenario(site: Site, boring: Boring | str, overrides: dict | None = None):
+    """The single-column :class:`~transport.scenario.Scenario` of one boring.
+
+    Built by the scenario module's readers from the site's tables, with the log's
+    intervals as layers (name = material) and the boring's receptor depth, so it is the
+    scenario a user would write for that boring. ``overrides`` maps parameter paths
+    (``"materials.clay.distribution_coefficient"``) to SI values (one Monte Carlo draw).
+    Its ``output.depths`` are the scenario's own grid; a site run uses the common grid
+    ``site.depths`` cut at the boring's bottom.
+    """
+    if isinstance(boring, str):
+        boring = next(b for b in site.borings if b.id == boring)
+    data = site.data
+    chem_t, flow_t = dict(data.get("chemical") or {}), dict(data.get("flow") or {})
+    mats = {k: dict(v) for k, v in data["materials"].items()}
+    for target, value in (overrides or {}).items():
+        parts = target.split(".")
+        group = "materials" if parts[0] == "materials" else parts[0]
+        dim = UNCERTAIN_KEYS[group][parts[-1]]
+        table = mats[parts[1]] if group == "materials" else (
+            chem_t if group == "chemical" else flow_t)
+        table[parts[-1]] = _si_value(value, dim)
+    layers = [{**mats[m], "name": m, "thickness": _si_value(b - a, "length")}
+              for a, b, m in boring.intervals]
+    out = {k: v for k, v in data["output"].items()
+           if k in ("times", "screening_level", "design_life", "tolerance")}
+    out["receptor_depth"] = _si_value(boring.receptor_depth, "length")
+    scen = {"title": f"{site.title}, boring {boring.id}", "chemical": chem_t, "flow": flow_t,
+            "layers": layers, "top": data["top"], "bottom": data["bottom"], "output": out}
+    r = _sc._Reader(site.path, Path(site.path).parent)
+    chem = _sc._chemical(r, scen)
+    q = r.optional(flow_t, "darcy_flux", "velocity", "flow", default=0.0)
+    built, details, top = [], [], 0.0
+    for i, raw in enumerate(layers, start=1):
+        layer, detail, _ = _sc._layer(r, raw, i, chem, q, top, i == len(layers))
+        built.append(layer)
+        details.append(detail)
+        top += layer.thickness
+    from .model import Column
+
+    column = Column(tuple(built), _sc._boundary(r, scen, "top", q),
+                    _sc._boundary(r, scen, "bottom", q), q)
+    output = _sc._output(r, scen, column)
+    return _sc.Scenario(title=scen["title"], path=site.path, column=column,
+                        initial=InitialState.clean(), chemical=chem, output=output,
+                        source_text="", layer_details=tuple(details))
+
+
+def solve_site(site: Site, **options):
+    """Solve every boring (and the Monte Carlo realizations): see
+    :func:`transport.site_batch.solve_site` for the options and the result."""
+    from .site_batch import solve_site as _solve
+
+    return _solve(site, **options)
