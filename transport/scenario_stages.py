@@ -198,7 +198,7 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                 action = place_cap(new, top)
             elif kind == "amend-layer":
                 name = act.get("layer")
-                if name not in tables:
+                if not isinstance(name, str) or name not in tables:
                     raise r.error(f"{key}.layer", name, "no layer of that name",
                                   allowed=", ".join(tables), fix="use a layer name")
                 changes = {k: v for k, v in act.items() if k not in ("at", "kind", "layer")}
