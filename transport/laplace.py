@@ -57,7 +57,7 @@ import numpy as np
 from scipy.linalg import solve_banded
 
 from .modal import ColumnSolution
-from .model import Column, InitialState, InputError
+from .model import Column, InitialState, InputError, check_output_grid
 
 __all__ = ["solve_laplace", "talbot_nodes", "invert", "LaplaceTransfer", "EngineSolution",
            "DEFAULT_NODES", "default_nodes"]
@@ -415,19 +415,7 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
     """
     initial = initial if initial is not None else InitialState.clean()
     n_nodes = default_nodes(column) if nodes is None else int(nodes)
-    times = np.asarray(times, dtype=float).ravel()
-    depths = np.asarray(depths, dtype=float).ravel()
-    if times.size == 0 or depths.size == 0:
-        raise InputError("give at least one output time and one output depth")
-    if not (np.all(np.isfinite(times)) and np.all(np.isfinite(depths))):
-        raise InputError("output times and depths must be finite numbers")
-    if np.any(times < 0):
-        raise InputError(f"output times must be >= 0 s, got {times.min()!r}")
-    L = column.length
-    if np.any(depths < 0) or (not semi_infinite_bottom and np.any(depths > L * (1 + 1e-12))):
-        raise InputError(f"output depths must lie in the column [0, {L}] m"
-                         + ("" if semi_infinite_bottom else
-                            "; for a deep last layer use semi_infinite_bottom=True"))
+    times, depths = check_output_grid(column, times, depths, semi_infinite_bottom)
     if callable(initial) or not isinstance(initial, InitialState):
         raise InputError("the Laplace engine takes an InitialState (clean, uniform or "
                          "profile); project other initial fields onto a profile first")
@@ -436,7 +424,7 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
     seg_layer = np.clip(np.searchsorted(column.interfaces, g["top"], side="right") - 1, 0,
                         len(column.layers) - 1)
     nz, nt = depths.size, times.size
-    ends = np.array([0.0, L])
+    ends = np.array([0.0, column.length])
     out = np.zeros((nt, 3 * nz + 4))
     err = np.zeros(nt)
     for t0, group in sorted(_components(column, seg_layer).items()):

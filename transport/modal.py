@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .lifting import SteadyResponses, steady_responses
-from .model import Column, InitialState, InputError
+from .model import Column, InitialState, InputError, check_output_grid
 from .projection import gauss_nodes, green_flux, initial_profile
 from .schedules import Schedule, phi
 from .spectrum import Modes, Operator, build_operator, eigenvalues, modes
@@ -419,17 +419,7 @@ def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,
     :class:`AccuracyWarning` if rounding (high Peclet, early time) exceeds it.
     """
     initial = initial if initial is not None else InitialState.clean()
-    times = np.asarray(times, dtype=float).ravel()
-    depths = np.asarray(depths, dtype=float).ravel()
-    if times.size == 0 or depths.size == 0:
-        raise InputError("give at least one output time and one output depth")
-    if not (np.all(np.isfinite(times)) and np.all(np.isfinite(depths))):
-        raise InputError("output times and depths must be finite numbers")
-    if np.any(times < 0):
-        raise InputError(f"output times must be >= 0 s, got {times.min()!r}")
-    L = column.length
-    if np.any(depths < 0) or np.any(depths > L * (1 + 1e-12)):
-        raise InputError(f"output depths must lie in the column [0, {L}] m")
+    times, depths = check_output_grid(column, times, depths)
     t_min = earliest_time_after_change(column, times)
     if t_min is None and n_modes is None:
         n_modes = 8

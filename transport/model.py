@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 __all__ = [
+    "check_output_grid",
     "InputError",
     "Layer",
     "Boundary",
@@ -203,3 +204,21 @@ class InitialState:
     @classmethod
     def profile(cls, depths, values):
         return cls("profile", values=tuple(values), depths=tuple(depths))
+
+
+def check_output_grid(column: Column, times, depths, semi_infinite_bottom: bool = False):
+    """Validated 1-D float arrays of output times (s, >= 0) and depths (m, in the column)."""
+    times = np.asarray(times, dtype=float).ravel()
+    depths = np.asarray(depths, dtype=float).ravel()
+    if times.size == 0 or depths.size == 0:
+        raise InputError("give at least one output time and one output depth")
+    if not (np.all(np.isfinite(times)) and np.all(np.isfinite(depths))):
+        raise InputError("output times and depths must be finite numbers")
+    if np.any(times < 0):
+        raise InputError(f"output times must be >= 0 s, got {times.min()!r}")
+    L = column.length
+    if np.any(depths < 0) or (not semi_infinite_bottom and np.any(depths > L * (1 + 1e-12))):
+        raise InputError(f"output depths must lie in the column [0, {L}] m"
+                         + ("" if semi_infinite_bottom else
+                            "; for a deep last layer use semi_infinite_bottom=True"))
+    return times, depths

@@ -173,19 +173,7 @@ class TimelineSeries:
     def concentration(self, z, t):
         """C at original-frame depths z and times t: (t.size, z.size); NaN outside the
         column of the stage."""
-        z = np.atleast_1d(np.asarray(z, float))
-        t = np.atleast_1d(np.asarray(t, float))
-        out = np.full((t.size, z.size), np.nan)
-        idx = self._stage_of(t)
-        for i in np.unique(idx):
-            st, ser = self.timeline.stages[i], self.series[i]
-            zl = z - st.offset
-            inside = (zl >= -1e-12) & (zl <= st.column.length * (1 + 1e-12))
-            if inside.any():
-                sel = idx == i
-                out[np.ix_(sel, inside)] = ser.concentration(np.clip(zl[inside], 0, None),
-                                                             t[sel] - st.start)
-        return out
+        return self._by_stage(z, t, lambda i, ser, zl, tl, zo: ser.concentration(zl, tl))
 
     def concentration_at(self, depth, times):
         return self.concentration(np.array([float(depth)]), times)[:, 0]
