@@ -261,6 +261,15 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     }
     if scenario_text is not None:
         attrs["scenario_text"] = str(scenario_text)
+    timeline = getattr(solution, "timeline", None)
+    if timeline is not None and len(timeline.stages) > 1:
+        attrs["stages"] = "; ".join(
+            f"from {st.start / SECONDS_PER_DAY:.6g} days: {st.label or 'initial column'} "
+            f"(top of the column at depth {st.offset:g} m)" for st in timeline.stages)
+        attrs["summary"] += (" The column changes with time (see the stages attribute); "
+                             "depths are below its original top and values are missing "
+                             "where the column does not exist at that time; the layer "
+                             "variables describe the initial column.")
 
     ds = xr.Dataset(data_vars=data_vars, coords=coords, attrs=attrs)
     for name, var in ds.variables.items():
