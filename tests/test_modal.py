@@ -295,3 +295,22 @@ def test_to_dataset_carries_units_and_values():
     assert ds["concentration"].attrs["units"] == "kg m-3"
     assert ds["depth"].attrs["positive"] == "down"
     np.testing.assert_allclose(ds["concentration"].values, sol.concentration, rtol=1e-6)
+
+
+def test_mode_decaying_through_a_thick_layer_stays_finite():
+    """Regression (found by the property test): the slowest mode decays through a thick,
+    strongly evanescent layer; shooting must keep that state (no NaN) and the budget
+    must close (identity)."""
+    layers = (Layer(1.0, 0.5, 1.4502215248432677e-10, 1.0),
+              Layer(1.0, 0.25, 1.1079840666206341e-11, 7.5, decay_rate=1e-9),
+              Layer(0.5, 0.5, 1e-11, 13.4375),
+              Layer(1.0, 0.375, 5.104116658330971e-10, 10.0, decay_rate=1e-9),
+              Layer(1.0, 0.5, 1e-11, 2.875, decay_rate=1e-9))
+    col = Column(layers=layers, top=Boundary("concentration", 1.0),
+                 bottom=Boundary("concentration", 1.0))
+    sol = solve(col, np.array([1.0, 10.0, 100.0]) * YEAR, [0.0, 2.0, 4.5],
+                initial=InitialState.uniform([0.5] * 5))
+    assert np.all(np.isfinite(sol.concentration))
+    b = sol.budget
+    scale = max(np.abs(b[k]).max() for k in ("stored", "entered_top", "left_bottom", "decayed"))
+    assert np.abs(b["residual"]).max() <= 1e-9 * scale

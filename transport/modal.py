@@ -110,22 +110,43 @@ class ModalSeries:
         t = np.atleast_1d(np.asarray(t, dtype=float))
         return np.array([s.integral(t) for s in self.signals])
 
+    def _atom_groups(self):
+        """Modal weights summed over signals per distinct atom (kind, t0, rate), so each
+        time kernel is evaluated once; a step at t = 0 (eps = 0) joins the initial term."""
+        if "atoms" not in self._cache:
+            initial = self.proj0.copy()
+            groups = {}
+            for k in self._active():
+                for kind, t0, amp, rate in self.signals[k].atoms:
+                    if kind == "step" and t0 == 0.0 and self.eps == 0.0:
+                        initial -= amp * self.lift_coef[k]  # kernel -e^{-lambda t}
+                        continue
+                    key = (kind, t0, rate)
+                    groups[key] = groups.get(key, 0.0) + amp * self.lift_coef[k]
+            self._cache["atoms"] = (initial, groups)
+        return self._cache["atoms"]
+
     def coefficients(self, t):
         """a_n(t), shape (n, t.size)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam
-        out = self.proj0[:, None] * phi(0, lam[:, None], t[None, :])
-        for k in self._active():
-            out += self.lift_coef[k][:, None] * self.signals[k].modal(lam, t, self.eps)
+        initial, groups = self._atom_groups()
+        out = np.exp(-lam[:, None] * t[None, :])
+        out *= initial[:, None]
+        for (kind, t0, rate), w in groups.items():
+            unit = Schedule(((kind, t0, 1.0, rate),))
+            out += w[:, None] * unit.modal(lam, t, self.eps)
         return out
 
     def integrated_coefficients(self, t):
         """int_0^t a_n, shape (n, t.size)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam
-        out = self.proj0[:, None] * phi(1, lam[:, None], t[None, :])
-        for k in self._active():
-            out += self.lift_coef[k][:, None] * self.signals[k].modal(lam, t, self.eps, True)
+        initial, groups = self._atom_groups()
+        out = initial[:, None] * phi(1, lam[:, None], t[None, :])
+        for (kind, t0, rate), w in groups.items():
+            unit = Schedule(((kind, t0, 1.0, rate),))
+            out += w[:, None] * unit.modal(lam, t, self.eps, True)
         return out
 
     def _fields(self, z):

@@ -23,8 +23,9 @@ whose eigenvalues 1 +- tanh(x) are positive so the angle change is below pi.  At
 the angle is remapped to the next layer's scale inside its branch [n pi, (n+1) pi).
 The eigenvalue count N(lambda) = ceil((theta(L) - beta) / pi) is therefore exact: no
 eigenvalue is ever missed, whatever the contrast or thinness of the layers.  Each root
-is bracketed on the count and polished by a safeguarded regula falsi iteration on the
-(continuous, single-crossing) angle mismatch, vectorised across modes.
+is bracketed on the count from one pass over a grid and polished by a safeguarded
+Newton iteration on the (continuous, single-crossing) angle mismatch, with its
+derivative propagated in closed form through every layer, vectorised across modes.
 
 Eigenfunctions are obtained by shooting from both ends with normalised states and a
 running log-scale, and joined at the face where the two shots agree best; this keeps
@@ -42,9 +43,17 @@ from .model import Column, InputError
 __all__ = ["Operator", "Modes", "build_operator", "count_below", "eigenvalues", "modes",
            "SpectrumError"]
 
-# Root polish stops when the bracket is this many ulps of lambda wide.
+# Root polish: stop when the bracket is this many ulps of lambda wide, or when a Newton
+# step is below _ROOT_REL of the eigenvalue (the next one would be at rounding level).
 _ROOT_ULPS = 4.0
+_ROOT_REL = 1e-11
+_NEAR = 1e-6  # |f_j| (rad) below which a small step means convergence
+_SEARCH_POINTS = 256  # target points per pass for modes that search their bracket
 _MAX_ROOT_ITER = 200
+# Grid points for the bracketing pass: n + _GRID_EXTRA.
+_GRID_EXTRA = 64
+# |w| l below this: series transfer in the fixed scale k/l (keeps d theta/d lambda finite).
+_SMALL_X = 1e-3
 # Hyperbolic layers with w*l above this use the two-endpoint exponential form.
 _ENDPOINT_FORM_MIN = 1.0
 
@@ -151,12 +160,6 @@ def _tanhc(x):
     return np.where(small, 1.0 - x * x / 3.0, np.tanh(xs) / xs)
 
 
-def _remap(theta, ratio):
-    """Angle theta in scale S_old to scale S_new = ratio * S_old, same branch."""
-    r = np.mod(theta, np.pi)
-    return theta - r + np.arctan2(ratio * np.sin(r), np.cos(r))
-
-
 def _bc_angle(c_v, c_p, scale, right: bool):
     """Angle of the boundary direction (v, p) = (c_p, -c_v) in ``scale``."""
     ang = np.mod(np.arctan2(scale * c_p, -c_v), np.pi)
@@ -165,44 +168,122 @@ def _bc_angle(c_v, c_p, scale, right: bool):
     return ang
 
 
+def _angle_pass(op: Operator, lam: np.ndarray, slope: bool):
+    """Pruefer angle theta(L) and right boundary angle beta in a common end scale, and
+    optionally d(theta - beta)/d lambda.
+
+    Layer i is stepped in the scale S = k w (angle advances by x = w l) where
+    y = w^2 l^2 >= x0^2, in the fixed scale k/l with the scaled hyperbolic transfer where
+    y <= -x0^2, and in the scale k/l with the Taylor-series transfer
+    [[C, Sn], [-y Sn, C]] (C = cos sqrt(y), Sn = sin sqrt(y)/sqrt(y), entire in y) where
+    |y| < x0^2.  At a face the angle moves to the next scale inside its branch
+    [n pi, (n+1) pi): theta += atan2((rho - 1) sin cos, cos^2 + rho sin^2), rho = S'/S.
+    The slope is propagated by differentiating each of these closed-form maps (Pryce
+    1993, ch. 5, for the Pruefer angle derivative); the choice of scales leaves
+    theta - beta unchanged, it only keeps every map and its derivative bounded.
+    The lambdas are processed in increasing order so each branch is a contiguous slice.
+    """
+    order = np.argsort(lam, kind="stable")
+    ls = lam[order]
+    n = ls.size
+    ks, ls_, a_, s_ = (op.k.tolist(), op.thickness.tolist(), op.a.tolist(), op.s.tolist())
+    x0sq = _SMALL_X * _SMALL_X
+    c_v, c_p, _ = op.v_condition("top")
+    S_prev = np.full(n, ks[0] / ls_[0])
+    theta = np.full(n, float(_bc_angle(c_v, c_p, ks[0] / ls_[0], right=False)))
+    dth = np.zeros(n) if slope else None
+    g_prev = np.zeros(n) if slope else None  # d log S_prev / d lambda
+    for i in range(op.n_layers):
+        k, l = ks[i], ls_[i]
+        kl = k / l
+        yl = a_[i] * l * l / k  # dy/dlambda
+        y = ls * yl - s_[i] * l * l / k
+        ih = int(np.searchsorted(y, -x0sq, side="left"))  # [:ih] hyperbolic, big x
+        it = int(np.searchsorted(y, x0sq, side="left"))  # [it:] trigonometric, big x
+        S = np.full(n, kl)
+        if it < n:
+            x_t = np.sqrt(y[it:])
+            S[it:] = kl * x_t
+        # move to the new scale inside the branch
+        rho = S / S_prev
+        sn, cs = np.sin(theta), np.cos(theta)
+        sc, ss = sn * cs, sn * sn
+        cc = cs * cs
+        theta += np.arctan2((rho - 1.0) * sc, cc + rho * ss)
+        if slope:
+            g = np.zeros(n)
+            if it < n:
+                g[it:] = 0.5 * yl / y[it:]
+            dth = rho * ((g - g_prev) * sc + dth) / (cc + rho * rho * ss)
+            g_prev = g
+        S_prev = S
+        if it < n:  # trigonometric, big x: exact advance
+            theta[it:] += x_t
+            if slope:
+                dth[it:] += 0.5 * yl / x_t
+        for lo_, hi_, hyper in ((0, ih, True), (ih, it, False)):
+            if hi_ <= lo_:
+                continue
+            sl = slice(lo_, hi_)
+            X, Y = rho[sl] * sn[sl], cs[sl]  # direction in the new scale (not unit)
+            yy = y[sl]
+            if hyper:
+                x = np.sqrt(-yy)
+                th = np.tanh(x)
+                tc, h = th / x, x * th
+                X1, Y1 = X + tc * Y, h * X + Y
+                cross, dot = tc * Y * Y - h * X * X, X * X + Y * Y + (h + tc) * X * Y
+            else:
+                C = 1.0 + yy * (-0.5 + yy / 24.0)
+                Sn = 1.0 + yy * (-1.0 / 6.0 + yy / 120.0)
+                X1, Y1 = C * X + Sn * Y, C * Y - yy * Sn * X
+                cross = Sn * (Y * Y + yy * X * X)
+                dot = C * (X * X + Y * Y) + (1.0 - yy) * Sn * X * Y
+            if slope:
+                d = dth[sl]
+                if hyper:
+                    dx = -0.5 * yl / x
+                    sech2 = 1.0 - th * th
+                    dtc, dh = (sech2 - tc) / x * dx, (th + x * sech2) * dx
+                    dX1 = Y * d + dtc * Y - tc * X * d
+                    dY1 = dh * X + h * Y * d - X * d
+                else:
+                    dC, dS = -0.5 * Sn * yl, (-1.0 / 6.0 + yy / 60.0) * yl
+                    dX1 = dC * X + C * Y * d + dS * Y - Sn * X * d
+                    dY1 = -(yl * Sn + yy * dS) * X - yy * Sn * Y * d + dC * Y - C * X * d
+                dth[sl] = (Y1 * dX1 - X1 * dY1) / (X1 * X1 + Y1 * Y1)
+            theta[sl] += np.arctan2(cross, dot)
+    # common, lambda-continuous end scale
+    k, l = ks[-1], ls_[-1]
+    yl = a_[-1] * l * l / k
+    y = ls * yl - s_[-1] * l * l / k
+    final = (k / l) * np.sqrt(np.abs(y) + 1.0)
+    rho = final / S_prev
+    sn, cs = np.sin(theta), np.cos(theta)
+    sc, ss, cc = sn * cs, sn * sn, cs * cs
+    theta += np.arctan2((rho - 1.0) * sc, cc + rho * ss)
+    d_v, d_p, _ = op.v_condition("bottom")
+    beta = _bc_angle(d_v, d_p, final, right=True)
+    out = np.empty((3 if slope else 2, n))
+    out[0, order] = theta
+    out[1, order] = beta
+    if slope:
+        g = 0.5 * np.sign(y) * yl / (np.abs(y) + 1.0)
+        dth = rho * ((g - g_prev) * sc + dth) / (cc + rho * rho * ss)
+        dbeta = -d_v * d_p * final * g / (d_v * d_v + (final * d_p) ** 2)
+        out[2, order] = dth - dbeta
+    return out
+
+
 def _end_angles(op: Operator, lam: np.ndarray):
     """Pruefer angle at z = L and the right boundary angle, in a common scale.
 
     Returns (theta, beta): eigenvalue number j sits where theta - beta = j pi, and
     theta - beta is continuous with a single crossing of each j pi.
     """
-    lam = np.asarray(lam, dtype=float)
-    c_v, c_p, _ = op.v_condition("top")
-    theta = None
-    prev_scale = None
-    for i in range(op.n_layers):
-        l, k = op.thickness[i], op.k[i]
-        w2 = (lam * op.a[i] - op.s[i]) / k
-        trig = w2 > 0.0
-        w = np.sqrt(np.abs(w2))
-        x = w * l
-        scale = np.where(trig, k * w, k / l)
-        if theta is None:
-            theta = _bc_angle(c_v, c_p, scale, right=False)
-        else:
-            theta = _remap(theta, scale / prev_scale)
-        # hyperbolic step in the scale k/l:  X1 = X + tc Y,  Y1 = x th X + Y
-        X, Y = np.sin(theta), np.cos(theta)
-        X1 = X + _tanhc(x) * Y
-        Y1 = x * np.tanh(x) * X + Y
-        dh = np.arctan2(X1, Y1) - np.arctan2(X, Y)
-        dh = dh - 2.0 * np.pi * np.round(dh / (2.0 * np.pi))
-        theta = theta + np.where(trig, x, dh)
-        prev_scale = scale
-    # common, lambda-continuous end scale
-    i = op.n_layers - 1
-    k, l = op.k[i], op.thickness[i]
-    w2 = (lam * op.a[i] - op.s[i]) / k
-    final = k * np.sqrt(np.abs(w2) + 1.0 / (l * l))
-    theta = _remap(theta, final / prev_scale)
-    d_v, d_p, _ = op.v_condition("bottom")
-    beta = _bc_angle(d_v, d_p, final, right=True)
-    return theta, beta
+    lam = np.atleast_1d(np.asarray(lam, dtype=float))
+    theta, beta = _angle_pass(op, lam.ravel(), slope=False)
+    return theta.reshape(lam.shape), beta.reshape(lam.shape)
 
 
 def count_below(op: Operator, lam) -> np.ndarray:
@@ -231,86 +312,113 @@ def _lambda_bounds(op: Operator, n: int):
         hi = hi + 2.0 * (hi - lo)
     else:
         raise SpectrumError("could not find an upper bound of the spectrum")
-    return lo, hi
+    return lo, hi, span
 
 
 def eigenvalues(op: Operator, n: int) -> np.ndarray:
-    """The ``n`` smallest eigenvalues (1/s), increasing, each to near machine precision."""
+    """The ``n`` smallest eigenvalues (1/s), increasing, each to near machine precision.
+
+    The mismatch f_j = theta - beta - j pi has the sign of lambda - lambda_j everywhere
+    (the face remaps are increasing maps of each branch onto itself, and in a fixed scale
+    theta(L) increases with lambda: Pryce 1993, thm 2.5.3), so one pass of the Pruefer
+    angle over a grid brackets every eigenvalue, and each bracket is narrowed by the sign
+    of f_j alone, without further counting.
+    """
     if n < 1:
         return np.empty(0)
-    lo, hi = _lambda_bounds(op, n)
-    # grid in sqrt(lambda - lo): the count is monotone, so any grid brackets correctly
-    m = 2 * n + 64
-    grid = lo + np.linspace(0.0, np.sqrt(hi - lo), m) ** 2
-    counts = count_below(op, grid)
+    lo, hi, span = _lambda_bounds(op, n)
+    # grid in sqrt(lambda - lo), where the angle grows about linearly
+    grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+    theta, beta = _end_angles(op, grid)
+    F = theta - beta
+    counts = np.maximum.accumulate(np.maximum(np.ceil(F / np.pi - 1e-12), 0))
     j = np.arange(n)
-    i_lo = np.searchsorted(counts, j, side="right") - 1
+    i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
     a, b = grid[i_lo], grid[i_lo + 1]
-    ca, cb = counts[i_lo], counts[i_lo + 1]
-    # split brackets holding several eigenvalues, by bisection on the count
-    for _ in range(120):
-        multi = (ca != j) | (cb != j + 1)
-        if not multi.any():
-            break
-        mid = 0.5 * (a[multi] + b[multi])
-        cm = count_below(op, mid)
-        jj = j[multi]
-        go_up = cm <= jj
-        a_m, b_m, ca_m, cb_m = a[multi], b[multi], ca[multi], cb[multi]
-        a_m = np.where(go_up, mid, a_m)
-        ca_m = np.where(go_up, cm, ca_m)
-        b_m = np.where(go_up, b_m, mid)
-        cb_m = np.where(go_up, cb_m, cm)
-        a[multi], b[multi], ca[multi], cb[multi] = a_m, b_m, ca_m, cb_m
-        tight = (b - a) <= 8 * np.finfo(float).eps * np.maximum(abs(a), abs(b))
-        if (tight | ~multi).all():
-            break
-    return _polish(op, a, b, j)
+    fa, fb = F[i_lo] - j * np.pi, F[i_lo + 1] - j * np.pi
+    return _polish(op, a, b, fa, fb, j, span)
 
 
-def _mismatch(op, lam, j):
-    theta, beta = _end_angles(op, lam)
-    return theta - beta - j * np.pi
+def _newton_step(f, df):
+    """Newton step on tan(f) where |f| < pi/4 (-sin f cos f / f': exact for an isolated
+    arctan-shaped angle jump, quadratic otherwise), on f elsewhere; and its validity."""
+    good = np.isfinite(df) & (df > 0)
+    step = np.where(np.abs(f) < 0.25 * np.pi, -np.sin(f) * np.cos(f), -f)
+    return step / np.where(good, df, 1.0), good
 
 
-def _polish(op, a, b, j):
-    """Safeguarded Illinois iteration (regula falsi with halving) on the angle mismatch
-    in each bracket, vectorised over the modes."""
-    fa = _mismatch(op, a, j)
-    fb = _mismatch(op, b, j)
-    x = 0.5 * (a + b)
-    active = np.ones(a.size, bool)
-    side = np.zeros(a.size, int)
-    for it in range(_MAX_ROOT_ITER):
-        idx = np.flatnonzero(active)
+def _polish(op, a, b, fa, fb, j, span):
+    """Safeguarded Newton iteration on f_j, vectorised over the modes.
+
+    Start: inverse linear interpolation of the angle on the grid bracket (a, b).  A mode
+    whose Newton step leaves its bracket, or whose |f_j| falls by less than half far from
+    the root, switches to search: its bracket is cut at K equally spaced points in one
+    pass (K grows as fewer modes search, so the passes over the layers stay few), then
+    Newton restarts from the best sample if its step stays inside.  Searching is what
+    finds the narrow jump of the angle near a mode confined to a few layers.  Stop when
+    a Newton step near the root is below _ROOT_REL of max(|lambda|, lambda scale), when
+    rounding noise stalls the steps, or when the bracket is a few ulps wide.
+    """
+    eps = np.finfo(float).eps
+    den = fb - fa
+    x = np.where(den > 0, a - fa * (b - a) / np.where(den > 0, den, 1.0), 0.5 * (a + b))
+    x = np.where((x > a) & (x < b), x, 0.5 * (a + b))
+    out = x.copy()
+    search = np.zeros(x.size, bool)
+    dx_prev = np.full(x.size, np.inf)
+    f_prev = np.full(x.size, np.inf)
+    idx = np.arange(x.size)
+    for _ in range(_MAX_ROOT_ITER):
         if idx.size == 0:
-            break
-        A_, B_, FA, FB = a[idx], b[idx], fa[idx], fb[idx]
-        denom = FB - FA
-        xs = np.where(denom != 0, B_ - FB * (B_ - A_) / np.where(denom != 0, denom, 1.0),
-                      0.5 * (A_ + B_))
-        bad = ~((xs > A_) & (xs < B_)) | (it % 12 == 11)
-        xs = np.where(bad, 0.5 * (A_ + B_), xs)
-        fx = _mismatch(op, xs, j[idx])
-        left = fx < 0  # root lies in (xs, B)
-        sd = side[idx]
-        # Illinois: halve the retained end's value when the same side is kept twice
-        FB_new = np.where(left & (sd == -1), 0.5 * FB, FB)
-        FA_new = np.where(~left & (sd == 1), 0.5 * FA, FA)
-        a[idx] = np.where(left, xs, A_)
-        fa[idx] = np.where(left, fx, FA_new)
-        b[idx] = np.where(left, B_, xs)
-        fb[idx] = np.where(left, FB_new, fx)
-        side[idx] = np.where(left, -1, 1)
-        x[idx] = xs
-        width = b[idx] - a[idx]
-        # stop at the angle's own rounding level, or when the bracket is a few ulps wide
-        angle_noise = 4 * np.finfo(float).eps * (j[idx] + 1) * np.pi * (1 + op.n_layers)
-        done = (np.abs(fx) <= angle_noise) | (width <= _ROOT_ULPS * np.finfo(float).eps
-                                              * np.maximum(abs(a[idx]), abs(b[idx])))
-        active[idx[done]] = False
-    x = np.where(active, 0.5 * (a + b), x)
-    return x
+            return out
+        srch, newt = idx[search[idx]], idx[~search[idx]]
+        bits = int(np.clip(np.log2(_SEARCH_POINTS / max(srch.size, 1)), 1, 4))
+        K = 2 ** bits - 1
+        pts = a[srch, None] + (b - a)[srch, None] * (np.arange(1, K + 1) / (K + 1))
+        lam = np.concatenate([x[newt], pts.ravel()])
+        theta, beta, df = _angle_pass(op, lam, slope=True)
+        f_all = theta - beta - np.concatenate([j[newt], np.repeat(j[srch], K)]) * np.pi
+        nn = newt.size
+        # Newton modes
+        f, xi = f_all[:nn], lam[:nn]
+        A = np.where(f < 0, xi, a[newt])
+        B = np.where(f > 0, xi, b[newt])
+        a[newt], b[newt] = A, B
+        step, good = _newton_step(f, df[:nn])
+        xn = xi + step
+        near = np.abs(f) <= _NEAR
+        bad = ~(good & (xn > A) & (xn < B)) | (~near & (np.abs(f) > 0.5 * f_prev[newt]))
+        step = np.abs(step)
+        scale = np.maximum(np.abs(xi), span)
+        small = near & ~bad & (step <= _ROOT_REL * scale)
+        stall = near & ~bad & (step <= 1e-9 * scale) & (step > 0.5 * dx_prev[newt])
+        tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
+        done_n = small | stall | tight | (f == 0)
+        out[newt] = np.where(f == 0, xi, np.where(bad, 0.5 * (A + B), xn))
+        x[newt] = np.where(bad, 0.5 * (A + B), xn)
+        dx_prev[newt], f_prev[newt], search[newt] = step, np.abs(f), bad
+        # search modes: keep the sub-bracket where f_j changes sign
+        fs, ds = f_all[nn:].reshape(-1, K), df[nn:].reshape(-1, K)
+        r = np.arange(srch.size)
+        kneg = np.count_nonzero(fs < 0, axis=1)
+        ends = np.concatenate([a[srch, None], pts, b[srch, None]], axis=1)
+        A, B = ends[r, kneg], ends[r, kneg + 1]
+        a[srch], b[srch] = A, B
+        kl, kr = np.maximum(kneg - 1, 0), np.minimum(kneg, K - 1)
+        use_l = (kneg > 0) & ((kneg == K) | (np.abs(fs[r, kl]) < np.abs(fs[r, kr])))
+        kk = np.where(use_l, kl, kr)
+        fx = fs[r, kk]
+        step, good = _newton_step(fx, ds[r, kk])
+        xn = pts[r, kk] + step
+        ok = good & (xn > A) & (xn < B)
+        zero = fx == 0
+        x[srch] = np.where(ok, xn, 0.5 * (A + B))
+        out[srch] = np.where(zero, pts[r, kk], x[srch])
+        search[srch], f_prev[srch], dx_prev[srch] = ~ok, np.abs(fx), np.inf
+        tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
+        idx = np.concatenate([newt[~done_n], srch[~(zero | tight)]])
+    raise SpectrumError(f"{idx.size} eigenvalues did not converge in {_MAX_ROOT_ITER} "
+                        "iterations")
 
 
 # ----------------------------------------------------------------------------------
@@ -457,6 +565,22 @@ def _shoot(op, lam, direction):
         v1 = c * v + d * b12 * p
         p1 = d * b21 * v + c * p
         logc = np.where(trig, 0.0, x + np.log1p(np.exp(-2 * x)) - np.log(2.0))
+        big = (~trig) & (x > 1.0)
+        if big.any():
+            # thick hyperbolic step in growing/decaying components: scaling the cosh/sinh
+            # matrix by cosh makes it rank one in floating point (tanh x = 1), losing a
+            # state that is (almost) pure decaying; the components keep it exactly
+            kb = k * np.sqrt(np.abs(w2[big]))
+            vb, pb, xb = v[big], p[big], x[big]
+            g = 0.5 * (vb + pb / kb)  # grows like e^{+beta s} in the shooting direction
+            h = 0.5 * (vb - pb / kb)
+            damp = np.exp(-2 * xb)
+            g1, h1 = (g, h * damp) if direction > 0 else (g * damp, h)
+            v1 = v1.copy()
+            p1 = p1.copy()
+            v1[big] = g1 + h1
+            p1[big] = kb * (g1 - h1)
+            logc = np.where(big, x, logc)
         sc = k / l
         nrm = np.hypot(sc * v1, p1)
         V[jout] = v1 / nrm
