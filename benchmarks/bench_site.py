@@ -1,18 +1,28 @@
-"""Site throughput and memory: borings per second, local processes vs a Dask cluster,
-and peak memory of a run streamed to disk as the number of borings grows.
+"""Site throughput and memory: borings per second, in-process vs local processes vs a
+Dask LocalCluster, and peak memory of a run streamed to disk as the borings grow.
 
-    python benchmarks/bench_site.py                # about 2-3 minutes on 2 cores
-    python benchmarks/bench_site.py --borings 400 --memory 500 2000 10000
+    python benchmarks/bench_site.py                # about 1-2 minutes on 2 cores
+    python benchmarks/bench_site.py --borings 2000 --memory 1000 5000 20000
+    python benchmarks/bench_site.py --repeat-logs  # borings share layer stacks
 
-The site is the invented demo yard (data/site-demo/site.toml) with its borings repeated
-on a larger grid (deterministic runs, no Monte Carlo). Peak memory is the tracemalloc
-peak of this process for an in-process run (workers=1), where every solve happens
-under the tracer; it should not grow with the number of borings (chunks are streamed
-to disk). Rates include writing all outputs.
+The site is the invented demo yard (data/site-demo/site.toml) on a regular 10 m grid of
+borings, each with a FIVE-layer log (made ground, silty sand, clay, silty sand, clay)
+whose thicknesses differ from boring to boring (no two stacks alike, so the per-stack
+cache does not help; ``--repeat-logs`` cycles 48 stacks instead), and 100 log-spaced
+output times (deterministic runs, no Monte Carlo unless ``--realizations``).
+
+Rates are wall time of :func:`transport.site_run.run_site`, including writing every
+output (NetCDF, GeoPackage, GeoJSON, CSV, map) and, for the cluster, excluding its
+start-up. Peak memory is measured two ways for in-process runs (workers=1): the
+tracemalloc peak (Python and numpy allocations) and the growth of the process's peak
+resident set size (``ru_maxrss``); both should stay flat as the borings grow, because
+chunks are streamed to disk.
 """
 from __future__ import annotations
 
 import argparse
+import math
+import resource
 import shutil
 import tempfile
 import time
@@ -20,27 +30,40 @@ import tracemalloc
 from pathlib import Path
 
 DEMO = Path(__file__).resolve().parents[1] / "data" / "site-demo"
+STACK = ("made ground", "silty sand", "clay", "silty sand", "clay")
+RECEPTOR_ELEVATION = 36.0  # m, as in the demo site file
 
 
-def make_site(folder: Path, n: int):
-    """The demo site with n borings: demo logs cycled over a regular 10 m grid."""
+def _log_rows(bid: str, k: int, elevation: float, distinct: bool) -> list:
+    """Five intervals from 0 m to 1 m below the receptor; thicknesses vary with k
+    (a deterministic pattern: every boring distinct, or 48 stacks cycled)."""
+    j = k if distinct else k % 48
+    bottom = round(elevation - RECEPTOR_ELEVATION + 1.0, 2)
+    weights = [1.0 + 0.5 * math.sin(1.3 * j + 2.1 * i) ** 2 + 0.001 * (j % 97) * (i + 1)
+               for i in range(len(STACK))]
+    faces = [0.0]
+    for w in weights[:-1]:
+        faces.append(round(faces[-1] + bottom * w / sum(weights), 3))
+    faces.append(bottom)
+    return [f"{bid},{a:g},{b:g},{m}" for a, b, m in zip(faces, faces[1:], STACK)]
+
+
+def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
+    """The demo site with n five-layer borings and ``times`` output times."""
     from transport.site import load_site
 
     text = (DEMO / "site.toml").read_text(encoding="utf-8")
-    borings = [ln for ln in (DEMO / "borings.csv").read_text().splitlines()[2:] if ln]
-    logs = [ln for ln in (DEMO / "layer-log.csv").read_text().splitlines()[2:] if ln]
-    by_id = {}
-    for ln in logs:
-        by_id.setdefault(ln.split(",")[0], []).append(ln.split(",", 1)[1])
-    src = [b.split(",") for b in borings]
+    text = text.replace('count = 12, spacing = "log"', f'count = {times}, spacing = "log"')
+    elevations = [ln.split(",")[3] for ln in
+                  (DEMO / "borings.csv").read_text().splitlines()[2:] if ln]
     side = int(n ** 0.5) + 1
     rows, log_rows = [], []
     for k in range(n):
-        bid, _, _, elev = src[k % len(src)]
-        new = f"B{k:05d}"
-        rows.append(f"{new},{500000 + 10.0 * (k % side):.2f},"
-                    f"{5700000 + 10.0 * (k // side):.2f},{elev}")
-        log_rows += [f"{new},{rest}" for rest in by_id[bid]]
+        bid = f"B{k:06d}"
+        elev = float(elevations[k % len(elevations)])
+        rows.append(f"{bid},{500000 + 10.0 * (k % side):.2f},"
+                    f"{5700000 + 10.0 * (k // side):.2f},{elev:.2f}")
+        log_rows += _log_rows(bid, k, elev, distinct)
     (folder / "borings.csv").write_text("id,x [m],y [m],ground_elevation [m]\n"
                                         + "\n".join(rows) + "\n")
     (folder / "layer-log.csv").write_text("id,top [m],bottom [m],material\n"
@@ -49,52 +72,73 @@ def make_site(folder: Path, n: int):
     return load_site(folder / "site.toml")
 
 
-def timed_run(site, out, **options):
+def timed_run(site, out, realizations=0, **options):
     from transport.site_run import run_site
 
     start = time.perf_counter()
-    run_site(site, out, realizations=0, **options)
+    run_site(site, out, realizations=realizations, **options)
     return time.perf_counter() - start
+
+
+def _maxrss_mib() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
 
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--borings", type=int, default=200, help="borings for the rates")
-    parser.add_argument("--memory", type=int, nargs="+", default=[200, 1000],
-                        help="boring counts for the memory runs")
+    parser.add_argument("--borings", type=int, default=600, help="borings for the rates")
+    parser.add_argument("--memory", type=int, nargs="+", default=[500, 2000, 8000],
+                        help="boring counts for the memory runs (in-process)")
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--chunk-size", type=int, default=64)
+    parser.add_argument("--realizations", type=int, default=0,
+                        help="Monte Carlo realizations per boring (rates only)")
+    parser.add_argument("--repeat-logs", action="store_true",
+                        help="cycle 48 layer stacks (the per-stack cache then applies)")
+    parser.add_argument("--no-dask", action="store_true")
     args = parser.parse_args()
+    distinct = not args.repeat_logs
     work = Path(tempfile.mkdtemp(prefix="bench-site-"))
+    chunk = args.chunk_size
     try:
-        site = make_site(work, args.borings)
-        print(f"site: {len(site.borings)} borings, {site.times.size} times x "
-              f"{site.depths.size} depths")
-        t_one = timed_run(site, work / "one", workers=1, chunk_size=16)
-        print(f"in-process (1 worker)       : {args.borings / t_one:8.1f} borings/s "
-              f"({1e3 * t_one / args.borings:.1f} ms per boring)")
-        t_local = timed_run(site, work / "local", workers=args.workers, chunk_size=16)
-        print(f"local processes ({args.workers} workers) : {args.borings / t_local:8.1f} "
-              f"borings/s ({1e3 * t_local / args.borings:.1f} ms per boring)")
-        from distributed import LocalCluster
+        site = make_site(work, args.borings, distinct=distinct)
+        print(f"site: {len(site.borings)} borings, {len(site.borings[0].intervals)} layers, "
+              f"{site.times.size} times x {site.depths.size} depths, "
+              f"{'distinct' if distinct else '48 repeated'} stacks, "
+              f"{args.realizations} realizations, chunks of {chunk}")
+        mc = {"realizations": args.realizations}
+        rates = {}
+        t_one = timed_run(site, work / "one", workers=1, chunk_size=chunk, **mc)
+        rates["in-process (1 worker)"] = t_one
+        t_local = timed_run(site, work / "local", workers=args.workers, chunk_size=chunk,
+                            **mc)
+        rates[f"local processes ({args.workers})"] = t_local
+        if not args.no_dask:
+            from distributed import LocalCluster
 
-        with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
-                          dashboard_address=None) as cluster:
-            t_dask = timed_run(site, work / "dask", scheduler=cluster.scheduler_address,
-                               chunk_size=16)
-        print(f"dask LocalCluster ({args.workers} procs): {args.borings / t_dask:8.1f} "
-              f"borings/s ({1e3 * t_dask / args.borings:.1f} ms per boring, incl. "
-              "cluster start-up outside the timing)")
+            with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
+                              dashboard_address=None) as cluster:
+                t_dask = timed_run(site, work / "dask", scheduler=cluster.scheduler_address,
+                                   chunk_size=chunk, **mc)
+            rates[f"dask LocalCluster ({args.workers})"] = t_dask
+        for label, t in rates.items():
+            print(f"{label:28s}: {args.borings / t:8.1f} borings/s "
+                  f"({1e3 * t / args.borings:.2f} ms per boring)")
         for n in args.memory:
             folder = work / f"mem{n}"
             folder.mkdir()
-            big = make_site(folder, n)
+            big = make_site(folder, n, distinct=distinct)
+            rss0 = _maxrss_mib()
             tracemalloc.start()
-            t = timed_run(big, folder / "out", workers=1, chunk_size=64)
+            t = timed_run(big, folder / "out", workers=1, chunk_size=chunk)
             _, peak = tracemalloc.get_traced_memory()
             tracemalloc.stop()
             size = (folder / "out" / "site.nc").stat().st_size
-            print(f"streamed {n:6d} borings: peak traced memory {peak / 2**20:7.1f} MiB, "
-                  f"{n / t:6.1f} borings/s, NetCDF {size / 2**20:.1f} MiB")
+            print(f"streamed {n:6d} borings (in-process): tracemalloc peak "
+                  f"{peak / 2**20:6.1f} MiB, max RSS {_maxrss_mib():6.0f} MiB (+"
+                  f"{_maxrss_mib() - rss0:.0f}), {n / t:6.1f} borings/s under the tracer, "
+                  f"NetCDF {size / 2**20:.1f} MiB")
+            shutil.rmtree(folder, ignore_errors=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
 

@@ -171,6 +171,39 @@ def test_lon_lat_borings_are_projected_with_pyproj(tmp_path):
     assert [b.y for b in site.borings] == pytest.approx(y, abs=1e-6)
 
 
+def test_material_error_names_the_materials_key(tmp_path):
+    """A bad value in [materials.<name>] is reported at materials.<name>.<key>, the key
+    path of the site file (common practice: name the key the user wrote)."""
+    path = write_small_site(tmp_path)
+    text = path.read_text().replace("porosity = 0.45", "porosity = 1.45")
+    with pytest.raises(ScenarioError) as info:
+        parse_site(text, path)
+    assert info.value.key == "materials.clay.porosity"
+    assert "layers[" not in str(info.value)
+
+
+def test_draw_outside_the_allowed_range_names_parameter_and_realization(tmp_path):
+    """A normal distribution of porosity without bounds can draw values above 1: the
+    run stops before solving, naming the parameter and the first bad realization (the
+    limits are those of a scenario file's key; common practice)."""
+    extra = textwrap.dedent("""
+        [uncertainty]
+        realizations = 200
+        seed = 3
+        [[uncertainty.parameters]]
+        parameter = "materials.sand.porosity"
+        distribution = "normal"
+        mean = 0.9
+        sd = 0.2
+        lower = 0
+        """)
+    site = load_site(write_small_site(tmp_path, extra=extra))
+    with pytest.raises(ScenarioError) as info:
+        solve_site(site, workers=1)
+    assert info.value.key == "uncertainty.parameters[1]"
+    assert "materials.sand.porosity" in str(info.value) and "realization" in str(info.value)
+
+
 # ------------------------------------------------------------ station = single column
 def test_station_equals_single_column_run(tmp_path, small_site, deterministic):
     """Boring T-2 written by hand as a single-column scenario file and run through

@@ -41,11 +41,12 @@ import numpy as np
 from . import scenario as _sc
 from .model import InitialState
 from .scenario import ScenarioError
+from .site_columns import boring_column, material_layers, material_properties
 from .uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
 from .units import UnitError, si_unit, to_si, ureg
 
-__all__ = ["Boring", "Site", "load_site", "parse_site", "boring_scenario", "solve_site",
-           "UNCERTAIN_KEYS"]
+__all__ = ["Boring", "Site", "load_site", "parse_site", "boring_scenario", "boring_column",
+           "material_layers", "solve_site", "UNCERTAIN_KEYS"]
 
 SITE_KEYS = ("title", "crs", "borings_file", "log_file", "chemical", "flow", "materials",
              "top", "bottom", "output", "uncertainty")
@@ -114,6 +115,11 @@ class Site:
     sampling: str = "random"
     fingerprint: str = ""
     source_text: str = field(default="", repr=False)
+    materials: dict = field(default_factory=dict, repr=False)  # name -> SI properties
+    chemical: object = None  # scenario.ChemicalSpec
+    darcy_flux: float = 0.0  # m s-1
+    top: object = None  # model.Boundary
+    bottom: object = None
 
     @property
     def crs(self):
@@ -405,10 +411,13 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     flow = r.table(data.get("flow"), "flow")
     r.keys(flow, _sc.FLOW_KEYS, "flow")
     q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
+    props = {}
     for name, mat in materials.items():  # each material as a 1 m layer, to validate keys
-        _sc._layer(r, {**mat, "thickness": "1 m"}, name, chem, q, 0.0, True)
-    _sc._boundary(r, data, "top", q)
-    _sc._boundary(r, data, "bottom", q)
+        _sc._layer(r, {**mat, "thickness": "1 m", "name": name}, name, chem, q, 0.0, True,
+                   key=f"materials.{name}")
+        props[name] = material_properties(r, name, mat)
+    top_bc = _sc._boundary(r, data, "top", q)
+    bottom_bc = _sc._boundary(r, data, "bottom", q)
     out = r.table(data.get("output"), "output", required=True)
     r.keys(out, SITE_OUTPUT_KEYS, "output")
     times = _sc._times(r, out.get("times"))
@@ -458,7 +467,8 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
                 borings=tuple(borings), data=data, times=times, depths=grid,
                 screening_level=level, design_life=life, tolerance=tol, distributions=dists,
                 realizations=n_real, seed=seed, sampling=sampling,
-                fingerprint=digest.hexdigest(), source_text=text)
+                fingerprint=digest.hexdigest(), source_text=text, materials=props,
+                chemical=chem, darcy_flux=q, top=top_bc, bottom=bottom_bc)
 
 
 def load_site(path: str | Path) -> Site:

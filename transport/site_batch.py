@@ -7,38 +7,60 @@ draws), in this process (``workers=1``), in a local process pool
 ``dask.distributed`` cluster (``scheduler=ADDRESS``): the same function and inputs, so
 the three give identical numbers.
 
-Per boring: the column of :func:`transport.site.boring_scenario` solved by
-:func:`transport.modal.solve` on the common depth grid; at the receptor depth the first
-crossing of the screening level within the design life (Brent's method on the
-continuous series after a bracketing scan; Brent 1973, *Algorithms for Minimization
-without Derivatives*, ch. 4), the peak concentration and its time (bounded Brent
-minimisation around the best scan sample), and the cumulative mass per unit area
-through the receptor depth at the end of the design life (closed form in time,
-:meth:`transport.modal.ModalSeries.cumulative_mass`).
+Per boring: the column is built from SI floats (:mod:`transport.site_columns`: material
+properties converted once, a Monte Carlo draw applied by arithmetic) and its modal
+series built once (:func:`site_series`: :func:`transport.modal.build_series` without
+the quadrature a clean column does not need). Concentration and cumulative mass are
+evaluated only on the written grid, in one pass with the receptor depth (depth
+functions evaluated once), giving the numbers of :func:`transport.modal.solve` on the
+same column. At the receptor depth: the first crossing of the screening level within
+the design life (Brent's method on the continuous series after a bracketing scan; Brent
+1973, *Algorithms for Minimization without Derivatives*, ch. 4), the peak
+concentration and its time (bounded Brent minimisation around the best scan sample),
+and the cumulative mass per unit area through the receptor depth at the end of the
+design life (closed form in time, :meth:`transport.modal.ModalSeries.cumulative_mass`).
+Monte Carlo realizations need only the receptor curve. Borings with identical stacks
+are solved once per process (bounded caches); BLAS runs on one thread per process.
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor
+from concurrent.futures import wait as futures_wait
 from dataclasses import dataclass
+
+from collections import OrderedDict
 
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
-from .modal import build_series, solve
+from .lifting import steady_responses
+from .modal import (AccuracyWarning, ModalSeries, _mode_count, build_series,
+                    column_signals, earliest_time_after_change)
+from .model import InitialState
 from .scenario import ScenarioError
+from .site_columns import boring_column, check_draws, material_layers
+from .spectrum import build_operator, modes
 from .uncertainty import sample_matrix
 
-__all__ = ["SCAN_SAMPLES", "QUANTILES", "receptor_metrics", "solve_chunk", "plan_chunks",
+__all__ = ["SCAN_SAMPLES", "QUANTILES", "receptor_metrics", "site_series", "solve_chunk",
+           "plan_chunks",
            "iter_chunks", "solve_site", "SiteResult", "draw_samples", "METRIC_KEYS",
            "MC_KEYS"]
 
 #: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
-#: from the earliest output time plus uniform to the design life. A spike narrower than
+#: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
+#: and SCAN_SAMPLES // 2 log-spaced; 128 gives 0.4 yr steps over a 50 yr life, receptor
+#: curves of a metre-scale column vary over years). A spike narrower than
 #: the spacing can be missed (the series itself is continuous in time).
-SCAN_SAMPLES = 512
+SCAN_SAMPLES = 128
+MAX_MODES = 4000  # the mode cap of transport.modal.solve
+FIELD_CACHE_SIZE = 128  # columns whose fields are kept (each nt x nz x 2 floats: 17 MB
+#                        at 100 times x 84 depths)
+METRIC_CACHE_SIZE = 100_000  # Monte Carlo columns whose two metrics are kept
 TIME_RTOL = 1e-10  # Brent tolerance on time, relative
 QUANTILES = (0.05, 0.5, 0.95)
 DEFAULT_CHUNK = 16
@@ -53,21 +75,112 @@ def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
     return np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
 
 
-def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: float,
-                     n_scan: int = SCAN_SAMPLES):
-    """(breakthrough time or NaN, peak time, peak concentration, cumulative mass).
+# ------------------------------------------------------------------------ series
+def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES):
+    """The :class:`~transport.modal.ModalSeries` of a clean column without layer
+    sources, WITHOUT the quadrature of :func:`transport.modal.build_series`.
 
-    Times in s, concentration kg m-3, mass kg m-2; the window is [t_start, t_end]
-    (earliest resolved output time to the end of the design life). A breakthrough equal
-    to ``t_start`` means the level is already reached at the earliest resolved time.
+    From a clean initial state and with no sources, ``build_series``'s Gauss-Legendre
+    projections (initial state, sources, layer masses) are zero or unused by the
+    concentration and the cumulative mass; this builds the same operator, eigenvalues,
+    modes, lifting, signals and boundary coefficients (the lines of ``build_series``,
+    hence the same floats) and leaves the layer masses NaN, so that a budget asked of
+    this series is visibly undefined instead of wrong. Other columns go through
+    ``build_series`` itself.
     """
-    z = np.array([float(depth)])
+    if any(lay.source_rate != 0.0 for lay in column.layers):
+        return build_series(column, InitialState.clean(), t_min, tolerance, max_modes)
+    op = build_operator(column)
+    rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
+             if kind == "decay"]
+    lam = _mode_count(op, t_min, tolerance, max_modes,
+                      max(rates, default=0.0) / math.sqrt(tolerance))
+    md = modes(op, lam)
+    lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
+    eps = abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
+    signals = column_signals(column, op)
+    green = np.zeros((len(signals), lam.size))
+    psi_e, dpsi_e = md.evaluate(np.array([0.0, op.z[-1]]), exp_sign=0)
+    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
+        c_v, c_p, G = op.v_condition(end)
+        green[k] = sgn * G * (c_p * psi_e[k] - c_v * dpsi_e[k]) / (c_p ** 2 + c_v ** 2)
+    undefined = np.full((op.n_layers, lam.size), np.nan)
+    return ModalSeries(column=column, op=op, modes=md, lifting=steady_responses(op, eps),
+                       signals=signals, proj0=np.zeros(lam.size),
+                       lift_coef=green / (lam + eps)[None, :], mass_modes=undefined,
+                       mass_lift=np.full((op.n_layers, len(signals)), np.nan))
 
-    def conc(s):
-        return float(series.concentration(z, np.array([s]))[0, 0])
+
+class _Probe:
+    """Concentration and cumulative mass of a series at fixed depths, for any times,
+    with the depth functions evaluated once (the sums of
+    :meth:`ModalSeries.concentration` and :meth:`ModalSeries.cumulative_mass`)."""
+
+    def __init__(self, series, z):
+        self.series, self.z = series, np.atleast_1d(np.asarray(z, dtype=float))
+        self.c_modes, self.f_modes, self.c_lift, self.f_lift = series._fields(self.z)
+        self.clean = not np.any(series.proj0)
+        self._tail = None
+
+    def tail(self):
+        if self._tail is None:
+            self._tail = self.series._tail_corrections(self.z)
+        return self._tail
+
+    def coefficients(self, t):
+        """a_n(t) as :meth:`ModalSeries.coefficients`, without the initial-state term
+        when the initial projection is zero (a clean column: the same floats)."""
+        s = self.series
+        if self.clean:
+            t = np.atleast_1d(np.asarray(t, dtype=float))
+            lam = s.modes.lam
+            out = np.zeros((lam.size, t.size))
+            for k in s._active():
+                out += s.lift_coef[k][:, None] * s.signals[k].modal(lam, t, s.eps)
+            return out
+        return s.coefficients(t)
+
+    def concentration(self, t):
+        s = self.series
+        out = (self.c_modes @ self.coefficients(t) + self.c_lift @ s.signal_values(t)).T
+        drive = s._drive(t)
+        if np.any(drive):
+            out = out + (self.tail()["C"][:, 1:] @ drive).T
+        return out
+
+    def cumulative_mass(self, t):
+        s = self.series
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = (self.f_modes @ s.integrated_coefficients(t)
+               + self.f_lift @ s.signal_integrals(t)).T
+        out = out + s._integrated_correction(self.tail()["F"], t)
+        return np.where(t[:, None] == 0, 0.0, out)
+
+    def roundoff_bound(self, t, rows=slice(None)):
+        """:meth:`ModalSeries.roundoff_bound` at the probe's depths ``rows``, with the
+        depth functions already evaluated: 16 sqrt(N) eps_mach sum_n |C_n(z)| |a_n|."""
+        s = self.series
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = s.modes.lam[:, None]
+        size = np.abs(s.proj0)[:, None] * np.exp(-lam * t[None, :])
+        for k in s._active():
+            sched = s.signals[k]
+            amp = sum(abs(a) for _, _, a, _ in sched.atoms)
+            last = np.array([max([t0 for t0 in sched.change_times if t0 <= tt] or [0.0])
+                             for tt in t])
+            size = size + np.abs(s.lift_coef[k])[:, None] * amp * np.exp(
+                -lam * np.maximum(t - last, 0.0)[None, :])
+        n = max(s.modes.lam.size, 1)
+        return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(self.c_modes[rows]) @ size).T
+
+
+def _curve_metrics(conc, t_start, t_end, level, n_scan):
+    """Breakthrough, peak time and peak of a continuous curve ``conc(times) -> array``."""
+    def one(s):
+        return float(conc(np.array([s]))[0])
 
     t = _scan_times(t_start, t_end, n_scan)
-    c = series.concentration(z, t)[:, 0]
+    c = conc(t)
     above = np.flatnonzero(c >= level)
     if above.size == 0:
         t_cross = math.nan
@@ -75,19 +188,33 @@ def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: 
         t_cross = float(t[0])
     else:
         i = int(above[0])
-        t_cross, info = brentq(lambda s: conc(s) - level, t[i - 1], t[i], rtol=TIME_RTOL,
+        t_cross, info = brentq(lambda s: one(s) - level, t[i - 1], t[i], rtol=TIME_RTOL,
                                full_output=True)
         if not info.converged:  # pragma: no cover - a valid bracket always converges
             raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
     i = int(np.argmax(c))
     t_peak, c_peak = float(t[i]), float(c[i])
     if 0 < i < t.size - 1:
-        res = minimize_scalar(lambda s: -conc(s), bounds=(t[i - 1], t[i + 1]),
+        res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
                               method="bounded", options={"xatol": TIME_RTOL * t_end})
         if res.success and -res.fun > c_peak:
             t_peak, c_peak = float(res.x), float(-res.fun)
-    mass = float(series.cumulative_mass(z, np.array([t_end]))[0, 0])
-    return float(t_cross), t_peak, c_peak, mass
+    return float(t_cross), t_peak, c_peak
+
+
+def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: float,
+                     n_scan: int = SCAN_SAMPLES, probe=None):
+    """(breakthrough time or NaN, peak time, peak concentration, cumulative mass).
+
+    Times in s, concentration kg m-3, mass kg m-2; the window is [t_start, t_end]
+    (earliest resolved output time to the end of the design life). A breakthrough equal
+    to ``t_start`` means the level is already reached at the earliest resolved time.
+    The crossing is polished by Brent's root finder and the peak by bounded Brent
+    minimisation to a relative time tolerance TIME_RTOL, both on the continuous series.
+    """
+    probe = probe or _Probe(series, [depth])
+    m = _curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start, t_end, level, n_scan)
+    return m + (float(probe.cumulative_mass(np.array([t_end]))[0, 0]),)
 
 
 def plan_chunks(n: int, size: int = DEFAULT_CHUNK) -> list:
@@ -97,8 +224,11 @@ def plan_chunks(n: int, size: int = DEFAULT_CHUNK) -> list:
 
 
 def draw_samples(site, realizations: int, seed: int, sampling: str) -> np.ndarray:
-    """The (realizations, parameters) SI draws shared by all borings."""
-    return sample_matrix(site.distributions, realizations, seed, sampling)
+    """The (realizations, parameters) SI draws shared by all borings, each checked
+    against its key's allowed range (:func:`transport.site_columns.check_draws`)."""
+    samples = sample_matrix(site.distributions, realizations, seed, sampling)
+    check_draws(site, samples)
+    return samples
 
 
 def _quantiles(values: np.ndarray) -> np.ndarray:
@@ -109,20 +239,118 @@ def _quantiles(values: np.ndarray) -> np.ndarray:
     return np.where(np.isinf(q), np.nan, q)
 
 
+# ------------------------------------------------------------------------- caches
+class _Cache:
+    """Results of columns already solved in this process, keyed by the SI column and
+    the receptor depth (identical layer stacks are solved once); bounded (LRU) so that
+    memory stays flat, and cleared when the site settings change."""
+
+    def __init__(self, size):
+        self.size, self.key, self.data = size, None, OrderedDict()
+
+    def bind(self, key):
+        if key != self.key:
+            self.key, self.data = key, OrderedDict()
+
+    def get(self, key):
+        try:
+            value = self.data[key]
+        except (KeyError, TypeError):  # TypeError: unhashable (a schedule), no caching
+            return None
+        self.data.move_to_end(key)
+        return value
+
+    def put(self, key, value):
+        try:
+            self.data[key] = value
+        except TypeError:
+            return
+        while len(self.data) > self.size:
+            self.data.popitem(last=False)
+
+
+_FIELDS_CACHE = _Cache(FIELD_CACHE_SIZE)
+_METRICS_CACHE = _Cache(METRIC_CACHE_SIZE)
+
+
+def _solve_column(site, col, depth, times, grid):
+    """Fields on the grid (cut at the bottom), metrics and warnings of one column:
+    the numbers of :func:`transport.modal.solve` on the same column and depths."""
+    keep = grid <= col.length * (1 + 1e-12)
+    z = np.minimum(grid[keep], col.length)
+    t_end = site.design_life
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        t_min = earliest_time_after_change(col, times)
+        series = site_series(col, t_min, site.tolerance)
+        probe = _Probe(series, np.append(z, depth))
+        conc = probe.concentration(times)
+        cum = probe.cumulative_mass(np.append(times, t_end))
+        positive = times > 0
+        scale = max(float(np.max(np.abs(conc[:, :-1]))), 1e-300)
+        bound = probe.roundoff_bound(times[positive], slice(0, z.size))
+        if bound.max() > site.tolerance * scale:
+            bad_t = times[positive][np.any(bound > site.tolerance * scale, axis=1)]
+            warnings.warn(
+                f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
+                f"column Peclet number is about "
+                f"{2 * (series.op.A.max() - series.op.A.min()):.0f}) exceeds the tolerance "
+                f"at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; use later "
+                "output times or cross-check with another engine", AccuracyWarning)
+    conc[times == 0] = 0.0  # clean initial state
+    t_start = float(times[positive].min())
+    m = _curve_metrics(lambda t: probe.concentration(t)[:, -1], t_start, t_end,
+                       site.screening_level, SCAN_SAMPLES)
+    metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
+    return (keep, conc[:, :-1], cum[:-1, :-1], metrics,
+            tuple(str(w.message) for w in caught))
+
+
+def _realization_metrics(site, col, depth, t_start, times):
+    """(breakthrough time, peak concentration) of one Monte Carlo column, warnings."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        series = site_series(col, earliest_time_after_change(col, times), site.tolerance)
+    probe = _Probe(series, [depth])
+    bt, _, pk = _curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
+                               site.design_life, site.screening_level, SCAN_SAMPLES)
+    return bt, pk, tuple(str(w.message) for w in caught)
+
+
+def _one_blas_thread():
+    """BLAS limited to one thread while a chunk is solved: the products are small
+    (modes x depths), and one thread per worker process keeps the cores from being
+    oversubscribed (measured: 2-3x faster with two workers on two cores). Uses
+    threadpoolctl when installed, else leaves BLAS as it is."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - optional
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 def solve_chunk(site, start: int, stop: int, samples=None) -> dict:
     """Solve borings ``start:stop`` of ``site``: fields on the common grid, metrics, and
     with ``samples`` (realizations x parameters, SI) the Monte Carlo summaries.
 
     Returns a dict of arrays with a leading station axis (see METRIC_KEYS, MC_KEYS,
     ``concentration``/``cumulative_mass`` of shape (n, time, depth), NaN below a
-    boring's bottom) and ``warnings``: [(boring id, message)].
+    boring's bottom) and ``warnings``: [(boring id, message)]. Columns are built from
+    SI floats (:mod:`transport.site_columns`); borings with the same layer stack and
+    receptor depth are solved once per process.
     """
-    from .site import boring_scenario
+    with _one_blas_thread():
+        return _solve_chunk(site, start, stop, samples)
 
+
+def _solve_chunk(site, start, stop, samples):
     times = np.asarray(site.times, dtype=float)
     grid = np.asarray(site.depths, dtype=float)
     n, nt, nz = stop - start, times.size, grid.size
     t_start = float(times[times > 0].min())
+    settings = (site.fingerprint, site.path)
+    _FIELDS_CACHE.bind(settings)
+    _METRICS_CACHE.bind(settings)
     out = {"concentration": np.full((n, nt, nz), np.nan),
            "cumulative_mass": np.full((n, nt, nz), np.nan)}
     out.update({k: np.full(n, np.nan) for k in METRIC_KEYS})
@@ -130,46 +358,49 @@ def solve_chunk(site, start: int, stop: int, samples=None) -> dict:
         out.update({k: np.full(n, np.nan) for k in MC_KEYS})
     notes = []
     names = [d.parameter for d in site.distributions]
+    layers, q = material_layers(site)
+    drawn = []
+    if samples is not None:
+        for j, draw in enumerate(samples):
+            try:
+                drawn.append(material_layers(site, dict(zip(names, draw))))
+            except ScenarioError as exc:
+                raise ScenarioError(exc.file, f"realization {j + 1}: {exc.key}",
+                                    problem=exc.problem, fix="bound the distribution "
+                                    "(lower/upper) so that draws stay valid") from None
     for k, boring in enumerate(site.borings[start:stop]):
-        sc = boring_scenario(site, boring)
-        col = sc.column
-        keep = grid <= col.length * (1 + 1e-12)
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            sol = solve(col, times, np.minimum(grid[keep], col.length), initial=sc.initial,
-                        tolerance=site.tolerance)
-        notes += [(boring.id, str(w.message)) for w in caught]
-        out["concentration"][k][:, keep] = sol.concentration
-        out["cumulative_mass"][k][:, keep] = sol.cumulative_mass
-        m = receptor_metrics(sol.series, boring.receptor_depth, site.screening_level,
-                             t_start, site.design_life)
-        for key, value in zip(METRIC_KEYS, m + (boring.receptor_depth, sol.n_modes,
-                                                col.length)):
-            out[key][k] = value
+        col = boring_column(site, boring, layers, q)
+        key = (col, boring.receptor_depth)
+        found = _FIELDS_CACHE.get(key)
+        if found is None:
+            found = _solve_column(site, col, boring.receptor_depth, times, grid)
+            _FIELDS_CACHE.put(key, found)
+        keep, conc, cum, metrics, msgs = found
+        notes += [(boring.id, m) for m in msgs]
+        out["concentration"][k][:, keep] = conc
+        out["cumulative_mass"][k][:, keep] = cum
+        for name, value in zip(METRIC_KEYS, metrics):
+            out[name][k] = value
         if samples is None:
             continue
         bt = np.empty(len(samples))
         pk = np.empty(len(samples))
-        for j, draw in enumerate(samples):
-            try:
-                scj = boring_scenario(site, boring, dict(zip(names, draw)))
-            except ScenarioError as exc:
-                raise ScenarioError(exc.file, f"realization {j + 1}, boring {boring.id}: "
-                                    f"{exc.key}", problem=exc.problem,
-                                    fix="bound the distribution (lower/upper) so that draws "
-                                    "stay valid") from None
-            with warnings.catch_warnings(record=True) as caught:
-                warnings.simplefilter("always")
-                series = build_series(scj.column, scj.initial, t_start, site.tolerance)
-            notes += [(boring.id, f"realization {j + 1}: {w.message}") for w in caught]
-            bt[j], _, pk[j], _ = receptor_metrics(series, boring.receptor_depth,
-                                                  site.screening_level, t_start,
-                                                  site.design_life)
+        for j, (layers_j, q_j) in enumerate(drawn):
+            col_j = boring_column(site, boring, layers_j, q_j)
+            key = (col_j, boring.receptor_depth)
+            found = _METRICS_CACHE.get(key)
+            if found is None:
+                found = _realization_metrics(site, col_j, boring.receptor_depth, t_start,
+                                             times)
+                _METRICS_CACHE.put(key, found)
+            bt[j], pk[j], msgs = found
+            notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]
         out["exceedance_probability"][k] = float(np.mean(~np.isnan(bt)))
-        for key, q in zip(MC_KEYS[1:4], _quantiles(bt)):
-            out[key][k] = q
-        for key, q in zip(MC_KEYS[4:], np.quantile(pk, QUANTILES, method="inverted_cdf")):
-            out[key][k] = q
+        for name, value in zip(MC_KEYS[1:4], _quantiles(bt)):
+            out[name][k] = value
+        for name, value in zip(MC_KEYS[4:], np.quantile(pk, QUANTILES,
+                                                        method="inverted_cdf")):
+            out[name][k] = value
     out["warnings"] = notes
     return out
 
@@ -196,16 +427,18 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
     """
     if not chunks:
         return
+    window = max(2, 2 * (workers or os.cpu_count() or 1))
     if scheduler is not None:
-        from distributed import Client, as_completed as dask_completed
+        from distributed import Client, wait
 
         with Client(scheduler) as client:
             site_f, samples_f = client.scatter([site, samples], broadcast=True)
-            futures = {client.submit(solve_chunk, site_f, a, b, samples_f, pure=False): i
-                       for i, (a, b) in enumerate(chunks)}
-            for fut in dask_completed(futures):
-                yield futures[fut], fut.result()
-                fut.release()
+            window = max(window, 2 * max(1, sum(client.nthreads().values())))
+            yield from _windowed(
+                lambda a, b: client.submit(solve_chunk, site_f, a, b, samples_f, pure=False),
+                chunks, window,
+                lambda pending: wait(pending, return_when="FIRST_COMPLETED").done,
+                lambda fut: (fut.result(), fut.release())[0])
         return
     workers = workers or os.cpu_count() or 1
     if workers == 1 or len(chunks) == 1:
@@ -214,14 +447,30 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
         return
     with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), initializer=_init_worker,
                              initargs=(site, samples)) as pool:
-        futures = {pool.submit(_pool_chunk, a, b): i for i, (a, b) in enumerate(chunks)}
-        try:
-            for fut in as_completed(futures):
-                yield futures[fut], fut.result()
-        except BaseException:
-            for fut in futures:
-                fut.cancel()
-            raise
+        yield from _windowed(lambda a, b: pool.submit(_pool_chunk, a, b), chunks, window,
+                             lambda pending: futures_wait(pending,
+                                                          return_when=FIRST_COMPLETED).done,
+                             lambda fut: fut.result())
+
+
+def _windowed(submit, chunks, window, wait_done, result):
+    """Keep at most ``window`` chunks in flight; yield (index, result) as they finish,
+    dropping each future once read (memory flat in the number of chunks)."""
+    pending, todo = {}, iter(enumerate(chunks))
+    try:
+        while True:
+            for i, (a, b) in todo:
+                pending[submit(a, b)] = i
+                if len(pending) >= window:
+                    break
+            if not pending:
+                return
+            for fut in list(wait_done(set(pending))):
+                yield pending.pop(fut), result(fut)
+    except BaseException:
+        for fut in pending:
+            fut.cancel()
+        raise
 
 
 @dataclass(frozen=True, eq=False)

@@ -216,4 +216,3 @@ class SiteNetCDFWriter:
             if units == "d":
                 values = values / SECONDS_PER_DAY
             self.nc[name][sl] = np.ma.masked_invalid(values)
-        self.nc.sync()
