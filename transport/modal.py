@@ -323,11 +323,15 @@ def _mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
 
 
 def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
-                 max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0):
+                 max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0,
+                 masses: bool = True):
     """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`.
 
     ``initial`` is an :class:`InitialState` or a callable C0(z) (then give its kinks in
-    ``breaks`` and its highest spatial frequency in ``extra_rate``).
+    ``breaks`` and its highest spatial frequency in ``extra_rate``).  With
+    ``masses=False`` a clean column without sources skips the quadrature (its
+    projections are zero); concentrations and cumulative masses are unchanged, the
+    layer masses (budget, decayed mass) are left NaN so they cannot be misread.
     """
     initial = initial if initial is not None else InitialState.clean()
     op = build_operator(column)
@@ -355,6 +359,14 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
         c_v, c_p, G = op.v_condition(end)
         j = 0 if end == "top" else 1
         green[k] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
+    skip = (not masses and not callable(initial) and initial.kind == "clean"
+            and not np.any(op.source))
+    if skip:
+        undefined = np.full((op.n_layers, lam.size), np.nan)
+        return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
+                           proj0=np.zeros(lam.size), lift_coef=green / (lam + eps)[None, :],
+                           mass_modes=undefined, mass_lift=np.full((op.n_layers, K), np.nan),
+                           initial=initial)
     if not callable(initial) and initial.kind == "profile":
         breaks = tuple(breaks) + tuple(initial.depths)
     zq, wq, lq = gauss_nodes(op, lam, breaks, extra_rate)

@@ -30,23 +30,24 @@ def gauss_nodes(op: Operator, lam: np.ndarray, breaks=(), extra_rate: float = 0.
     """Nodes, weights and layer index of Gauss-Legendre panels over the column."""
     xg, wg = np.polynomial.legendre.leggauss(_GL_NODES)
     lam_hi, lam_lo = float(np.max(lam)), float(np.min(lam))
-    zs, ws, lays = [], [], []
-    breaks = sorted(set(float(b) for b in breaks))
-    for i in range(op.n_layers):
-        z0, z1 = op.z[i], op.z[i + 1]
-        w_hi = math.sqrt(max(lam_hi * op.a[i] - op.s[i], 0.0) / op.k[i])
-        b_hi = math.sqrt(max(op.s[i] - lam_lo * op.a[i], 0.0) / op.k[i])
-        rate = w_hi + b_hi + 2 * abs(op.alpha[i]) + 1.0 / (z1 - z0) + extra_rate
-        cuts = [z0] + [b for b in breaks if z0 < b < z1] + [z1]
-        for a_, b_ in zip(cuts[:-1], cuts[1:]):
-            npan = max(1, int(math.ceil(rate * (b_ - a_) / _GL_PANEL)))
-            edges = np.linspace(a_, b_, npan + 1)
-            h = np.diff(edges)[:, None]
-            mid = 0.5 * (edges[:-1] + edges[1:])[:, None]
-            zs.append((mid + 0.5 * h * xg).ravel())
-            ws.append((0.5 * h * wg).ravel())
-            lays.append(np.full(npan * _GL_NODES, i))
-    return np.concatenate(zs), np.concatenate(ws), np.concatenate(lays)
+    z = op.z
+    w_hi = np.sqrt(np.maximum(lam_hi * op.a - op.s, 0.0) / op.k)
+    b_hi = np.sqrt(np.maximum(op.s - lam_lo * op.a, 0.0) / op.k)
+    rate = w_hi + b_hi + 2 * np.abs(op.alpha) + 1.0 / op.thickness + extra_rate
+    b = np.asarray(sorted(set(float(v) for v in breaks)), dtype=float)
+    b = b[(b > z[0]) & (b < z[-1])]
+    cuts = np.union1d(z, b)  # every segment lies inside one layer
+    a_, b_ = cuts[:-1], cuts[1:]
+    lay = np.clip(np.searchsorted(z, 0.5 * (a_ + b_), side="right") - 1, 0, op.n_layers - 1)
+    npan = np.maximum(1, np.ceil(rate[lay] * (b_ - a_) / _GL_PANEL).astype(int))
+    seg = np.repeat(np.arange(a_.size), npan)
+    first = np.repeat(np.cumsum(npan) - npan, npan)
+    j = np.arange(seg.size) - first  # panel index inside its segment
+    h = (b_ - a_)[seg] / npan[seg]
+    left = a_[seg] + j * h
+    zq = (left + 0.5 * h)[:, None] + (0.5 * h)[:, None] * xg[None, :]
+    wq = (0.5 * h)[:, None] * wg[None, :]
+    return zq.ravel(), wq.ravel(), np.repeat(lay[seg], _GL_NODES)
 
 
 def initial_profile(column: Column, initial: InitialState, z):

@@ -37,13 +37,10 @@ from collections import OrderedDict
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
-from .lifting import steady_responses
-from .modal import (AccuracyWarning, ModalSeries, _mode_count, build_series,
-                    column_signals, earliest_time_after_change)
+from .modal import AccuracyWarning, build_series, earliest_time_after_change
 from .model import InitialState
 from .scenario import ScenarioError
 from .site_columns import boring_column, check_draws, material_layers
-from .spectrum import build_operator, modes
 from .uncertainty import sample_matrix
 
 __all__ = ["SCAN_SAMPLES", "QUANTILES", "receptor_metrics", "site_series", "solve_chunk",
@@ -77,38 +74,11 @@ def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
 
 # ------------------------------------------------------------------------ series
 def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES):
-    """The :class:`~transport.modal.ModalSeries` of a clean column without layer
-    sources, WITHOUT the quadrature of :func:`transport.modal.build_series`.
-
-    From a clean initial state and with no sources, ``build_series``'s Gauss-Legendre
-    projections (initial state, sources, layer masses) are zero or unused by the
-    concentration and the cumulative mass; this builds the same operator, eigenvalues,
-    modes, lifting, signals and boundary coefficients (the lines of ``build_series``,
-    hence the same floats) and leaves the layer masses NaN, so that a budget asked of
-    this series is visibly undefined instead of wrong. Other columns go through
-    ``build_series`` itself.
-    """
-    if any(lay.source_rate != 0.0 for lay in column.layers):
-        return build_series(column, InitialState.clean(), t_min, tolerance, max_modes)
-    op = build_operator(column)
-    rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
-             if kind == "decay"]
-    lam = _mode_count(op, t_min, tolerance, max_modes,
-                      max(rates, default=0.0) / math.sqrt(tolerance))
-    md = modes(op, lam)
-    lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
-    eps = abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
-    signals = column_signals(column, op)
-    green = np.zeros((len(signals), lam.size))
-    psi_e, dpsi_e = md.evaluate(np.array([0.0, op.z[-1]]), exp_sign=0)
-    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
-        c_v, c_p, G = op.v_condition(end)
-        green[k] = sgn * G * (c_p * psi_e[k] - c_v * dpsi_e[k]) / (c_p ** 2 + c_v ** 2)
-    undefined = np.full((op.n_layers, lam.size), np.nan)
-    return ModalSeries(column=column, op=op, modes=md, lifting=steady_responses(op, eps),
-                       signals=signals, proj0=np.zeros(lam.size),
-                       lift_coef=green / (lam + eps)[None, :], mass_modes=undefined,
-                       mass_lift=np.full((op.n_layers, len(signals)), np.nan))
+    """The :class:`~transport.modal.ModalSeries` of a clean column, without the
+    quadrature of the projections (zero from a clean state) and of the layer masses
+    (not written for sites): ``build_series(..., masses=False)``."""
+    return build_series(column, InitialState.clean(), t_min, tolerance, max_modes,
+                        masses=False)
 
 
 class _Probe:
@@ -128,17 +98,7 @@ class _Probe:
         return self._tail
 
     def coefficients(self, t):
-        """a_n(t) as :meth:`ModalSeries.coefficients`, without the initial-state term
-        when the initial projection is zero (a clean column: the same floats)."""
-        s = self.series
-        if self.clean:
-            t = np.atleast_1d(np.asarray(t, dtype=float))
-            lam = s.modes.lam
-            out = np.zeros((lam.size, t.size))
-            for k in s._active():
-                out += s.lift_coef[k][:, None] * s.signals[k].modal(lam, t, s.eps)
-            return out
-        return s.coefficients(t)
+        return self.series.coefficients(t)
 
     def concentration(self, t):
         s = self.series
