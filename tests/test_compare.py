@@ -88,3 +88,30 @@ def test_duplicate_labels_are_refused():
     sc = load_scenario(ALTS[0])
     with pytest.raises(ValueError, match="labels must differ"):
         compare_alternatives([sc, sc])
+
+
+def test_alternatives_in_one_file_equal_separate_files():
+    """Identity: the [[alternatives]] of one file give the same scenarios (and the same
+    receptor metrics) as the separate demo files."""
+    from transport.scenario import load_alternatives
+    one = load_alternatives(ALTS[0].parent.parent / "depot-alternatives.toml")
+    separate = [load_scenario(p) for p in ALTS]
+    assert [s.title for s in one] == [s.title for s in separate]
+    a = comparison_table(compare_alternatives(one))
+    b = comparison_table(compare_alternatives(separate))
+    for ra, rb in zip(a, b):
+        assert ra["peak_mg_L"] == pytest.approx(rb["peak_mg_L"], rel=1e-12)
+        assert ra["mass_to_receptor_mg_m2"] == pytest.approx(rb["mass_to_receptor_mg_m2"],
+                                                             rel=1e-12)
+
+
+def test_alternative_errors_name_the_alternative():
+    from transport.scenario import ScenarioError, parse_alternatives
+    text = (ALTS[0].parent.parent / "depot-alternatives.toml").read_text(encoding="utf-8")
+    bad = text.replace('{ at = "1 yr", kind = "remove-source" }]',
+                       '{ at = "1 yr", kind = "remove-sorce" }]', 1)
+    with pytest.raises(ScenarioError, match=r"alternatives\[2\]\.actions\[1\]\.kind"):
+        parse_alternatives(bad, "alt.toml")
+    dup = text.replace('name = "D: reactive silt at 1 yr"', 'name = "A: no action"')
+    with pytest.raises(ScenarioError, match="same name"):
+        parse_alternatives(dup, "alt.toml")

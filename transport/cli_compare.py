@@ -20,7 +20,8 @@ __all__ = ["compare"]
 @click.option("--engine", type=click.Choice(["auto", "modal", "laplace", "finite-volume"]),
               default="auto", show_default=True, help="Solution method for unstaged runs.")
 def compare(scenarios, out_dir, engine):
-    """Run remediation alternatives (one scenario file each) and compare them.
+    """Run remediation alternatives and compare them: one scenario file each, or one file
+    with [[alternatives]] tables (each a name and its own actions).
 
     Every alternative is solved on a common time and depth grid; the table reports
     breakthrough at the receptor, time above the screening level, peak, mass to the
@@ -29,12 +30,16 @@ def compare(scenarios, out_dir, engine):
     \b
     Example:
       stratiflux compare scenarios/alternatives/*.toml -o comparison
+      stratiflux compare scenarios/depot-alternatives.toml -o comparison
     """
     from .compare import comparison_table, compare_alternatives, table_text, verdict_lines
     from .compare import write_outputs
-    from .scenario import load_scenario
+    from .scenario import load_alternatives
 
-    loaded = [load_scenario(p) for p in scenarios]
+    loaded = [sc for p in scenarios for sc in load_alternatives(p)]
+    if len(loaded) < 2:
+        raise click.UsageError("give two or more scenario files, or one file with "
+                               "[[alternatives]] tables")
     labels = [sc.title for sc in loaded]
     with click.progressbar(length=len(loaded), label="solving alternatives",
                            file=sys.stderr) as bar:

@@ -54,7 +54,7 @@ from .scenario_stages import parse_actions, parse_value
 from .units import UnitError, si_unit, to_si
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
-           "parse_scenario", "starter_scenario_text", "DERIVED_UNITS"]
+           "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text", "DERIVED_UNITS"]
 
 MAX_TIMES = 10_000  # output times; more is a typo, not a use case
 MAX_DEPTHS = 20_001  # output depths
@@ -63,7 +63,8 @@ DEFAULT_TOLERANCE = 1e-8
 _MISSING = object()
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
-            "actions")
+            "actions", "alternatives")
+ALTERNATIVE_KEYS = ("name", "actions", "top")
 CHEMICAL_KEYS = ("name", "free_water_diffusivity", "organic_carbon_partition", "half_life")
 FLOW_KEYS = ("darcy_flux",)
 LAYER_KEYS = ("name", "thickness", "porosity", "water_content", "bulk_density",
@@ -581,6 +582,47 @@ def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
         raise r.error("(TOML syntax)", problem=str(exc), fix="correct the TOML syntax "
                       "(strings with units need quotes)") from None
     r.keys(data, TOP_KEYS, "")
+    return _parse_data(r, data, text, file)
+
+
+def parse_alternatives(text: str, path: str | Path = "<string>") -> list:
+    """The scenarios of a file: one, or one per ``[[alternatives]]`` table.
+
+    Each alternative has a ``name`` (its title) and replaces the file's ``actions``
+    (an empty list means no action) and optionally its ``top`` boundary.
+    """
+    base = parse_scenario(text, path)
+    file = str(path)
+    r = _Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
+    data = tomllib.loads(text)
+    alts = data.get("alternatives")
+    if alts is None:
+        return [base]
+    if not isinstance(alts, list) or not alts or not all(isinstance(a, dict) for a in alts):
+        raise r.error("alternatives", alts, "must be a list of [[alternatives]] tables",
+                      fix='add [[alternatives]] tables with name = "..." and actions = [...]')
+    out, names = [], set()
+    for j, alt in enumerate(alts, start=1):
+        key = f"alternatives[{j}]"
+        r.keys(alt, ALTERNATIVE_KEYS, key)
+        name = r.text(alt, "name", key)
+        if not name:
+            raise r.error(f"{key}.name", problem="missing", fix='add name = "cap at 5 yr"')
+        if name in names:
+            raise r.error(f"{key}.name", name, "two alternatives have the same name",
+                          fix="give each alternative its own name")
+        names.add(name)
+        variant = {k: v for k, v in data.items() if k not in ("alternatives", "actions")}
+        variant["title"] = name
+        if "actions" in alt:
+            variant["actions"] = alt["actions"]
+        if "top" in alt:
+            variant["top"] = alt["top"]
+        out.append(_parse_data(r, variant, text, file, prefix=f"{key}."))
+    return out
+
+
+def _parse_data(r, data, text, file, prefix=""):
     title = r.text(data, "title", "", default=Path(file).stem)
     chem = _chemical(r, data)
     flow = r.table(data.get("flow"), "flow")
@@ -602,7 +644,8 @@ def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
 
     bottom_boundary = _boundary(r, data, "bottom", q)
     try:
-        column = Column(tuple(layers), _boundary(r, data, "top", q), bottom_boundary, q)
+        column = Column(tuple(layers), _boundary(r, data, "top", q, key=f"{prefix}top"),
+                        bottom_boundary, q)
     except InputError as exc:
         raise r.error("flow.darcy_flux", q, str(exc), fix="see the message") from None
     if not math.isfinite(column.length) or column.length <= 0:
@@ -632,7 +675,7 @@ def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
         make_layer=lambda raw, key, q_, top_, last_: _layer(r, raw, 0, chem, q_, top_, last_,
                                                              key=key)[0],
         make_boundary=lambda table, end, q_, key: _boundary(r, table, end, q_, key=key),
-        t_end=float(output.times.max()))
+        t_end=float(output.times.max()), prefix=prefix)
     if timeline is not None:
         output = _with_cap_depths(output, timeline)
     return Scenario(title=title, path=None if file == "<string>" else file, column=column,
@@ -663,6 +706,16 @@ def load_scenario(path: str | Path) -> Scenario:
         raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
                             fix="check the path") from None
     return parse_scenario(text, path)
+
+
+def load_alternatives(path: str | Path) -> list:
+    """The scenarios of a file (see :func:`parse_alternatives`)."""
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeError) as exc:
+        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
+                            fix="check the path") from None
+    return parse_alternatives(text, path)
 
 
 def starter_scenario_text() -> str:

@@ -124,22 +124,23 @@ def _read_pairs(r, raw, key):
     return out
 
 
-def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_end):
+def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_end,
+                  prefix=""):
     """The [[actions]] list as a Timeline (None when there are none).
 
     make_layer(raw, key, q, top, last) -> Layer ; make_boundary(table_dict, end, q) -> Boundary
     """
     raw = data.get("actions")
-    if raw is None:
+    if raw is None or raw == []:
         return None
     if not isinstance(raw, list) or not all(isinstance(a, dict) for a in raw):
-        raise r.error("actions", raw, "must be a list of [[actions]] tables")
+        raise r.error(f"{prefix}actions", raw, "must be a list of [[actions]] tables")
     timeline = Timeline.single(column)
     # raw layer tables of the current stage, by name, to re-derive amended layers
     tables = {lay.name: dict(t) for lay, t in zip(column.layers, raw_layers)}
     current_q, prev_t = q, 0.0
     for j, act in enumerate(raw, start=1):
-        key = f"actions[{j}]"
+        key = f"{prefix}actions[{j}]"
         kind = act.get("kind")
         if kind not in ACTION_KINDS:
             import difflib
