@@ -23,9 +23,10 @@ import warnings
 import numpy as np
 
 from . import modal
-from .finite_volume import solve_fv
+from .finite_volume import solve_fv, solve_fv_result
 from .laplace import EngineSolution, solve_laplace
 from .model import Column, InitialState, InputError
+from .projection import initial_profile
 from .spectrum import build_operator
 
 __all__ = ["solve_column", "ENGINES"]
@@ -38,7 +39,46 @@ def _weyl_modes(op, t, tolerance):
     return modal.required_modes(op, t, tolerance, 10 ** 9)
 
 
-def _merge(column, times, depths, parts, engine_by_time, error, series):
+def _laplace_evaluator(column, initial, semi_infinite_bottom):
+    """C(depth, t) at any times by Laplace inversion (the initial state at t = 0)."""
+    def at(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.empty(t.size)
+        pos = t > 0
+        if pos.any():
+            out[pos] = solve_laplace(column, t[pos], [depth], initial,
+                                     semi_infinite_bottom).concentration[:, 0]
+        if (~pos).any():
+            out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
+        return out
+    return at
+
+
+def _auto_evaluator(series, t_modal, laplace_at):
+    """Modal series from ``t_modal`` on (where auto chose it), Laplace before."""
+    def at(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.empty(t.size)
+        late = t >= t_modal
+        if late.any():
+            out[late] = series.concentration_at(depth, t[late])
+        if (~late).any():
+            out[~late] = laplace_at(depth, t[~late])
+        return out
+    return at
+
+
+def _fv_evaluator(column, initial, cells_per_layer):
+    """C(depth, t) at any times by a finite-volume run with those output times."""
+    def at(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        uniq, inv = np.unique(t, return_inverse=True)
+        return solve_fv(column, uniq, [depth], initial,
+                        cells_per_layer=cells_per_layer)[:, 0][inv]
+    return at
+
+
+def _merge(column, times, depths, parts, engine_by_time, error, series, evaluator=None):
     """Assemble one ColumnSolution from per-time pieces (each a solution and its rows)."""
     nt, nz = times.size, depths.size
     conc, flux, cum = (np.empty((nt, nz)) for _ in range(3))
@@ -58,7 +98,8 @@ def _merge(column, times, depths, parts, engine_by_time, error, series):
                                 eigenvalues=eig, n_modes=n_modes, engine="+".join(used),
                                 series=series, engine_by_time=np.asarray(engine_by_time,
                                                                          dtype=object),
-                                error_estimate=np.asarray(error, dtype=float))
+                                error_estimate=np.asarray(error, dtype=float),
+                                evaluator=evaluator)
 
 
 def _modal_error(sol, tolerance):
@@ -91,8 +132,10 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
     -------
     transport.modal.ColumnSolution with ``engine_by_time`` (nt,) strings ("modal",
     "laplace", "finite-volume", "initial" at t = 0) and ``error_estimate`` (nt,) the
-    estimated error of C (kg m-3; NaN for finite volumes, which gives C only: flux,
-    cumulative mass and the budget are NaN there).
+    estimated error of C (kg m-3; NaN for finite volumes, whose discretisation error the
+    engine does not estimate).  ``concentration_at(depth, times)`` serves any times from
+    the engine that serves them (Laplace inversion before the modal range, a
+    finite-volume run at those times for the finite-volume engine).
     """
     if engine not in ENGINES:
         raise InputError(f"engine {engine!r} is unknown; use one of " + ", ".join(ENGINES))
@@ -106,25 +149,19 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
         sol = solve_laplace(column, times, depths, initial, semi_infinite_bottom)
         label = np.where(times > 0, "laplace", "initial").astype(object)
         return _merge(column, times, depths, [(sol, slice(None))], label,
-                      sol.error_estimate, None)
+                      sol.error_estimate, None,
+                      _laplace_evaluator(column, initial, semi_infinite_bottom))
     if engine == "modal":
         sol = modal.solve(column, times, depths, initial, tolerance, max_modes)
         err, _ = _modal_error(sol, tolerance)
         label = np.where(times > 0, "modal", "initial").astype(object)
         return _merge(column, times, depths, [(sol, slice(None))], label, err, sol.series)
     if engine == "finite-volume":
-        conc = solve_fv(column, times, depths, initial, cells_per_layer=cells_per_layer)
-        nan = np.full_like(conc, np.nan)
-        nt = times.size
-        budget = {k: np.full(nt, np.nan) for k in ("stored", "initial_stored", "entered_top",
-                                                  "left_bottom", "decayed", "produced",
-                                                  "residual")}
+        sol = solve_fv_result(column, times, depths, initial, cells_per_layer=cells_per_layer)
         label = np.where(times > 0, "finite-volume", "initial").astype(object)
-        return EngineSolution(column=column, times=times, depths=depths,
-                                    concentration=conc, total_flux=nan, cumulative_mass=nan,
-                                    budget=budget, eigenvalues=np.empty(0), n_modes=0,
-                                    engine="finite-volume", engine_by_time=label,
-                                    error_estimate=np.full(nt, np.nan))
+        return _merge(column, times, depths, [(sol, slice(None))], label,
+                      np.full(times.size, np.nan), None,
+                      _fv_evaluator(column, initial, cells_per_layer))
     return _auto(column, times, depths, initial, tolerance, max_modes)
 
 
@@ -169,7 +206,18 @@ def _auto(column, times, depths, initial, tolerance, max_modes):
         sol = solve_laplace(column, times[rows], depths, initial)
         parts.append((sol, rows))
         err[rows] = sol.error_estimate
-    return _merge(column, times, depths, parts, label, err, series)
+    laplace_at = _laplace_evaluator(column, initial, False)
+    if series is None:
+        evaluator = laplace_at
+    else:
+        # modal from the first output time after which every output time is modal
+        positive = times > 0
+        after = np.flatnonzero(positive & ~modal_ok)
+        t_modal = float(times[after].max()) if after.size else 0.0
+        later = times[(times > t_modal) & modal_ok]
+        t_modal = float(later.min()) if later.size else np.inf
+        evaluator = _auto_evaluator(series, t_modal, laplace_at)
+    return _merge(column, times, depths, parts, label, err, series, evaluator)
 
 
 def _take(sol, mask):

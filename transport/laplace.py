@@ -387,6 +387,15 @@ class EngineSolution(ColumnSolution):
 
     engine_by_time: np.ndarray = field(default=None, repr=False, compare=False)
     error_estimate: np.ndarray = field(default=None, repr=False, compare=False)
+    evaluator: object = field(default=None, repr=False, compare=False)
+
+    def concentration_at(self, depth, times):
+        """C at one depth for any times, from the engine that serves those times."""
+        if self.evaluator is not None:
+            return self.evaluator(float(depth), times)
+        if self.series is None:
+            raise AttributeError("this result holds only its output grid")
+        return self.series.concentration_at(depth, times)
 
 
 def solve_laplace(column: Column, times, depths, initial: InitialState = None,
