@@ -37,30 +37,26 @@ Schema (all keys spelled out; ``docs/scenario-reference.md`` has the full page):
 """
 from __future__ import annotations
 
-import csv
 import difflib
-import io
 import math
-import re
 import tomllib
 from dataclasses import dataclass, field
+from importlib import resources
 from pathlib import Path
 
 import numpy as np
 
 from . import chemicals, media
 from .model import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, Layer
+from .scenario_output import OutputSpec, _output, _read_samples_file
+from .scenario_output import _samples, _with_cap_depths
+from .scenario_output import DEFAULT_TOLERANCE, MAX_DEPTHS, _times  # noqa: F401  (site.py)
+from .scenario_reader import _MISSING, ScenarioError, _Reader
 from .scenario_stages import parse_actions, parse_value
-from .units import UnitError, si_unit, to_si
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
            "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text", "DERIVED_UNITS"]
 
-MAX_TIMES = 10_000  # output times; more is a typo, not a use case
-MAX_DEPTHS = 20_001  # output depths
-DEFAULT_DEPTH_INTERVALS = 200
-DEFAULT_TOLERANCE = 1e-8
-_MISSING = object()
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
             "actions", "alternatives")
@@ -76,9 +72,6 @@ BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentra
                                                             "outside_concentration"),
                        "free-outflow": (), "sealed": ()}
 INITIAL_KEYS = ("samples", "samples_file")
-OUTPUT_KEYS = ("times", "depths", "depth_spacing", "receptor_depth", "screening_level",
-               "design_life", "tolerance")
-TIME_RANGE_KEYS = ("start", "stop", "count", "spacing")
 
 #: SI units of the columns of :meth:`Scenario.derived_table`.
 DERIVED_UNITS = {
@@ -91,26 +84,6 @@ DERIVED_UNITS = {
 }
 
 
-class ScenarioError(ValueError):
-    """A scenario problem: file, key path, value given, what is allowed, the fix."""
-
-    def __init__(self, file, key, value=_MISSING, problem="", allowed="", fix=""):
-        self.file, self.key, self.problem, self.allowed, self.fix = file, key, problem, allowed, fix
-        self.value = None if value is _MISSING else value
-        shown = "" if value is _MISSING else f" = {_short(value)}"
-        msg = f"{file}: {key}{shown}: {str(problem).rstrip('.')}"
-        if allowed:
-            msg += f". Allowed: {allowed}"
-        if fix:
-            msg += f". Fix: {fix}"
-        super().__init__(msg)
-
-
-def _short(value) -> str:
-    text = repr(value)
-    return text if len(text) <= 80 else text[:77] + "..."
-
-
 @dataclass(frozen=True)
 class ChemicalSpec:
     """Chemical properties in force (SI) and where each came from."""
@@ -121,18 +94,6 @@ class ChemicalSpec:
     half_life: float | None  # s; None: no decay unless a layer gives one
     sources: dict = field(default_factory=dict)
     table_entry: chemicals.Chemical | None = None
-
-
-@dataclass(frozen=True, eq=False)
-class OutputSpec:
-    """What to compute: times (s), depths (m), receptor and screening settings."""
-
-    times: np.ndarray
-    depths: np.ndarray
-    receptor_depth: float
-    screening_level: float | None = None
-    design_life: float | None = None
-    tolerance: float = DEFAULT_TOLERANCE
 
 
 @dataclass(frozen=True, eq=False)
@@ -167,75 +128,6 @@ class Scenario:
         partition_to_next, and the provenance texts sorption_source, diffusion_source.
         """
         return [dict(row) for row in self.layer_details]
-
-
-class _Reader:
-    """Validation helpers bound to one file (for messages)."""
-
-    def __init__(self, file: str, base_dir: Path):
-        self.file, self.base_dir = file, base_dir
-
-    def error(self, key, value=_MISSING, problem="", allowed="", fix=""):
-        return ScenarioError(self.file, key, value, problem, allowed, fix)
-
-    def table(self, value, key, required=False):
-        if value is None and not required:
-            return {}
-        if not isinstance(value, dict):
-            raise self.error(key, _MISSING if value is None else value,
-                             "missing" if value is None else "must be a table",
-                             fix=f"add a [{key}] table")
-        return value
-
-    def keys(self, table, allowed, key):
-        for name in table:
-            if name not in allowed:
-                close = difflib.get_close_matches(str(name), allowed, n=1, cutoff=0.6)
-                hint = f"did you mean {close[0]!r}?" if close else "remove it"
-                raise self.error(f"{key}.{name}" if key else str(name), problem="unknown key",
-                                 allowed=", ".join(allowed), fix=hint)
-
-    def quantity(self, value, dimension, key, low=None, high=None, low_open=False,
-                 high_open=False):
-        try:
-            si = to_si(value, dimension, key)
-        except UnitError as exc:
-            what = "number" if dimension == "dimensionless" else dimension.replace("_", " ")
-            if dimension == "dimensionless":
-                allowed, fix = "a plain number", f"write e.g. {key.rsplit('.', 1)[-1]} = {exc.example}"
-            else:
-                allowed = f"a quoted number with {what} units"
-                fix = f"write e.g. {key.rsplit('.', 1)[-1]} = {exc.example}"
-            raise self.error(key, value, f"not a valid {what}: {exc.reason}", allowed,
-                             fix) from None
-        unit = "" if dimension == "dimensionless" else f" {si_unit(dimension)}"
-        if low is not None and (si < low or (low_open and si == low)):
-            raise self.error(key, value, f"must be {'>' if low_open else '>='} {low:g}{unit}",
-                             fix="check the value and its units")
-        if high is not None and (si > high or (high_open and si == high)):
-            raise self.error(key, value, f"must be {'<' if high_open else '<='} {high:g}{unit}",
-                             fix="check the value and its units")
-        return si
-
-    def optional(self, table, name, dimension, key, default=None, **limits):
-        if name not in table:
-            return default
-        return self.quantity(table[name], dimension, f"{key}.{name}", **limits)
-
-    def text(self, table, name, key, default=None):
-        value = table.get(name, default)
-        if value is not None and not isinstance(value, str):
-            raise self.error(f"{key}.{name}" if key else name, value, "must be text",
-                             fix="put it in quotes")
-        return value
-
-    def half_life(self, table, key):
-        if "half_life" not in table:
-            return _MISSING
-        value = table["half_life"]
-        if isinstance(value, str) and value.strip().lower() in ("none", "inf", "infinite"):
-            return None
-        return self.quantity(value, "time", f"{key}.half_life", low=0, low_open=True)
 
 
 def _chemical(r: _Reader, data) -> ChemicalSpec:
@@ -438,131 +330,6 @@ def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary
     return Boundary(kind)
 
 
-def _read_samples_file(r: _Reader, raw, length: float):
-    key = "initial.samples_file"
-    if not isinstance(raw, str) or not raw.strip():
-        raise r.error(key, raw, "must be a file name", fix='e.g. samples_file = "profile.csv"')
-    path = Path(raw) if Path(raw).is_absolute() else r.base_dir / raw
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeError) as exc:
-        raise r.error(key, raw, f"cannot read {path}: {exc}", fix="check the path (relative to "
-                      "the scenario file)") from None
-    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
-    rows = list(csv.reader(io.StringIO("\n".join(lines))))
-    header_units = [re.search(r"\[(.+)\]", h).group(1).strip() if re.search(r"\[(.+)\]", h)
-                    else None for h in (rows[0] if rows else [])]
-    if len(header_units) != 2 or not rows[1:]:
-        raise r.error(key, raw, f"{path.name} must have a header of two columns and at least "
-                      "one sample", fix="write e.g. 'depth [m],concentration [mg/L]' then rows")
-    pairs = []
-    for j, row in enumerate(rows[1:], start=1):
-        if len(row) != 2:
-            raise r.error(f"{key} row {j}", row, "needs exactly two cells (depth, concentration)")
-        pairs.append([c.strip() + (f" {u}" if u else "") for c, u in zip(row, header_units)])
-    return _samples(r, pairs, length, f"{key}({path.name}) row", base=1)
-
-
-def _samples(r: _Reader, raw, length: float, key="initial.samples", base=0):
-    if not isinstance(raw, list) or not raw:
-        raise r.error(key, raw, "must be a list of [depth, concentration] pairs",
-                      fix='e.g. samples = [["0 m", "80 mg/L"], ["1 m", "0 mg/L"]]')
-    depths, values = [], []
-    for j, pair in enumerate(raw, start=base):
-        where = f"{key}[{j}]"
-        if not isinstance(pair, list) or len(pair) != 2:
-            raise r.error(where, pair, "must be a [depth, concentration] pair",
-                          fix='e.g. ["0.5 m", "40 mg/L"]')
-        z = r.quantity(pair[0], "length", f"{where}[0]", low=0)
-        if z > length * (1 + 1e-12):
-            raise r.error(f"{where}[0]", pair[0], f"sample below the column bottom "
-                          f"({length:g} m)", fix="drop the sample or add the layer it was taken in")
-        if depths and z <= depths[-1]:
-            raise r.error(f"{where}[0]", pair[0], "sample depths must increase strictly",
-                          fix="list samples top to bottom, each depth once")
-        depths.append(min(z, length))
-        values.append(r.quantity(pair[1], "concentration", f"{where}[1]", low=0))
-    return InitialState.profile(depths, values)
-
-
-def _times(r: _Reader, raw):
-    key = "output.times"
-    if raw is None:
-        raise r.error(key, problem="missing", fix='add times = ["1 yr", "10 yr"] or '
-                      'times = {start = "1 yr", stop = "100 yr", count = 20}')
-    if isinstance(raw, dict):
-        r.keys(raw, TIME_RANGE_KEYS, key)
-        for name in ("start", "stop", "count"):
-            if name not in raw:
-                raise r.error(f"{key}.{name}", problem="missing", fix="give start, stop and count")
-        start = r.quantity(raw["start"], "time", f"{key}.start", low=0)
-        stop = r.quantity(raw["stop"], "time", f"{key}.stop", low=start)
-        count = raw["count"]
-        if isinstance(count, bool) or not isinstance(count, int) or not 1 <= count <= MAX_TIMES:
-            raise r.error(f"{key}.count", count, "must be a whole number",
-                          allowed=f"1 to {MAX_TIMES}", fix="e.g. count = 20")
-        spacing = raw.get("spacing", "linear")
-        if spacing not in ("linear", "log"):
-            raise r.error(f"{key}.spacing", spacing, "unknown spacing", allowed="linear | log")
-        if spacing == "log" and start <= 0:
-            raise r.error(f"{key}.start", raw["start"], "log spacing needs start > 0",
-                          fix='e.g. start = "1 d"')
-        times = (np.geomspace(start, stop, count) if spacing == "log"
-                 else np.linspace(start, stop, count))
-    elif isinstance(raw, list) and raw:
-        if len(raw) > MAX_TIMES:
-            raise r.error(key, problem=f"{len(raw)} times", allowed=f"at most {MAX_TIMES}")
-        times = np.array([r.quantity(v, "time", f"{key}[{j}]", low=0) for j, v in enumerate(raw)])
-    else:
-        raise r.error(key, raw, "must be a list of times or a {start, stop, count} table",
-                      fix='e.g. times = ["1 yr", "10 yr", "50 yr"]')
-    times = np.unique(times)
-    if not np.all(np.isfinite(times)):
-        raise r.error(key, raw, "times must be finite")
-    return times
-
-
-def _depths(r: _Reader, out, column: Column, receptor: float):
-    length = column.length
-    if "depths" in out and "depth_spacing" in out:
-        raise r.error("output.depth_spacing", out["depth_spacing"], "given together with "
-                      "output.depths", fix="keep one of them")
-    if "depths" in out:
-        raw = out["depths"]
-        if not isinstance(raw, list) or not raw or len(raw) > MAX_DEPTHS:
-            raise r.error("output.depths", raw, "must be a non-empty list of depths",
-                          allowed=f"at most {MAX_DEPTHS}", fix='e.g. depths = ["0 m", "1 m"]')
-        grid = [r.quantity(v, "length", f"output.depths[{j}]", low=0, high=length)
-                for j, v in enumerate(raw)]
-    else:
-        step = r.optional(out, "depth_spacing", "length", "output",
-                          default=length / DEFAULT_DEPTH_INTERVALS, low=0, low_open=True)
-        count = length / step
-        if not math.isfinite(count) or count > MAX_DEPTHS - 1:
-            raise r.error("output.depth_spacing", out.get("depth_spacing"), f"gives "
-                          f"{count:.3g} depths", allowed=f"at most {MAX_DEPTHS}",
-                          fix="use a coarser spacing")
-        grid = list(np.arange(int(math.ceil(count * (1 - 1e-12)))) * step)
-    grid = np.unique(np.concatenate([grid, column.interfaces, [receptor]]))
-    return grid[(grid >= 0) & (grid <= length)]
-
-
-def _output(r: _Reader, data, column: Column) -> OutputSpec:
-    out = r.table(data.get("output"), "output", required=True)
-    r.keys(out, OUTPUT_KEYS, "output")
-    times = _times(r, out.get("times"))
-    receptor = r.optional(out, "receptor_depth", "length", "output", default=column.length,
-                          low=0, high=column.length)
-    depths = _depths(r, out, column, receptor)
-    level = r.optional(out, "screening_level", "concentration", "output", low=0, low_open=True)
-    life = r.optional(out, "design_life", "time", "output", low=0, low_open=True)
-    tol = r.optional(out, "tolerance", "dimensionless", "output", default=DEFAULT_TOLERANCE,
-                     low=1e-14, high=1e-2)
-    times.setflags(write=False)
-    depths.setflags(write=False)
-    return OutputSpec(times, depths, receptor, level, life, tol)
-
-
 def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
     """Parse scenario TOML text (``path`` is used in messages and for relative files).
 
@@ -683,21 +450,6 @@ def _parse_data(r, data, text, file, prefix=""):
                     layer_details=tuple(details), timeline=timeline)
 
 
-def _with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
-    """Add output depths above the original top where a cap is placed (negative depths)."""
-    top = min(st.offset for st in timeline.stages)
-    if top >= 0:
-        return output
-    d = np.asarray(output.depths)
-    step = float(np.min(np.diff(d))) if d.size > 1 else -top / 20
-    faces = [f + st.offset for st in timeline.stages for f in st.column.interfaces]
-    extra = np.concatenate([np.arange(top, 0.0, step), faces])
-    depths = np.unique(np.concatenate([d, extra[extra < d.max()]]))
-    depths.setflags(write=False)
-    return OutputSpec(output.times, depths, output.receptor_depth, output.screening_level,
-                      output.design_life, output.tolerance)
-
-
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario file (TOML, UTF-8)."""
     try:
@@ -720,56 +472,5 @@ def load_alternatives(path: str | Path) -> list:
 
 def starter_scenario_text() -> str:
     """A commented starter scenario (the text ``stratiflux new`` writes)."""
-    return _STARTER
-
-
-_STARTER = '''\
-# stratiflux scenario: edit the values, keep the units in the quotes.
-# Screening-level model under stated assumptions (1-D, linear sorption, steady flow,
-# homogeneous layers); decisions rest with regulators, local codes and licensed professionals.
-title = "New scenario (fictional site)"
-
-[chemical]
-name = "trichloroethene"          # looked up in the property table (with sources)
-# free_water_diffusivity = "9.65e-10 m^2/s"   # overrides the table
-# organic_carbon_partition = "94 L/kg"        # Koc, overrides the table
-# half_life = "5 yr"                          # no decay unless you give one
-
-[flow]
-darcy_flux = "0.1 m/yr"           # downward positive; 0 for diffusion only
-
-[[layers]]                        # top layer first
-name = "fill"
-thickness = "1 m"
-porosity = 0.35                   # total porosity
-# water_content = 0.25            # water-filled porosity if unsaturated
-bulk_density = "1.7 g/cm^3"
-organic_carbon_fraction = 0.002   # or distribution_coefficient = "0.2 L/kg", or retardation_factor
-tortuosity = "millington-quirk"   # or a number, or pore_diffusivity = "3e-10 m^2/s"
-dispersivity = "0.05 m"
-
-[[layers]]
-name = "sand"
-thickness = "2 m"
-porosity = 0.30
-bulk_density = "1.8 g/cm^3"
-organic_carbon_fraction = 0.0005
-dispersivity = "0.1 m"
-
-[top]
-kind = "concentration"            # concentration | flux | inlet | free-outflow | mass-transfer | sealed
-concentration = "10 mg/L"
-
-[bottom]
-kind = "free-outflow"
-
-# [initial]                       # clean unless given
-# samples = [["0 m", "5 mg/L"], ["0.5 m", "1 mg/L"], ["1 m", "0 mg/L"]]
-
-[output]
-times = { start = "1 yr", stop = "50 yr", count = 20 }
-depth_spacing = "2 cm"
-receptor_depth = "3 m"
-screening_level = "5 ug/L"
-design_life = "30 yr"
-'''
+    return resources.files("transport").joinpath("data/starter.toml").read_text(
+        encoding="utf-8")

@@ -1,0 +1,177 @@
+"""Scenario files: the initial profile samples and the [output] table (times, depths,
+receptor, screening level, design life, tolerance)."""
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .model import Column, InitialState
+from .scenario_reader import _Reader
+
+__all__ = ["OutputSpec"]
+
+MAX_TIMES = 10_000  # output times; more is a typo, not a use case
+MAX_DEPTHS = 20_001  # output depths
+DEFAULT_DEPTH_INTERVALS = 200
+DEFAULT_TOLERANCE = 1e-8
+OUTPUT_KEYS = ("times", "depths", "depth_spacing", "receptor_depth", "screening_level",
+               "design_life", "tolerance")
+TIME_RANGE_KEYS = ("start", "stop", "count", "spacing")
+
+
+@dataclass(frozen=True, eq=False)
+class OutputSpec:
+    """What to compute: times (s), depths (m), receptor and screening settings."""
+
+    times: np.ndarray
+    depths: np.ndarray
+    receptor_depth: float
+    screening_level: float | None = None
+    design_life: float | None = None
+    tolerance: float = DEFAULT_TOLERANCE
+
+
+def _read_samples_file(r: _Reader, raw, length: float):
+    key = "initial.samples_file"
+    if not isinstance(raw, str) or not raw.strip():
+        raise r.error(key, raw, "must be a file name", fix='e.g. samples_file = "profile.csv"')
+    path = Path(raw) if Path(raw).is_absolute() else r.base_dir / raw
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeError) as exc:
+        raise r.error(key, raw, f"cannot read {path}: {exc}", fix="check the path (relative to "
+                      "the scenario file)") from None
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    rows = list(csv.reader(io.StringIO("\n".join(lines))))
+    header_units = [re.search(r"\[(.+)\]", h).group(1).strip() if re.search(r"\[(.+)\]", h)
+                    else None for h in (rows[0] if rows else [])]
+    if len(header_units) != 2 or not rows[1:]:
+        raise r.error(key, raw, f"{path.name} must have a header of two columns and at least "
+                      "one sample", fix="write e.g. 'depth [m],concentration [mg/L]' then rows")
+    pairs = []
+    for j, row in enumerate(rows[1:], start=1):
+        if len(row) != 2:
+            raise r.error(f"{key} row {j}", row, "needs exactly two cells (depth, concentration)")
+        pairs.append([c.strip() + (f" {u}" if u else "") for c, u in zip(row, header_units)])
+    return _samples(r, pairs, length, f"{key}({path.name}) row", base=1)
+
+
+def _samples(r: _Reader, raw, length: float, key="initial.samples", base=0):
+    if not isinstance(raw, list) or not raw:
+        raise r.error(key, raw, "must be a list of [depth, concentration] pairs",
+                      fix='e.g. samples = [["0 m", "80 mg/L"], ["1 m", "0 mg/L"]]')
+    depths, values = [], []
+    for j, pair in enumerate(raw, start=base):
+        where = f"{key}[{j}]"
+        if not isinstance(pair, list) or len(pair) != 2:
+            raise r.error(where, pair, "must be a [depth, concentration] pair",
+                          fix='e.g. ["0.5 m", "40 mg/L"]')
+        z = r.quantity(pair[0], "length", f"{where}[0]", low=0)
+        if z > length * (1 + 1e-12):
+            raise r.error(f"{where}[0]", pair[0], f"sample below the column bottom "
+                          f"({length:g} m)", fix="drop the sample or add the layer it was taken in")
+        if depths and z <= depths[-1]:
+            raise r.error(f"{where}[0]", pair[0], "sample depths must increase strictly",
+                          fix="list samples top to bottom, each depth once")
+        depths.append(min(z, length))
+        values.append(r.quantity(pair[1], "concentration", f"{where}[1]", low=0))
+    return InitialState.profile(depths, values)
+
+
+def _times(r: _Reader, raw):
+    key = "output.times"
+    if raw is None:
+        raise r.error(key, problem="missing", fix='add times = ["1 yr", "10 yr"] or '
+                      'times = {start = "1 yr", stop = "100 yr", count = 20}')
+    if isinstance(raw, dict):
+        r.keys(raw, TIME_RANGE_KEYS, key)
+        for name in ("start", "stop", "count"):
+            if name not in raw:
+                raise r.error(f"{key}.{name}", problem="missing", fix="give start, stop and count")
+        start = r.quantity(raw["start"], "time", f"{key}.start", low=0)
+        stop = r.quantity(raw["stop"], "time", f"{key}.stop", low=start)
+        count = raw["count"]
+        if isinstance(count, bool) or not isinstance(count, int) or not 1 <= count <= MAX_TIMES:
+            raise r.error(f"{key}.count", count, "must be a whole number",
+                          allowed=f"1 to {MAX_TIMES}", fix="e.g. count = 20")
+        spacing = raw.get("spacing", "linear")
+        if spacing not in ("linear", "log"):
+            raise r.error(f"{key}.spacing", spacing, "unknown spacing", allowed="linear | log")
+        if spacing == "log" and start <= 0:
+            raise r.error(f"{key}.start", raw["start"], "log spacing needs start > 0",
+                          fix='e.g. start = "1 d"')
+        times = (np.geomspace(start, stop, count) if spacing == "log"
+                 else np.linspace(start, stop, count))
+    elif isinstance(raw, list) and raw:
+        if len(raw) > MAX_TIMES:
+            raise r.error(key, problem=f"{len(raw)} times", allowed=f"at most {MAX_TIMES}")
+        times = np.array([r.quantity(v, "time", f"{key}[{j}]", low=0) for j, v in enumerate(raw)])
+    else:
+        raise r.error(key, raw, "must be a list of times or a {start, stop, count} table",
+                      fix='e.g. times = ["1 yr", "10 yr", "50 yr"]')
+    times = np.unique(times)
+    if not np.all(np.isfinite(times)):
+        raise r.error(key, raw, "times must be finite")
+    return times
+
+
+def _depths(r: _Reader, out, column: Column, receptor: float):
+    length = column.length
+    if "depths" in out and "depth_spacing" in out:
+        raise r.error("output.depth_spacing", out["depth_spacing"], "given together with "
+                      "output.depths", fix="keep one of them")
+    if "depths" in out:
+        raw = out["depths"]
+        if not isinstance(raw, list) or not raw or len(raw) > MAX_DEPTHS:
+            raise r.error("output.depths", raw, "must be a non-empty list of depths",
+                          allowed=f"at most {MAX_DEPTHS}", fix='e.g. depths = ["0 m", "1 m"]')
+        grid = [r.quantity(v, "length", f"output.depths[{j}]", low=0, high=length)
+                for j, v in enumerate(raw)]
+    else:
+        step = r.optional(out, "depth_spacing", "length", "output",
+                          default=length / DEFAULT_DEPTH_INTERVALS, low=0, low_open=True)
+        count = length / step
+        if not math.isfinite(count) or count > MAX_DEPTHS - 1:
+            raise r.error("output.depth_spacing", out.get("depth_spacing"), f"gives "
+                          f"{count:.3g} depths", allowed=f"at most {MAX_DEPTHS}",
+                          fix="use a coarser spacing")
+        grid = list(np.arange(int(math.ceil(count * (1 - 1e-12)))) * step)
+    grid = np.unique(np.concatenate([grid, column.interfaces, [receptor]]))
+    return grid[(grid >= 0) & (grid <= length)]
+
+
+def _output(r: _Reader, data, column: Column) -> OutputSpec:
+    out = r.table(data.get("output"), "output", required=True)
+    r.keys(out, OUTPUT_KEYS, "output")
+    times = _times(r, out.get("times"))
+    receptor = r.optional(out, "receptor_depth", "length", "output", default=column.length,
+                          low=0, high=column.length)
+    depths = _depths(r, out, column, receptor)
+    level = r.optional(out, "screening_level", "concentration", "output", low=0, low_open=True)
+    life = r.optional(out, "design_life", "time", "output", low=0, low_open=True)
+    tol = r.optional(out, "tolerance", "dimensionless", "output", default=DEFAULT_TOLERANCE,
+                     low=1e-14, high=1e-2)
+    times.setflags(write=False)
+    depths.setflags(write=False)
+    return OutputSpec(times, depths, receptor, level, life, tol)
+
+
+def _with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
+    """Add output depths above the original top where a cap is placed (negative depths)."""
+    top = min(st.offset for st in timeline.stages)
+    if top >= 0:
+        return output
+    d = np.asarray(output.depths)
+    step = float(np.min(np.diff(d))) if d.size > 1 else -top / 20
+    faces = [f + st.offset for st in timeline.stages for f in st.column.interfaces]
+    extra = np.concatenate([np.arange(top, 0.0, step), faces])
+    depths = np.unique(np.concatenate([d, extra[extra < d.max()]]))
+    depths.setflags(write=False)
+    return OutputSpec(output.times, depths, output.receptor_depth, output.screening_level,
+                      output.design_life, output.tolerance)
