@@ -524,3 +524,13 @@ def carslaw_jaeger_two_layer_eigenvalues(column: Column, n: int, dps: int = 30) 
                 raise RuntimeError("carslaw_jaeger_two_layer_eigenvalues: scan did not find "
                                    f"{n} roots")
         return [+r for r in roots[:n]]
+
+
+def assert_relative(c, ref, scale, rtol):
+    """|c - ref| <= rtol |ref| wherever |ref| > rtol * scale (the issues' criterion:
+    relative agreement where C exceeds that fraction of the source scale)."""
+    c, ref = np.asarray(c, float), np.asarray(ref, float)
+    mask = np.abs(ref) > rtol * scale
+    assert mask.any()
+    err = np.abs(c - ref)[mask] / np.abs(ref[mask])
+    assert err.max() <= rtol, f"max relative error {err.max():.3g}"

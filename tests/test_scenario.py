@@ -356,6 +356,19 @@ def _paths(data, prefix=()):
                 yield from _paths(item, prefix + (k, i))
 
 
+def mutate(base, mutations):
+    """A deep copy of ``base`` with each (path, new_key, value) put in place."""
+    data = json.loads(json.dumps(base))
+    for path, new_key, value in mutations:
+        node = data
+        for part in path[:-1]:
+            node = node[part]
+        if isinstance(node, dict):
+            if new_key is None or not isinstance(node.get(path[-1]), dict):
+                node[path[-1] if new_key is None else new_key] = value
+    return data
+
+
 STARTER = tomllib.loads(starter_scenario_text())
 STARTER_PATHS = list(_paths(STARTER))
 MUTABLE_KEYS = ["thickness", "porosity", "water_content", "half_life", "partition_to_next",
@@ -370,14 +383,7 @@ MUTABLE_KEYS = ["thickness", "porosity", "water_content", "half_life", "partitio
 def test_fuzz_mutated_scenarios_raise_only_scenario_error(mutations):
     """Valid starter scenario with random values put at random keys: parse_scenario
     either succeeds or raises ScenarioError, never anything else."""
-    data = json.loads(json.dumps(STARTER))
-    for path, new_key, value in mutations:
-        node = data
-        for part in path[:-1]:
-            node = node[part]
-        if isinstance(node, dict):
-            if new_key is None or not isinstance(node.get(path[-1]), dict):
-                node[path[-1] if new_key is None else new_key] = value
+    data = mutate(STARTER, mutations)
     try:
         text = _to_toml(data)
     except TypeError:

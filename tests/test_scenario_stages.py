@@ -10,7 +10,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 from transport.scenario import ScenarioError, parse_scenario
 from transport.schedules import Schedule
 
-from test_scenario import _paths, _to_toml, _values
+from test_scenario import _paths, _to_toml, _values, mutate
 
 ROOT = Path(__file__).resolve().parent.parent
 BASE = (ROOT / "scenarios" / "alternatives" / "3-clay-cap.toml").read_text(encoding="utf-8")
@@ -85,14 +85,7 @@ KEYS = ["at", "kind", "depth", "layer", "layers", "top", "darcy_flux", "steps", 
 def test_fuzz_actions_and_schedules_raise_only_scenario_error(mutations):
     """Random values at random keys of a staged scenario with a schedule: parse_scenario
     either succeeds or raises ScenarioError (with a key path), never anything else."""
-    data = json.loads(json.dumps(DATA))
-    for path, new_key, value in mutations:
-        node = data
-        for part in path[:-1]:
-            node = node[part]
-        if isinstance(node, dict):
-            if new_key is None or not isinstance(node.get(path[-1]), dict):
-                node[path[-1] if new_key is None else new_key] = value
+    data = mutate(DATA, mutations)
     try:
         text = _to_toml(data)
     except TypeError:

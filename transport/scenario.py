@@ -51,7 +51,7 @@ from .model import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, L
 from .scenario_output import OutputSpec, _output, _read_samples_file
 from .scenario_output import _samples, _with_cap_depths
 from .scenario_output import DEFAULT_TOLERANCE, MAX_DEPTHS, _times  # noqa: F401  (site.py)
-from .scenario_reader import _MISSING, ScenarioError, _Reader
+from .scenario_reader import _MISSING, ScenarioError, _Reader, read_text_file
 from .scenario_stages import parse_actions, parse_value
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
@@ -452,21 +452,13 @@ def _parse_data(r, data, text, file, prefix=""):
 
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario file (TOML, UTF-8)."""
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeError) as exc:
-        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
-                            fix="check the path") from None
+    text = read_text_file(path)
     return parse_scenario(text, path)
 
 
 def load_alternatives(path: str | Path) -> list:
     """The scenarios of a file (see :func:`parse_alternatives`)."""
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeError) as exc:
-        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
-                            fix="check the path") from None
+    text = read_text_file(path)
     return parse_alternatives(text, path)
 
 

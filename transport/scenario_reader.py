@@ -10,7 +10,7 @@ from pathlib import Path
 
 from .units import UnitError, si_unit, to_si
 
-__all__ = ["ScenarioError"]
+__all__ = ["ScenarioError", "read_text_file"]
 
 _MISSING = object()
 
@@ -102,3 +102,12 @@ class _Reader:
         if isinstance(value, str) and value.strip().lower() in ("none", "inf", "infinite"):
             return None
         return self.quantity(value, "time", f"{key}.half_life", low=0, low_open=True)
+
+
+def read_text_file(path) -> str:
+    """The UTF-8 text of an input file, or a ScenarioError naming it."""
+    try:
+        return Path(path).read_text(encoding="utf-8")
+    except (OSError, UnicodeError) as exc:
+        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
+                            fix="check the path") from None

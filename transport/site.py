@@ -39,6 +39,7 @@ import numpy as np
 from . import scenario as _sc
 from .model import InitialState
 from .scenario import ScenarioError
+from .scenario_reader import read_text_file
 from .site_columns import boring_column, material_layers, material_properties
 from .site_logs import FACE_TOLERANCE, _read_borings, _read_log  # noqa: F401
 from .uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
@@ -305,11 +306,7 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
 
 def load_site(path: str | Path) -> Site:
     """Read and validate a site file and the CSV files it names."""
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except (OSError, UnicodeError) as exc:
-        raise ScenarioError(str(path), "(file)", problem=f"cannot read the file: {exc}",
-                            fix="check the path") from None
+    text = read_text_file(path)
     return parse_site(text, path)
 
 
