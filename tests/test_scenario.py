@@ -362,7 +362,14 @@ def mutate(base, mutations):
     for path, new_key, value in mutations:
         node = data
         for part in path[:-1]:
-            node = node[part]
+            # an earlier mutation may have replaced a parent: skip what no longer exists
+            if isinstance(node, dict) and part in node:
+                node = node[part]
+            elif isinstance(node, list) and isinstance(part, int) and part < len(node):
+                node = node[part]
+            else:
+                node = None
+                break
         if isinstance(node, dict):
             if new_key is None or not isinstance(node.get(path[-1]), dict):
                 node[path[-1] if new_key is None else new_key] = value

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings, strategies as st
+from hypothesis import HealthCheck, example, given, settings, strategies as st
 
 from transport.scenario import ScenarioError, parse_scenario
 from transport.schedules import Schedule
@@ -82,6 +82,7 @@ KEYS = ["at", "kind", "depth", "layer", "layers", "top", "darcy_flux", "steps", 
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.tuples(st.sampled_from(PATHS), st.sampled_from(KEYS + [None]), _values),
                 min_size=1, max_size=3))
+@example([(("title",), "layers", 0), (("layers", 0, "name"), "at", "")])
 def test_fuzz_actions_and_schedules_raise_only_scenario_error(mutations):
     """Random values at random keys of a staged scenario with a schedule: parse_scenario
     either succeeds or raises ScenarioError (with a key path), never anything else."""
