@@ -390,11 +390,14 @@ def _polish(op, a, b, fa, fb, j, span):
         bad = ~(good & (xn > A) & (xn < B)) | (~near & (np.abs(f) > 0.5 * f_prev[newt]))
         step = np.abs(step)
         scale = np.maximum(np.abs(xi), span)
-        small = near & ~bad & (step <= _ROOT_REL * scale)
+        # a converged step may round onto the bracket end it came from (xn == xi): it is
+        # still converged, so "small" does not require the step to stay strictly inside
+        small = near & good & (step <= _ROOT_REL * scale)
         stall = near & ~bad & (step <= 1e-9 * scale) & (step > 0.5 * dx_prev[newt])
         tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
         done_n = small | stall | tight | (f == 0)
-        out[newt] = np.where(f == 0, xi, np.where(bad, 0.5 * (A + B), xn))
+        bad &= ~small
+        out[newt] = np.where(f == 0, xi, np.where(bad, 0.5 * (A + B), np.clip(xn, A, B)))
         x[newt] = np.where(bad, 0.5 * (A + B), xn)
         dx_prev[newt], f_prev[newt], search[newt] = step, np.abs(f), bad
         # search modes: keep the sub-bracket where f_j changes sign
