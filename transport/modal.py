@@ -150,14 +150,23 @@ class ModalSeries:
         return out
 
     def _fields(self, z):
-        """Matrices for C and F at depths z: (z, modes) and lifting (z, K)."""
+        """Matrices for C and F at depths z: (z, modes) and lifting (z, K); kept for the
+        last depth grid asked for (the probes and the tail corrections share it)."""
         op = self.op
         z = np.atleast_1d(np.asarray(z, dtype=float))
+        key = ("fields", z.tobytes())
+        found = self._cache.get("fields")
+        if found is not None and found[0] == key:
+            return found[1]
         lay = self.modes.layer_of(z)
         kap = op.kappa[lay][:, None]
         psi, dpsi = self.modes.evaluate(z, exp_sign=+1)
         u_l, du_l = self.lifting.evaluate(z)
-        return kap * psi, 0.5 * op.q * psi - dpsi, kap * u_l, op.q * u_l - du_l
+        out = (kap * psi, 0.5 * op.q * psi - dpsi, kap * u_l, op.q * u_l - du_l)
+        for a in out:
+            a.flags.writeable = False
+        self._cache["fields"] = (key, out)
+        return out
 
     def _drive(self, t):
         """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt)."""
@@ -208,10 +217,11 @@ class ModalSeries:
         return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
 
     # --- exact corrections of the time integrals (steady-state case) -----------------
-    def _w0_functions(self, zq, lq):
+    def _w0_functions(self, zq, lq, uq=None):
         """u-space initial state and lifting functions at nodes: (nq, 1 + K)."""
         u0 = initial_profile(self.column, self.initial, zq) / self.op.kappa[lq]
-        uq, _ = self.lifting.evaluate(zq)
+        if uq is None:
+            uq, _ = self.lifting.evaluate(zq)
         return np.column_stack([u0, uq])
 
     def _tail_corrections(self, z):
@@ -230,8 +240,10 @@ class ModalSeries:
         nodes = gauss_nodes(op, np.array([0.0]), tuple(self.breaks) + tuple(z.tolist()),
                             self.extra_rate)
         zq, wq, lq = nodes
-        w0 = self._w0_functions(zq, lq)
-        F, U = green_flux(op, self.lifting, np.concatenate([z, ends]), w0, nodes, values=True)
+        uq, _ = self.lifting.evaluate(zq)
+        w0 = self._w0_functions(zq, lq, uq)
+        F, U = green_flux(op, self.lifting, np.concatenate([z, ends]), w0, nodes, values=True,
+                          lift_nodes=uq)
         Fz, Fe = F[:z.size], F[z.size:]
         integ = (wq * op.a[lq]) @ w0
         lam_e = self.modes.lam + self.eps

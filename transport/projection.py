@@ -14,6 +14,7 @@
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -26,9 +27,18 @@ _GL_NODES = 32
 _GL_PANEL = 20.0
 
 
+@lru_cache(maxsize=4)
+def _legendre_rule(n: int):
+    """Gauss-Legendre nodes and weights on [-1, 1] (read-only, computed once)."""
+    xg, wg = np.polynomial.legendre.leggauss(n)
+    xg.flags.writeable = False
+    wg.flags.writeable = False
+    return xg, wg
+
+
 def gauss_nodes(op: Operator, lam: np.ndarray, breaks=(), extra_rate: float = 0.0):
     """Nodes, weights and layer index of Gauss-Legendre panels over the column."""
-    xg, wg = np.polynomial.legendre.leggauss(_GL_NODES)
+    xg, wg = _legendre_rule(_GL_NODES)
     lam_hi, lam_lo = float(np.max(lam)), float(np.min(lam))
     z = op.z
     w_hi = np.sqrt(np.maximum(lam_hi * op.a - op.s, 0.0) / op.k)
@@ -71,7 +81,7 @@ def initial_profile(column: Column, initial: InitialState, z):
     return np.interp(z, d, np.asarray(initial.values))
 
 
-def green_flux(op: Operator, lift, z, w0_nodes, nodes, values: bool = False):
+def green_flux(op: Operator, lift, z, w0_nodes, nodes, values: bool = False, lift_nodes=None):
     """Flux at depths z of W with L W = a w0 (homogeneous rows); with ``values`` also
     the u-space values U = e^A W = [phi_top I_L + phi_bot I_R] / Wr.
 
@@ -79,11 +89,12 @@ def green_flux(op: Operator, lift, z, w0_nodes, nodes, values: bool = False):
     I_L(z) = int_0^z a e^{-2A} phi_bot w0, I_R(z) = int_z^L a e^{-2A} phi_top w0 and
     Wr = k phi_bot' phi_top - phi_bot k phi_top' (constant; evaluated at z = 0).
     ``nodes`` = (zq, wq, lq) must have every z as a panel break; w0_nodes: (nq, m) values
-    of m functions (u-space) at the nodes.  Returns (z.size, m).
+    of m functions (u-space) at the nodes; ``lift_nodes``: ``lift.evaluate(zq)[0]`` if
+    already at hand.  Returns (z.size, m).
     """
     zq, wq, lq = nodes
     z = np.atleast_1d(np.asarray(z, dtype=float))
-    uq, _ = lift.evaluate(zq)
+    uq = lift.evaluate(zq)[0] if lift_nodes is None else lift_nodes
     A = op.A[lq] + op.alpha[lq] * (zq - op.z[lq])
     g = (wq * op.a[lq] * np.exp(-2 * A))[:, None] * w0_nodes
     gl = g * uq[:, 1:2]

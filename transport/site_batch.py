@@ -86,15 +86,28 @@ class _Probe:
     with the depth functions evaluated once (the sums of
     :meth:`ModalSeries.concentration` and :meth:`ModalSeries.cumulative_mass`)."""
 
-    def __init__(self, series, z):
+    def __init__(self, series, z, _parent=None):
         self.series, self.z = series, np.atleast_1d(np.asarray(z, dtype=float))
-        self.c_modes, self.f_modes, self.c_lift, self.f_lift = series._fields(self.z)
+        if _parent is None:
+            self.c_modes, self.f_modes, self.c_lift, self.f_lift = series._fields(self.z)
         self.clean = not np.any(series.proj0)
-        self._tail = None
+        self._tail, self._parent = None, _parent
+
+    def rows(self, sel: slice):
+        """The probe at depths ``z[sel]`` only (the receptor row for the metrics, whose
+        root finding calls it many times), sharing the evaluated depth functions."""
+        sub = _Probe(self.series, self.z[sel], _parent=(self, sel))
+        sub.c_modes, sub.f_modes, sub.c_lift, sub.f_lift = (
+            m[sel] for m in (self.c_modes, self.f_modes, self.c_lift, self.f_lift))
+        return sub
 
     def tail(self):
         if self._tail is None:
-            self._tail = self.series._tail_corrections(self.z)
+            if self._parent is not None:
+                probe, sel = self._parent
+                self._tail = {k: (v[sel] if k != "D" else v) for k, v in probe.tail().items()}
+            else:
+                self._tail = self.series._tail_corrections(self.z)
         return self._tail
 
     def coefficients(self, t):
@@ -259,7 +272,8 @@ def _solve_column(site, col, depth, times, grid):
                 "output times or cross-check with another engine", AccuracyWarning)
     conc[times == 0] = 0.0  # clean initial state
     t_start = float(times[positive].min())
-    m = _curve_metrics(lambda t: probe.concentration(t)[:, -1], t_start, t_end,
+    receptor = probe.rows(slice(-1, None))
+    m = _curve_metrics(lambda t: receptor.concentration(t)[:, 0], t_start, t_end,
                        site.screening_level, SCAN_SAMPLES)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics,
