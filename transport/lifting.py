@@ -54,17 +54,12 @@ class SteadyResponses:
         op = self.op
         z = np.atleast_1d(np.asarray(z, dtype=float))
         lay = np.clip(np.searchsorted(op.z, z, side="right") - 1, 0, op.n_layers - 1)
-        K = self.c1.shape[1]
-        u = np.zeros((z.size, K))
-        du = np.zeros((z.size, K))
-        for i in np.unique(lay):
-            sel = np.flatnonzero(lay == i)
-            s = z[sel] - op.z[i]
-            f1, d1, f2, d2, pp, dp = _basis(self, i, s)
-            u[sel] = f1[:, None] * self.c1[i] + f2[:, None] * self.c2[i]
-            du[sel] = d1[:, None] * self.c1[i] + d2[:, None] * self.c2[i]
-            u[sel, 2 + i] += op.source[i] * pp
-            du[sel, 2 + i] += op.source[i] * dp
+        f1, d1, f2, d2, pp, dp = _basis(self, lay, z - op.z[lay])
+        u = f1[:, None] * self.c1[lay] + f2[:, None] * self.c2[lay]
+        du = d1[:, None] * self.c1[lay] + d2[:, None] * self.c2[lay]
+        rows = np.arange(z.size)
+        u[rows, 2 + lay] += op.source[lay] * pp
+        du[rows, 2 + lay] += op.source[lay] * dp
         return u, op.k[lay][:, None] * du
 
 
@@ -80,34 +75,36 @@ def _roots(op, m_eff):
     return r_minus, r_plus
 
 
-def _basis(resp, i, s):
-    """Basis functions, derivatives and the particular solution P (unit sigma) on layer i."""
+def _basis(resp, lay, s):
+    """Basis functions, derivatives and the particular solution P (unit sigma) at local
+    depths s in layers ``lay`` (an index array of the size of s, or one layer index)."""
     op = resp.op
-    l = op.thickness[i]
-    rm, rp = resp.r_minus[i], resp.r_plus[i]
     s = np.asarray(s, dtype=float)
+    lay = np.broadcast_to(np.asarray(lay), s.shape)
+    l = op.thickness[lay]
+    rm, rp = resp.r_minus[lay], resp.r_plus[lay]
     f1 = np.exp(rm * s)
     d1 = rm * f1
-    if resp.exp_form[i]:
-        f2 = np.exp(rp * (s - l))
-        d2 = rp * f2
+    delta = rp - rm
+    expo = resp.exp_form[lay]
+    pos = delta > 0
+    with np.errstate(over="ignore", invalid="ignore"):
+        # e^{r+ (s - l)} where (r+ - r-) l > 1; elsewhere the bounded difference form
+        # e^{r- s} (e^{delta s} - 1) / delta (delta l <= 1), or s e^{r- s} at delta = 0
+        f2_e = np.exp(np.where(expo, rp * (s - l), 0.0))
+        f2_d = f1 * np.where(pos, np.expm1(np.where(expo, 0.0, delta * s))
+                             / np.where(pos, delta, 1.0), s)
+        d2_d = rm * f2_d + np.exp(np.where(expo, 0.0, rp * s))
+    f2 = np.where(expo, f2_e, f2_d)
+    d2 = np.where(expo, rp * f2_e, d2_d)
+    me, k = resp.m_eff[lay], op.k[lay]
+    if op.q != 0:
+        p_flow, dp_flow = s / op.q, np.full_like(s, 1.0 / op.q)
     else:
-        delta = rp - rm
-        if delta > 0:
-            f2 = f1 * np.expm1(delta * s) / delta
-        else:
-            f2 = f1 * s
-        d2 = rm * f2 + np.exp(rp * s)
-    me = resp.m_eff[i]
-    if me > 0:
-        pp = np.full_like(s, 1.0 / me)
-        dp = np.zeros_like(s)
-    elif op.q != 0:
-        pp = s / op.q
-        dp = np.full_like(s, 1.0 / op.q)
-    else:
-        pp = -s * s / (2 * op.k[i])
-        dp = -s / op.k[i]
+        p_flow, dp_flow = -s * s / (2 * k), -s / k
+    react = me > 0
+    pp = np.where(react, 1.0 / np.where(react, me, 1.0), p_flow)
+    dp = np.where(react, 0.0, dp_flow)
     return f1, d1, f2, d2, pp, dp
 
 

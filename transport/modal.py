@@ -196,21 +196,26 @@ class ModalSeries:
             out = out + (corr @ drive).T
         return out
 
-    def roundoff_bound(self, z, t):
+    def roundoff_bound(self, z, t, c_modes=None):
         """Estimated rounding error of C (kg m-3), shape (t.size, z.size).
 
         The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
         the terms, before they cancel, are multiplied by e^{A(z)} on the way back.  At
-        high Peclet numbers and early times this, not the mode count, limits accuracy."""
-        c_modes, _, _, _ = self._fields(z)
+        high Peclet numbers and early times this, not the mode count, limits accuracy.
+        ``c_modes``: the concentration rows of :meth:`_fields` at z, if at hand."""
+        if c_modes is None:
+            c_modes = self._fields(z)[0]
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam[:, None]
         size = np.abs(self.proj0)[:, None] * np.exp(-lam * t[None, :])
         for k in self._active():
             sched = self.signals[k]
             amp = sum(abs(a) for _, _, a, _ in sched.atoms)
-            last = np.array([max([t0 for t0 in sched.change_times if t0 <= tt] or [0.0])
-                             for tt in t])
+            # the latest change at or before each t (0 where there is none)
+            changes = np.sort(np.asarray(sched.change_times, dtype=float))
+            i = np.searchsorted(changes, t, side="right")
+            last = np.where(i > 0, changes[np.maximum(i - 1, 0)] if changes.size else 0.0,
+                            0.0)
             size = size + np.abs(self.lift_coef[k])[:, None] * amp * np.exp(
                 -lam * np.maximum(t - last, 0.0)[None, :])
         n = max(self.modes.lam.size, 1)

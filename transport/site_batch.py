@@ -131,20 +131,8 @@ class _Probe:
 
     def roundoff_bound(self, t, rows=slice(None)):
         """:meth:`ModalSeries.roundoff_bound` at the probe's depths ``rows``, with the
-        depth functions already evaluated: 16 sqrt(N) eps_mach sum_n |C_n(z)| |a_n|."""
-        s = self.series
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        lam = s.modes.lam[:, None]
-        size = np.abs(s.proj0)[:, None] * np.exp(-lam * t[None, :])
-        for k in s._active():
-            sched = s.signals[k]
-            amp = sum(abs(a) for _, _, a, _ in sched.atoms)
-            last = np.array([max([t0 for t0 in sched.change_times if t0 <= tt] or [0.0])
-                             for tt in t])
-            size = size + np.abs(s.lift_coef[k])[:, None] * amp * np.exp(
-                -lam * np.maximum(t - last, 0.0)[None, :])
-        n = max(s.modes.lam.size, 1)
-        return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(self.c_modes[rows]) @ size).T
+        depth functions already evaluated."""
+        return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
 
 
 def _curve_metrics(conc, t_start, t_end, level, n_scan):
