@@ -108,6 +108,13 @@ def main():
               f"{args.realizations} realizations, chunks of {chunk}")
         mc = {"realizations": args.realizations}
         rates = {}
+        # the first run in a process pays for importing the output libraries (NetCDF,
+        # GeoPackage, matplotlib): measured on a small site, reported apart
+        warm_dir = work / "warm"
+        warm_dir.mkdir()
+        t_cold = timed_run(make_site(warm_dir, 16, distinct=distinct), warm_dir / "out",
+                           workers=1, chunk_size=chunk)
+        print(f"first run in the process (16 borings, imports included): {t_cold:.2f} s")
         t_one = timed_run(site, work / "one", workers=1, chunk_size=chunk, **mc)
         rates["in-process (1 worker)"] = t_one
         t_local = timed_run(site, work / "local", workers=args.workers, chunk_size=chunk,

@@ -14,7 +14,6 @@
 from __future__ import annotations
 
 import math
-from functools import lru_cache
 
 import numpy as np
 
@@ -27,18 +26,25 @@ _GL_NODES = 32
 _GL_PANEL = 20.0
 
 
-@lru_cache(maxsize=4)
-def _legendre_rule(n: int):
-    """Gauss-Legendre nodes and weights on [-1, 1] (read-only, computed once)."""
-    xg, wg = np.polynomial.legendre.leggauss(n)
-    xg.flags.writeable = False
-    wg.flags.writeable = False
-    return xg, wg
+def _rules():
+    """The 8-, 16- and 32-node Gauss-Legendre rules on [-1, 1], concatenated, with the
+    start of each."""
+    xs, ws = zip(*(np.polynomial.legendre.leggauss(n) for n in (8, 16, _GL_NODES)))
+    start = np.array([0, 8, 24])
+    return np.concatenate(xs), np.concatenate(ws), start
+
+
+_RULES = _rules()
 
 
 def gauss_nodes(op: Operator, lam: np.ndarray, breaks=(), extra_rate: float = 0.0):
-    """Nodes, weights and layer index of Gauss-Legendre panels over the column."""
-    xg, wg = _legendre_rule(_GL_NODES)
+    """Nodes, weights and layer index of Gauss-Legendre panels over the column.
+
+    A panel of length h where the integrand varies at most at ``rate`` gets 8, 16 or 32
+    nodes for rate h <= 1, 6 or 20: the bound (rate h / 2)^(2n) / (2n)! on the error of
+    an n-node rule for exp(rate s) (Davis & Rabinowitz 1984, sec. 4.8) is below 1e-18
+    in every case.  Nodes are returned in increasing depth, panel after panel.
+    """
     lam_hi, lam_lo = float(np.max(lam)), float(np.min(lam))
     z = op.z
     w_hi = np.sqrt(np.maximum(lam_hi * op.a - op.s, 0.0) / op.k)
@@ -55,9 +61,17 @@ def gauss_nodes(op: Operator, lam: np.ndarray, breaks=(), extra_rate: float = 0.
     j = np.arange(seg.size) - first  # panel index inside its segment
     h = (b_ - a_)[seg] / npan[seg]
     left = a_[seg] + j * h
-    zq = (left + 0.5 * h)[:, None] + (0.5 * h)[:, None] * xg[None, :]
-    wq = (0.5 * h)[:, None] * wg[None, :]
-    return zq.ravel(), wq.ravel(), np.repeat(lay[seg], _GL_NODES)
+    # rule per panel: index into the concatenated 8-, 16- and 32-node rules
+    x_all, w_all, start = _RULES
+    rh = rate[lay[seg]] * h
+    order = np.where(rh <= 1.0, 8, np.where(rh <= 6.0, 16, _GL_NODES))
+    rule = np.select([order == 8, order == 16], [0, 1], 2)
+    pan = np.repeat(np.arange(seg.size), order)
+    k = np.arange(pan.size) - np.repeat(np.cumsum(order) - order, order)
+    idx = start[rule][pan] + k
+    half = 0.5 * h[pan]
+    return (left[pan] + half * (1.0 + x_all[idx]), half * w_all[idx],
+            np.repeat(lay[seg], order))
 
 
 def initial_profile(column: Column, initial: InitialState, z):

@@ -298,14 +298,17 @@ def _lambda_bounds(op: Operator, n: int):
     base = float(np.min(op.s / op.a))
     span = float(np.max(op.k / op.a)) / float(np.sum(op.thickness)) ** 2
     lo = base - span
+    weyl = float(np.sum(op.thickness * np.sqrt(op.a / op.k)))
+    hi = float(np.max(op.s / op.a)) + ((n + 2) * np.pi / weyl) ** 2 + span
+    c_lo, c_hi = count_below(op, np.array([lo, hi]))  # both first guesses in one pass
+    if c_hi >= n and c_lo == 0:
+        return lo, hi, span
     for _ in range(200):
         if count_below(op, lo)[0] == 0:
             break
         lo = lo - 4.0 * (abs(lo) + span)
     else:
         raise SpectrumError("could not find a lower bound of the spectrum")
-    weyl = float(np.sum(op.thickness * np.sqrt(op.a / op.k)))
-    hi = float(np.max(op.s / op.a)) + ((n + 2) * np.pi / weyl) ** 2 + span
     for _ in range(200):
         if count_below(op, hi)[0] >= n:
             break
