@@ -73,8 +73,12 @@ def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
 
 
 def timed_run(site, out, realizations=0, **options):
+    """Wall time of one site run, with the per-process column caches emptied first (local
+    workers are forked from this process and would inherit them)."""
+    from transport.site_batch import clear_caches
     from transport.site_run import run_site
 
+    clear_caches()
     start = time.perf_counter()
     run_site(site, out, realizations=realizations, **options)
     return time.perf_counter() - start

@@ -178,6 +178,7 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path):
     with pytest.raises(Stop):
         run_site(site, out, realizations=0, workers=1, chunk_size=2, progress=stop_after_first)
     assert not (out / "site.nc").exists()
+    assert not [p for p in out.iterdir() if p.name.endswith(".part")]  # no partial file
     sidecar = json.loads((out / "site.nc.progress.json").read_text())
     assert sidecar["done"] == [0]
     files = run_site(site, out, realizations=0, workers=1, chunk_size=2)

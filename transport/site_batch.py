@@ -234,6 +234,13 @@ _FIELDS_CACHE = _Cache(FIELD_CACHE_SIZE)
 _METRICS_CACHE = _Cache(METRIC_CACHE_SIZE)
 
 
+def clear_caches():
+    """Forget the columns solved so far in this process (and in local worker processes
+    forked from it later); for benchmarks that must not reuse an earlier run."""
+    _FIELDS_CACHE.bind(None)
+    _METRICS_CACHE.bind(None)
+
+
 def _solve_column(site, col, depth, times, grid):
     """Fields on the grid (cut at the bottom), metrics and warnings of one column:
     the numbers of :func:`transport.modal.solve` on the same column and depths."""

@@ -128,22 +128,28 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
     todo = [i for i in range(len(chunks)) if i not in done]
     if progress and done:
         progress(sum(chunks[i][1] - chunks[i][0] for i in done))
-    for j, result in iter_chunks(site, [chunks[i] for i in todo], samples, workers=workers,
-                                 scheduler=scheduler):
-        index = todo[j]
-        _save_chunk(folder, index, result)
-        done.add(index)
-        state["done"] = sorted(done)
-        _write_json(sidecar, state)
-        if progress:
-            progress(chunks[index][1] - chunks[index][0])
-    notes = []
+    notes = {}
     mc_info = {"realizations": n_real, "seed": seed, "sampling": sampling} if mc else None
+    # the NetCDF file (a temporary until complete) takes each chunk as it arrives, so its
+    # compression overlaps the solving; the .npz copies are what a resumed run reuses
     with SiteNetCDFWriter(nc_path, site, monte_carlo=mc_info, history=history) as writer:
-        for index, (a, _) in enumerate(chunks):
+        for index in sorted(done):
             result = _load_chunk(folder, index)
-            writer.write_chunk(a, result)
-            notes += result["warnings"]
+            writer.write_chunk(chunks[index][0], result)
+            notes[index] = result["warnings"]
+        for j, result in iter_chunks(site, [chunks[i] for i in todo], samples,
+                                     workers=workers, scheduler=scheduler):
+            index = todo[j]
+            _save_chunk(folder, index, result)
+            done.add(index)
+            state["done"] = sorted(done)
+            _write_json(sidecar, state)
+            writer.write_chunk(chunks[index][0], result)
+            writer.flush()
+            notes[index] = result["warnings"]
+            if progress:
+                progress(chunks[index][1] - chunks[index][0])
+    notes = [w for index in sorted(notes) for w in notes[index]]
     table = station_table(nc_path)
     files = SiteRunFiles(
         netcdf=str(nc_path),

@@ -204,6 +204,10 @@ class SiteNetCDFWriter:
                 "grid_mapping": "crs", "coverage_content_type": "modelResult",
                 "comment": CAUTION}, fill=FILL_VALUE)
 
+    def flush(self):
+        """Write what is buffered (compressing the finished chunks) to the temporary file."""
+        self.nc.sync()
+
     def write_chunk(self, start: int, result: dict):
         """Write the arrays of one chunk (station axis first, SI units) at ``start``."""
         n = len(result["breakthrough_time"])
