@@ -103,8 +103,9 @@ class ModalSeries:
         return [k for k, s in enumerate(self.signals) if s.atoms]
 
     def signal_values(self, t):
+        """Signal values b_k(t), (K, nt); at a change time the value just before it."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        return np.array([s.value(t) for s in self.signals])
+        return np.array([s.value(t, left=True) for s in self.signals])
 
     def signal_integrals(self, t):
         t = np.atleast_1d(np.asarray(t, dtype=float))
@@ -135,7 +136,7 @@ class ModalSeries:
         out *= initial[:, None]
         for (kind, t0, rate), w in groups.items():
             unit = Schedule(((kind, t0, 1.0, rate),))
-            out += w[:, None] * unit.modal(lam, t, self.eps)
+            out += w[:, None] * unit.modal(lam, t, self.eps, left=True)
         return out
 
     def integrated_coefficients(self, t):
@@ -146,7 +147,7 @@ class ModalSeries:
         out = initial[:, None] * phi(1, lam[:, None], t[None, :])
         for (kind, t0, rate), w in groups.items():
             unit = Schedule(((kind, t0, 1.0, rate),))
-            out += w[:, None] * unit.modal(lam, t, self.eps, True)
+            out += w[:, None] * unit.modal(lam, t, self.eps, True, left=True)
         return out
 
     def _fields(self, z):
@@ -169,9 +170,12 @@ class ModalSeries:
         return out
 
     def _drive(self, t):
-        """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt)."""
+        """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt), as
+        the left limit at a change time (the modes beyond the truncation have not yet
+        responded to a change at that very instant)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        return np.array([self.eps * s.value(t) - s.derivative(t) for s in self.signals])
+        return np.array([self.eps * s.value(t, left=True) - s.derivative(t)
+                         for s in self.signals])
 
     def concentration(self, z, t):
         """C (kg m-3), shape (t.size, z.size)."""
@@ -268,7 +272,8 @@ class ModalSeries:
     def _integrated_correction(self, corr, t):
         """corr_0 H(t) + sum_k (eps int_0^t b_k - b_k(t)) corr_k  (corr: (..., 1+K))."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        weight = self.eps * self.signal_integrals(t) - self.signal_values(t)  # (K, nt)
+        # left limits at a change time, as in _drive: (K, nt)
+        weight = self.eps * self.signal_integrals(t) - self.signal_values(t)
         corr = np.atleast_2d(corr)
         return (np.outer((t > 0).astype(float), corr[:, 0])
                 + (corr[:, 1:] @ weight).T)

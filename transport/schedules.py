@@ -180,12 +180,14 @@ class Schedule:
         return sorted({t0 for _, t0, _, _ in self.atoms})
 
     # --- evaluation -----------------------------------------------------------------
-    def value(self, t):
+    def value(self, t, left: bool = False):
+        """The signal at times t: right-continuous (a step counts from its time on), or
+        with ``left`` the left limit at a change time t0 > 0 (see :func:`_on`)."""
         t = np.asarray(t, dtype=float)
         out = np.zeros(t.shape)
         for kind, t0, amp, rate in self.atoms:
             tau = t - t0
-            on = tau >= 0
+            on = _on(tau, t0, left)
             taup = np.where(on, tau, 0.0)
             if kind == "step":
                 out += np.where(on, amp, 0.0)
@@ -196,12 +198,14 @@ class Schedule:
         return out
 
     def derivative(self, t):
-        """Regular part of d value / dt (jumps excluded)."""
+        """Regular part of d value / dt (jumps excluded), the left limit at a change time
+        t0 > 0: at that instant the column still holds the state reached under the
+        earlier slope (the quasi-static tail corrections of the modal series need it)."""
         t = np.asarray(t, dtype=float)
         out = np.zeros(t.shape)
         for kind, t0, amp, rate in self.atoms:
             tau = t - t0
-            on = tau >= 0
+            on = _on(tau, t0, left=True)
             if kind == "ramp":
                 out += np.where(on, amp, 0.0)
             elif kind == "decay":
@@ -222,7 +226,7 @@ class Schedule:
                 out += amp * phi(1, rate, taup)
         return out
 
-    def modal(self, lam, t, eps: float, integrated: bool = False):
+    def modal(self, lam, t, eps: float, integrated: bool = False, left: bool = False):
         """Per-unit-coefficient modal response: array (lam.size, t.size).
 
         a_n(t) gets c_kn times this (integrated=False); int_0^t a_n gets c_kn times
@@ -233,7 +237,7 @@ class Schedule:
         out = np.zeros((lam.shape[0], t.shape[1]))
         for kind, t0, amp, rate in self.atoms:
             tau = t - t0
-            on = tau >= 0
+            on = _on(tau, t0, left)
             taup = np.where(on, tau, 0.0)
             lam_b, tau_b = np.broadcast_arrays(lam, taup)
             if kind == "step":
@@ -254,6 +258,17 @@ class Schedule:
                     g = -phi(0, lam_b, tau_b) + (eps + rate) * _divided_exp(lam_b, rr, tau_b)
             out += amp * np.where(on, g, 0.0)
         return out
+
+
+def _on(tau, t0, left: bool):
+    """Whether an atom switched on at t0 acts at tau = t - t0.  Right-continuous by
+    default; with ``left`` an atom does not act at its own instant t0 > 0, so the column
+    state reported at a change time is the state just before the change (continuous
+    inside the column, and what the Laplace-domain engine returns there).  An atom at
+    t0 = 0 acts at t = 0 either way (it is part of the starting state)."""
+    if left:
+        return (tau > 0) | ((tau == 0) & (t0 <= 0))
+    return tau >= 0
 
 
 def _check_series(times, values, what):
