@@ -32,6 +32,7 @@ import scipy.sparse as sp
 from scipy.integrate import solve_ivp
 
 from .model import Column, InitialState, InputError
+from .fv_signals import Signals
 from .sorption import Storage, _isotherm_list
 
 __all__ = ["Mesh", "Storage", "System", "build_mesh", "build_storage", "assemble", "solve_fv",
@@ -216,12 +217,15 @@ def _initial_at(column: Column, depths, initial: InitialState) -> np.ndarray:
     return np.interp(depths, initial.depths, initial.values)
 
 
-def _face_values(column: Column, system: System, C: np.ndarray, scheme: str):
+def _face_values(column: Column, system: System, C: np.ndarray, scheme: str, times=None,
+                 signals=None):
     """Pore-water C at each layer face, (nt, layers + 1) above and below each face.
 
     Interfaces: continuity of theta D dC/dz (which holds with or without advection):
     C_above = (g_L C_L + g_R C_R) / (g_L + K g_R), C_below = K C_above.  Boundaries:
-    invert the boundary closure of :func:`assemble` for the face value.
+    invert the boundary closure of :func:`assemble` for the face value.  With
+    ``signals`` (:class:`transport.fv_signals.Signals`) the boundary terms are those at
+    ``times``.
     """
     mesh, k = system.mesh, system.k
     n_layers = len(column.layers)
@@ -235,7 +239,8 @@ def _face_values(column: Column, system: System, C: np.ndarray, scheme: str):
         above[:, i] = (gl * C[:, f - 1] + gr * C[:, f]) / (gl + kp * gr)
         below[:, i] = kp * above[:, i]
     q = column.darcy_flux
-    F = C @ system.Fmat[[0, -1]].toarray().T + system.f0[[0, -1]]
+    f_ends = system.f0[[0, -1]] if signals is None else signals.f0(times)[:, [0, -1]]
+    F = C @ system.Fmat[[0, -1]].toarray().T + f_ends
     for end, face, cell, col in (("top", 0, 0, 0), ("bottom", -1, -1, n_layers)):
         bc = getattr(column, end)
         h = abs(mesh.faces[face] - mesh.centres[cell])
@@ -243,7 +248,8 @@ def _face_values(column: Column, system: System, C: np.ndarray, scheme: str):
         wL, wR = _weights(np.array(q * h / k[cell]), scheme)
         flux = F[:, 0 if end == "top" else 1]
         if bc.kind == "concentration":
-            val = np.full(C.shape[0], bc.value)
+            val = (np.full(C.shape[0], bc.value) if signals is None
+                   else signals.boundary_value(end, times))
         elif bc.kind == "free-outflow":
             val = C[:, cell]
         elif end == "top":  # F = g (wL C_f - wR C_0)
@@ -276,18 +282,6 @@ def build_storage(column: Column, mesh: Mesh, isotherm=None) -> Storage:
 
 
 # ------------------------------------------------------------------------- integration
-def _check_column(column: Column):
-    for end in ("top", "bottom"):
-        if getattr(getattr(column, end), "schedule", None) is not None:
-            raise InputError(f"finite-volume engine: the {end} boundary has a time schedule; "
-                             "this engine takes constant boundary values only: use the "
-                             "modal engine for scheduled boundaries")
-    for lay in column.layers:
-        if getattr(lay, "source_schedule", None) is not None:
-            raise InputError(f"finite-volume engine: layer {lay.name!r} has a source "
-                             "schedule; this engine takes constant sources only")
-
-
 def _integrate(column, times, initial, cells_per_layer, rtol, atol, scheme, grading,
                isotherm, augment: bool):
     """March the total-mass form in time.
@@ -300,21 +294,27 @@ def _integrate(column, times, initial, cells_per_layer, rtol, atol, scheme, grad
     no regularisation is needed.  Linear invariants (the mass budget) are kept by the BDF
     scheme up to its Newton tolerance.
     """
-    _check_column(column)
     initial = InitialState.clean() if initial is None else initial
     times = np.atleast_1d(np.asarray(times, dtype=float))
     if times.size == 0 or not np.all(np.isfinite(times)) or np.any(times < 0):
         raise InputError("finite-volume engine: give finite output times >= 0 s")
     mesh = build_mesh(column, cells_per_layer, grading)
-    system = assemble(column, mesh, scheme)
+    signals = Signals(column, mesh, scheme, assemble)
+    system = signals.system
     store = build_storage(column, mesh, isotherm)
     n = mesh.centres.size
     vol = np.diff(mesh.faces)
     mu = _cell_props(column, mesh, "decay_rate")
-    sigma = _cell_props(column, mesh, "source_rate")
     Fm, f0 = system.Fmat, system.f0
     div = (sp.diags(1.0 / vol) @ (Fm[:-1] - Fm[1:])).tocsr()
-    d0 = (f0[:-1] - f0[1:]) / vol + sigma
+    d0 = (f0[:-1] - f0[1:]) / vol + signals.sigma_static
+
+    def drive(t):
+        """Cell drive d(t) and face constants f0(t) (constant without schedules)."""
+        if not signals.varying:
+            return d0, f0
+        f, sig = signals.f0(t)[0], signals.sigma(t)[0]
+        return (f[:-1] - f[1:]) / vol + sig, f
     c0 = _initial_cells(column, mesh, initial)
     m0 = store.mass(c0)
     order = np.argsort(times)
@@ -324,14 +324,18 @@ def _integrate(column, times, initial, cells_per_layer, rtol, atol, scheme, grad
     y0 = np.concatenate([m0, np.zeros(n_aux)])
     vmu = vol * mu
 
-    def rhs(t, y):
-        m = y[:n]
-        c = store.concentration(m)
-        dm = div @ c + d0 - mu * m
-        if not augment:
-            return dm
-        F = Fm @ c + f0
-        return np.concatenate([dm, F, [vmu @ m]])
+    def rhs_until(b_left):
+        """Right-hand side on an interval ending at b: signals taken left of b."""
+        def rhs(t, y):
+            d, f = drive(min(t, b_left))
+            m = y[:n]
+            c = store.concentration(m)
+            dm = div @ c + d - mu * m
+            if not augment:
+                return dm
+            F = Fm @ c + f
+            return np.concatenate([dm, F, [vmu @ m]])
+        return rhs
 
     def jac(t, y):
         dcdm = 1.0 / store.capacity(store.concentration(y[:n]))
@@ -346,25 +350,35 @@ def _integrate(column, times, initial, cells_per_layer, rtol, atol, scheme, grad
 
     out = np.empty((times.size, y0.size))
     if t_end > 0:
-        bvals = [abs(getattr(column, e).value) for e in ("top", "bottom")]
-        c_scale = max([np.max(np.abs(c0), initial=0.0), *bvals,
-                       np.max(np.abs(sigma / store.a)) * t_end, 1e-300])
+        probe = signals.probe_times(t_end)
+        sig_max = np.max(np.abs(signals.sigma(probe)), axis=0)
+        c_scale = max([np.max(np.abs(c0), initial=0.0), signals.scale(t_end),
+                       np.max(sig_max / store.a) * t_end, 1e-300])
         m_scale = store.mass(np.full(n, c_scale))
         atol_m = (rtol if atol is None else atol / c_scale) * m_scale
-        q_scale = float(vol @ m_scale) + np.max(np.abs(f0)) * t_end + float(vol @ np.abs(m0))
+        q_scale = (float(vol @ m_scale) + np.max(np.abs(signals.f0(probe))) * t_end
+                   + float(vol @ np.abs(m0)))
         atol_v = np.concatenate([atol_m, np.full(n_aux, rtol * q_scale)])
         jac_arg = jac(0.0, y0) if store.linear else jac
-        sol = solve_ivp(rhs, (0.0, t_end), y0, method="BDF", t_eval=t_sorted, jac=jac_arg,
-                        rtol=rtol, atol=atol_v)
-        if not sol.success:
-            raise RuntimeError(f"finite-volume engine: time integration failed: {sol.message}")
-        out[order] = sol.y.T
+        # restart at every change of a boundary or source schedule (smooth pieces)
+        y, out_sorted = y0, np.empty((t_sorted.size, y0.size))
+        for a, b in signals.intervals(t_end):
+            sel = (t_sorted > a) & (t_sorted <= b)
+            t_eval = np.union1d(t_sorted[sel], [b])
+            sol = solve_ivp(rhs_until(np.nextafter(b, a)), (a, b), y, method="BDF",
+                            t_eval=t_eval, jac=jac_arg, rtol=rtol, atol=atol_v)
+            if not sol.success:
+                raise RuntimeError("finite-volume engine: time integration failed between "
+                                   f"{a:.6g} s and {b:.6g} s: {sol.message}")
+            out_sorted[sel] = sol.y.T[np.searchsorted(t_eval, t_sorted[sel])]
+            y = sol.y[:, -1]
+        out[order] = out_sorted
     else:
         out[:] = y0
     out[times == 0] = y0
     cells = np.vstack([store.concentration(row) for row in out[:, :n]])
     return dict(times=times, mesh=mesh, system=system, store=store, cells=cells,
-                mass=out[:, :n], aux=out[:, n:], vol=vol, sigma=sigma, initial=initial)
+                mass=out[:, :n], aux=out[:, n:], vol=vol, signals=signals, initial=initial)
 
 
 def _profile(column, res, depths, scheme):
@@ -374,7 +388,7 @@ def _profile(column, res, depths, scheme):
     L = column.length
     if depths.size == 0 or np.any(depths < 0) or np.any(depths > L * (1 + 1e-12)):
         raise InputError(f"finite-volume engine: depths must lie in [0, {L}] m")
-    above, below = _face_values(column, res["system"], cells, scheme)
+    above, below = _face_values(column, res["system"], cells, scheme, times, res["signals"])
     out = np.empty((times.size, depths.size))
     lay_of = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1,
                      0, len(column.layers) - 1)
@@ -401,7 +415,9 @@ def solve_fv(column: Column, times, depths, initial: InitialState | None = None,
 
     Parameters
     ----------
-    column : Column (constant boundary values)
+    column : Column; boundary values and layer sources may follow schedules (the
+        integration restarts at each change time; at a change time the state just
+        before the change is reported)
     times : array_like (nt,), s, >= 0
     depths : array_like (nz,), m in [0, L]; at a layer face the value just below it
     initial : InitialState, default clean
@@ -464,14 +480,14 @@ def solve_fv_result(column: Column, times, depths, initial: InitialState | None 
     conc, depths = _profile(column, res, depths, scheme)
     times, mesh, vol = res["times"], res["mesh"], res["vol"]
     n = mesh.centres.size
-    faces = res["system"].Fmat @ res["cells"].T + res["system"].f0[:, None]  # (n+1, nt)
+    faces = res["system"].Fmat @ res["cells"].T + res["signals"].f0(times).T  # (n+1, nt)
     cum = res["aux"][:, :n + 1]
     flux = np.vstack([np.interp(depths, mesh.faces, f) for f in faces.T])
     cmass = np.vstack([np.interp(depths, mesh.faces, c) for c in cum])
     stored = res["mass"] @ vol
     initial_stored = float(stored[times == 0][0]) if np.any(times == 0) else \
         float(res["store"].mass(_initial_cells(column, mesh, res["initial"])) @ vol)
-    produced = times * float(res["sigma"] @ vol)
+    produced = res["signals"].produced(times, vol)
     decayed = res["aux"][:, n + 1]
     budget = {"stored": stored, "initial_stored": np.full(times.size, initial_stored),
               "entered_top": cum[:, 0], "left_bottom": cum[:, n], "decayed": decayed,
