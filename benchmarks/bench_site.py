@@ -129,6 +129,9 @@ def main():
 
             with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
                               dashboard_address=None) as cluster:
+                # warm the workers (imports) on the small site, as for the in-process run
+                timed_run(make_site(warm_dir, 16, distinct=distinct), warm_dir / "dask",
+                          scheduler=cluster.scheduler_address, chunk_size=chunk)
                 t_dask = timed_run(site, work / "dask", scheduler=cluster.scheduler_address,
                                    chunk_size=chunk, **mc)
             rates[f"dask LocalCluster ({args.workers})"] = t_dask
