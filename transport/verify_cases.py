@@ -202,6 +202,19 @@ def _peclet_column():
                   Boundary("inlet", 1.0), Boundary("free-outflow"), darcy_flux=q)
 
 
+def _scheduled_column():
+    """Source held 4 yr then removed, a depleting source in the second layer (half-life
+    3 yr, from 1 yr): every kind of time signal both engines take."""
+    from .schedules import Schedule
+    top = Schedule.steps([0.0, 4 * YEAR], [1.0, 0.0])
+    depleting = Schedule.depletion(1.0, math.log(2) / (3 * YEAR), start=1 * YEAR)
+    return Column((Layer(0.4, 0.35, 6e-10, 2.0, 1e-9),
+                   Layer(0.3, 0.4, 3e-10, 2.5, source_rate=2e-9, source_schedule=depleting),
+                   Layer(0.5, 0.45, 1e-10, 3.0)),
+                  Boundary("concentration", 0.0, schedule=top), Boundary("free-outflow"),
+                  darcy_flux=1e-10)
+
+
 def _cross(column_fn, times, initial=None):
     def run(quick):
         col = column_fn()
@@ -392,6 +405,9 @@ def _cases():
         _Case("fv-peclet", "Column Peclet number 50, flux inlet, free outflow",
               fv, "modal/finite-volume", 1e-3, _cross(_peclet_column,
                                                       np.array([1, 3, 10]) * YEAR)),
+        _Case("fv-schedules", "Source removed at 4 yr, depleting layer source from 1 yr",
+              fv, "modal/finite-volume", 1e-3, _cross(_scheduled_column,
+                                                      np.array([2, 4, 6, 15]) * YEAR)),
     ]
     for p in sorted(scen_dir.glob("*.toml")):
         cases.append(_Case(f"scenario-{p.stem}", f"Demo scenario {p.name}: modal vs FV",
