@@ -8,6 +8,8 @@ CSV, defines each material once and gives the shared settings::
     borings_file = "borings.csv"       # id, x [m], y [m] (or lon [deg], lat [deg]),
                                        # ground_elevation [m]
     log_file = "layer-log.csv"         # id, top [m], bottom [m], material (depths below ground)
+    initial_file = "pore-water.csv"    # optional: id, depth [m], concentration [mg/L];
+                                       # measured profiles (borings without rows: clean)
     [chemical]  [flow]  [top]  [bottom]          # exactly as in a scenario file
     [materials.sand]                   # scenario layer keys, without name and thickness
     porosity = 0.33
@@ -41,15 +43,15 @@ from .model import InitialState
 from .scenario import ScenarioError
 from .scenario_reader import read_text_file
 from .site_columns import boring_column, material_layers, material_properties
-from .site_logs import FACE_TOLERANCE, _read_borings, _read_log  # noqa: F401
+from .site_logs import FACE_TOLERANCE, _read_borings, _read_initial, _read_log  # noqa: F401
 from .uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
 from .units import si_unit, ureg
 
 __all__ = ["Boring", "Site", "load_site", "parse_site", "boring_scenario", "boring_column",
            "material_layers", "solve_site", "UNCERTAIN_KEYS"]
 
-SITE_KEYS = ("title", "crs", "borings_file", "log_file", "chemical", "flow", "materials",
-             "top", "bottom", "output", "uncertainty")
+SITE_KEYS = ("title", "crs", "borings_file", "log_file", "initial_file", "chemical", "flow",
+             "materials", "top", "bottom", "output", "uncertainty")
 MATERIAL_KEYS = tuple(k for k in _sc.LAYER_KEYS if k not in ("name", "thickness",
                                                             "initial_concentration"))
 SITE_OUTPUT_KEYS = ("times", "depth_spacing", "receptor_depth", "receptor_elevation",
@@ -74,7 +76,8 @@ MAX_REALIZATIONS = 1_000_000
 @dataclass(frozen=True)
 class Boring:
     """One boring: map position (site CRS, and lon/lat in its base geographic CRS),
-    ground elevation (m) and its log as (top, bottom, material) tuples, m below ground."""
+    ground elevation (m), its log as (top, bottom, material) tuples, m below ground, and
+    its measured initial pore-water profile as (depth m, C kg m-3) pairs (empty: clean)."""
 
     id: str
     x: float
@@ -84,10 +87,19 @@ class Boring:
     ground_elevation: float
     intervals: tuple
     receptor_depth: float
+    initial: tuple = ()
 
     @property
     def depth(self) -> float:
         return float(self.intervals[-1][1])
+
+    @property
+    def initial_state(self) -> InitialState:
+        """Piecewise-linear through the samples (constant beyond the first and last),
+        or clean."""
+        if not self.initial:
+            return InitialState.clean()
+        return InitialState.profile([z for z, _ in self.initial], [c for _, c in self.initial])
 
 
 @dataclass(frozen=True, eq=False)
@@ -277,6 +289,11 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     lpath, ltext, logs = _read_log(r, data, materials,
                                    {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
                                    bpath)
+    itext, initial = "", {}
+    if data.get("initial_file") is not None:
+        _, itext, initial = _read_initial(
+            r, data, {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
+            {b: logs[b][-1][1] for b in braw}, bpath)
     borings, bad = [], []
     for bid, (line, x, y, lon, lat, elev) in braw.items():
         ivs = tuple((a, b, m) for a, b, m, _ in logs[bid])
@@ -286,14 +303,15 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
         if not 0 < depth <= bottom * (1 + 1e-12):
             bad.append(f"boring {bid} ({bpath.name} line {line}): receptor at {depth:g} m "
                        f"below ground, the log ends at {bottom:g} m")
-        borings.append(Boring(bid, x, y, lon, lat, elev, ivs, min(depth, bottom)))
+        borings.append(Boring(bid, x, y, lon, lat, elev, ivs, min(depth, bottom),
+                              initial.get(bid, ())))
     if bad:
         key = "output.receptor_elevation" if rec_elev is not None else "output.receptor_depth"
         raise r.error(key, problem=f"outside {len(bad)} boring(s):\n  " + "\n  ".join(bad),
                       fix="deepen those logs or move the receptor")
     grid = _common_grid(r, out, max(b.depth for b in borings))
     digest = hashlib.sha256()
-    for part in (text, btext, ltext):
+    for part in (text, btext, ltext, itext):
         digest.update(part.encode("utf-8") + b"\0")
     times.setflags(write=False)
     return Site(title=title, path=file, crs_text=crs.to_wkt(), epsg=crs.to_epsg(),
@@ -360,7 +378,7 @@ def boring_scenario(site: Site, boring: Boring | str, overrides: dict | None = N
                     _sc._boundary(r, scen, "bottom", q), q)
     output = _sc._output(r, scen, column)
     return _sc.Scenario(title=scen["title"], path=site.path, column=column,
-                        initial=InitialState.clean(), chemical=chem, output=output,
+                        initial=boring.initial_state, chemical=chem, output=output,
                         source_text="", layer_details=tuple(details))
 
 

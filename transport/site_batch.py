@@ -38,6 +38,7 @@ import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
 from .modal import AccuracyWarning, build_series, earliest_time_after_change
+from .projection import initial_profile
 from .model import InitialState
 from .scenario import ScenarioError
 from .site_columns import boring_column, check_draws, material_layers
@@ -73,12 +74,14 @@ def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
 
 
 # ------------------------------------------------------------------------ series
-def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES):
-    """The :class:`~transport.modal.ModalSeries` of a clean column, without the
-    quadrature of the projections (zero from a clean state) and of the layer masses
-    (not written for sites): ``build_series(..., masses=False)``."""
-    return build_series(column, InitialState.clean(), t_min, tolerance, max_modes,
-                        masses=False)
+def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES,
+                initial=None):
+    """The :class:`~transport.modal.ModalSeries` of a boring's column: for a clean
+    column without the quadrature of the projections (zero) and of the layer masses (not
+    written for sites): ``build_series(..., masses=False)``; with a measured ``initial``
+    state its projections are computed as in a single-column run."""
+    return build_series(column, initial or InitialState.clean(), t_min, tolerance,
+                        max_modes, masses=False)
 
 
 class _Probe:
@@ -241,16 +244,17 @@ def clear_caches():
     _METRICS_CACHE.bind(None)
 
 
-def _solve_column(site, col, depth, times, grid):
+def _solve_column(site, col, depth, times, grid, initial=None):
     """Fields on the grid (cut at the bottom), metrics and warnings of one column:
     the numbers of :func:`transport.modal.solve` on the same column and depths."""
+    initial = initial or InitialState.clean()
     keep = grid <= col.length * (1 + 1e-12)
     z = np.minimum(grid[keep], col.length)
     t_end = site.design_life
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         t_min = earliest_time_after_change(col, times)
-        series = site_series(col, t_min, site.tolerance)
+        series = site_series(col, t_min, site.tolerance, initial=initial)
         probe = _Probe(series, np.append(z, depth))
         conc = probe.concentration(times)
         cum = probe.cumulative_mass(np.append(times, t_end))
@@ -265,7 +269,7 @@ def _solve_column(site, col, depth, times, grid):
                 f"{2 * (series.op.A.max() - series.op.A.min()):.0f}) exceeds the tolerance "
                 f"at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; use later "
                 "output times or cross-check with another engine", AccuracyWarning)
-    conc[times == 0] = 0.0  # clean initial state
+    conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
     t_start = float(times[positive].min())
     receptor = probe.rows(slice(-1, None))
     m = _curve_metrics(lambda t: receptor.concentration(t)[:, 0], t_start, t_end,
@@ -275,11 +279,12 @@ def _solve_column(site, col, depth, times, grid):
             tuple(str(w.message) for w in caught))
 
 
-def _realization_metrics(site, col, depth, t_start, times):
+def _realization_metrics(site, col, depth, t_start, times, initial=None):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        series = site_series(col, earliest_time_after_change(col, times), site.tolerance)
+        series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
+                             initial=initial)
     probe = _Probe(series, [depth])
     bt, _, pk = _curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
                                site.design_life, site.screening_level, SCAN_SAMPLES)
@@ -339,10 +344,11 @@ def _solve_chunk(site, start, stop, samples):
                                     "(lower/upper) so that draws stay valid") from None
     for k, boring in enumerate(site.borings[start:stop]):
         col = boring_column(site, boring, layers, q)
-        key = (col, boring.receptor_depth)
+        initial = boring.initial_state
+        key = (col, boring.receptor_depth, boring.initial)
         found = _FIELDS_CACHE.get(key)
         if found is None:
-            found = _solve_column(site, col, boring.receptor_depth, times, grid)
+            found = _solve_column(site, col, boring.receptor_depth, times, grid, initial)
             _FIELDS_CACHE.put(key, found)
         keep, conc, cum, metrics, msgs = found
         notes += [(boring.id, m) for m in msgs]
@@ -356,11 +362,11 @@ def _solve_chunk(site, start, stop, samples):
         pk = np.empty(len(samples))
         for j, (layers_j, q_j) in enumerate(drawn):
             col_j = boring_column(site, boring, layers_j, q_j)
-            key = (col_j, boring.receptor_depth)
+            key = (col_j, boring.receptor_depth, boring.initial)
             found = _METRICS_CACHE.get(key)
             if found is None:
                 found = _realization_metrics(site, col_j, boring.receptor_depth, t_start,
-                                             times)
+                                             times, initial)
                 _METRICS_CACHE.put(key, found)
             bt[j], pk[j], msgs = found
             notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]

@@ -184,3 +184,53 @@ def _read_log(r, data, materials, boring_ids, borings_path):
         err.borings = tuple(problems)
         raise err
     return path, text, logs
+
+
+def _read_initial(r, data, boring_ids, bottoms, borings_path):
+    """Measured pore-water profiles: {boring id: ((depth m, C kg m-3), ...)}, sorted by
+    depth; borings without rows start clean.  Every problem, for every boring, is
+    collected into one :class:`ScenarioError`."""
+    key = "initial_file"
+    path, text, cols, rows = _read_table(r, key, data.get(key), {})
+    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    if id_col is None or not {"depth", "concentration"} <= set(cols):
+        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, depth "
+                            "and concentration", fix="write 'id,depth [m],concentration [mg/L]'")
+    f_z = _unit_factor(path, "depth", cols["depth"][1], "length")
+    f_c = _unit_factor(path, "concentration", cols["concentration"][1], "concentration")
+    problems, samples = {}, {}
+    for line, row in rows:
+        bid = row[id_col][0]
+        where = f"{path.name} line {line}"
+        if bid not in boring_ids:
+            problems.setdefault(bid or "(empty id)", []).append(
+                f"{where}: no such boring in {borings_path.name}")
+            continue
+        z, c = _number(row["depth"][0]), _number(row["concentration"][0])
+        if z is None or c is None:
+            problems.setdefault(bid, []).append(f"{where}: depth/concentration not a number")
+            continue
+        z, c = z * f_z, c * f_c
+        if not 0 <= z <= bottoms[bid] * (1 + 1e-12):
+            problems.setdefault(bid, []).append(
+                f"{where}: depth {z:g} m outside the log (0 to {bottoms[bid]:g} m)")
+        elif c < 0:
+            problems.setdefault(bid, []).append(f"{where}: negative concentration")
+        else:
+            samples.setdefault(bid, []).append((z, c, line))
+    for bid, rows_b in samples.items():
+        rows_b.sort()
+        for a, b in zip(rows_b, rows_b[1:]):
+            if b[0] - a[0] <= FACE_TOLERANCE:
+                problems.setdefault(bid, []).append(
+                    f"{path.name} lines {a[2]} and {b[2]}: two samples at {a[0]:g} m")
+    if problems:
+        listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
+        err = ScenarioError(str(path), "initial", problem=f"{len(problems)} boring(s) with "
+                            "problems:\n  " + "\n  ".join(listed),
+                            fix="correct every listed boring (depths below ground inside its "
+                            "log, one sample per depth, concentrations >= 0)")
+        err.borings = tuple(problems)
+        raise err
+    return path, text, {bid: tuple((z, c) for z, c, _ in rows_b)
+                        for bid, rows_b in samples.items()}
