@@ -18,6 +18,7 @@ from transport.modal import solve
 from transport.scenario import ScenarioError
 from transport.site import boring_scenario, load_site
 from transport.site_batch import solve_site
+from transport.site_run import run_site
 
 MG_L = 1e-3  # kg m-3
 
@@ -111,3 +112,21 @@ def test_samples_need_units_in_the_header(tmp_path):
     with pytest.raises(ScenarioError) as info:
         _site(tmp_path, "id,depth [m],concentration\nT-1,0.5,1.0\n")
     assert "concentration" in str(info.value) and "unit" in str(info.value)
+
+
+def test_outputs_record_which_borings_start_contaminated(tmp_path):
+    """The site NetCDF carries the sample count per station (a reviewer sees which
+    borings did not start clean) and the GIS table repeats it."""
+    import csv
+
+    import netCDF4
+
+    site = _site(tmp_path)
+    files = run_site(site, tmp_path / "out", realizations=0, workers=1)
+    with netCDF4.Dataset(files.netcdf) as nc:
+        counts = dict(zip(nc["station_id"][:], nc["initial_samples"][:].tolist()))
+    assert counts == {"T-1": 0, "T-2": 3, "T-3": 0, "T-4": 0, "T-5": 1}
+    with open(files.csv, newline="", encoding="utf-8") as fh:
+        lines = [ln for ln in fh if not ln.startswith("#")]  # the file's comment header
+        rows = {r["station_id"]: r["initial_samples"] for r in csv.DictReader(lines)}
+    assert rows == {"T-1": "0", "T-2": "3", "T-3": "0", "T-4": "0", "T-5": "1"}

@@ -36,7 +36,8 @@ _CONC = ("peak_concentration", "peak_concentration_p5", "peak_concentration_p50"
 _NAMES = {"breakthrough_time": "breakthrough_yr", "peak_time": "peak_time_yr",
           "peak_concentration": "peak_conc_mg_L", "receptor_mass": "mass_to_receptor_kg_m2",
           "receptor_depth": "receptor_depth_m", "boring_depth": "boring_depth_m",
-          "exceedance_probability": "exceedance_probability"}
+          "exceedance_probability": "exceedance_probability",
+          "initial_samples": "initial_samples"}
 
 
 def station_table(path):
@@ -49,7 +50,8 @@ def station_table(path):
                 "x_m": nc["x"][:].filled(np.nan), "y_m": nc["y"][:].filled(np.nan),
                 "lon_deg": nc["lon"][:].filled(np.nan), "lat_deg": nc["lat"][:].filled(np.nan),
                 "ground_elevation_m": nc["ground_elevation"][:].filled(np.nan)}
-        for name in ("receptor_depth", "boring_depth", "breakthrough_time", "peak_time",
+        for name in ("initial_samples", "receptor_depth", "boring_depth",
+                     "breakthrough_time", "peak_time",
                      "peak_concentration", "receptor_mass", "exceedance_probability",
                      "breakthrough_time_p5", "breakthrough_time_p50", "breakthrough_time_p95",
                      "peak_concentration_p5", "peak_concentration_p50",
@@ -57,6 +59,8 @@ def station_table(path):
             if name not in nc.variables:
                 continue
             values = np.ma.filled(nc[name][:].astype(float), np.nan)
+            if name == "initial_samples":
+                values = values.astype(int)
             if name in _TIME:
                 values = values * SECONDS_PER_DAY / SECONDS_PER_YEAR
                 label = _NAMES.get(name, name.replace("breakthrough_time", "breakthrough")

@@ -166,6 +166,7 @@ class SiteNetCDFWriter:
         z[:] = site.depths
         self._var("depth_bnds", "f8", ("depth", "nv"), {})[:] = _depth_bounds(
             np.asarray(site.depths), float(site.depths[-1]))
+        aux_coords = "station_id lat lon x y"
         sid = self._var("station_id", str, ("station",), {
             "long_name": "boring identifier", "cf_role": "timeseries_id"})
         sid[:] = np.array(site.ids, dtype=object)
@@ -182,6 +183,11 @@ class SiteNetCDFWriter:
         self._var("ground_elevation", "f8", ("station",), {
             "long_name": "ground elevation at the boring (datum of the borings file)",
             "units": "m"})[:] = [b.ground_elevation for b in site.borings]
+        self._var("initial_samples", "i4", ("station",), {
+            "long_name": "number of measured initial pore-water samples of the boring "
+                         "(0: the column starts clean)", "units": "1",
+            "coordinates": aux_coords, "coverage_content_type": "auxiliaryInformation"})[:] = [
+            len(getattr(b, "initial", ())) for b in site.borings]
         grid = self._var("crs", "i4", (), crs.to_cf())
         grid.assignValue(0)
         self._var("screening_level", "f8", (), {
