@@ -149,8 +149,11 @@ def build_operator(column: Column) -> Operator:
 # ----------------------------------------------------------------------------------
 
 def _sinc(x):
-    """sin(x)/x with the limit 1 at 0."""
-    return np.sinc(x / np.pi)
+    """sin(x)/x with the limit 1 at 0 (x itself, not pi x as in numpy.sinc)."""
+    x = np.asarray(x, dtype=float)
+    zero = x == 0.0
+    xs = np.where(zero, 1.0, x)
+    return np.where(zero, 1.0, np.sin(xs) / xs)
 
 
 def _tanhc(x):
@@ -293,16 +296,19 @@ def count_below(op: Operator, lam) -> np.ndarray:
     return np.maximum(n, 0).astype(np.int64)
 
 
-def _lambda_bounds(op: Operator, n: int):
-    """lo with count 0 and hi with count >= n."""
+def _lambda_guess(op: Operator, n: int):
+    """First guesses of lo (count 0) and hi (count >= n), and the lambda scale span:
+    below the smallest decay/retardation ratio, and above the Weyl estimate of mode n."""
     base = float(np.min(op.s / op.a))
     span = float(np.max(op.k / op.a)) / float(np.sum(op.thickness)) ** 2
-    lo = base - span
     weyl = float(np.sum(op.thickness * np.sqrt(op.a / op.k)))
     hi = float(np.max(op.s / op.a)) + ((n + 2) * np.pi / weyl) ** 2 + span
-    c_lo, c_hi = count_below(op, np.array([lo, hi]))  # both first guesses in one pass
-    if c_hi >= n and c_lo == 0:
-        return lo, hi, span
+    return base - span, hi, span
+
+
+def _lambda_bounds(op: Operator, n: int):
+    """lo with count 0 and hi with count >= n (searching from the first guesses)."""
+    lo, hi, span = _lambda_guess(op, n)
     for _ in range(200):
         if count_below(op, lo)[0] == 0:
             break
@@ -329,12 +335,18 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     """
     if n < 1:
         return np.empty(0)
-    lo, hi, span = _lambda_bounds(op, n)
-    # grid in sqrt(lambda - lo), where the angle grows about linearly
-    grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
-    theta, beta = _end_angles(op, grid)
-    F = theta - beta
-    counts = np.maximum.accumulate(np.maximum(np.ceil(F / np.pi - 1e-12), 0))
+    lo, hi, span = _lambda_guess(op, n)
+    for attempt in range(2):
+        # grid in sqrt(lambda - lo), where the angle grows about linearly; its two ends
+        # check the guessed bounds in the same pass (else search them, and redo)
+        grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+        theta, beta = _end_angles(op, grid)
+        F = theta - beta
+        raw = np.ceil(F / np.pi - 1e-12)
+        if (raw[0] <= 0 and raw[-1] >= n) or attempt:
+            break
+        lo, hi, span = _lambda_bounds(op, n)
+    counts = np.maximum.accumulate(np.maximum(raw, 0))
     j = np.arange(n)
     i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
     a, b = grid[i_lo], grid[i_lo + 1]
