@@ -62,6 +62,20 @@ def _unit_factor(path, column, unit, dimension):
                             f"not a {dimension} unit: {exc.reason}", fix="use e.g. [m]") from None
 
 
+def _per_boring_error(path, key: str, problems: dict, fix: str) -> ScenarioError:
+    """One ScenarioError listing every boring's problems ({id: [messages]}); the ids are
+    kept in ``.borings`` for callers and tests."""
+    listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
+    err = ScenarioError(str(path), key, problem=f"{len(problems)} boring(s) with problems:"
+                        "\n  " + "\n  ".join(listed), fix=fix)
+    err.borings = tuple(problems)
+    return err
+
+
+def _id_column(cols):
+    return "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+
+
 def _number(cell):
     try:
         value = float(cell)
@@ -74,7 +88,7 @@ def _read_borings(r, data, crs):
     import pyproj
 
     path, text, cols, rows = _read_table(r, "borings_file", data.get("borings_file"), {})
-    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    id_col = _id_column(cols)
     has_xy = "x" in cols and "y" in cols
     has_ll = ("lon" in cols or "longitude" in cols) and ("lat" in cols or "latitude" in cols)
     if id_col is None or not (has_xy or has_ll) or "ground_elevation" not in cols:
@@ -130,7 +144,7 @@ def _read_borings(r, data, crs):
 
 def _read_log(r, data, materials, boring_ids, borings_path):
     path, text, cols, rows = _read_table(r, "log_file", data.get("log_file"), {})
-    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    id_col = _id_column(cols)
     if id_col is None or not {"top", "bottom", "material"} <= set(cols):
         raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, top, "
                             "bottom and material", fix="write 'id,top [m],bottom [m],material'")
@@ -176,13 +190,9 @@ def _read_log(r, data, materials, boring_ids, borings_path):
                     f"{path.name} lines {a[3]}-{b[3]}: overlap from {b[0]:g} m to {a[1]:g} m")
         logs[bid] = ivs
     if problems:
-        listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
-        err = ScenarioError(str(path), "log", problem=f"{len(problems)} boring(s) with "
-                            "problems:\n  " + "\n  ".join(listed),
-                            fix="correct every listed boring (each log from 0 m down, no gaps "
-                            "or overlaps, materials defined under [materials])")
-        err.borings = tuple(problems)
-        raise err
+        raise _per_boring_error(path, "log", problems, "correct every listed boring (each log "
+                                "from 0 m down, no gaps or overlaps, materials defined under "
+                                "[materials])")
     return path, text, logs
 
 
@@ -192,7 +202,7 @@ def _read_initial(r, data, boring_ids, bottoms, borings_path):
     collected into one :class:`ScenarioError`."""
     key = "initial_file"
     path, text, cols, rows = _read_table(r, key, data.get(key), {})
-    id_col = "id" if "id" in cols else "boring_id" if "boring_id" in cols else None
+    id_col = _id_column(cols)
     if id_col is None or not {"depth", "concentration"} <= set(cols):
         raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, depth "
                             "and concentration", fix="write 'id,depth [m],concentration [mg/L]'")
@@ -225,12 +235,8 @@ def _read_initial(r, data, boring_ids, bottoms, borings_path):
                 problems.setdefault(bid, []).append(
                     f"{path.name} lines {a[2]} and {b[2]}: two samples at {a[0]:g} m")
     if problems:
-        listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
-        err = ScenarioError(str(path), "initial", problem=f"{len(problems)} boring(s) with "
-                            "problems:\n  " + "\n  ".join(listed),
-                            fix="correct every listed boring (depths below ground inside its "
-                            "log, one sample per depth, concentrations >= 0)")
-        err.borings = tuple(problems)
-        raise err
+        raise _per_boring_error(path, "initial", problems, "correct every listed boring "
+                                "(depths below ground inside its log, one sample per depth, "
+                                "concentrations >= 0)")
     return path, text, {bid: tuple((z, c) for z, c, _ in rows_b)
                         for bid, rows_b in samples.items()}
