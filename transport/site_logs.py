@@ -142,14 +142,24 @@ def _read_borings(r, data, crs):
                             float(lat[k]), borings[i][3]) for k, i in enumerate(ids)}
 
 
-def _read_log(r, data, materials, boring_ids, borings_path):
-    path, text, cols, rows = _read_table(r, "log_file", data.get("log_file"), {})
+def _boring_rows(r, key: str, data, columns: dict, example: str):
+    """A per-boring CSV named at ``key``, header checked: (path, text, id column,
+    {column: SI factor}, rows).  ``columns`` maps each required column to its dimension
+    (None: text, no unit)."""
+    path, text, cols, rows = _read_table(r, key, data.get(key), {})
     id_col = _id_column(cols)
-    if id_col is None or not {"top", "bottom", "material"} <= set(cols):
-        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, top, "
-                            "bottom and material", fix="write 'id,top [m],bottom [m],material'")
-    f_top = _unit_factor(path, "top", cols["top"][1], "length")
-    f_bot = _unit_factor(path, "bottom", cols["bottom"][1], "length")
+    if id_col is None or not set(columns) <= set(cols):
+        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, "
+                            + ", ".join(columns), fix=f"write '{example}'")
+    factors = {c: _unit_factor(path, c, cols[c][1], dim) for c, dim in columns.items() if dim}
+    return path, text, id_col, factors, rows
+
+
+def _read_log(r, data, materials, boring_ids, borings_path):
+    path, text, id_col, f, rows = _boring_rows(
+        r, "log_file", data, {"top": "length", "bottom": "length", "material": None},
+        "id,top [m],bottom [m],material")
+    f_top, f_bot = f["top"], f["bottom"]
     problems, logs = {}, {}
     for line, row in rows:
         bid = row[id_col][0]
@@ -200,14 +210,10 @@ def _read_initial(r, data, boring_ids, bottoms, borings_path):
     """Measured pore-water profiles: {boring id: ((depth m, C kg m-3), ...)}, sorted by
     depth; borings without rows start clean.  Every problem, for every boring, is
     collected into one :class:`ScenarioError`."""
-    key = "initial_file"
-    path, text, cols, rows = _read_table(r, key, data.get(key), {})
-    id_col = _id_column(cols)
-    if id_col is None or not {"depth", "concentration"} <= set(cols):
-        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, depth "
-                            "and concentration", fix="write 'id,depth [m],concentration [mg/L]'")
-    f_z = _unit_factor(path, "depth", cols["depth"][1], "length")
-    f_c = _unit_factor(path, "concentration", cols["concentration"][1], "concentration")
+    path, text, id_col, f, rows = _boring_rows(
+        r, "initial_file", data, {"depth": "length", "concentration": "concentration"},
+        "id,depth [m],concentration [mg/L]")
+    f_z, f_c = f["depth"], f["concentration"]
     problems, samples = {}, {}
     for line, row in rows:
         bid = row[id_col][0]
