@@ -95,16 +95,22 @@ def test_short_ramp_converges_to_step():
     assert errs[1] / errs[2] == pytest.approx(4.0, rel=0.05)
 
 
-def test_budget_closes_with_schedules_and_source_schedule():
-    """Identity: budget closes with a step-off top, a depleting bottom and a switched
-    layer source."""
+def _switched_column():
+    """Step-off top, depleting mass-transfer bottom, a layer source switched off at 3 yr
+    (invented test data)."""
     lays = list(_layers())
     lays[1] = Layer(0.3, 0.45, 5e-11, 6.0, source_rate=1e-11,
                     source_schedule=Schedule.steps([0.0, 3 * YEAR], [1.0, 0.0]))
-    col = Column(layers=tuple(lays),
-                 top=Boundary("concentration", schedule=Schedule.steps([0, 5 * YEAR], [1, 0])),
-                 bottom=Boundary("mass-transfer", transfer_coefficient=1e-8,
-                                 schedule=Schedule.depletion(0.5, 1e-8)))
+    return Column(layers=tuple(lays),
+                  top=Boundary("concentration", schedule=Schedule.steps([0, 5 * YEAR], [1, 0])),
+                  bottom=Boundary("mass-transfer", transfer_coefficient=1e-8,
+                                  schedule=Schedule.depletion(0.5, 1e-8)))
+
+
+def test_budget_closes_with_schedules_and_source_schedule():
+    """Identity: budget closes with a step-off top, a depleting bottom and a switched
+    layer source."""
+    col = _switched_column()
     t = np.array([1.0, 4.0, 6.0, 20.0, 80.0]) * YEAR
     sol = solve(col, t, np.linspace(0, 2, 5), initial=InitialState.uniform([0.1, 0.2, 0.0]))
     b = sol.budget
@@ -126,13 +132,7 @@ def test_laplace_engine_agrees_on_scheduled_signals():
     modal Duhamel solution agree to 1e-7 where C > 1e-7 of the source, for a step-off top,
     a depleting bottom and a switched layer source."""
     from transport.laplace import solve_laplace
-    lays = list(_layers())
-    lays[1] = Layer(0.3, 0.45, 5e-11, 6.0, source_rate=1e-11,
-                    source_schedule=Schedule.steps([0.0, 3 * YEAR], [1.0, 0.0]))
-    col = Column(layers=tuple(lays),
-                 top=Boundary("concentration", schedule=Schedule.steps([0, 5 * YEAR], [1, 0])),
-                 bottom=Boundary("mass-transfer", transfer_coefficient=1e-8,
-                                 schedule=Schedule.depletion(0.5, 1e-8)))
+    col = _switched_column()
     z = np.array([0.0, 0.4, 0.75, 1.4, 2.0])
     t = np.array([2.0, 4.0, 6.0, 20.0]) * YEAR
     modal = solve(col, t, z, tolerance=1e-10).concentration

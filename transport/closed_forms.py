@@ -209,6 +209,13 @@ def third_type_inlet(depths, times, velocity, dispersion, decay_rate=0.0, surfac
     return surface * (v / (v + u) * _first_term(z, t, v, u, d, du) + tail)
 
 
+def _ierfc(y):
+    """First repeated integral of erfc, ierfc(y) = e^{-y^2}/sqrt(pi) - y erfc(y), written
+    with erfcx so that large y does not underflow early (Abramowitz & Stegun 1964,
+    sec. 7.2)."""
+    return np.exp(-y * y) * (1 / _SQPI - y * erfcx(y))
+
+
 def time_lag_through(times, length, kappa, capacity=1.0, surface=1.0):
     """Mass per area through the far face of a clean slab, C = ``surface`` at z = 0,
     C = 0 at z = l (Crank 1975, eq. 4.24a (M)):
@@ -228,7 +235,7 @@ def time_lag_through(times, length, kappa, capacity=1.0, surface=1.0):
         te = t[early][None, :]
         n = np.arange(6)[:, None]
         y = (2 * n + 1) * length / (2 * np.sqrt(kappa * te))
-        ierfc = np.exp(-y * y) * (1 / _SQPI - y * erfcx(y))
+        ierfc = _ierfc(y)
         out[early] = 4 * np.sqrt(kappa * te[0]) * ierfc.sum(axis=0)
     if (~early).any():
         tl = t[~early][None, :]
@@ -261,7 +268,7 @@ def uptake_noflux(times, length, kappa, capacity=1.0, surface=1.0):
         te = t[early][None, :]
         n = np.arange(1, 8)[:, None]
         y = n * length / np.sqrt(kappa * te)
-        ierfc = np.exp(-y * y) * (1 / _SQPI - y * erfcx(y))
+        ierfc = _ierfc(y)
         out[early] = 2 * np.sqrt(kappa * te[0] / length ** 2) * (
             1 / _SQPI + 2 * ((-1.0) ** n * ierfc).sum(axis=0))
     if (~early).any():

@@ -104,20 +104,21 @@ def _advective_column(top):
     return col, q / (theta * ret), D / ret, mu
 
 
-def _ogata_banks(quick):
-    col, v, dr, mu = _advective_column(Boundary("concentration", 1.0))
-    z, t = np.linspace(0, 1.2, 25), np.array([1e7, 5e7, 1e8])
-    got = _modal(col, t, z).concentration
-    want = cf.first_type_inlet(z, t, v, dr, mu)
-    return _rel(got, want, 1.0), "3 m column, column Peclet number 30", _profile(z, got, want)
+def _inlet_case(kind, closed_form):
+    """Modal engine against a semi-infinite advection-dispersion closed form, for a
+    first-type (``concentration``) or third-type (``inlet``) top boundary."""
+    def run(quick):
+        col, v, dr, mu = _advective_column(Boundary(kind, 1.0))
+        z, t = np.linspace(0, 1.2, 25), np.array([1e7, 5e7, 1e8])
+        got = _modal(col, t, z).concentration
+        want = closed_form(z, t, v, dr, mu)
+        return (_rel(got, want, 1.0), "3 m column, column Peclet number 30",
+                _profile(z, got, want))
+    return run
 
 
-def _third_type(quick):
-    col, v, dr, mu = _advective_column(Boundary("inlet", 1.0))
-    z, t = np.linspace(0, 1.2, 25), np.array([1e7, 5e7, 1e8])
-    got = _modal(col, t, z).concentration
-    want = cf.third_type_inlet(z, t, v, dr, mu)
-    return _rel(got, want, 1.0), "3 m column, column Peclet number 30", _profile(z, got, want)
+_ogata_banks = _inlet_case("concentration", cf.first_type_inlet)
+_third_type = _inlet_case("inlet", cf.third_type_inlet)
 
 
 def _time_lag(quick):
