@@ -251,20 +251,26 @@ def test_station_equals_single_column_run(tmp_path, small_site, deterministic):
         """))
     sc = load_scenario(scenario)
     k = small_site.ids.index("T-2")
-    grid = small_site.depths
-    inside = grid <= sc.column.length + 1e-12
-    ref = solve(sc.column, sc.times, grid[inside], sc.initial, sc.output.tolerance)
-    got = deterministic.fields["concentration"][k][:, inside]
-    scale = np.max(np.abs(ref.concentration))
-    assert np.max(np.abs(got - ref.concentration)) <= 1e-12 * scale
-    mass = deterministic.fields["cumulative_mass"][k][:, inside]
-    assert np.max(np.abs(mass - ref.cumulative_mass)) <= 1e-12 * np.max(
-        np.abs(ref.cumulative_mass))
+    ref, inside = assert_station_equals_column_run(small_site, deterministic, "T-2", sc)
     assert np.all(np.isnan(deterministic.fields["concentration"][k][:, ~inside]))
     # breakthrough: Brent root of the same continuous series (scipy.optimize.brentq)
     t_b = deterministic.metrics["breakthrough_time"][k]
     level = small_site.screening_level
     assert ref.concentration_at(2.0, [t_b])[0] == pytest.approx(level, rel=1e-8)
+
+
+def assert_station_equals_column_run(site, result, boring_id, scenario):
+    """The station's concentration and cumulative mass equal modal.solve on the
+    scenario's column, initial state and the site's grid to 1e-12 of their peaks.
+    Returns the single-column solution and the mask of grid depths inside the column."""
+    k = site.ids.index(boring_id)
+    inside = site.depths <= scenario.column.length + 1e-12
+    ref = solve(scenario.column, site.times, site.depths[inside], scenario.initial,
+                site.tolerance)
+    for name in ("concentration", "cumulative_mass"):
+        got, want = result.fields[name][k][:, inside], getattr(ref, name)
+        assert np.max(np.abs(got - want)) <= 1e-12 * np.max(np.abs(want)), name
+    return ref, inside
 
 
 # --------------------------------------------------------------------- Monte Carlo
