@@ -1,4 +1,6 @@
 """Remediation timelines: stage changes, carried state and budgets."""
+import math
+
 import numpy as np
 import pytest
 from scipy.integrate import quad
@@ -120,3 +122,25 @@ def test_bad_actions_are_clear_errors():
         Timeline.single(col).then(YEAR, amend_layer("peat", retardation=3.0))
     with pytest.raises(InputError, match="after"):
         Timeline.single(col).then(2 * YEAR, remove_source()).then(YEAR, remove_source())
+
+
+def test_depleting_source_keeps_its_clock_across_an_action():
+    """A boundary schedule is on the run's clock: a no-op amendment at 3 yr must not
+    restart an exponentially depleting source.  Checked against the independent mpmath
+    Laplace solution of the same column without stages (tests/reference.py, exact
+    transform of A e^{-r t}: Abramowitz & Stegun 1964, 29.3.8)."""
+    from transport.schedules import Schedule
+    from transport.timeline import amend_layer
+    from reference import laplace_reference
+
+    year = 365.25 * 86400.0
+    layers = (Layer(1.0, 0.3, 1e-9, 2.0, name="a"), Layer(1.0, 0.3, 2e-9, 1.5, name="b"))
+    top = Boundary("concentration", 0.0,
+                   schedule=Schedule.depletion(1.0, math.log(2) / (2 * year)))
+    col = Column(layers, top, Boundary("free-outflow"))
+    tl = Timeline.single(col).then(3 * year, amend_layer("b"))
+    t = np.array([4.0, 8.0]) * year
+    z = np.array([0.25, 0.5, 1.0])
+    got = solve_timeline(tl, t, z, tolerance=1e-8).concentration
+    ref = laplace_reference(col, z, t, dps=25)
+    assert np.abs(got - ref).max() <= 1e-8

@@ -62,7 +62,46 @@ class Timeline:
                              f"({self.stages[-1].start} s)")
         prev = self.stages[-1]
         new = action(prev)
-        return Timeline(self.stages + (replace(new, start=float(start), label=label),))
+        column = _global_clock(new.column, prev.column, float(start))
+        return Timeline(self.stages + (replace(new, column=column, start=float(start),
+                                               label=label),))
+
+
+def _delayed(schedule, start):
+    return None if schedule is None else schedule.shifted(-start)
+
+
+def _global_clock(column: Column, before: Column, start: float) -> Column:
+    """Schedules of a stage column on the run's clock (t = 0 at the start of the run).
+
+    A boundary or source kept from the previous stage keeps its schedule (already on the
+    run's clock: a depleting source goes on depleting); one the action brings in (a new
+    top, a cap layer's source) starts its schedule at the action time."""
+    def bc(new, old):
+        if new.schedule is None or new.schedule is old.schedule:
+            return new
+        return replace(new, schedule=_delayed(new.schedule, start))
+    old_sched = {id(l.source_schedule) for l in before.layers if l.source_schedule is not None}
+    layers = tuple(l if l.source_schedule is None or id(l.source_schedule) in old_sched
+                   else replace(l, source_schedule=_delayed(l.source_schedule, start))
+                   for l in column.layers)
+    return replace(column, top=bc(column.top, before.top),
+                   bottom=bc(column.bottom, before.bottom), layers=layers)
+
+
+def local_column(stage: Stage) -> Column:
+    """The stage's column with its schedules on the stage's own clock (t = 0 at its
+    start), as the engines solve it."""
+    col, dt = stage.column, stage.start
+    if dt == 0:
+        return col
+
+    def sh(x):
+        return None if x is None else x.shifted(dt)
+    return replace(col, top=replace(col.top, schedule=sh(col.top.schedule)),
+                   bottom=replace(col.bottom, schedule=sh(col.bottom.schedule)),
+                   layers=tuple(replace(l, source_schedule=sh(l.source_schedule))
+                                for l in col.layers))
 
 
 # --- actions (Stage -> Stage) ---------------------------------------------------------
@@ -273,11 +312,12 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
         local = times[(times > st.start) & (times <= end)] - st.start
         if i + 1 < len(stages):
             local = np.append(local, end - st.start)
-        t_min = earliest_time_after_change(st.column, local)
+        column = local_column(st)
+        t_min = earliest_time_after_change(column, local)
         if t_min is not None and positive.size:
             t_min = min(t_min, float(positive.min()))
         if i == 0:
-            ser = build_series(st.column, init, t_min, tolerance, max_modes,
+            ser = build_series(column, init, t_min, tolerance, max_modes,
                                None if t_min else 8)
             totals["initial"] = ser.initial_mass
         else:
@@ -286,7 +326,7 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
             c0 = _carried_profile(prev_st, prev, t_loc, st)
             old_faces = prev_st.column.interfaces + prev_st.offset - st.offset
             breaks = tuple(old_faces[(old_faces > 0) & (old_faces < st.column.length)])
-            ser = build_series(st.column, c0, t_min, tolerance, max_modes,
+            ser = build_series(column, c0, t_min, tolerance, max_modes,
                                None if t_min else 8, breaks=breaks,
                                extra_rate=_rate_of(prev))
             b_prev = prev.budget(np.array([t_loc]))
