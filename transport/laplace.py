@@ -8,7 +8,8 @@ semi-infinite bottom layer, and cross-checks.
 Transformed problem
 -------------------
 On each segment (a layer, split further at the sample depths of a measured initial
-profile so that the initial state c0 = a + b zeta is linear on it), with k = theta D,
+profile so that the initial state c0 = a + b zeta is linear on it; a step, a depth
+sampled twice, is a segment boundary, and the value at it is the deeper one), k = theta D,
 c = theta R, zeta the depth below the segment top:
 
     k C'' - q C' - c (s + mu) C = -c (a + b zeta) - sigma / s,
@@ -38,12 +39,26 @@ of such contours in Weideman & Trefethen 2007, Math. Comp. 76:1341):
     s(theta) = (N / t) (-0.6122 + 0.5017 theta cot(0.6407 theta) + 0.2645 i theta),
 
 trapezoid rule with N nodes theta_k = -pi + (k + 1/2) 2 pi / N; f is real, so only the
-N / 2 nodes with theta > 0 are evaluated.  Discretisation error ~ e^{-1.358 N}; rounding
-error ~ eps e^{0.171 N} times the size of the integrand.  The default N = 32 (16
-complex solves per output time) gives about 1e-13 of the concentration scale in
-double precision for diffusion-dominated problems, ~1e-11 at column Peclet numbers of
-several hundred (measured in tests/test_laplace.py).  The transform must have its
-singularities on the negative real axis (true here: the spectrum is real, <= 0 in s).
+N / 2 nodes with theta > 0 are evaluated.  For a smooth transform the discretisation
+error is ~ e^{-1.358 N} and the rounding ~ eps e^{0.171 N} times the integrand; the
+transform must have its singularities on the negative real axis (true here: the
+spectrum is real, <= 0 in s).
+
+Error estimates (:func:`invert`): every quantity is inverted with N and a larger N2,
+and the estimate is 2 |f_N2 - f_N| + 16 eps sum |terms| (both sums) + twice the
+outermost term; no a-priori rate is assumed, so a transform that is not smooth (a step
+in the initial state, a front) or that carries its own rounding is caught.
+
+High Peclet numbers: inside the parabola Re s < -(Im s)^2 / (4 s0), s0 = q^2 / (4 theta D
+theta R), the advective branch grows like e^{Pe z / 2} (a delay e^{-s tau}); the Talbot
+contour sweeps that region and, ahead of a front, sums terms up to 1e40 to get values
+near 0 (garbage, now with an estimate to match).  Times whose Talbot estimate exceeds
+1e-10 of the quantity's scale are inverted again on a parabolic contour just outside
+that region (:func:`parabola_nodes`; Weideman & Trefethen 2007 analyse parabolic
+contours), where every term is bounded, at ~12 sqrt(s0 t) + 24 solves per time; each
+value comes from the contour with the smaller estimate.
+Measured against mpmath (tests/test_laplace.py): column Peclet numbers 100 to 1000 are
+served to ~1e-12 of the inlet concentration ahead of and behind the front.
 
 Outputs: C, F, cumulative mass through each depth (F^ / s), and the mass budget from
 closed-form layer integrals of C^ (stored, decayed = sum mu int c C^ / s).
@@ -60,7 +75,7 @@ from .modal import ColumnSolution
 from .model import Column, InitialState, InputError, check_output_grid
 
 __all__ = ["solve_laplace", "talbot_nodes", "invert", "LaplaceTransfer", "EngineSolution",
-           "DEFAULT_NODES", "default_nodes"]
+           "DEFAULT_NODES", "default_nodes", "companion_nodes", "parabola_nodes"]
 
 DEFAULT_NODES = 32
 # optimised Talbot contour (Trefethen, Weideman & Schmelzer 2006)
@@ -97,21 +112,147 @@ def default_nodes(column: Column) -> int:
     return int(min(96, 2 * round((32 + 6 * math.log2(pe / 10)) / 2)))
 
 
-def invert(transform, times, n: int = DEFAULT_NODES):
-    """Invert ``transform(s) -> (s.size, m)`` at ``times`` (> 0): (nt, m) real array, and
-    an error estimate (nt, m): rounding (16 eps sum |terms|) plus discretisation."""
-    times = np.asarray(times, dtype=float)
+def companion_nodes(n: int) -> int:
+    """The second, larger node count used to estimate the error of an inversion with n
+    nodes: n + max(8, n / 4) (even)."""
+    return int(n + max(8, 2 * round(n / 8)))
+
+
+def _invert_once(transform, times, n):
+    """Talbot sum with n nodes: value (nt, m), sum of |terms| (nt, m), the modulus of
+    the outermost term (nt, m) and whether an exponent was capped (nt,)."""
     shape, w = talbot_nodes(n)
     s = (shape[None, :] / times[:, None]).ravel()
     out = transform(s)
     vals, flags = out if isinstance(out, tuple) else (out, None)
     vals = vals.reshape(times.size, shape.size, -1)
     terms = w[None, :, None] * vals / times[:, None, None]
-    size = np.abs(terms).sum(axis=1)
-    f = np.imag(terms).sum(axis=1)
-    err = (16 * np.finfo(float).eps + math.exp(-_RATE * n)) * size
-    if flags is not None:  # a capped exponent: the transform is not representable there
-        err[np.asarray(flags).reshape(times.size, -1).any(axis=1)] = np.inf
+    capped = np.zeros(times.size, bool)
+    if flags is not None:
+        capped = np.asarray(flags).reshape(times.size, -1).any(axis=1)
+    return (np.imag(terms).sum(axis=1), np.abs(terms).sum(axis=1), np.abs(terms[:, -1, :]),
+            capped)
+
+
+def invert(transform, times, n: int = DEFAULT_NODES):
+    """Invert ``transform(s) -> (s.size, m)`` (or ``(values, capped flags)``) at ``times``
+    (> 0): the value (nt, m) and an estimate of its absolute error (nt, m).
+
+    The transform is inverted with n and n2 = :func:`companion_nodes` (n) nodes (two
+    disjoint node sets, ~2.2 times the work of one).  The estimate is
+
+        2 |f_n2 - f_n| + 16 eps (S_n + S_n2) + 2 |outermost term|
+
+    with S = sum |terms|.  Why each part:
+
+    * 2 |f_n2 - f_n|: discretisation.  Whenever the error of f_n2 is at most 2/3 of that
+      of f_n (geometric convergence, e^{-1.358 N} for a smooth transform, gives a factor
+      e^{-1.358 (n2 - n)} < 1e-4; algebraic convergence of order >= 2 with
+      n2 >= 1.25 n gives <= 0.64), err(f_n2) <= |f_n2 - f_n| / (3/2 - 1) = 2 |f_n2 - f_n|.
+      Unlike the a-priori rate it sees transforms that are not smooth (a step in the
+      initial state, fronts at high Peclet numbers) and transform values that carry
+      their own rounding (evaluated at different nodes, the two sums disagree).
+    * 16 eps (S_n + S_n2): rounding of the two sums (terms much larger than their sum
+      cancel: high Peclet numbers ahead of a front, e^{0.171 N} growth at large N).
+    * 2 |outermost term|: the Bromwich path is truncated at the ends of the contour;
+      the estimate is useless if the integrand is not negligible there (a transform
+      that grows in the left half-plane, e^{-s tau} ahead of an advective front).
+
+    The value reported is f_n2, or f_n where the two differ by no more than their
+    rounding (f_n then has the smaller rounding).  A capped exponent gives an infinite
+    estimate.
+    """
+    times = np.asarray(times, dtype=float)
+    f1, size1, end1, cap1 = _invert_once(transform, times, n)
+    f2, size2, end2, cap2 = _invert_once(transform, times, companion_nodes(n))
+    diff = np.abs(f2 - f1)
+    rounding = 16 * np.finfo(float).eps * (size1 + size2)
+    first = diff <= rounding
+    f = np.where(first, f1, f2)
+    err = 2 * diff + rounding + 2 * np.where(first, end1, end2)
+    err[cap1 | cap2] = np.inf
+    return f, err
+
+
+# Parabolic contour outside the growth region of an advective transform.  With
+# s0 = q^2 / (4 theta D theta R) the branch r2 = (q - sqrt(q^2 + 4 k c s)) / (2 k) has
+# Re r2 > 0 exactly inside the parabola Re s < -(Im s)^2 / (4 s0): there the transform
+# grows like e^{Pe z / 2} (an advective delay e^{-s tau}) and a Talbot contour, which
+# sweeps that region, sums huge terms ahead of a front.  The contour
+#     s(u) = m0 + s0 ((1 + i u)^2 - 1),  m0 = _PARA_SHIFT / t
+# is that parabola moved right by m0, so e^{r2 z} is bounded by 1 on it at every depth
+# and the terms never exceed ~e^{_PARA_SHIFT} times the data scale.  Trapezoid rule in
+# u: the pole at s = 0 lies ~m0 / (2 s0) from the real u axis, so the step must be
+# small, h = pi (m0 / s0) / _PARA_DIGITS, and u runs to where e^{Re s t} < e^{-40}: about
+# 12 sqrt(s0 t) + 24 nodes (measured in tests/test_laplace.py against mpmath).
+_PARA_SHIFT = 6.0
+_PARA_TAIL = 40.0
+
+
+def parabola_nodes(s0: float, t: float, m: int):
+    """m nodes s_k and weights W_k (u > 0 half) of the parabolic contour for time t:
+    f(t) = sum_k Im(W_k F(s_k))."""
+    shift = _PARA_SHIFT / t
+    u_max = math.sqrt((_PARA_TAIL + _PARA_SHIFT) / (s0 * t))
+    h = u_max / m
+    u = (np.arange(m) + 0.5) * h
+    s = shift + s0 * ((1 + 1j * u) ** 2 - 1)
+    return s, (h / np.pi) * 2j * s0 * (1 + 1j * u) * np.exp(s * t)
+
+
+def parabola_count(s0: float, t: float) -> int:
+    return int(math.ceil(12 * math.sqrt(s0 * t))) + 24
+
+
+def _invert_parabola(transform, times, s0):
+    """Like :func:`invert` on the parabolic contour, node counts m and 1.25 m + 2."""
+    f = []
+    for t in times:
+        m = parabola_count(s0, t)
+        parts = []
+        for mm in (m, int(1.25 * m) + 2):
+            s, w = parabola_nodes(s0, t, mm)
+            out = transform(s)
+            vals, flags = out if isinstance(out, tuple) else (out, None)
+            terms = w[:, None] * vals
+            parts.append((np.imag(terms).sum(axis=0), np.abs(terms).sum(axis=0),
+                          np.abs(terms[-1]), flags is not None and np.any(flags)))
+        (f1, s1, e1, c1), (f2, s2, e2, c2) = parts
+        diff = np.abs(f2 - f1)
+        rounding = 16 * np.finfo(float).eps * (s1 + s2)
+        first = diff <= rounding
+        err = 2 * diff + rounding + 2 * np.where(first, e1, e2)
+        if c1 or c2:
+            err[:] = np.inf
+        f.append((np.where(first, f1, f2), err))
+    return np.array([a for a, _ in f]), np.array([b for _, b in f])
+
+
+_RETRY = 1e-10  # an estimate above this fraction of the quantity's scale: try the parabola
+
+
+def _invert_best(transform, times, n, s0, groups):
+    """Talbot inversion (:func:`invert`); with advection (s0 > 0), the times where some
+    estimate exceeds _RETRY times the scale of its quantity group are inverted again on
+    the parabolic contour, and each value is taken from the contour with the smaller
+    estimate.  The scale of a group is its largest value whose estimate is below 1e-3
+    of it (garbage values carry large estimates and do not count)."""
+    f, err = invert(transform, times, n)
+    if s0 <= 0:
+        return f, err
+    retry = np.zeros(times.size, bool)
+    with np.errstate(invalid="ignore"):
+        for cols in groups:
+            fv, ev = np.abs(f[:, cols]), err[:, cols]
+            ok = np.isfinite(fv) & (ev <= 1e-3 * fv)
+            scale = fv[ok].max() if ok.any() else 0.0
+            retry |= ~(ev <= _RETRY * scale).all(axis=1)
+    if retry.any():
+        f2, e2 = _invert_parabola(transform, times[retry], s0)
+        with np.errstate(invalid="ignore"):
+            better = ~(err[retry] <= e2)  # also where the Talbot estimate is NaN
+        f[retry] = np.where(better, f2, f[retry])
+        err[retry] = np.where(better, e2, err[retry])
     return f, err
 
 
@@ -136,9 +277,10 @@ def _segments(column: Column, initial: InitialState):
                 a = b = 0.0
             elif initial.kind == "uniform":
                 a, b = float(initial.values[i]), 0.0
-            else:
-                c0, c1 = np.interp([z0, z1], initial.depths, initial.values)
-                a, b = float(c0), float((c1 - c0) / (z1 - z0))
+            else:  # value just below z0, limit just above z1: exact at a step
+                c0 = float(initial.profile_at(z0, "right"))
+                c1 = float(initial.profile_at(z1, "left"))
+                a, b = c0, (c1 - c0) / (z1 - z0)
             last = j == len(cuts) - 2
             rows.append((z0, z1 - z0, lay.porosity * lay.diffusivity,
                          lay.porosity * lay.retardation, lay.decay_rate, lay.source_rate,
@@ -190,11 +332,11 @@ class LaplaceTransfer:
         beta = b0 / sm
         alpha = (c * a0 + src_hat - q * beta) / (c * sm)
         r = np.stack([r1, r2])  # (2, nseg, ns)
-        # anchors: r1 where it peaks; r2 (the branch that decays with depth for
-        # Re s >= -mu) at the top.  Where Re s < 0 at high Peclet numbers r2 may grow;
-        # its exponent is then capped (see ``_exp``) and the time flagged.
+        # anchors: each exponential at the end where it peaks (bottom if Re r >= 0), so
+        # every entry is <= 1 in modulus; r2 of a semi-infinite last layer at its top.
         anc = np.where(r.real >= 0, l, 0.0)
-        anc[1] = 0.0
+        if self.semi:
+            anc[1, -1] = 0.0
         self._r, self._anc, self._alpha, self._beta, self._k = r, anc, alpha, beta, k
         coef = self._linear_system(s[0], r, anc, alpha, beta, k, l)
         return coef
@@ -333,7 +475,7 @@ def _initial_values(column, initial, depths):
         lay = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1, 0,
                       len(column.layers) - 1)
         return np.asarray(initial.values)[lay]
-    return np.interp(depths, initial.depths, initial.values)
+    return initial.profile_at(depths)  # right-continuous at a step
 
 
 def _atom_hat(kind, amp, rate, s):
@@ -383,11 +525,18 @@ def _signals_for(group, s, nseg, with_initial):
 @dataclass(frozen=True)
 class EngineSolution(ColumnSolution):
     """A :class:`transport.modal.ColumnSolution` that records, per output time, the
-    engine that produced it and its estimated error of C (kg m-3)."""
+    engine that produced it and its estimated error of C (kg m-3, ``error_estimate``),
+    and (``error``, optional) the estimated absolute errors of every quantity:
+    "concentration" (kg m-3), "total_flux" (kg m-2 s-1), "cumulative_mass" (kg m-2),
+    "budget" (kg m-2; max over stored, decayed, entered_top, left_bottom).  A value
+    that could not be computed is NaN with an infinite estimate."""
 
     engine_by_time: np.ndarray = field(default=None, repr=False, compare=False)
     error_estimate: np.ndarray = field(default=None, repr=False, compare=False)
     evaluator: object = field(default=None, repr=False, compare=False)
+    # {"concentration", "total_flux", "cumulative_mass", "budget"} -> (nt,) absolute
+    # error estimates (max over depths / over the budget terms), or None
+    error: dict = field(default=None, repr=False, compare=False)
 
     def concentration_at(self, depth, times):
         """C at one depth for any times, from the engine that serves those times."""
@@ -418,7 +567,8 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
     Returns
     -------
     EngineSolution (a ColumnSolution) with engine="laplace", series=None, eigenvalues
-    empty, ``error_estimate`` (nt,) the inversion error bound of C (kg m-3) and
+    empty, ``error_estimate`` (nt,) the estimated error of C (kg m-3, max over depths),
+    ``error`` the estimates of every quantity (see :class:`EngineSolution`) and
     ``engine_by_time``.  The budget is filled (with a semi-infinite bottom, stored and
     produced are NaN when the last layer holds initial mass or a source: infinite).
     """
@@ -435,7 +585,11 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
     nz, nt = depths.size, times.size
     ends = np.array([0.0, column.length])
     out = np.zeros((nt, 3 * nz + 4))
-    err = np.zeros(nt)
+    est = np.zeros((nt, 3 * nz + 4))
+    parts = (np.arange(nz), np.arange(nz, 2 * nz), np.arange(2 * nz, 3 * nz),
+             np.arange(3 * nz, 3 * nz + 4))
+    # growth parabola of the advective branch (widest over the layers); 0 without flow
+    s0 = float(np.max(model.q ** 2 / (4 * g["k"] * g["c"])))
     for t0, group in sorted(_components(column, seg_layer).items()):
         tau = times - t0
         on = tau > 0
@@ -451,13 +605,24 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
                                    st.sum(axis=0)[:, None], decayed[:, None]],
                                   axis=1), model.capped.copy()
 
-        with np.errstate(over="ignore", invalid="ignore"):
-            f, e = invert(transform, tau[on], n_nodes)
-        bad = ~np.isfinite(f).all(axis=1)
-        f[bad] = np.nan
-        e[bad] = np.inf
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            f, e = _invert_best(transform, tau[on], n_nodes, s0, parts)
         out[on] += f
-        err[on] += e[:, :nz].max(axis=1)
+        est[on] += e
+    # error estimate per quantity and time; a group with any non-finite value or
+    # estimate at a time is refused there: NaN values, infinite estimate
+    groups = {"concentration": np.arange(nz), "total_flux": np.arange(nz, 2 * nz),
+              "cumulative_mass": np.arange(2 * nz, 3 * nz),
+              "budget": np.arange(3 * nz, 3 * nz + 4)}
+    if semi_infinite_bottom:  # nothing leaves through the bottom at infinity
+        out[:, 3 * nz + 1] = 0.0
+        est[:, 3 * nz + 1] = 0.0
+    error = {}
+    with np.errstate(invalid="ignore"):
+        for name, cols in groups.items():
+            bad = ~(np.isfinite(out[:, cols]).all(axis=1) & np.isfinite(est[:, cols]).all(axis=1))
+            out[np.ix_(bad, cols)] = np.nan
+            error[name] = np.where(bad, np.inf, est[:, cols].max(axis=1, initial=0.0))
     conc, flux, cum = out[:, :nz], out[:, nz:2 * nz], out[:, 2 * nz:3 * nz]
     cum_ends, stored, decayed = out[:, 3 * nz:3 * nz + 2], out[:, -2], out[:, -1]
     init_mass = float(np.sum(g["c"] * (g["a"] * g["l"] + g["b"] * g["l"] ** 2 / 2)))
@@ -472,7 +637,6 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
         init_mass = math.nan if tail else init_mass
         if tail:
             produced = np.full(nt, math.nan)
-        cum_ends[:, 1] = 0.0  # nothing leaves through the bottom at infinity
     zero = times == 0
     if zero.any():
         c0 = _initial_values(column, initial, depths)
@@ -481,7 +645,16 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
         idx, _ = model.locate(depths)
         flux[zero] = model.q * c0 - g["k"][idx] * g["b"][idx]
         stored[zero] = init_mass
+        # exact up to the rounding of the interpolation and of the sums
+        eps16 = 16 * np.finfo(float).eps
+        error["concentration"][zero] = eps16 * np.abs(c0).max()
+        error["total_flux"][zero] = eps16 * np.abs(np.abs(model.q * c0)
+                                                   + np.abs(g["k"][idx] * g["b"][idx])).max()
+        error["budget"][zero] = eps16 * float(np.sum(g["c"] * (np.abs(g["a"]) * g["l"] + np.abs(
+            g["b"]) * g["l"] ** 2 / 2)))
     residual = stored - init_mass - cum_ends[:, 0] + cum_ends[:, 1] + decayed - produced
+    unknown = ~np.isfinite(np.column_stack([stored, decayed, cum_ends])).all(axis=1)
+    error["budget"][unknown] = np.inf  # e.g. the infinite mass of a semi-infinite tail
     budget = {"stored": stored, "initial_stored": np.full(nt, init_mass),
               "entered_top": cum_ends[:, 0].copy(), "left_bottom": cum_ends[:, 1].copy(),
               "decayed": decayed, "produced": produced, "residual": residual}
@@ -490,4 +663,4 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
                           cumulative_mass=cum.copy(), budget=budget, eigenvalues=np.empty(0),
                           n_modes=0, engine="laplace", series=None,
                           engine_by_time=np.where(zero, "initial", "laplace").astype(object),
-                          error_estimate=err)
+                          error_estimate=error["concentration"].copy(), error=error)

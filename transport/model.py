@@ -170,6 +170,13 @@ class InitialState:
     kind "clean": zero everywhere; "uniform": one value per layer (``values``);
     "profile": piecewise-linear through samples (``depths`` m, ``values`` kg m-3),
     constant beyond the first and last sample.
+
+    Profile depths are non-decreasing.  A depth given twice is a step (a jump) in the
+    initial state: the first of the two values is the limit from above (the segment
+    ending there), the second the limit from below (the segment starting there).  The
+    profile is right-continuous: its value AT the jump depth is the second (deeper)
+    value.  At most two samples share a depth.  Engines put a segment or panel break
+    at every sample depth, so a jump is represented exactly, not as a steep ramp.
     """
 
     kind: str = "clean"
@@ -188,8 +195,13 @@ class InitialState:
         if self.kind == "profile":
             if len(depths) != len(values) or not depths:
                 raise InputError("a measured profile needs as many depths as values (at least one)")
-            if any(b <= a for a, b in zip(depths, depths[1:])):
-                raise InputError(f"profile sample depths must increase strictly, got {depths}")
+            if any(b < a for a, b in zip(depths, depths[1:])):
+                raise InputError(f"profile sample depths must not decrease, got {depths}; "
+                                 "list the samples top to bottom")
+            if any(a == c for a, c in zip(depths, depths[2:])):
+                raise InputError(f"profile sample depths {depths}: three or more samples at "
+                                 "one depth; give at most two there (the value just above "
+                                 "and just below a step)")
             if depths[0] < 0:
                 raise InputError(f"profile sample depth {depths[0]} m is above the column top (0 m)")
 
@@ -204,6 +216,27 @@ class InitialState:
     @classmethod
     def profile(cls, depths, values):
         return cls("profile", values=tuple(values), depths=tuple(depths))
+
+    def profile_at(self, z, side: str = "right") -> np.ndarray:
+        """The measured profile at depths ``z`` (m): piecewise-linear between samples,
+        constant beyond the ends.  ``side="right"`` gives the value at z (at a jump the
+        deeper value: right-continuous); ``side="left"`` the limit from above."""
+        if self.kind != "profile":
+            raise InputError(f"profile_at needs a measured profile, not a {self.kind!r} state")
+        if side not in ("left", "right"):
+            raise ValueError(f"side must be 'left' or 'right', got {side!r}")
+        d = np.asarray(self.depths, dtype=float)
+        v = np.asarray(self.values, dtype=float)
+        z = np.asarray(z, dtype=float)
+        # samples lo, lo + 1 bracket z with d[lo] < d[lo + 1] (right: d[lo] <= z <
+        # d[lo + 1]; left: d[lo] < z <= d[lo + 1]), so a repeated depth is never the pair
+        lo = np.searchsorted(d, z, side=side) - 1
+        inside = (lo >= 0) & (lo + 1 < d.size)
+        i = np.clip(lo, 0, max(d.size - 2, 0))
+        j = np.minimum(i + 1, d.size - 1)
+        span = np.where(d[j] > d[i], d[j] - d[i], 1.0)
+        lin = v[i] + (z - d[i]) / span * (v[j] - v[i])
+        return np.where(inside, lin, np.where(lo < 0, v[0], v[-1]))
 
 
 def check_output_grid(column: Column, times, depths, semi_infinite_bottom: bool = False):

@@ -75,7 +75,12 @@ def gauss_nodes(op: Operator, lam: np.ndarray, breaks=(), extra_rate: float = 0.
 
 
 def initial_profile(column: Column, initial: InitialState, z):
-    """Initial pore-water concentration C0 at depths z (kg m-3)."""
+    """Initial pore-water concentration C0 at depths z (kg m-3).
+
+    A measured profile is piecewise-linear and right-continuous: at a depth sampled
+    twice (a step) the value is the deeper sample (:meth:`InitialState.profile_at`).
+    Quadrature that breaks its panels at the sample depths therefore integrates a step
+    exactly (no node falls on the step)."""
     z = np.asarray(z, dtype=float)
     if callable(initial):
         return np.asarray(initial(z), dtype=float)
@@ -92,7 +97,7 @@ def initial_profile(column: Column, initial: InitialState, z):
     if d[-1] > column.length * (1 + 1e-12):
         raise InputError(f"initial profile sample at {d[-1]} m lies below the column bottom "
                          f"({column.length} m); remove it or extend the column")
-    return np.interp(z, d, np.asarray(initial.values))
+    return initial.profile_at(z)
 
 
 def green_flux(op: Operator, lift, z, w0_nodes, nodes, values: bool = False, lift_nodes=None):

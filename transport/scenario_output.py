@@ -76,10 +76,16 @@ def _samples(r: _Reader, raw, length: float, key="initial.samples", base=0):
         if z > length * (1 + 1e-12):
             raise r.error(f"{where}[0]", pair[0], f"sample below the column bottom "
                           f"({length:g} m)", fix="drop the sample or add the layer it was taken in")
-        if depths and z <= depths[-1]:
-            raise r.error(f"{where}[0]", pair[0], "sample depths must increase strictly",
-                          fix="list samples top to bottom, each depth once")
-        depths.append(min(z, length))
+        z = min(z, length)
+        if depths and z < depths[-1]:
+            raise r.error(f"{where}[0]", pair[0], "sample depths must not decrease",
+                          fix="list samples top to bottom; a depth given twice is a step "
+                              "(value just above, then just below)")
+        if len(depths) >= 2 and z == depths[-1] == depths[-2]:
+            raise r.error(f"{where}[0]", pair[0], "a third sample at one depth",
+                          fix="give at most two samples per depth: the value just above "
+                              "and the value just below a step")
+        depths.append(z)
         values.append(r.quantity(pair[1], "concentration", f"{where}[1]", low=0))
     return InitialState.profile(depths, values)
 
