@@ -7,14 +7,18 @@ published formulas, evaluated here with numpy/scipy/mpmath.
 """
 from __future__ import annotations
 
+import math
+
 import mpmath as mp
 import numpy as np
 import pytest
 
 from reference import (carslaw_jaeger_two_layer_eigenvalues, crank_slab_series,
-                       erfc_semi_infinite, laplace_reference, ogata_banks)
+                       erfc_semi_infinite, interpolated_state, laplace_reference,
+                       laplace_reference_full, ogata_banks)
 from transport.finite_volume import solve_fv
 from transport.model import Boundary, Column, InitialState, Layer
+from transport.schedules import Schedule
 
 YEAR = 3.15576e7  # s, Julian year (IAU)
 
@@ -261,3 +265,188 @@ def test_fv_boundary_kinds_converge(top, bottom, q):
                              relative=True)
     assert 1.8 < order[0] < 2.3
     assert errs[-1] < 2e-3
+
+
+# ---------------------------------------------------------------------------------------
+# (d) Flux, cumulative mass and budget of the Laplace reference against closed forms
+# ---------------------------------------------------------------------------------------
+def _crank_time_lag(t, length, kappa, cap, k, c0, n_terms=400):
+    """Plane sheet, C = c0 at z = 0, C = 0 at z = l, clean: flux and cumulative mass at
+    both faces.  Crank (1975) sec. 4.3.3 (time lag), eq. 4.24a (number from memory):
+    Q_out/(l c0) = kappa t/l^2 - 1/6 - 2/pi^2 sum (-1)^n/n^2 e^{-kappa n^2 pi^2 t/l^2},
+    in mass units per area (times theta R = cap); the inflow face by the same series
+    with (-1)^n -> 1 and the sign of the sum changed, whose constant part is
+    2/pi^2 sum 1/n^2 = 1/3 (its derivative is the face flux of Crank eq. 4.16 with C2 = 0,
+    from memory).  Returns F(0), F(l), M(0), M(l)."""
+    n = np.arange(1, n_terms + 1)[:, None]
+    t = np.atleast_1d(t)[None, :]
+    e = np.exp(-kappa * n ** 2 * math.pi ** 2 * t / length ** 2)
+    f_unit = k * c0 / length
+    f_top = f_unit * (1 + 2 * e.sum(axis=0))
+    f_bot = f_unit * (1 + 2 * ((-1.0) ** n * e).sum(axis=0))
+    # sum (1 - e_n)/n^2 = pi^2/6 - sum e_n/n^2 (no truncation of the constant part)
+    m_top = cap * length * c0 * (kappa * t[0] / length ** 2 + 1 / 3
+                                 - 2 / math.pi ** 2 * (e / n ** 2).sum(axis=0))
+    m_bot = cap * length * c0 * (kappa * t[0] / length ** 2 - 1 / 6
+                                 - 2 / math.pi ** 2 * ((-1.0) ** n / n ** 2 * e).sum(axis=0))
+    return f_top, f_bot, m_top, m_bot
+
+
+def test_reference_flux_and_cumulative_mass_crank_time_lag():
+    """Homogeneous 0.5 m slab split in two identical layers, C = 1 on top, C = 0 at the
+    base, clean.  Fluxes and cumulative masses at both faces against Crank (1975)
+    sec. 4.3.3 (see _crank_time_lag); and at the latest time (15 diffusion times) the
+    time-lag asymptote M(l, t) = (theta D c0 / l)(t - l^2 R / (6 D)) (Crank 1975 eq.
+    4.24b, number from memory), to 1e-12 relative."""
+    col = _split_slab(Boundary("concentration", 0.0))
+    L = col.length
+    t = np.array([2e6, 1e7, 5e7, 2e8, 1.5e9])
+    ref = laplace_reference_full(col, [0.0, 0.2, L], t)
+    f_top, f_bot, m_top, m_bot = _crank_time_lag(t, L, D / R, THETA * R, THETA * D, 1.0)
+    fscale = np.abs(f_top).max()
+    assert np.max(np.abs(ref.total_flux[:, 0] - f_top)) < 1e-12 * fscale
+    assert np.max(np.abs(ref.total_flux[:, 2] - f_bot)) < 1e-12 * fscale
+    mscale = np.abs(m_top).max()
+    assert np.max(np.abs(ref.cumulative_mass[:, 0] - m_top)) < 1e-12 * mscale
+    assert np.max(np.abs(ref.cumulative_mass[:, 2] - m_bot)) < 1e-12 * mscale
+    assert np.allclose(ref.budget["entered_top"], ref.cumulative_mass[:, 0], rtol=0, atol=0)
+    lag = THETA * D / L * (t[-1] - L ** 2 * R / (6 * D))
+    assert abs(ref.cumulative_mass[-1, 2] - lag) < 1e-12 * lag
+    # stored mass at steady state: theta R l c0 / 2 (linear profile)
+    assert abs(ref.budget["stored"][-1] - THETA * R * L / 2) < 1e-12 * THETA * R * L
+
+
+def _ogata_banks_flux(z, t, v, d, cap, c0=1.0):
+    """Total flux of the Ogata & Banks (1961, USGS PP 411-A) solution, F = q C -
+    theta D dC/dz, differentiated here in closed form (the e^{vz/d} erfc terms cancel):
+    F = theta R c0 [v/2 erfc((z - v t)/(2 sqrt(d t))) + sqrt(d/(pi t)) e^{-(z - v t)^2/(4 d t)}]
+    with d = D/R, v = q/(theta R).  mpmath, any Peclet number."""
+    z, t, v, d = (mp.mpf(float(x)) for x in (z, t, v, d))
+    return cap * c0 * (v / 2 * mp.erfc((z - v * t) / (2 * mp.sqrt(d * t)))
+                       + mp.sqrt(d / (mp.pi * t)) * mp.exp(-(z - v * t) ** 2 / (4 * d * t)))
+
+
+@pytest.mark.parametrize("peclet", [20.0, 1000.0])
+def test_reference_flux_and_cumulative_mass_ogata_banks(peclet):
+    """Advection-dispersion, C = 1 held at the inlet, clean column long enough that the
+    outlet is not felt: flux at several depths against the Ogata & Banks (1961) flux
+    (_ogata_banks_flux) and the cumulative mass against its time integral (mpmath quad),
+    to 1e-11 of the scale; concentration against Ogata & Banks itself."""
+    theta, ret, q = 0.35, 1.6, 2e-8
+    L = 1.0
+    d_eff = q * L / (theta * peclet)
+    col = Column((Layer(0.3, theta, d_eff, ret), Layer(0.7, theta, d_eff, ret)),
+                 Boundary("concentration", 1.0), Boundary("free-outflow"), darcy_flux=q)
+    v, d = q / (theta * ret), d_eff / ret
+    travel = L / v
+    z = np.array([0.0, 0.15, 0.3, 0.4])
+    t = np.array([0.12, 0.3]) * travel
+    ref = laplace_reference_full(col, z, t, dps=15)
+    cap = theta * ret
+    with mp.workdps(30):
+        flux = np.array([[float(_ogata_banks_flux(zz, tt, v, d, cap)) for zz in z] for tt in t])
+        # the flux is singular like t^-1/2 at z = 0: integrate on a graded split of (0, t)
+        cum = np.array([[float(mp.quad(lambda s, zz=zz: _ogata_banks_flux(zz, s, v, d, cap),
+                                       [0, tt * 1e-6, tt * 1e-3, tt * 0.1, tt]))
+                         for zz in z] for tt in t])
+    conc = ogata_banks(z, t, v, d)
+    assert np.max(np.abs(ref.concentration - conc)) < 1e-11
+    assert np.max(np.abs(ref.total_flux - flux)) < 1e-11 * np.abs(flux).max()
+    assert np.max(np.abs(ref.cumulative_mass - cum)) < 1e-11 * np.abs(cum).max()
+
+
+def test_reference_budget_well_mixed_source_and_decay():
+    """A sealed column with uniform properties stays uniform: theta R dC/dt = sigma(t) -
+    theta R mu C, the linear first-order ODE solved by an integrating factor (e.g. Boyce &
+    DiPrima, Elementary Differential Equations, ch. 2).  Source sigma0 e^{-r t} on both
+    layers (scheduled), initial c_i: C = c_i e^{-mu t} + sigma0/(theta R) (e^{-r t} -
+    e^{-mu t})/(mu - r).  Checks C, zero flux, stored, produced = sigma0 l (1 - e^{-rt})/r,
+    decayed = initial + produced - stored, to 1e-12 relative."""
+    theta, ret, mu, r, s0, ci = 0.3, 2.5, 4e-9, 1e-8, 3e-10, 0.2
+    sched = Schedule.depletion(1.0, r)
+    col = Column((Layer(0.4, theta, 1e-9, ret, mu, s0, source_schedule=sched),
+                  Layer(0.6, theta, 1e-9, ret, mu, s0, source_schedule=sched)),
+                 Boundary("sealed"), Boundary("sealed"))
+    t = np.array([3e7, 2e8, 1e9])
+    ref = laplace_reference_full(col, [0.0, 0.4, 1.0], t, InitialState.uniform([ci, ci]))
+    cap, L = theta * ret, 1.0
+    want = ci * np.exp(-mu * t) + s0 / cap * (np.exp(-r * t) - np.exp(-mu * t)) / (mu - r)
+    assert np.max(np.abs(ref.concentration - want[:, None])) < 1e-12 * want.max()
+    stored = cap * L * want
+    produced = s0 * L * (1 - np.exp(-r * t)) / r
+    decayed = cap * L * ci + produced - stored
+    b = ref.budget
+    big = produced.max()
+    assert np.max(np.abs(ref.total_flux)) < 1e-13 * s0 * L
+    assert np.max(np.abs(b["stored"] - stored)) < 1e-12 * big
+    assert np.max(np.abs(b["produced"] - produced)) < 1e-12 * big
+    assert np.max(np.abs(b["decayed"] - decayed)) < 1e-12 * big
+    assert np.max(np.abs(b["initial_stored"] - cap * L * ci)) < 1e-14 * big
+
+
+def test_reference_budget_closes_with_everything_on():
+    """Mass conservation (an identity of the transport equation): stored - initial =
+    entered - left - decayed + produced, to 1e-12 of the budget scale, with advection,
+    decay, a scheduled layer source, a mass-transfer top following a table, a thin
+    layer and a measured profile; budget in/out equal the cumulative masses at the ends."""
+    col = Column((Layer(0.3, 0.35, 1e-9, 1.5, 2e-9, 1e-11,
+                        source_schedule=Schedule.steps([0.0, 4e7], [1.0, 0.0])),
+                  Layer(0.05, 0.5, 3e-11, 8.0, 1e-8),
+                  Layer(0.6, 0.3, 6e-10, 1.2)),
+                 Boundary("mass-transfer", 0.0, 2e-8,
+                          Schedule.table([0.0, 2e7, 6e7], [0.0, 1.0, 0.3])),
+                 Boundary("concentration", 0.05), darcy_flux=3e-9)
+    init = InitialState.profile([0.0, 0.3, 0.95], [0.1, 0.4, 0.0])
+    t = np.array([1e7, 5e7, 3e8])
+    ref = laplace_reference_full(col, [0.0, 0.32, col.length], t, init)
+    b = ref.budget
+    scale = max(np.abs(b[k]).max() for k in ("stored", "entered_top", "left_bottom",
+                                               "decayed", "produced"))
+    assert np.abs(b["residual"]).max() < 1e-12 * scale
+    assert np.array_equal(b["entered_top"], ref.cumulative_mass[:, 0])
+    assert np.array_equal(b["left_bottom"], ref.cumulative_mass[:, 2])
+
+
+def test_reference_step_off_is_a_superposition_of_crank_solutions():
+    """Source removed at t1 (a step schedule): by linearity C(t) = C1(t) - C1(t - t1)
+    with C1 the Crank (1975) eq. 4.17 solution (from memory; crank_slab_series);
+    both the shift-theorem split inversion and the delayed single inversion, 1e-11."""
+    col = Column((Layer(0.2, THETA, D, R), Layer(0.3, THETA, D, R)),
+                 Boundary("concentration", schedule=Schedule.steps([0.0, 3e7], [1.0, 0.0])),
+                 Boundary("sealed"))
+    z = np.array([0.0, 0.1, 0.3, 0.5])
+    t = np.array([2e7, 3.3e7, 8e7])
+    want = crank_slab_series(z, t, 0.5, D / R)
+    late = t > 3e7
+    want[late] -= crank_slab_series(z, t[late] - 3e7, 0.5, D / R)
+    split = laplace_reference_full(col, z, t).concentration
+    delay = laplace_reference_full(col, z, t, dps=30, shift="delay").concentration
+    assert np.max(np.abs(split - want)) < 1e-11
+    assert np.max(np.abs(delay - want)) < 1e-9
+
+
+def test_reference_talbot_weights_match_mpmath():
+    """The once-per-time Talbot weights reproduce mpmath.invertlaplace (fixed Talbot,
+    Abate & Valko 2004) on f^(s) = 1/(s + 1) + 1/s^2 (A&S 29.3: e^{-t} + t)."""
+    from reference import _invert_all
+    f = lambda s: [1 / (s + 1) + 1 / s ** 2]  # noqa: E731
+    with mp.workdps(25):
+        got = _invert_all(f, 2.5, "talbot")[0]
+        lib = mp.invertlaplace(lambda s: f(s)[0], 2.5, method="talbot")
+        assert abs(got - lib) < mp.mpf(10) ** -22
+        assert abs(got - (mp.exp(-2.5) + 2.5)) < mp.mpf(10) ** -20
+
+
+def test_reference_polynomial_initial_state_cosine_mode():
+    """Sealed slab (two identical layers), initial C = cos(pi z / l) carried as Chebyshev
+    pieces (interpolated_state): a single Fourier mode, C = cos(pi z/l)
+    e^{-kappa pi^2 t / l^2} (Crank 1975 ch. 4, general initial distribution), 1e-12."""
+    col = _split_slab(Boundary("sealed"))
+    col = Column(col.layers, Boundary("sealed"), Boundary("sealed"))
+    L = col.length
+    state = interpolated_state(col, lambda z: np.cos(np.pi * z / L), pieces_per_layer=2)
+    z = np.array([0.0, 0.1, 0.2, 0.37, 0.5])
+    t = np.array([1e6, 3e7])
+    got = laplace_reference_full(col, z, t, state).concentration
+    want = np.cos(np.pi * z / L)[None, :] * np.exp(-D / R * np.pi ** 2 * t / L ** 2)[:, None]
+    assert np.max(np.abs(got - want)) < 1e-12
