@@ -74,7 +74,7 @@ from scipy.linalg import solve_banded
 from .modal import ColumnSolution
 from .model import Column, InitialState, InputError, check_output_grid
 
-__all__ = ["solve_laplace", "talbot_nodes", "invert", "LaplaceTransfer", "EngineSolution",
+__all__ = ["PiecewiseCubic", "solve_laplace", "talbot_nodes", "invert", "LaplaceTransfer", "EngineSolution",
            "DEFAULT_NODES", "default_nodes", "companion_nodes", "parabola_nodes"]
 
 DEFAULT_NODES = 32
@@ -267,6 +267,8 @@ def _segments(column: Column, initial: InitialState):
     if initial.kind == "profile" and initial.depths[-1] > column.length * (1 + 1e-12):
         raise InputError(f"initial profile sample at {initial.depths[-1]} m lies below the "
                          f"column bottom ({column.length} m); remove it or extend the column")
+    if initial.kind == "cubic":
+        return _cubic_segments(column, initial)
     rows = []
     for i, lay in enumerate(column.layers):
         cuts = [faces[i], faces[i + 1]]
@@ -285,8 +287,50 @@ def _segments(column: Column, initial: InitialState):
             rows.append((z0, z1 - z0, lay.porosity * lay.diffusivity,
                          lay.porosity * lay.retardation, lay.decay_rate, lay.source_rate,
                          a, b, lay.partition_to_next if last else 1.0))
-    return {key: np.array(col) for key, col in
-            zip(("top", "l", "k", "c", "mu", "sigma", "a", "b", "K"), zip(*rows))}
+    out = {key: np.array(col) for key, col in
+           zip(("top", "l", "k", "c", "mu", "sigma", "a", "b", "K"), zip(*rows))}
+    out["a2"] = out["a3"] = np.zeros(out["a"].size)
+    return out
+
+
+@dataclass(frozen=True)
+class PiecewiseCubic:
+    """An initial state that is a cubic polynomial on each segment (a state handed
+    over between stages): segment ``tops`` and ``lengths`` (m, each segment inside one
+    layer, together covering the column) and ``coefs`` (nseg, 4) of
+    c0 = c_0 + c_1 x + c_2 x^2 + c_3 x^3 in the depth x below the segment top."""
+
+    tops: tuple
+    lengths: tuple
+    coefs: tuple
+    kind: str = "cubic"
+
+
+def _cubic_segments(column: Column, initial):
+    """Segments of a piecewise-cubic initial state (``initial.tops``, ``.lengths``,
+    ``.coefs`` (nseg, 4) in powers of the local depth), each inside one layer."""
+    faces = column.interfaces
+    tops = np.asarray(initial.tops, float)
+    lengths = np.asarray(initial.lengths, float)
+    coefs = np.asarray(initial.coefs, float)
+    lay = np.clip(np.searchsorted(faces, tops + 0.5 * lengths, side="right") - 1, 0,
+                  len(column.layers) - 1)
+    bottoms = tops + lengths
+    at_face = np.isclose(bottoms, faces[lay + 1], rtol=1e-12, atol=1e-15)
+    L = column.layers
+    return {"top": tops, "l": lengths,
+            "k": np.array([L[i].porosity * L[i].diffusivity for i in lay]),
+            "c": np.array([L[i].porosity * L[i].retardation for i in lay]),
+            "mu": np.array([L[i].decay_rate for i in lay]),
+            "sigma": np.array([L[i].source_rate for i in lay]),
+            "a": coefs[:, 0], "b": coefs[:, 1], "a2": coefs[:, 2], "a3": coefs[:, 3],
+            "K": np.where(at_face, [L[i].partition_to_next for i in lay], 1.0)}
+
+
+def _poly(p, zeta):
+    """P(zeta) and P'(zeta) of particular-solution coefficients p (4, ...)."""
+    return (p[0] + zeta * (p[1] + zeta * (p[2] + zeta * p[3])),
+            p[1] + zeta * (2 * p[2] + zeta * 3 * p[3]))
 
 
 def _expm1_over(x):
@@ -329,15 +373,22 @@ class LaplaceTransfer:
         else:
             r2 = (q - root) / (2 * k)
             r1 = -2 * c * sm / (q - root)
-        beta = b0 / sm
-        alpha = (c * a0 + src_hat - q * beta) / (c * sm)
+        # particular solution P = p0 + p1 z + p2 z^2 + p3 z^3 of
+        # k P'' - q P' - c sm P = -c (a0 + a1 z + a2 z^2 + a3 z^3) - sigma / s
+        a2 = g["a2"][:, None] * with_initial
+        a3 = g["a3"][:, None] * with_initial
+        p3 = a3 / sm
+        p2 = (c * a2 - 3 * q * p3) / (c * sm)
+        beta = (c * b0 + 6 * k * p3 - 2 * q * p2) / (c * sm)
+        alpha = (c * a0 + src_hat + 2 * k * p2 - q * beta) / (c * sm)
+        alpha = np.stack(np.broadcast_arrays(alpha, beta, p2, p3))
         r = np.stack([r1, r2])  # (2, nseg, ns)
         # anchors: each exponential at the end where it peaks (bottom if Re r >= 0), so
         # every entry is <= 1 in modulus; r2 of a semi-infinite last layer at its top.
         anc = np.where(r.real >= 0, l, 0.0)
         if self.semi:
             anc[1, -1] = 0.0
-        self._r, self._anc, self._alpha, self._beta, self._k = r, anc, alpha, beta, k
+        self._r, self._anc, self._alpha, self._beta, self._k = r, anc, alpha, alpha[1], k
         coef = self._linear_system(s[0], r, anc, alpha, beta, k, l)
         return coef
 
@@ -352,9 +403,9 @@ class LaplaceTransfer:
         """C and F rows at local depth zeta of segment i: (cC (2,ns), C0, cF, F0)."""
         e = self._exp(r[:, i] * (zeta - anc[:, i]))
         cC = e
-        C0 = alpha[i] + beta[i] * zeta
+        C0, dC0 = _poly(alpha[:, i], zeta)
         cF = k[i] * r[::-1, i] * e  # q - k r1 = k r2 and q - k r2 = k r1: no cancellation
-        F0 = self.q * C0 - k[i] * beta[i]
+        F0 = self.q * C0 - k[i] * dC0
         return cC, C0, cF, F0
 
     def _boundary(self, end, r, anc, alpha, beta, k, l, s):
@@ -370,7 +421,7 @@ class LaplaceTransfer:
             target = {"flux": val, "inlet": self.q * val, "sealed": 0.0 * val}[kind]
             return cF, target - F0
         if kind == "free-outflow":
-            return r[:, i] * cC, -beta[i] + 0 * val
+            return r[:, i] * cC, -_poly(alpha[:, i], zeta)[1] + 0 * val
         if kind == "mass-transfer":
             h = bc.transfer_coefficient
             sign = 1.0 if end == "top" else -1.0
@@ -389,22 +440,27 @@ class LaplaceTransfer:
         put(0, 0, top[0])
         put(0, 1, top[1])
         rhs[:, 0] = rt
-        for i in range(self.n - 1):
+        if self.n > 1:  # every internal face at once (rows 2i+1 and 2i+2)
+            i = np.arange(self.n - 1)
             cA, CA, fA, FA = self._ends(r, anc, alpha, beta, k, i, l[i])
             cB, CB, fB, FB = self._ends(r, anc, alpha, beta, k, i + 1, 0.0)
-            K = self.seg["K"][i]
+            K = self.seg["K"][i][:, None]
+
+            def put_faces(row, offset, val):  # val (m, ns): entries at col = 2i + offset
+                band[:, row, 2 * i + offset - row + 2] = val.T
+
             row = 2 * i + 1  # C_below - K C_above = 0
-            put(row, 2 * i, -K * cA[0])
-            put(row, 2 * i + 1, -K * cA[1])
-            put(row, 2 * i + 2, cB[0])
-            put(row, 2 * i + 3, cB[1])
-            rhs[:, row] = K * CA - CB
-            row += 1  # F_above - F_below = 0
-            put(row, 2 * i, fA[0])
-            put(row, 2 * i + 1, fA[1])
-            put(row, 2 * i + 2, -fB[0])
-            put(row, 2 * i + 3, -fB[1])
-            rhs[:, row] = FB - FA
+            put_faces(row, 0, -K * cA[0])
+            put_faces(row, 1, -K * cA[1])
+            put_faces(row, 2, cB[0])
+            put_faces(row, 3, cB[1])
+            rhs[:, row] = (K * CA - CB).T
+            row = row + 1  # F_above - F_below = 0
+            put_faces(row, 0, fA[0])
+            put_faces(row, 1, fA[1])
+            put_faces(row, 2, -fB[0])
+            put_faces(row, 3, -fB[1])
+            rhs[:, row] = (FB - FA).T
         row = n - 1
         if self.semi:
             put(row, n - 2, np.ones(ns))  # no growing exponential in the last layer
@@ -445,8 +501,9 @@ class LaplaceTransfer:
         if self.semi:  # the dropped exponential of the semi-infinite layer
             e[0, idx == self.n - 1] = 0.0
         cf = coef[:, idx]
-        C = (cf * e).sum(axis=0) + self._alpha[idx] + self._beta[idx] * zc
-        dC = (cf * r * e).sum(axis=0) + self._beta[idx]
+        P, dP = _poly(self._alpha[:, idx], zc)
+        C = (cf * e).sum(axis=0) + P
+        dC = (cf * r * e).sum(axis=0) + dP
         F = self.q * C - self._k[idx] * dC
         return C.T, F.T
 
@@ -458,7 +515,8 @@ class LaplaceTransfer:
         at_bottom = anc > 0
         x = np.where(at_bottom, -r * l, r * l)
         integ = l * _expm1_over(np.where(x.real > _EXP_CAP, _EXP_CAP + 1j * x.imag, x))
-        lin = self._alpha * l + self._beta * l * l / 2
+        p = self._alpha
+        lin = l * (p[0] + l * (p[1] / 2 + l * (p[2] / 3 + l * p[3] / 4)))
         out = c * ((coef * integ).sum(axis=0) + lin)
         if self.semi:  # last layer: int_0^inf e^{r2 zeta} = -1/r2 (A = 0)
             r2 = r[1, -1]
@@ -475,6 +533,11 @@ def _initial_values(column, initial, depths):
         lay = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1, 0,
                       len(column.layers) - 1)
         return np.asarray(initial.values)[lay]
+    if initial.kind == "cubic":
+        seg = _cubic_segments(column, initial)
+        i = np.clip(np.searchsorted(seg["top"], depths, side="right") - 1, 0, seg["l"].size - 1)
+        x = depths - seg["top"][i]
+        return seg["a"][i] + x * (seg["b"][i] + x * (seg["a2"][i] + x * seg["a3"][i]))
     return initial.profile_at(depths)  # right-continuous at a step
 
 
@@ -575,7 +638,7 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
     initial = initial if initial is not None else InitialState.clean()
     n_nodes = default_nodes(column) if nodes is None else int(nodes)
     times, depths = check_output_grid(column, times, depths, semi_infinite_bottom)
-    if callable(initial) or not isinstance(initial, InitialState):
+    if callable(initial) or not isinstance(initial, (InitialState, PiecewiseCubic)):
         raise InputError("the Laplace engine takes an InitialState (clean, uniform or "
                          "profile); project other initial fields onto a profile first")
     model = LaplaceTransfer(column, initial, semi_infinite_bottom)
@@ -625,7 +688,9 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
             error[name] = np.where(bad, np.inf, est[:, cols].max(axis=1, initial=0.0))
     conc, flux, cum = out[:, :nz], out[:, nz:2 * nz], out[:, 2 * nz:3 * nz]
     cum_ends, stored, decayed = out[:, 3 * nz:3 * nz + 2], out[:, -2], out[:, -1]
-    init_mass = float(np.sum(g["c"] * (g["a"] * g["l"] + g["b"] * g["l"] ** 2 / 2)))
+    gl = g["l"]
+    init_mass = float(np.sum(g["c"] * gl * (g["a"] + gl * (g["b"] / 2 + gl * (
+        g["a2"] / 3 + gl * g["a3"] / 4)))))
     produced = np.zeros(nt)
     for i, lay in enumerate(column.layers):
         if lay.source_rate != 0:
@@ -642,14 +707,15 @@ def solve_laplace(column: Column, times, depths, initial: InitialState = None,
         c0 = _initial_values(column, initial, depths)
         conc[zero] = c0
         # flux of the initial profile: q C0 - theta D dC0/dz (piecewise-linear slope)
-        idx, _ = model.locate(depths)
-        flux[zero] = model.q * c0 - g["k"][idx] * g["b"][idx]
+        idx, zeta0 = model.locate(depths)
+        slope = g["b"][idx] + zeta0 * (2 * g["a2"][idx] + 3 * zeta0 * g["a3"][idx])
+        flux[zero] = model.q * c0 - g["k"][idx] * slope
         stored[zero] = init_mass
         # exact up to the rounding of the interpolation and of the sums
         eps16 = 16 * np.finfo(float).eps
         error["concentration"][zero] = eps16 * np.abs(c0).max()
         error["total_flux"][zero] = eps16 * np.abs(np.abs(model.q * c0)
-                                                   + np.abs(g["k"][idx] * g["b"][idx])).max()
+                                                   + np.abs(g["k"][idx] * slope)).max()
         error["budget"][zero] = eps16 * float(np.sum(g["c"] * (np.abs(g["a"]) * g["l"] + np.abs(
             g["b"]) * g["l"] ** 2 / 2)))
     residual = stored - init_mass - cum_ends[:, 0] + cum_ends[:, 1] + decayed - produced
