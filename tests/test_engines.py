@@ -29,7 +29,8 @@ def test_auto_uses_laplace_early_and_matches_mpmath_reference():
         warnings.simplefilter("error")
         sol = solve_column(PECLET, t, z, engine="auto")
     assert list(sol.engine_by_time[:2]) == ["laplace", "laplace"]
-    assert sol.engine_by_time[2] == "modal"
+    # late: the modal value where the Laplace engine confirms every quantity, else Laplace
+    assert sol.engine_by_time[2] in ("modal", "laplace") and sol.reliable.all()
     assert np.all(sol.error_estimate <= 1e-8 * 0.12)
     ref = laplace_reference(PECLET, z, t)
     np.testing.assert_allclose(sol.concentration, ref, rtol=0, atol=1e-7 * 0.12)
@@ -77,7 +78,8 @@ def test_semi_infinite_and_engine_names():
     with pytest.raises(InputError, match="semi-infinite"):
         solve_column(col, [YEAR], [0.5], engine="modal", semi_infinite_bottom=True)
     fv = solve_column(col, [YEAR], [0.5], engine="finite-volume")
-    assert fv.engine_by_time[0] == "finite-volume" and np.isnan(fv.error_estimate[0])
+    # finite volumes: vouched to its default tolerance 1e-3 of the source
+    assert fv.engine_by_time[0] == "finite-volume" and fv.error_estimate[0] <= 1e-3
 
 
 def test_every_engine_serves_continuous_time_metrics():

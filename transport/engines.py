@@ -1,37 +1,75 @@
-"""Engine selection: modal where it is accurate, Laplace where it is not.
+"""Engine selection: every number vouched for by two independent engines, or refused.
 
-``solve_column`` runs one of the three independent engines, or chooses per output time
-(``engine="auto"``):
+``solve_column`` runs the engines and chooses, per output time, the value it can vouch
+for (:func:`transport.checks.choose`):
 
-* the modal series (:mod:`transport.modal`) at every time where (a) its mode count
-  meets the tolerance within ``max_modes`` (tail bound, Weyl estimate, then checked on
-  the computed eigenvalues) and (b) its rounding bound ``roundoff_bound(z, t)`` (the
-  series is summed in v = e^{-A} u, so rounding grows like e^{A(z)}) stays below
-  ``tolerance`` times the concentration scale at that time;
-* the Laplace engine (:mod:`transport.laplace`) at the other times, and at all times
-  with a semi-infinite bottom layer.
+* ``auto``: the modal series (:mod:`transport.modal`) where it agrees with the Laplace
+  engine (:mod:`transport.laplace`) within the tolerance for EVERY quantity (C, total
+  flux, cumulative mass, budget terms), the Laplace value where only its own error
+  bound meets the tolerance, and a refusal (:class:`transport.checks.
+  UnreliableResultError`) where neither does.  The physical bounds and the budget
+  closure are checked on every candidate (the smoke alarm);
+* ``modal`` / ``laplace`` / ``finite-volume``: that engine's values, vouched for by
+  its own bound or its agreement with the Laplace engine, else refused;
+* a semi-infinite bottom layer: the Laplace engine with its own bound.
 
-The modal warnings that the choice resolves (ModeCapWarning, AccuracyWarning) are not
-passed on.  The result records, per output time, the engine used and its estimated
-error of C (kg m-3).
+The result records, per output time, the engine used and the error bound of every
+quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
 """
 from __future__ import annotations
 
-import math
 import warnings
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from . import modal
-from .finite_volume import solve_fv, solve_fv_result
+from .checks import (QUANTITIES, UnreliableResultError, assemble, choose,
+                     concentration_bounds, describe_refusal, own_errors, quantities)
+from .finite_volume import solve_fv_result
 from .laplace import EngineSolution, solve_laplace
 from .model import Column, InitialState, InputError
 from .projection import initial_profile
 from .spectrum import build_operator
 
-__all__ = ["solve_column", "ENGINES"]
+__all__ = ["solve_column", "ENGINES", "CheckedSolution", "ON_UNRELIABLE"]
 
 ENGINES = ("auto", "modal", "laplace", "finite-volume")
+ON_UNRELIABLE = ("raise", "flag")
+#: Default relative tolerance; the finite-volume engine (a second-order scheme, whose
+#: error estimate comes from mesh doubling) defaults to a looser one.
+DEFAULT_TOLERANCE, FV_TOLERANCE = 1e-8, 1e-3
+
+
+@dataclass(frozen=True)
+class CheckedSolution(EngineSolution):
+    """An :class:`EngineSolution` whose every number was checked: ``error`` maps each
+    quantity ("concentration", "total_flux", "cumulative_mass", "budget") to its
+    absolute error bound per output time (nt,); ``reliable`` (nt,) is False where no
+    engine could vouch for a time (its values are then NaN); ``tolerance`` is the
+    relative tolerance asked for and ``scale`` the scale of each quantity it refers to."""
+
+    error: dict = field(default=None, repr=False, compare=False)
+    reliable: np.ndarray = field(default=None, repr=False, compare=False)
+    tolerance: float = None
+    scale: dict = field(default=None, repr=False, compare=False)
+    mass_at: object = field(default=None, repr=False, compare=False)
+
+    def cumulative_mass_at(self, depth: float, t: float):
+        """Vouched cumulative mass (kg m-2) through ``depth`` during (0, t), and its
+        error bound: the modal value where it agrees with the Laplace engine within the
+        tolerance, else the Laplace value with its own bound."""
+        lap_v, lap_e = self.mass_at(float(depth), float(t))
+        if self.series is not None:
+            try:
+                m = float(self.series.cumulative_mass(np.array([float(depth)]),
+                                                      np.array([float(t)]))[0, 0])
+            except (AttributeError, ValueError):
+                m = np.nan
+            diff = abs(m - lap_v) + lap_e
+            if np.isfinite(diff) and diff <= self.tolerance * self.scale["cumulative_mass"]:
+                return m, diff
+        return lap_v, lap_e
 
 
 def _weyl_modes(op, t, tolerance):
@@ -55,7 +93,7 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom):
 
 
 def _auto_evaluator(series, t_modal, laplace_at):
-    """Modal series from ``t_modal`` on (where auto chose it), Laplace before."""
+    """Modal series from ``t_modal`` on (where it was vouched for), Laplace before."""
     def at(depth, t):
         t = np.atleast_1d(np.asarray(t, dtype=float))
         out = np.empty(t.size)
@@ -68,166 +106,147 @@ def _auto_evaluator(series, t_modal, laplace_at):
     return at
 
 
-def _fv_evaluator(column, initial, cells_per_layer):
-    """C(depth, t) at any times by a finite-volume run with those output times."""
-    def at(depth, t):
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        uniq, inv = np.unique(t, return_inverse=True)
-        return solve_fv(column, uniq, [depth], initial,
-                        cells_per_layer=cells_per_layer)[:, 0][inv]
-    return at
-
-
-def _merge(column, times, depths, parts, engine_by_time, error, series, evaluator=None):
-    """Assemble one ColumnSolution from per-time pieces (each a solution and its rows)."""
-    nt, nz = times.size, depths.size
-    conc, flux, cum = (np.empty((nt, nz)) for _ in range(3))
-    budget = None
-    eig, n_modes = np.empty(0), 0
-    for sol, rows in parts:
-        conc[rows], flux[rows], cum[rows] = sol.concentration, sol.total_flux, sol.cumulative_mass
-        if budget is None:
-            budget = {k: np.empty(nt) for k in sol.budget}
-        for k in budget:
-            budget[k][rows] = sol.budget[k]
-        if sol.engine == "modal":
-            eig, n_modes = sol.eigenvalues, sol.n_modes
-    used = sorted(set(engine_by_time))
-    return EngineSolution(column=column, times=times, depths=depths, concentration=conc,
-                                total_flux=flux, cumulative_mass=cum, budget=budget,
-                                eigenvalues=eig, n_modes=n_modes, engine="+".join(used),
-                                series=series, engine_by_time=np.asarray(engine_by_time,
-                                                                         dtype=object),
-                                error_estimate=np.asarray(error, dtype=float),
-                                evaluator=evaluator)
-
-
-def _modal_error(sol, tolerance):
-    """Per-time error estimate of a modal solution: rounding bound + tail target."""
-    t = sol.times
-    err = np.zeros(t.size)
-    pos = t > 0
-    if pos.any():
-        bound = sol.roundoff_bound(sol.depths, t[pos]).max(axis=1)
-        scale = np.abs(sol.concentration[pos]).max(axis=1)
-        err[pos] = bound + tolerance * scale
-    return err, scale if pos.any() else None
+def _expand(sol, rows, nt):
+    """A candidate (quantities, own errors, budget) on the full time grid from a
+    solution at ``rows`` (NaN elsewhere)."""
+    vals, own = quantities(sol), own_errors(sol)
+    full_v = {q: np.full((nt,) + v.shape[1:], np.nan) for q, v in vals.items()}
+    full_e = {q: np.full(nt, np.nan) for q in QUANTITIES}
+    for q in QUANTITIES:
+        full_v[q][rows] = vals[q]
+        full_e[q][rows] = own[q]
+    budget = {k: np.full(nt, np.nan) for k in sol.budget}
+    for k in sol.budget:
+        budget[k][rows] = np.asarray(sol.budget[k], float)
+    return full_v, full_e, budget
 
 
 def solve_column(column: Column, times, depths, initial: InitialState = None,
-                 engine: str = "auto", tolerance: float = 1e-8, max_modes: int = 4000,
-                 semi_infinite_bottom: bool = False, cells_per_layer=40):
-    """Solve a layered column with the chosen engine, or the best one per output time.
+                 engine: str = "auto", tolerance: float = None, max_modes: int = 4000,
+                 semi_infinite_bottom: bool = False, cells_per_layer=None,
+                 on_unreliable: str = "raise"):
+    """Solve a layered column; every returned number is vouched for within ``tolerance``.
 
     Parameters
     ----------
     column, times (s), depths (m), initial : as :func:`transport.modal.solve`
     engine : "auto" | "modal" | "laplace" | "finite-volume"
-    tolerance : target relative accuracy of C (modal tail bound and the auto choice)
+    tolerance : relative tolerance of every quantity, relative to the scale of its own
+        series over the run (C: the largest concentration the inputs allow); default
+        1e-8, and 1e-3 for the finite-volume engine
     max_modes : cap of the modal series
     semi_infinite_bottom : last layer extends to infinity (Laplace engine only)
-    cells_per_layer : finite-volume mesh (finite-volume engine only)
+    cells_per_layer : finite-volume mesh (finite-volume engine only; default: planned
+        from the decay, dispersion and boundary-layer lengths, then refined by doubling
+        to the tolerance)
+    on_unreliable : "raise" (default): :class:`transport.checks.UnreliableResultError`
+        when an output time cannot be vouched for; "flag": its values are NaN and
+        ``reliable`` is False there
 
     Returns
     -------
-    transport.modal.ColumnSolution with ``engine_by_time`` (nt,) strings ("modal",
-    "laplace", "finite-volume", "initial" at t = 0) and ``error_estimate`` (nt,) the
-    estimated error of C (kg m-3; NaN for finite volumes, whose discretisation error the
-    engine does not estimate).  ``concentration_at(depth, times)`` serves any times from
-    the engine that serves them (Laplace inversion before the modal range, a
-    finite-volume run at those times for the finite-volume engine).
+    CheckedSolution with ``engine_by_time`` (nt,) strings ("modal", "laplace",
+    "finite-volume", "initial" at t = 0, "" where refused), ``error`` (quantity ->
+    (nt,) absolute bounds), ``error_estimate`` (that of C, kg m-3) and ``reliable``.
+    ``concentration_at(depth, times)`` serves any times from the engine that was
+    vouched for there.
     """
     if engine not in ENGINES:
         raise InputError(f"engine {engine!r} is unknown; use one of " + ", ".join(ENGINES))
+    if on_unreliable not in ON_UNRELIABLE:
+        raise InputError(f"on_unreliable {on_unreliable!r} is unknown; use "
+                         + " or ".join(ON_UNRELIABLE))
+    if tolerance is None:
+        tolerance = FV_TOLERANCE if engine == "finite-volume" else DEFAULT_TOLERANCE
+    if not (isinstance(tolerance, (int, float)) and 0 < tolerance < 1):
+        raise InputError(f"tolerance must be a number between 0 and 1, got {tolerance!r}")
     initial = initial or InitialState.clean()
     times = np.asarray(times, dtype=float).ravel()
     depths = np.asarray(depths, dtype=float).ravel()
     if semi_infinite_bottom and engine in ("modal", "finite-volume"):
         raise InputError(f"a semi-infinite bottom layer needs the Laplace engine (or auto), "
                          f"not {engine!r}")
-    if engine == "laplace" or (engine == "auto" and semi_infinite_bottom):
-        sol = solve_laplace(column, times, depths, initial, semi_infinite_bottom)
-        label = np.where(times > 0, "laplace", "initial").astype(object)
-        return _merge(column, times, depths, [(sol, slice(None))], label,
-                      sol.error_estimate, None,
-                      _laplace_evaluator(column, initial, semi_infinite_bottom))
-    if engine == "modal":
-        sol = modal.solve(column, times, depths, initial, tolerance, max_modes)
-        err, _ = _modal_error(sol, tolerance)
-        label = np.where(times > 0, "modal", "initial").astype(object)
-        return _merge(column, times, depths, [(sol, slice(None))], label, err, sol.series)
-    if engine == "finite-volume":
-        sol = solve_fv_result(column, times, depths, initial, cells_per_layer=cells_per_layer)
-        label = np.where(times > 0, "finite-volume", "initial").astype(object)
-        return _merge(column, times, depths, [(sol, slice(None))], label,
-                      np.full(times.size, np.nan), None,
-                      _fv_evaluator(column, initial, cells_per_layer))
-    return _auto(column, times, depths, initial, tolerance, max_modes)
-
-
-def _auto(column, times, depths, initial, tolerance, max_modes):
     nt = times.size
-    label = np.where(times > 0, "laplace", "initial").astype(object)
+    lap = solve_laplace(column, times, depths, initial, semi_infinite_bottom)
+    everything = np.arange(nt)
+    lap_c = _expand(lap, everything, nt)
+    laplace_at = _laplace_evaluator(column, initial, semi_infinite_bottom)
+    bounds = None if semi_infinite_bottom else concentration_bounds(
+        column, initial, float(times.max()) if nt else 0.0)
+    series, evaluator = None, laplace_at
+    if engine == "laplace" or semi_infinite_bottom:
+        cands = [("laplace", lap_c)]
+    elif engine == "finite-volume":
+        fv = solve_fv_result(column, times, depths, initial, cells_per_layer=cells_per_layer,
+                             tolerance=tolerance)
+        cands = [("finite-volume", _expand(fv, everything, nt)), ("laplace", lap_c)]
+        evaluator = fv.evaluator
+    else:
+        rows = _modal_rows(column, times, tolerance, max_modes, forced=engine == "modal")
+        cands = []
+        if rows.size:
+            with warnings.catch_warnings():
+                if engine == "auto":  # the cross-check below settles what they warn of
+                    warnings.simplefilter("ignore", modal.ModeCapWarning)
+                    warnings.simplefilter("ignore", modal.AccuracyWarning)
+                sol = modal.solve(column, times[rows], depths, initial, tolerance, max_modes)
+            cands.append(("modal", _expand(sol, rows, nt)))
+            series = sol.series
+            eig, n_modes = sol.eigenvalues, sol.n_modes
+        cands.append(("laplace", lap_c))
+    selectable = 1 if engine != "auto" else len(cands)
+    choice = choose(times, [(n, c[0], c[1]) for n, c in cands], tolerance, bounds, column,
+                    depths, budgets=[c[2] for n, c in cands], selectable=selectable)
+    if not choice.reliable.all() and on_unreliable == "raise":
+        tried = " and ".join(n for n, _ in cands[:selectable]) + (
+            " (cross-checked against laplace)" if selectable < len(cands) else "")
+        raise UnreliableResultError(describe_refusal(times, choice, tolerance, tried),
+                                    times[~choice.reliable],
+                                    [q for q in QUANTITIES
+                                     if np.any(choice.failed[q] & ~choice.reliable)])
+    vals, budget = assemble([(n, c[0], c[1]) for n, c in cands], choice,
+                            [c[2] for n, c in cands])
+    if series is not None:
+        used = choice.engine == "modal"
+        later = np.flatnonzero(~used & (times > 0))
+        cut = later.max() + 1 if later.size else 0
+        if cut < nt and used[cut:].all():
+            evaluator = _auto_evaluator(series, float(times[cut]), laplace_at)
+        else:
+            series = None if engine == "auto" else series
+    if series is None or not (choice.engine == "modal").any():
+        eig, n_modes = np.empty(0), 0
+    names = sorted({e for e in choice.engine if e not in ("", "initial")})
+    return CheckedSolution(
+        column=column, times=times, depths=depths, concentration=vals["concentration"],
+        total_flux=vals["total_flux"], cumulative_mass=vals["cumulative_mass"],
+        budget=budget, eigenvalues=eig, n_modes=n_modes,
+        engine="+".join(names) or "none", series=series,
+        engine_by_time=choice.engine, error_estimate=choice.error["concentration"],
+        evaluator=evaluator, error=choice.error, reliable=choice.reliable,
+        tolerance=float(tolerance), scale=choice.scale,
+        mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom))
+
+
+def _laplace_mass_at(column, initial, semi_infinite_bottom):
+    def at(depth, t):
+        if t <= 0:
+            return 0.0, 0.0
+        sol = solve_laplace(column, [t], [depth], initial, semi_infinite_bottom)
+        err = own_errors(sol)["cumulative_mass"][0]
+        return float(sol.cumulative_mass[0, 0]), float(np.nan_to_num(err, nan=np.inf))
+    return at
+
+
+def _modal_rows(column, times, tolerance, max_modes, forced):
+    """Output times the modal engine is asked for: all positive times when forced, else
+    those its mode cap can resolve (Weyl estimate); none beyond its Peclet range."""
+    positive = np.flatnonzero(times > 0)
+    if forced:
+        return positive
     try:
         op = build_operator(column)
     except InputError:  # column Peclet number beyond the modal engine's range
-        op = None
-    modal_ok = np.zeros(nt, bool)
-    if op is not None:
-        need = np.array([_weyl_modes(op, t, tolerance) if t > 0 else 0 for t in times])
-        modal_ok = (times > 0) & (need <= max_modes)
-    parts, err = [], np.zeros(nt)
-    series = None
-    if modal_ok.any():
-        rows = np.flatnonzero(modal_ok)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", modal.ModeCapWarning)
-            warnings.simplefilter("ignore", modal.AccuracyWarning)
-            sol = modal.solve(column, times[rows], depths, initial, tolerance, max_modes)
-        lam_top = float(sol.eigenvalues[-1])
-        n = sol.eigenvalues.size
-        t_ok = (math.log(1 / tolerance) + math.log(n) + 2) / lam_top if lam_top > 0 else 0.0
-        e_modal, scale = _modal_error(sol, tolerance)
-        bound = e_modal - tolerance * scale
-        good = (times[rows] >= t_ok * (1 - 1e-12)) & (bound <= tolerance * np.maximum(
-            scale, 1e-300))
-        if good.any():
-            keep = rows[good]
-            sub = _take(sol, good)
-            parts.append((sub, keep))
-            label[keep] = "modal"
-            err[keep] = e_modal[good]
-            series = sol.series
-        modal_ok[rows[~good]] = False
-    lap = (times > 0) & ~modal_ok
-    zero = times == 0
-    if lap.any() or zero.any():
-        rows = np.flatnonzero(lap | zero)
-        sol = solve_laplace(column, times[rows], depths, initial)
-        parts.append((sol, rows))
-        err[rows] = sol.error_estimate
-    laplace_at = _laplace_evaluator(column, initial, False)
-    if series is None:
-        evaluator = laplace_at
-    else:
-        # modal from the first output time after which every output time is modal
-        positive = times > 0
-        after = np.flatnonzero(positive & ~modal_ok)
-        t_modal = float(times[after].max()) if after.size else 0.0
-        later = times[(times > t_modal) & modal_ok]
-        t_modal = float(later.min()) if later.size else np.inf
-        evaluator = _auto_evaluator(series, t_modal, laplace_at)
-    return _merge(column, times, depths, parts, label, err, series, evaluator)
-
-
-def _take(sol, mask):
-    """Rows ``mask`` of a solution, as a light object with the fields _merge reads."""
-    class _Rows:
-        pass
-    out = _Rows()
-    out.concentration = sol.concentration[mask]
-    out.total_flux = sol.total_flux[mask]
-    out.cumulative_mass = sol.cumulative_mass[mask]
-    out.budget = {k: np.asarray(v)[mask] for k, v in sol.budget.items()}
-    out.engine, out.eigenvalues, out.n_modes = sol.engine, sol.eigenvalues, sol.n_modes
-    return out
+        return np.empty(0, int)
+    need = np.array([_weyl_modes(op, t, tolerance) for t in times[positive]])
+    return positive[need <= max_modes]

@@ -201,9 +201,12 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win)
     series = getattr(solution, "series", None)
     cum = c_ss = None
-    if series is not None:
+    if getattr(solution, "mass_at", None) is not None:  # vouched by two engines
+        cum = float(solution.cumulative_mass_at(receptor_depth, horizon)[0])
+    elif series is not None:
         cum = float(series.cumulative_mass(np.array([receptor_depth]),
                                            np.array([horizon]))[0, 0])
+    if series is not None:
         # steady state of the last stage
         last, offset = series, 0.0
         if hasattr(last, "timeline"):
