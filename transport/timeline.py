@@ -18,6 +18,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from .engines import CheckedSolution
 from .modal import ColumnSolution, build_series, earliest_time_after_change
 from .model import Boundary, Column, InitialState, InputError, Layer
 
@@ -340,31 +341,134 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
 
 
 def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e-8,
-                   max_modes=4000):
-    """Fields on the (time, depth) grid for a staged run; depths in the original frame."""
+                   max_modes=4000, engine: str = "auto", on_unreliable: str = "raise"):
+    """Fields on the (time, depth) grid for a staged run; depths in the original frame.
+
+    ``engine``: "auto" (the modal stages where they agree with the staged Laplace engine
+    of :mod:`transport.staged` within ``tolerance`` for every quantity, else the
+    Laplace value where its own bound meets it), "modal" or "laplace" (that engine's
+    values, vouched for as in :func:`transport.engines.solve_column`).  Times no engine
+    can vouch for raise :class:`transport.checks.UnreliableResultError`, or with
+    ``on_unreliable="flag"`` are NaN and flagged in ``reliable``.
+    """
+    from .checks import (QUANTITIES, UnreliableResultError, assemble, choose,
+                         concentration_bounds, describe_refusal, quantities)
+    from .staged import solve_staged_laplace
+    if engine not in ("auto", "modal", "laplace"):
+        raise InputError(f"a scenario with [[actions]] runs on the auto, modal or laplace "
+                         f"engine; {engine!r} does not take stages yet")
+    if on_unreliable not in ("raise", "flag"):
+        raise InputError(f"on_unreliable {on_unreliable!r} is unknown; use raise or flag")
     times = np.asarray(times, float).ravel()
     depths = np.asarray(depths, float).ravel()
     if np.any(times < 0) or not np.all(np.isfinite(times)):
         raise InputError("output times must be finite and >= 0 s")
+    initial = initial or InitialState.clean()
+    nt = times.size
+    t_end = float(times.max()) if nt else 0.0
+    # bounds (maximum principle) hold stage by stage; a carried state lies within the
+    # previous stage's bounds, so the union over stages bounds the run
+    stage_bounds = [concentration_bounds(local_column(st), initial if i == 0 else None,
+                                         max(t_end - st.start, 0.0))
+                    for i, st in enumerate(timeline.stages)]
+    bounds = None
+    if all(np.all(b.kappa == 1.0) for b in stage_bounds):
+        lo = [b.lo for b in stage_bounds]
+        hi = [b.hi for b in stage_bounds]
+        from .checks import Bounds
+        bounds = Bounds(None if None in lo else min(lo), None if None in hi else max(hi),
+                        np.ones(len(timeline.stages[0].column.layers)))
+    cands, series, modal_sol = [], None, None
+    if engine in ("auto", "modal"):
+        import warnings
+        with warnings.catch_warnings():
+            if engine == "auto":
+                from .modal import AccuracyWarning, ModeCapWarning
+                warnings.simplefilter("ignore", AccuracyWarning)
+                warnings.simplefilter("ignore", ModeCapWarning)
+            modal_sol = _solve_timeline_modal(timeline, times, depths, initial, tolerance,
+                                              max_modes)
+        nan = {q: np.full(nt, np.nan) for q in QUANTITIES}
+        cands.append(("modal", quantities(modal_sol), nan, modal_sol.budget))
+        series = modal_sol.series
+    scale = bounds.scale if bounds is not None and bounds.scale is not None else None
+    if scale is None:
+        c = np.abs(modal_sol.concentration) if modal_sol is not None else np.zeros(1)
+        c = c[np.isfinite(c)]
+        scale = float(c.max()) if c.size and c.max() > 0 else 1.0
+    lv, lown, lbudget, staged, lwit = solve_staged_laplace(timeline, times, depths, initial,
+                                                     tolerance, scale, local_column)
+    lq = dict(lv)
+    from .checks import budget_terms
+    lq["budget"] = budget_terms(lbudget, nt)
+    cands.append(("laplace", lq, lown, lbudget))
+    selectable = len(cands) if engine == "auto" else 1
+    col0 = timeline.stages[0].column
+    choice = choose(times, [c[:3] for c in cands], tolerance, bounds, col0, depths,
+                    budgets=[c[3] for c in cands], selectable=selectable,
+                    witness=[None] * (len(cands) - 1) + [lwit])
+    if not choice.reliable.all() and on_unreliable == "raise":
+        tried = " and ".join(c[0] for c in cands[:selectable]) + " on every stage" + (
+            " (cross-checked against laplace)" if selectable < len(cands) else "")
+        raise UnreliableResultError(describe_refusal(times, choice, tolerance, tried),
+                                    times[~choice.reliable],
+                                    [q for q in QUANTITIES
+                                     if np.any(choice.failed[q] & ~choice.reliable)])
+    vals, budget = assemble([c[:3] for c in cands], choice, [c[3] for c in cands])
+    evaluator = staged.concentration_at
+    if series is not None:
+        used = choice.engine == "modal"
+        later = np.flatnonzero(~used & (times > 0))
+        cut = later.max() + 1 if later.size else 0
+        if cut < nt and used[cut:].all():
+            t_modal = float(times[cut])
+
+            def modal_late(depth, t, series=series, lap=staged.concentration_at):
+                t = np.atleast_1d(np.asarray(t, float))
+                out = np.empty(t.size)
+                late = t >= t_modal
+                if late.any():
+                    out[late] = series.concentration_at(depth, t[late])
+                if (~late).any():
+                    out[~late] = lap(depth, t[~late])
+                return out
+            evaluator = modal_late
+        elif engine == "auto":
+            series = None
+    names = sorted({e for e in choice.engine if e not in ("", "initial")})
+    n_modes = modal_sol.n_modes if (series is not None and modal_sol is not None) else 0
+    eig = modal_sol.eigenvalues if n_modes else np.empty(0)
+    return TimelineSolution(
+        column=col0, times=times, depths=depths, concentration=vals["concentration"],
+        total_flux=vals["total_flux"], cumulative_mass=vals["cumulative_mass"],
+        budget=budget, eigenvalues=eig, n_modes=n_modes,
+        engine="+".join(names) or "none", series=series,
+        engine_by_time=choice.engine, error_estimate=choice.error["concentration"],
+        evaluator=evaluator, error=choice.error, reliable=choice.reliable,
+        tolerance=float(tolerance), scale=choice.scale, timeline=timeline,
+        mass_at=staged.mass_at)
+
+
+def _solve_timeline_modal(timeline: Timeline, times, depths, initial, tolerance,
+                          max_modes):
+    """The modal stages on the output grid (unchecked)."""
     ts = build_timeline(timeline, initial, times, tolerance, max_modes)
     conc = ts.concentration(depths, times)
     first = timeline.stages[0]
     zero = times == 0
     if zero.any():
         from .projection import initial_profile
-        c0 = initial_profile(first.column, initial or InitialState.clean(), depths)
-        conc[zero] = c0
-    return TimelineSolution(
+        conc[zero] = initial_profile(first.column, initial, depths)
+    return ColumnSolution(
         column=first.column, times=times, depths=depths, concentration=conc,
         total_flux=ts.total_flux(depths, times),
         cumulative_mass=np.where(zero[:, None], 0.0, ts.cumulative_mass(depths, times)),
         budget=ts.budget(times), eigenvalues=ts.series[-1].eigenvalues,
-        n_modes=int(max(s.eigenvalues.size for s in ts.series)), series=ts,
-        timeline=timeline)
+        n_modes=int(max(s.eigenvalues.size for s in ts.series)), series=ts)
 
 
 @dataclass(frozen=True)
-class TimelineSolution(ColumnSolution):
+class TimelineSolution(CheckedSolution):
     timeline: Timeline = field(default=None, repr=False, compare=False)
 
     def roundoff_bound(self, z, t):
