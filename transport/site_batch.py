@@ -37,6 +37,9 @@ from collections import OrderedDict
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
+from .checks import (QUANTITIES, UnreliableResultError, choose, concentration_bounds,
+                     describe_refusal, own_errors, quantities)
+from .laplace import solve_laplace
 from .modal import AccuracyWarning, build_series, earliest_time_after_change
 from .projection import initial_profile
 from .model import InitialState
@@ -270,13 +273,74 @@ def _solve_column(site, col, depth, times, grid, initial=None):
                 f"at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; use later "
                 "output times or cross-check with another engine", AccuracyWarning)
     conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
+    conc, cum, conc_at = _checked(site, col, initial, times, np.append(z, depth), t_end,
+                                  conc, cum, lambda t: receptor.concentration(t)[:, 0])
     t_start = float(times[positive].min())
     receptor = probe.rows(slice(-1, None))
-    m = _curve_metrics(lambda t: receptor.concentration(t)[:, 0], t_start, t_end,
-                       site.screening_level, SCAN_SAMPLES)
+    m = _curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics,
             tuple(str(w.message) for w in caught))
+
+
+def _checked(site, col, initial, times, z, t_end, conc, cum, modal_at):
+    """The modal fields of a boring vouched for by the Laplace engine (as
+    :func:`transport.engines.solve_column`): per output time the modal values where the
+    two agree within the tolerance for C and the cumulative mass, else the Laplace
+    values; a time neither can vouch for refuses the boring.  Returns the fields and
+    the receptor curve C(t) the metrics are read from (modal only where every output
+    time from the first positive one on was served by it)."""
+    tol = site.tolerance
+    t_all = np.append(times, t_end)
+    lap = solve_laplace(col, t_all, z, initial)
+    lq = quantities(lap)
+    le = own_errors(lap)
+    # the last row of cum is the design life at every depth; C there is not asked for
+    mq = {"concentration": np.vstack([conc, lq["concentration"][-1:]]),
+          "total_flux": lq["total_flux"], "cumulative_mass": cum,
+          "budget": np.zeros((t_all.size, 0))}
+    nan = {q: np.full(t_all.size, np.nan) for q in QUANTITIES}
+    nan["total_flux"] = le["total_flux"]  # not a modal output here: taken from Laplace
+    nan["budget"] = np.zeros(t_all.size)
+    lq["budget"] = np.zeros((t_all.size, 0))
+    le = dict(le, budget=np.zeros(t_all.size))
+    bounds = concentration_bounds(col, initial, float(t_all.max()))
+    choice = choose(t_all, [("modal", mq, nan), ("laplace", lq, le)], tol, bounds, col, z)
+    if not choice.reliable.all():
+        raise UnreliableResultError(
+            f"boring column of {col.length:g} m: "
+            + describe_refusal(t_all, choice, tol, "modal and laplace"),
+            t_all[~choice.reliable])
+    modal = choice.engine == "modal"
+    conc = np.where(modal[:-1, None], conc, lq["concentration"][:-1])
+    cum = np.where(modal[:, None], cum, lq["cumulative_mass"])
+    if modal[:-1][times > 0].all():
+        return conc, cum, modal_at
+    depth = float(z[-1])
+
+    def laplace_at(t):
+        t = np.atleast_1d(np.asarray(t, float))
+        return solve_laplace(col, t, [depth], initial).concentration[:, 0]
+    return conc, cum, laplace_at
+
+
+def _verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
+                      scale):
+    """Check a realization's breakthrough and peak against the Laplace engine; if the
+    modal curve is off there, read both metrics from the Laplace curve instead."""
+    probe_t = [t for t in (bt, pk_t) if np.isfinite(t) and t > 0]
+    if not probe_t:
+        return bt, pk
+    lap = solve_laplace(col, probe_t, [depth], initial)
+    c, e = lap.concentration[:, 0], own_errors(lap)["concentration"]
+    want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
+    if np.all(np.abs(c - np.array(want)) <= tol * scale + e):
+        return bt, pk
+
+    def laplace_at(t):
+        return solve_laplace(col, np.atleast_1d(t), [depth], initial).concentration[:, 0]
+    bt2, _, pk2 = _curve_metrics(laplace_at, t_start, t_end, level, SCAN_SAMPLES)
+    return bt2, pk2
 
 
 def _realization_metrics(site, col, depth, t_start, times, initial=None):
@@ -286,8 +350,12 @@ def _realization_metrics(site, col, depth, t_start, times, initial=None):
         series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
                              initial=initial)
     probe = _Probe(series, [depth])
-    bt, _, pk = _curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
-                               site.design_life, site.screening_level, SCAN_SAMPLES)
+    bt, pk_t, pk = _curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
+                                  site.design_life, site.screening_level, SCAN_SAMPLES)
+    scale = concentration_bounds(col, initial, site.design_life).scale or max(abs(pk), 1e-300)
+    bt, pk = _verified_metrics(col, initial or InitialState.clean(), depth, t_start,
+                               site.design_life, site.screening_level, site.tolerance, bt,
+                               pk_t, pk, scale)
     return bt, pk, tuple(str(w.message) for w in caught)
 
 
