@@ -80,8 +80,8 @@ def test_units_parse_and_long_names(run):
 def test_dsg_layout_opens_with_xarray_and_netcdf4(run):
     """Orthogonal multidimensional timeSeriesProfile (CF 9.3.1, H.5.1): dims
     (station, time, depth), station_id the only cf_role, fill below a boring's
-    bottom, caution in the global comment; values equal the in-memory solve to
-    float32 precision."""
+    bottom, caution in the global comment; values equal the in-memory solve exactly
+    (double precision)."""
     site, files = run
     with xr.open_dataset(files.netcdf, engine="netcdf4") as ds:
         assert ds.attrs["featureType"] == "timeSeriesProfile"
@@ -96,10 +96,10 @@ def test_dsg_layout_opens_with_xarray_and_netcdf4(run):
     ref = result.fields["concentration"]
     assert np.array_equal(np.isnan(conc), np.isnan(ref))
     ok = ~np.isnan(ref)
-    np.testing.assert_allclose(conc[ok], ref[ok], rtol=1e-6, atol=1e-6 * np.nanmax(ref))
+    np.testing.assert_array_equal(conc[ok], ref[ok])
     np.testing.assert_array_equal(p, result.metrics["exceedance_probability"])
     with netCDF4.Dataset(files.netcdf) as nc:
-        assert nc["concentration"]._FillValue == np.float32(-9999.0)
+        assert nc["concentration"]._FillValue == -9999.0
         assert nc["concentration"].grid_mapping == "crs"
 
 

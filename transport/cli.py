@@ -31,6 +31,7 @@ PLATEAU_RTOL = 1e-6
 #: point exceeds this fraction of the screening level.
 RELIABLE_FRACTION = 0.1
 EXIT_INPUT = 2
+EXIT_REFUSED = 3
 
 # Prefix per error class; a ScenarioError already starts with the file and key path.
 _ERROR_KIND = {
@@ -73,6 +74,11 @@ class _Group(click.Group):
             raise
         except (ValueError, OSError) as exc:  # ScenarioError, UnitError, InputError: ValueError
             raise UserError(_describe(exc)) from None
+        except RuntimeError as exc:
+            from transport.checks import UnreliableResultError
+            if isinstance(exc, UnreliableResultError):
+                raise Refused(f"refused: {exc}") from None
+            raise
 
 
 # ----------------------------------------------------------------------------- formatting
@@ -118,13 +124,26 @@ def _setting(scenario, name):
     return getattr(getattr(scenario, "output", None), name, None)
 
 
-def _solve(scenario, depths=None, engine="auto"):
+def _solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable=False):
+    from transport.checks import UnreliableResultError
     from transport.runner import solve_scenario
 
-    solution, caught = solve_scenario(scenario, depths=depths, engine=engine)
+    try:
+        solution, caught = solve_scenario(
+            scenario, depths=depths, engine=engine, tolerance=tolerance,
+            on_unreliable="flag" if allow_unreliable else "raise")
+    except UnreliableResultError as exc:
+        raise Refused(f"{getattr(scenario, 'path', None) or 'scenario'}: refused: {exc}") \
+            from None
     for message in caught:
         click.echo(textwrap.fill(f"Warning: {message}", width=88), err=True)
     return solution
+
+
+class Refused(UserError):
+    """No engine could vouch for the results: nothing is written, exit status 3."""
+
+    exit_code = EXIT_REFUSED
 
 
 def _progress(step: int, total: int, text: str):
@@ -138,15 +157,15 @@ def _horizon(scenario, solution) -> float:
 
 
 def _error_at(solution, depth: float, t: float):
-    """The solver's rounding-error estimate of C (kg m-3) at (depth, t), if it gives one."""
-    bound = getattr(solution, "roundoff_bound", None)
-    if bound is None:
+    """The error bound of C (kg m-3) the run reports at the output times around t."""
+    err = getattr(solution, "error_estimate", None)
+    if err is None:
         return None
-    try:
-        value = np.asarray(bound(np.array([float(depth)]), np.array([float(t)])), float)
-    except (AttributeError, TypeError, ValueError):  # an engine without the estimate
-        return None
-    return float(np.max(value)) if value.size else None
+    times = np.asarray(solution.times, float)
+    err = np.asarray(err, float)
+    i = int(np.searchsorted(times, t))
+    near = err[max(i - 1, 0):i + 1]
+    return float(np.max(near)) if near.size else None
 
 
 def _reliability_note(solution, depth: float, t: float, level: float) -> str:
@@ -156,11 +175,28 @@ def _reliability_note(solution, depth: float, t: float, level: float) -> str:
         return ""
     return (f" CAUTION: the solver's error estimate there ({format_concentration(error)}) "
             f"is not small compared with the screening level; this time is not reliable. "
-            "Cross-check with another engine or use later output times.")
+            "Use a tighter tolerance or later output times.")
+
+
+def _refused_lines(solution):
+    """What the run could not vouch for (with --allow-unreliable)."""
+    reliable = getattr(solution, "reliable", None)
+    if reliable is None or np.all(reliable):
+        return []
+    bad = np.asarray(solution.times, float)[~np.asarray(reliable)]
+    shown = ", ".join(format_time(t) for t in bad[:6]) + (" ..." if bad.size > 6 else "")
+    return [f"CAUTION: no engine could vouch for {bad.size} output time(s) within the "
+            f"tolerance {solution.tolerance:g} ({shown}); their values are left empty "
+            "(NaN) and flagged in the file, and no receptor metrics or budget are "
+            "reported for this run. Loosen the tolerance or change the output times."]
 
 
 def _summary_lines(scenario, solution):
     lines = [f"Scenario: {scenario.title}"]
+    refused = _refused_lines(solution)
+    if refused:
+        return lines + refused
+    err = getattr(solution, "error", None)
     receptor = _setting(scenario, "receptor_depth")
     level = _setting(scenario, "screening_level")
     t_end = _horizon(scenario, solution)
@@ -220,6 +256,16 @@ def _summary_lines(scenario, solution):
             f"{last.get('decayed', math.nan):.6g}, produced {last.get('produced', math.nan):.6g}; "
             f"residual {last.get('residual', math.nan):.3g} "
             f"({abs(last.get('residual', math.nan)) / scale:.2g} of the largest term).")
+    if err is not None and getattr(solution, "scale", None):
+        from transport.checks import QUANTITIES
+        names = {"concentration": "concentration", "total_flux": "flux",
+                 "cumulative_mass": "cumulative mass", "budget": "budget"}
+        worst = ", ".join(
+            f"{names[q]} {np.nanmax(np.asarray(err[q], float)) / solution.scale[q]:.1g}"
+            for q in QUANTITIES)
+        lines.append(f"Checked (tolerance {solution.tolerance:g}): largest error bound "
+                     f"relative to the scale of each quantity: {worst}; physical bounds and "
+                     "the mass budget hold at every output time.")
     return lines
 
 
@@ -312,9 +358,20 @@ def main():
               help="Directory for PNG figures (profiles, breakthrough).")
 @click.option("--engine", type=click.Choice(["auto", "modal", "laplace", "finite-volume"]),
               default="auto", show_default=True,
-              help="Solution method; auto picks modal or Laplace per output time.")
-def run(scenario, output, plots_dir, engine):
+              help="Solution method; auto takes the modal value where the Laplace engine "
+                   "confirms it, else the Laplace value, per output time.")
+@click.option("--tolerance", type=click.FloatRange(min=1e-14, max=0.1), default=None,
+              help="Relative tolerance of every reported number (default: the scenario's "
+                   "[output] tolerance, 1e-8 unless set).")
+@click.option("--allow-unreliable", is_flag=True,
+              help="Write the times the engines can vouch for and leave the others empty "
+                   "(NaN, flagged) instead of refusing the run.")
+def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     """Solve SCENARIO, write a CF NetCDF file and print a summary.
+
+    Every number is checked (two independent engines, physical bounds, mass budget);
+    a run that cannot be vouched for within the tolerance is refused (exit status 3)
+    and writes nothing.
 
     \b
     Example:
@@ -332,12 +389,21 @@ def run(scenario, output, plots_dir, engine):
     sc = _load(scenario)
     _progress(2, total, f"solving {len(sc.column.layers)} layer(s), "
                         f"{len(sc.times)} time(s) x {len(sc.depths)} depth(s)")
-    solution = _solve(sc, engine=engine)
+    solution = _solve(sc, engine=engine, tolerance=tolerance,
+                      allow_unreliable=allow_unreliable)
     by_time = getattr(solution, "engine_by_time", None)
-    used = sorted(set([solution.engine] if by_time is None else list(by_time)) - {"initial"})
-    click.echo(f"      engine(s): {', '.join(used)}; {solution.n_modes} modes", err=True)
+    used = sorted(set([solution.engine] if by_time is None else list(by_time))
+                  - {"initial", ""})
+    click.echo(f"      engine(s): {', '.join(used) or 'none'}; {solution.n_modes} modes; "
+               f"tolerance {solution.tolerance:g}", err=True)
+    # the reading of the run comes first: a failure there must not cost an old file
+    lines = _summary_lines(sc, solution)
     _progress(3, total, f"writing {output}")
     command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
+    if tolerance is not None:
+        command += ["--tolerance", f"{tolerance:g}"]
+    if allow_unreliable:
+        command += ["--allow-unreliable"]
     if plots_dir:
         command += ["--plots", str(plots_dir)]
     receptor, level = _setting(sc, "receptor_depth"), _setting(sc, "screening_level")
@@ -352,7 +418,7 @@ def run(scenario, output, plots_dir, engine):
                                  title=sc.title):
             click.echo(f"      {path}", err=True)
     click.echo("")
-    for line in _summary_lines(sc, solution):
+    for line in lines:
         _echo_wrapped(line)
     click.echo(f"Results: {output}")
     click.echo("")

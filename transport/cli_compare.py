@@ -18,8 +18,12 @@ __all__ = ["compare"]
               show_default=True, help="Directory for the table (CSV, Markdown), NetCDF and "
               "figures.")
 @click.option("--engine", type=click.Choice(["auto", "modal", "laplace", "finite-volume"]),
-              default="auto", show_default=True, help="Solution method for unstaged runs.")
-def compare(scenarios, out_dir, engine):
+              default="auto", show_default=True,
+              help="Solution method (staged alternatives: auto, modal or laplace).")
+@click.option("--tolerance", type=click.FloatRange(min=1e-14, max=0.1), default=None,
+              help="Relative tolerance of every reported number (default: each "
+                   "scenario's [output] tolerance).")
+def compare(scenarios, out_dir, engine, tolerance):
     """Run remediation alternatives and compare them: one scenario file each, or one file
     with [[alternatives]] tables (each a name and its own actions).
 
@@ -45,12 +49,14 @@ def compare(scenarios, out_dir, engine):
                            file=sys.stderr) as bar:
         def step(label):
             bar.update(1)
-        alts = compare_alternatives(loaded, labels, engine=engine, progress=step)
+        alts = compare_alternatives(loaded, labels, engine=engine, progress=step,
+                                    tolerance=tolerance)
     for a in alts:
         for message in a.warnings:
             click.echo(textwrap.fill(f"Warning ({a.label}): {message}", width=88), err=True)
     history = shlex.join(["stratiflux", "compare", *scenarios, "-o", out_dir, "--engine",
-                          engine])
+                          engine] + ([] if tolerance is None else
+                                     ["--tolerance", f"{tolerance:g}"]))
     paths = write_outputs(alts, out_dir, history=history, title="Comparison of alternatives")
     click.echo(table_text(comparison_table(alts)))
     click.echo("")

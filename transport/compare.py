@@ -19,6 +19,7 @@ import xarray as xr
 from .caution import CAUTION
 from .io.netcdf import column_dataset, write_dataset_atomic
 from .metrics import ReceptorMetrics, receptor_metrics
+from .checks import UnreliableResultError
 from .runner import solve_scenario
 
 __all__ = ["Alternative", "compare_alternatives", "comparison_table", "comparison_dataset",
@@ -36,7 +37,8 @@ class Alternative:
     warnings: tuple = ()
 
 
-def compare_alternatives(scenarios, labels=None, engine="auto", progress=None):
+def compare_alternatives(scenarios, labels=None, engine="auto", progress=None,
+                         tolerance=None):
     """Solve every scenario on the union of their output grids; returns Alternatives."""
     labels = list(labels) if labels else [s.title for s in scenarios]
     if len(set(labels)) != len(labels):
@@ -49,7 +51,12 @@ def compare_alternatives(scenarios, labels=None, engine="auto", progress=None):
             progress(label)
         # depths outside this alternative's column (another one's cap) come back as NaN
         inside = depths[(depths >= _top(sc)) & (depths <= sc.column.length)]
-        sol, caught = solve_scenario(sc, depths=inside, times=times, engine=engine)
+        try:
+            sol, caught = solve_scenario(sc, depths=inside, times=times, engine=engine,
+                                         tolerance=tolerance)
+        except UnreliableResultError as exc:
+            raise UnreliableResultError(f"alternative {label!r}: {exc}", exc.times,
+                                        exc.quantities) from None
         sol = _on_grid(sol, depths, inside)
         horizon = sc.output.design_life or float(times.max())
         m = receptor_metrics(sol, sc.output.receptor_depth, sc.output.screening_level,
@@ -203,10 +210,11 @@ def comparison_dataset(alts, title="stratiflux comparison", history=None):
             ("scenario",), vals, {"long_name": long, "units": units, "comment": CAUTION})
     for name in ds.data_vars:
         var = ds[name]
-        if name in ("depth_bnds",):
+        if name in ("depth_bnds", "engine", "reliable"):
             var.encoding = {"_FillValue": None}
         elif var.dims[-2:] == ("time", "depth"):
-            var.encoding = {"zlib": True, "complevel": 4, "shuffle": True, "dtype": "float32",
+            # double precision: single precision (1e-7) would break the stated tolerance
+            var.encoding = {"zlib": True, "complevel": 4, "shuffle": True, "dtype": "float64",
                             "_FillValue": -9999.0}
         else:
             var.encoding = {"dtype": "float64", "_FillValue": -9999.0}

@@ -37,7 +37,7 @@ __all__ = [
 NOMINAL_START = "2000-01-01 00:00:00"
 TIME_UNITS = f"days since {NOMINAL_START}"
 SECONDS_PER_DAY = 86400.0
-#: Fill value of the float32 fields (NETCDF.md); budgets are float64 with the same fill.
+#: Fill value of the fields (NETCDF.md); all floating fields are float64.
 FILL_VALUE = -9999.0
 #: zlib level 4 + shuffle: readable by every GDAL and netCDF-C build (NETCDF.md).
 _COMPRESSION = {"zlib": True, "complevel": 4, "shuffle": True}
@@ -94,6 +94,60 @@ def _as_array(name: str, value, shape: tuple) -> np.ndarray:
         raise ValueError(f"solution.{name} has shape {arr.shape}, expected {shape} "
                          "(times, depths)")
     return arr
+
+
+_ERROR_VARS = (("concentration", "concentration_error_bound", "kg m-3"),
+               ("total_flux", "total_flux_error_bound", "kg m-2 s-1"),
+               ("cumulative_mass", "cumulative_mass_error_bound", "kg m-2"),
+               ("budget", "budget_error_bound", "kg m-2"))
+
+
+def _source_text(solution) -> str:
+    engine = getattr(solution, "engine", "unknown")
+    what = {"modal": f"eigenfunction expansion on the exact layered spectrum "
+                     f"({int(getattr(solution, 'n_modes', 0))} modes), confirmed by "
+                     "numerical Laplace inversion",
+            "laplace": "exact layered Laplace-domain solution, numerically inverted on a "
+                       "Talbot contour",
+            "finite-volume": "finite-volume method of lines"}
+    parts = [what.get(e, e) for e in str(engine).split("+")]
+    tol = getattr(solution, "tolerance", None)
+    text = f"stratiflux {_version()}; engine {engine}: " + "; ".join(parts)
+    if tol is not None:
+        text += f"; every value within {tol:g} of the scale of its quantity " \
+                "(see the *_error_bound variables) unless flagged in reliable"
+    return text
+
+
+def _check_variables(solution, nt: int, caution: str) -> dict:
+    """Per output time: the engine that served it, whether it was vouched for, and the
+    error bound of every quantity (largest over depths / budget terms)."""
+    out = {}
+    by_time = getattr(solution, "engine_by_time", None)
+    if by_time is not None:
+        names = np.array([str(e) if e else "none" for e in by_time], dtype=object)
+        out["engine"] = (("time",), names, {
+            "long_name": "solution method that served this output time",
+            "comment": "modal: eigenfunction expansion confirmed by the Laplace engine; "
+                       "laplace: numerical Laplace inversion; finite-volume: method of "
+                       "lines; initial: the initial state; none: refused"})
+    reliable = getattr(solution, "reliable", None)
+    if reliable is not None:
+        out["reliable"] = (("time",), np.asarray(reliable, dtype=np.int8), {
+            "long_name": "whether every value at this output time is within the stated "
+                         "tolerance", "flag_values": np.array([0, 1], dtype=np.int8),
+            "flag_meanings": "refused_values_missing vouched_within_tolerance"})
+    error = getattr(solution, "error", None)
+    for key, name, units in _ERROR_VARS:
+        if error is None or error.get(key) is None:
+            continue
+        vals = np.asarray(error[key], dtype=float).reshape(nt)
+        out[name] = (("time",), np.where(np.isfinite(vals), vals, np.nan), {
+            "long_name": f"bound of the absolute error of {key.replace('_', ' ')} at this "
+                         "output time (largest over depths or budget terms)",
+            "units": units, "coverage_content_type": "qualityInformation",
+            "comment": caution})
+    return out
 
 
 def column_dataset(solution, *, title: str, scenario_text: str | None = None,
@@ -212,6 +266,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                        {"long_name": "steady Darcy flux, positive downward",
                         "units": "m s-1", **layer_attrs}),
     })
+    data_vars.update(_check_variables(solution, times.size, caution))
     if screening_level is not None:
         data_vars["screening_level"] = ((), float(screening_level), {
             "long_name": "screening level of pore-water concentration used in the summary",
@@ -247,9 +302,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
             f"cumulative mass versus depth and elapsed time in a layered soil column "
             f"({n_layers} layer{'s' if n_layers != 1 else ''}, {column.length:g} m), "
             f"with the column mass budget."),
-        "source": (f"stratiflux {_version()}; engine {getattr(solution, 'engine', 'unknown')}: "
-                   f"eigenfunction expansion on the exact layered spectrum "
-                   f"({int(getattr(solution, 'n_modes', 0))} modes)"),
+        "source": _source_text(solution),
         "history": f"{created} {history or 'transport.io.netcdf.write_column_netcdf'}",
         "references": (
             "CF Conventions 1.11 (https://cfconventions.org); "
@@ -273,10 +326,13 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
 
     ds = xr.Dataset(data_vars=data_vars, coords=coords, attrs=attrs)
     for name, var in ds.variables.items():
-        if name in ds.coords or name in ("layer_name", "depth_bnds"):
+        if name in ds.coords or name in ("layer_name", "depth_bnds", "engine"):
             var.encoding = {"_FillValue": None}
         elif var.dims in (("time", "depth"),):
-            var.encoding = {**_COMPRESSION, "dtype": "float32", "_FillValue": FILL_VALUE}
+            # double precision: single precision (1e-7) would break the stated tolerance
+            var.encoding = {**_COMPRESSION, "dtype": "float64", "_FillValue": FILL_VALUE}
+        elif name == "reliable":
+            var.encoding = {"_FillValue": None}
         elif var.dims == ("time",):
             var.encoding = {**_COMPRESSION, "dtype": "float64", "_FillValue": FILL_VALUE}
         else:

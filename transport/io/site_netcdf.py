@@ -199,11 +199,12 @@ class SiteNetCDFWriter:
         aux = "station_id lat lon x y"
         chunks = (1, min(nt, 1024), nz)
         for name, units, long_name in _FIELDS:
-            self._var(name, "f4", ("station", "time", "depth"), {
+            # double precision: single precision (6e-8) would break the stated tolerance
+            self._var(name, "f8", ("station", "time", "depth"), {
                 "long_name": long_name, "units": units, "coordinates": aux,
                 "grid_mapping": "crs", "coverage_content_type": "modelResult",
                 "comment": "Fill value below the bottom of the boring's log. " + CAUTION},
-                fill=np.float32(FILL_VALUE), chunksizes=chunks, **_ZLIB)
+                fill=FILL_VALUE, chunksizes=chunks, **_ZLIB)
         for name, units, long_name in STATION_METRICS + (MC_METRICS if mc else ()):
             self._var(name, "f8", ("station",), {
                 "long_name": long_name, "units": units, "coordinates": aux,
@@ -220,7 +221,7 @@ class SiteNetCDFWriter:
         sl = slice(start, start + n)
         for name, _, _ in _FIELDS:
             values = np.asarray(result[name], dtype=float)
-            self.nc[name][sl] = np.ma.masked_invalid(values).astype(np.float32)
+            self.nc[name][sl] = np.ma.masked_invalid(values)
         for name, units, _ in STATION_METRICS + (MC_METRICS if self.mc else ()):
             values = np.asarray(result[name], dtype=float)
             if units == "d":
