@@ -18,6 +18,24 @@ __all__ = ["ReceptorMetrics", "receptor_metrics", "crossings", "first_exceedance
 
 TIME_RTOL = 1e-10  # relative time tolerance of the root polish
 N_SCAN = 800
+#: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
+#: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
+N_SCAN_INVERTED = 160
+
+
+class _Memo:
+    """A curve C(depth, t) that remembers the values it was asked for (the crossing
+    and time-above scans sample the same times)."""
+
+    def __init__(self, fn):
+        self.fn, self.seen = fn, {}
+
+    def __call__(self, depth, t):
+        t = np.atleast_1d(np.asarray(t, float))
+        key = (float(depth), t.tobytes())
+        if key not in self.seen:
+            self.seen[key] = np.asarray(self.fn(depth, t), float)
+        return self.seen[key]
 
 
 def unresolved_windows(solution, tolerance: float = 1e-8):
@@ -93,19 +111,20 @@ def crossings(conc_at, depth: float, level: float, t_start: float, t_end: float,
     return out, bool(ex[0] >= 0)
 
 
-def first_exceedance(conc_at, depth, level, t_start, t_end, extra=(), windows=()):
+def first_exceedance(conc_at, depth, level, t_start, t_end, extra=(), windows=(),
+                     n: int = N_SCAN):
     """First time C reaches the level in [t_start, t_end]; t_start if already above;
     None if never."""
-    cr, above0 = crossings(conc_at, depth, level, t_start, t_end, extra, windows=windows)
+    cr, above0 = crossings(conc_at, depth, level, t_start, t_end, extra, n, windows=windows)
     if above0:
         return float(t_start)
     ups = [t for t, d in cr if d > 0]
     return ups[0] if ups else None
 
 
-def time_above(conc_at, depth, level, t_start, t_end, extra=(), windows=()):
+def time_above(conc_at, depth, level, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
     """Total time in [t_start, t_end] with C >= level."""
-    cr, above = crossings(conc_at, depth, level, t_start, t_end, extra, windows=windows)
+    cr, above = crossings(conc_at, depth, level, t_start, t_end, extra, n, windows=windows)
     total, since = 0.0, (t_start if above else None)
     for t, d in cr:
         if d > 0 and since is None:
@@ -118,9 +137,9 @@ def time_above(conc_at, depth, level, t_start, t_end, extra=(), windows=()):
     return total
 
 
-def peak(conc_at, depth, t_start, t_end, extra=(), windows=()):
+def peak(conc_at, depth, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
     """(time, concentration) of the largest C(depth, t) on [t_start, t_end]."""
-    t = scan_times(t_start, t_end, extra, windows=windows)
+    t = scan_times(t_start, t_end, extra, n, windows=windows)
     c = np.asarray(conc_at(depth, t), float)
     i = int(np.nanargmax(c))
     best_t, best_c = float(t[i]), float(c[i])
@@ -192,13 +211,18 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     conc_at = solution.concentration_at
     extra = _change_times(solution)
     win = unresolved_windows(solution)
+    # a curve served by Laplace inversion costs a few hundred solves per sample: it is
+    # scanned more coarsely (its crossings and peak are still polished by Brent)
+    n = N_SCAN if getattr(solution, "series", None) is not None else N_SCAN_INVERTED
     first = above = None
     if screening_level is not None:
-        first = first_exceedance(conc_at, receptor_depth, screening_level, t_start, horizon,
-                                 extra, win)
-        above = time_above(conc_at, receptor_depth, screening_level, t_start, horizon, extra,
-                           win)
-    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win)
+        curve = _Memo(conc_at)
+        first = first_exceedance(curve, receptor_depth, screening_level, t_start, horizon,
+                                 extra, win, n)
+        above = time_above(curve, receptor_depth, screening_level, t_start, horizon, extra,
+                           win, n)
+        conc_at = curve
+    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win, n)
     series = getattr(solution, "series", None)
     cum = c_ss = None
     if getattr(solution, "mass_at", None) is not None:  # vouched by two engines
