@@ -346,7 +346,7 @@ def _initial_cells(column: Column, mesh: Mesh, initial: InitialState) -> np.ndar
             raise InputError(f"uniform initial state has {len(initial.values)} values for "
                              f"{len(column.layers)} layers; give one value per layer")
         return np.asarray(initial.values)[mesh.layer]
-    return np.interp(mesh.centres, initial.depths, initial.values)
+    return initial.profile_at(mesh.centres)  # a step (repeated depth) stays a step
 
 
 def _initial_at(column: Column, depths, initial: InitialState) -> np.ndarray:
@@ -356,7 +356,7 @@ def _initial_at(column: Column, depths, initial: InitialState) -> np.ndarray:
         lay = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1,
                       0, len(column.layers) - 1)
         return np.asarray(initial.values)[lay]
-    return np.interp(depths, initial.depths, initial.values)
+    return initial.profile_at(depths)  # right-continuous at a step
 
 
 def _face_values(column: Column, system: System, C: np.ndarray, scheme: str, times=None,
