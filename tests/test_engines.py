@@ -63,7 +63,13 @@ def test_auto_equals_modal_where_modal_is_fine():
     auto = solve_column(col, t, z)
     modal = solve(col, t, z)
     assert set(auto.engine_by_time) == {"modal"}
-    np.testing.assert_array_equal(auto.concentration, modal.concentration)
+    # the modal values themselves, except rounding-level negatives moved onto the
+    # physical bound 0 (within the reported error bound)
+    inside = modal.concentration >= 0
+    np.testing.assert_array_equal(auto.concentration[inside], modal.concentration[inside])
+    assert np.all(auto.concentration >= 0)
+    np.testing.assert_allclose(auto.concentration, modal.concentration, rtol=0,
+                               atol=auto.error_estimate.max())
     np.testing.assert_array_equal(auto.budget["stored"], modal.budget["stored"])
 
 

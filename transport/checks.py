@@ -39,7 +39,7 @@ import numpy as np
 
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
            "budget_residual", "QUANTITIES", "quantities", "choose", "CheckedResult",
-           "smoke_alarm", "describe_refusal"]
+           "smoke_alarm", "describe_refusal", "clip_to_bounds"]
 
 #: The reported quantities and their names in messages.
 QUANTITIES = ("concentration", "total_flux", "cumulative_mass", "budget")
@@ -373,6 +373,28 @@ def assemble(candidates, choice: Choice, budgets):
             base[zero] = candidates[-1][1][q][zero]
         out[q] = base
     return out, budget
+
+
+def clip_to_bounds(column, bounds: Bounds | None, depths, conc, error):
+    """C moved onto its physical bounds where it lies outside them by no more than its
+    error bound (rounding-level negatives of a clean column become 0): a change within
+    the stated error, so a reader never meets a negative concentration the model cannot
+    produce.  Larger violations were already rejected by :func:`choose`."""
+    if bounds is None:
+        return conc
+    depths = np.asarray(depths, float)
+    lay = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1, 0,
+                  bounds.kappa.size - 1)
+    kap = bounds.kappa[lay][None, :]
+    err = np.asarray(error, float)[:, None]
+    out = conc.copy()
+    if bounds.lo is not None:
+        lo = bounds.lo * kap
+        out = np.where((out < lo) & (out >= lo - err), lo, out)
+    if bounds.hi is not None:
+        hi = bounds.hi * kap
+        out = np.where((out > hi) & (out <= hi + err), hi, out)
+    return out
 
 
 def smoke_alarm(column, initial, times, depths, conc, budget, tolerance):

@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import modal
-from .checks import (QUANTITIES, UnreliableResultError, assemble, choose,
+from .checks import (QUANTITIES, UnreliableResultError, assemble, choose, clip_to_bounds,
                      concentration_bounds, describe_refusal, own_errors, quantities)
 from .finite_volume import solve_fv_result
 from .laplace import EngineSolution, solve_laplace
@@ -206,6 +206,8 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
                                      if np.any(choice.failed[q] & ~choice.reliable)])
     vals, budget = assemble([(n, c[0], c[1]) for n, c in cands], choice,
                             [c[2] for n, c in cands])
+    vals["concentration"] = clip_to_bounds(column, bounds, depths, vals["concentration"],
+                                           choice.error["concentration"])
     if series is not None:
         used = choice.engine == "modal"
         later = np.flatnonzero(~used & (times > 0))

@@ -415,6 +415,9 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
                                     [q for q in QUANTITIES
                                      if np.any(choice.failed[q] & ~choice.reliable)])
     vals, budget = assemble([c[:3] for c in cands], choice, [c[3] for c in cands])
+    from .checks import clip_to_bounds
+    vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
+                                           choice.error["concentration"])
     evaluator = staged.concentration_at
     if series is not None:
         used = choice.engine == "modal"
