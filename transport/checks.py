@@ -432,7 +432,12 @@ def describe_refusal(times, choice: Choice, tolerance: float, tried: str,
     tb = times[bad]
     shown = ", ".join(f"{t / year:.4g} yr" for t in tb[:6]) + (" ..." if tb.size > 6 else "")
     worst = {q: float(np.max(choice.error[q][bad] / choice.scale[q])) for q in which}
-    detail = "; ".join(f"{_LABEL[q]} error up to {worst[q]:.2g} of its scale" for q in which)
+    detail = "; ".join(
+        f"{_LABEL[q]} error up to {worst[q]:.2g} of its scale" if np.isfinite(worst[q])
+        else (f"{_LABEL[q]} not vouched for (the budget does not close to the tolerance "
+              "at that time, or a value is not finite)" if q == "budget" else
+              f"{_LABEL[q]} not vouched for (a value is not finite or no engine gives a "
+              "bound)") for q in which)
     return (f"no engine could vouch for the results at {tb.size} output time(s) ({shown}) "
             f"within the tolerance {tolerance:g} ({detail}); tried: {tried}. The tool does "
             "not report numbers it cannot vouch for. Try a looser tolerance "
