@@ -32,7 +32,8 @@ from .model import Column, InitialState, InputError
 from .projection import initial_profile
 from .spectrum import build_operator
 
-__all__ = ["solve_column", "ENGINES", "CheckedSolution", "ON_UNRELIABLE"]
+__all__ = ["solve_column", "ENGINES", "CheckedSolution", "ON_UNRELIABLE", "modal_evaluator",
+           "checked_fields"]
 
 ENGINES = ("auto", "modal", "laplace", "finite-volume")
 ON_UNRELIABLE = ("raise", "flag")
@@ -174,6 +175,7 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
     bounds = None if semi_infinite_bottom else concentration_bounds(
         column, initial, float(times.max()) if nt else 0.0)
     series, evaluator = None, laplace_at
+    eig, n_modes = np.empty(0), 0
     if engine == "laplace" or semi_infinite_bottom:
         cands = [("laplace", lap_c)]
     elif engine == "finite-volume":
@@ -208,26 +210,34 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
                             [c[2] for n, c in cands])
     vals["concentration"] = clip_to_bounds(column, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
-    if series is not None:
-        used = choice.engine == "modal"
-        later = np.flatnonzero(~used & (times > 0))
-        cut = later.max() + 1 if later.size else 0
-        if cut < nt and used[cut:].all():
-            evaluator = _auto_evaluator(series, float(times[cut]), laplace_at)
-        else:
-            series = None if engine == "auto" else series
-    if series is None or not (choice.engine == "modal").any():
-        eig, n_modes = np.empty(0), 0
+    series, evaluator = modal_evaluator(choice, times, series, evaluator)
+    eig, n_modes = (eig, n_modes) if series is not None else (np.empty(0), 0)
+    return CheckedSolution(column=column, times=times, depths=depths, eigenvalues=eig,
+                           n_modes=n_modes, series=series, evaluator=evaluator,
+                           mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
+                           **checked_fields(choice, vals, budget, tolerance))
+
+
+def modal_evaluator(choice, times, series, fallback):
+    """(series, C(depth, t)) for the continuous-time metrics: the modal series from the
+    first output time after which it served every time (Laplace before), or (None,
+    ``fallback``) when it serves no such tail."""
+    used = choice.engine == "modal"
+    later = np.flatnonzero(~used & (times > 0))
+    cut = later.max() + 1 if later.size else 0
+    if series is not None and cut < times.size and used[cut:].all():
+        return series, _auto_evaluator(series, float(times[cut]), fallback)
+    return None, fallback
+
+
+def checked_fields(choice, vals, budget, tolerance) -> dict:
+    """The fields a :class:`CheckedSolution` takes from a choice between engines."""
     names = sorted({e for e in choice.engine if e not in ("", "initial")})
-    return CheckedSolution(
-        column=column, times=times, depths=depths, concentration=vals["concentration"],
-        total_flux=vals["total_flux"], cumulative_mass=vals["cumulative_mass"],
-        budget=budget, eigenvalues=eig, n_modes=n_modes,
-        engine="+".join(names) or "none", series=series,
-        engine_by_time=choice.engine, error_estimate=choice.error["concentration"],
-        evaluator=evaluator, error=choice.error, reliable=choice.reliable,
-        tolerance=float(tolerance), scale=choice.scale,
-        mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom))
+    return dict(concentration=vals["concentration"], total_flux=vals["total_flux"],
+                cumulative_mass=vals["cumulative_mass"], budget=budget,
+                engine="+".join(names) or "none", engine_by_time=choice.engine,
+                error_estimate=choice.error["concentration"], error=choice.error,
+                reliable=choice.reliable, tolerance=float(tolerance), scale=choice.scale)
 
 
 def _laplace_mass_at(column, initial, semi_infinite_bottom):

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from .engines import CheckedSolution
+from .engines import CheckedSolution, checked_fields, modal_evaluator
 from .modal import ColumnSolution, build_series, earliest_time_after_change
 from .model import Boundary, Column, InitialState, InputError, Layer
 
@@ -418,38 +418,13 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
     from .checks import clip_to_bounds
     vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
-    evaluator = staged.concentration_at
-    if series is not None:
-        used = choice.engine == "modal"
-        later = np.flatnonzero(~used & (times > 0))
-        cut = later.max() + 1 if later.size else 0
-        if cut < nt and used[cut:].all():
-            t_modal = float(times[cut])
-
-            def modal_late(depth, t, series=series, lap=staged.concentration_at):
-                t = np.atleast_1d(np.asarray(t, float))
-                out = np.empty(t.size)
-                late = t >= t_modal
-                if late.any():
-                    out[late] = series.concentration_at(depth, t[late])
-                if (~late).any():
-                    out[~late] = lap(depth, t[~late])
-                return out
-            evaluator = modal_late
-        elif engine == "auto":
-            series = None
-    names = sorted({e for e in choice.engine if e not in ("", "initial")})
-    n_modes = modal_sol.n_modes if (series is not None and modal_sol is not None) else 0
+    series, evaluator = modal_evaluator(choice, times, series, staged.concentration_at)
+    n_modes = modal_sol.n_modes if series is not None else 0
     eig = modal_sol.eigenvalues if n_modes else np.empty(0)
-    return TimelineSolution(
-        column=col0, times=times, depths=depths, concentration=vals["concentration"],
-        total_flux=vals["total_flux"], cumulative_mass=vals["cumulative_mass"],
-        budget=budget, eigenvalues=eig, n_modes=n_modes,
-        engine="+".join(names) or "none", series=series,
-        engine_by_time=choice.engine, error_estimate=choice.error["concentration"],
-        evaluator=evaluator, error=choice.error, reliable=choice.reliable,
-        tolerance=float(tolerance), scale=choice.scale, timeline=timeline,
-        mass_at=staged.mass_at)
+    return TimelineSolution(column=col0, times=times, depths=depths, eigenvalues=eig,
+                            n_modes=n_modes, series=series, evaluator=evaluator,
+                            timeline=timeline, mass_at=staged.mass_at,
+                            **checked_fields(choice, vals, budget, tolerance))
 
 
 def _solve_timeline_modal(timeline: Timeline, times, depths, initial, tolerance,
