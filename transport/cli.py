@@ -269,17 +269,26 @@ def _summary_lines(scenario, solution):
     return lines
 
 
-def _write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title):
+def _write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title,
+                 stage=None):
+    """The run's figures; with ``stage`` (an OutputSet) they are renamed with the other
+    outputs of the run, else both appear together once both are drawn."""
+    from transport.io.atomic import OutputSet
     from transport.plots import plot_breakthrough, plot_profiles
 
+    if stage is None:
+        with OutputSet() as own:
+            return _write_plots(source, out_dir, stem, receptor_depth=receptor_depth,
+                                screening_level=screening_level, title=title, stage=own)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     written = [plot_profiles(source, out_dir / f"{stem}_profiles.png",
-                             screening_level=screening_level, title=title)]
+                             screening_level=screening_level, title=title, stage=stage)]
     if receptor_depth is not None:
         written.append(plot_breakthrough(source, out_dir / f"{stem}_breakthrough.png",
                                          receptor_depth=receptor_depth,
-                                         screening_level=screening_level, title=title))
+                                         screening_level=screening_level, title=title,
+                                         stage=stage))
     return written
 
 
@@ -377,6 +386,7 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     Example:
       stratiflux run scenarios/spill-layered-column.toml -o spill.nc --plots figures
     """
+    from transport.io.atomic import OutputSet, terminate_as_exit
     from transport.io.netcdf import write_column_netcdf
 
     total = 4 if plots_dir else 3
@@ -407,15 +417,20 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     if plots_dir:
         command += ["--plots", str(plots_dir)]
     receptor, level = _setting(sc, "receptor_depth"), _setting(sc, "screening_level")
-    write_column_netcdf(solution, output, title=sc.title,
-                        scenario_text=getattr(sc, "source_text", None),
-                        screening_level=level, receptor_depth=receptor,
-                        history=shlex.join(command))
+    # every file is produced under a temporary name; all are renamed together at the end
+    # of the block, so a failure in any of them leaves the previous files as they were
+    with terminate_as_exit(), OutputSet() as stage:
+        write_column_netcdf(solution, output, title=sc.title,
+                            scenario_text=getattr(sc, "source_text", None),
+                            screening_level=level, receptor_depth=receptor,
+                            history=shlex.join(command), stage=stage)
+        if plots_dir:
+            _progress(4, total, f"drawing figures in {plots_dir}")
+            figures = _write_plots(solution, plots_dir, Path(output).stem,
+                                   receptor_depth=receptor, screening_level=level,
+                                   title=sc.title, stage=stage)
     if plots_dir:
-        _progress(4, total, f"drawing figures in {plots_dir}")
-        for path in _write_plots(solution, plots_dir, Path(output).stem,
-                                 receptor_depth=receptor, screening_level=level,
-                                 title=sc.title):
+        for path in figures:
             click.echo(f"      {path}", err=True)
     click.echo("")
     for line in lines:

@@ -232,25 +232,35 @@ def comparison_dataset(alts, title="stratiflux comparison", history=None):
 
 
 def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
-    """CSV, Markdown, NetCDF and figures into ``out_dir``; returns the paths."""
+    """CSV, Markdown, NetCDF and figures into ``out_dir``; returns the paths.
+
+    All files are produced under temporary names and renamed into place together
+    (:class:`transport.io.atomic.OutputSet`): a failure in any of them leaves every
+    previous file of ``out_dir`` as it was.
+    """
+    from .io.atomic import OutputSet
+    from .plots_compare import plot_comparison
+
     os.makedirs(out_dir, exist_ok=True)
     rows = comparison_table(alts)
+    texts = (("csv", table_csv(rows)),
+             ("md", f"# {title or 'Comparison of alternatives'}\n\n"
+                    + table_text(rows, markdown=True) + "\n\n"
+                    + "\n".join(f"- {ln}" for ln in verdict_lines(alts))
+                    + f"\n\n{CAUTION}\n"))
     paths = []
-    for ext, text in (("csv", table_csv(rows)),
-                      ("md", f"# {title or 'Comparison of alternatives'}\n\n"
-                             + table_text(rows, markdown=True) + "\n\n"
-                             + "\n".join(f"- {ln}" for ln in verdict_lines(alts))
-                             + f"\n\n{CAUTION}\n")):
-        path = os.path.join(out_dir, f"{stem}.{ext}")
-        tmp = path + ".part"
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-        paths.append(path)
-    nc = os.path.join(out_dir, f"{stem}.nc")
-    write_dataset_atomic(comparison_dataset(alts, title or "stratiflux comparison", history),
-                         nc)
-    paths.append(nc)
-    from .plots_compare import plot_comparison
-    paths += plot_comparison(alts, out_dir, stem, title=title)
+    with OutputSet() as stage:
+        for ext, text in texts:
+            paths.append(stage.write(os.path.join(out_dir, f"{stem}.{ext}"),
+                                     lambda tmp, text=text: _write_text(tmp, text)))
+        nc = os.path.join(out_dir, f"{stem}.nc")
+        paths.append(write_dataset_atomic(
+            comparison_dataset(alts, title or "stratiflux comparison", history), nc,
+            stage=stage))
+        paths += plot_comparison(alts, out_dir, stem, title=title, stage=stage)
     return paths
+
+
+def _write_text(path, text):
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(text)

@@ -127,17 +127,22 @@ def _new_figure(title: str):
     return fig, ax
 
 
-def _save(fig, path) -> str:
+def _save(fig, path, stage=None) -> str:
+    """Save a figure (PNG unless the name says otherwise) through a temporary name and a rename (with ``stage``, renamed with the
+    run's other outputs: :mod:`transport.io.atomic`)."""
+    from transport.io.atomic import stage_or_write
+
     path = os.fspath(path)
-    fig.savefig(path, dpi=DPI)
-    return path
+    fmt = os.path.splitext(path)[1][1:].lower() or "png"  # the format of the name asked for
+    return stage_or_write(stage, path, lambda tmp: fig.savefig(tmp, dpi=DPI, format=fmt))
 
 
 def plot_profiles(source, path, *, layers=None, screening_level=None, times=None,
-                  title=None) -> str:
-    """Save :func:`profile_figure` to ``path`` (dpi 150) and return the path."""
+                  title=None, stage=None) -> str:
+    """Save :func:`profile_figure` to ``path`` (dpi 150, PNG, atomically; ``stage``: a
+    :class:`transport.io.atomic.OutputSet`) and return the path."""
     return _save(profile_figure(source, layers=layers, screening_level=screening_level,
-                                times=times, title=title), path)
+                                times=times, title=title), path, stage)
 
 
 def profile_figure(source, *, layers=None, screening_level=None, times=None, title=None):
@@ -223,11 +228,12 @@ def _breakthrough_curve(run, receptor_depth: float, n_samples: int):
 
 
 def plot_breakthrough(source, path, *, receptor_depth=None, screening_level=None,
-                      title=None, n_samples: int = 400, log_scale=None) -> str:
-    """Save :func:`breakthrough_figure` to ``path`` (dpi 150) and return the path."""
+                      title=None, n_samples: int = 400, log_scale=None, stage=None) -> str:
+    """Save :func:`breakthrough_figure` to ``path`` (dpi 150, PNG, atomically; ``stage``:
+    a :class:`transport.io.atomic.OutputSet`) and return the path."""
     return _save(breakthrough_figure(source, receptor_depth=receptor_depth,
                                      screening_level=screening_level, title=title,
-                                     n_samples=n_samples, log_scale=log_scale), path)
+                                     n_samples=n_samples, log_scale=log_scale), path, stage)
 
 
 def breakthrough_figure(source, *, receptor_depth=None, screening_level=None, title=None,

@@ -27,12 +27,13 @@ def _footer(fig):
              ha="left", va="bottom")
 
 
-def _save(fig, out_dir, name):
-    path = os.path.join(out_dir, name)
-    tmp = path + ".part.png"
-    fig.savefig(tmp, dpi=DPI)
-    os.replace(tmp, path)
-    return path
+def _save(fig, out_dir, name, stage=None):
+    """PNG through a temporary name (with ``stage``, renamed with the run's other
+    outputs: :mod:`transport.io.atomic`)."""
+    from .io.atomic import stage_or_write
+
+    return stage_or_write(stage, os.path.join(out_dir, name),
+                          lambda tmp: fig.savefig(tmp, dpi=DPI, format="png"))
 
 
 def _colours(n):
@@ -40,8 +41,16 @@ def _colours(n):
     return [cmap(i % 10) for i in range(n)]
 
 
-def plot_comparison(alts, out_dir, stem="comparison", title=None):
-    """Write the three comparison figures; returns their paths."""
+def plot_comparison(alts, out_dir, stem="comparison", title=None, *, stage=None):
+    """Write the three comparison figures; returns their paths.
+
+    Without ``stage`` the three are staged in one :class:`transport.io.atomic.OutputSet`
+    and appear together; with one they are renamed when the caller commits it."""
+    if stage is None:
+        from .io.atomic import OutputSet
+
+        with OutputSet() as own:
+            return plot_comparison(alts, out_dir, stem, title, stage=own)
     cols = _colours(len(alts))
     paths = []
     # 1. breakthrough curves
@@ -71,7 +80,7 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None):
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     ax.set_title(title or "Breakthrough at the receptor", fontsize=10)
     _footer(fig)
-    paths.append(_save(fig, out_dir, f"{stem}_breakthrough.png"))
+    paths.append(_save(fig, out_dir, f"{stem}_breakthrough.png", stage))
 
     # 2. metric bars
     fig = Figure(figsize=(9.0, 4.2), dpi=DPI)
@@ -95,7 +104,7 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None):
         ax.set_title(label, fontsize=9)
         ax.grid(axis="y", alpha=0.3)
     _footer(fig)
-    paths.append(_save(fig, out_dir, f"{stem}_metrics.png"))
+    paths.append(_save(fig, out_dir, f"{stem}_metrics.png", stage))
 
     # 3. profiles side by side at a few common times
     times = np.asarray(alts[0].solution.times)
@@ -119,5 +128,5 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None):
         ax.axhline(a.metrics.receptor_depth, color="0.4", ls=":", lw=1)
         ax.grid(alpha=0.3)
     _footer(fig)
-    paths.append(_save(fig, out_dir, f"{stem}_profiles.png"))
+    paths.append(_save(fig, out_dir, f"{stem}_profiles.png", stage))
     return paths

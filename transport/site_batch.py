@@ -452,8 +452,52 @@ def _solve_chunk(site, start, stop, samples):
 _WORKER = {}
 
 
-def _init_worker(site, samples):
+def _init_worker(site, samples, parent=None):
+    """Pool worker set-up: the site and draws, and death with the parent process.
+
+    A SIGKILL of the parent leaves no worker behind: on Linux the kernel sends
+    SIGKILL to the worker when its parent dies (prctl PR_SET_PDEATHSIG); elsewhere, and
+    as a second guard, a daemon thread ends the worker when the process ``parent`` is
+    gone (waiting on a pidfd where available, else polling twice a second).
+    """
     _WORKER["site"], _WORKER["samples"] = site, samples
+    if parent is None:
+        return
+    import sys
+    import threading
+    import time
+
+    def exists(pid):
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            return False
+        except OSError:  # EPERM: it exists
+            return True
+        return True
+
+    direct = os.getppid() == parent  # fork and spawn; not a forkserver's child
+    if direct and sys.platform.startswith("linux"):
+        with contextlib.suppress(Exception):
+            import ctypes
+            import signal
+
+            ctypes.CDLL(None, use_errno=True).prctl(1, int(signal.SIGKILL), 0, 0, 0)
+    if not exists(parent) or (direct and os.getppid() != parent):
+        os._exit(1)  # the parent died before the guard was set
+
+    def watch():
+        with contextlib.suppress(Exception):
+            import select
+
+            pidfd = os.pidfd_open(parent)
+            select.select([pidfd], [], [])  # readable once the parent has exited
+            os._exit(1)
+        while exists(parent) and (not direct or os.getppid() == parent):
+            time.sleep(0.5)
+        os._exit(1)
+
+    threading.Thread(target=watch, daemon=True, name="stratiflux-parent-watch").start()
 
 
 def _pool_chunk(start, stop):
@@ -489,7 +533,7 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
             yield i, solve_chunk(site, a, b, samples)
         return
     with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), initializer=_init_worker,
-                             initargs=(site, samples)) as pool:
+                             initargs=(site, samples, os.getpid())) as pool:
         yield from _windowed(lambda a, b: pool.submit(_pool_chunk, a, b), chunks, window,
                              lambda pending: futures_wait(pending,
                                                           return_when=FIRST_COMPLETED).done,

@@ -6,19 +6,20 @@ ship beside it. Field names carry their unit (``peak_conc_mg_L``); times are in 
 breakthrough that does not happen within the design life is empty (NULL), with
 ``exceeds_in_design_life`` = 0. GeoJSON follows RFC 7946 (WGS 84 lon/lat, written by
 GDAL's GeoJSON driver with ``RFC7946=YES``); the GeoPackage keeps the site CRS.
-Every file is written under a temporary name and renamed when complete; the caution
+Every file is written under a temporary name and renamed when complete (with the other
+outputs of the run when a ``stage`` is given: :mod:`transport.io.atomic`); the caution
 travels in the layer metadata (GeoPackage), the ``description`` member (GeoJSON) and
 ``#`` comment lines heading the CSV (pandas: ``read_csv(path, comment="#")``).
 """
 from __future__ import annotations
 
-import contextlib
 import os
 import textwrap
 
 import numpy as np
 
 from transport.caution import CAUTION, CAUTION_SHORT
+from transport.io.atomic import stage_or_write
 
 __all__ = ["station_table", "write_geopackage", "write_geojson", "write_metrics_csv",
            "plot_site_map", "SECONDS_PER_YEAR", "MG_PER_L"]
@@ -91,18 +92,18 @@ def _frame(table):
                             crs=table.attrs["crs_wkt"])
 
 
-def _atomic(path, write):
-    path = os.fspath(path)
-    root, ext = os.path.splitext(path)
-    tmp = f"{root}.part{os.getpid()}{ext}"
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.remove(tmp)
-        raise
-    return path
+def _atomic(path, write, stage=None):
+    def guarded(tmp):
+        try:
+            write(tmp)
+        except Exception as exc:  # GDAL (pyogrio) refusals become one clear input error
+            if not type(exc).__module__.startswith("pyogrio"):
+                raise
+            raise ValueError(
+                f"cannot write {os.fspath(path)}: {exc}. Check the boring coordinates "
+                "(x and y in the site CRS, in metres for a projected CRS); no output file "
+                "was changed") from exc
+    return stage_or_write(stage, path, guarded)
 
 
 def _description(table) -> str:
@@ -113,25 +114,28 @@ def _description(table) -> str:
             f"run; empty breakthrough: not reached within the design life. {CAUTION}")
 
 
-def write_geopackage(table, path):
-    """GeoPackage 1.3 point layer ``borings`` in the site CRS, caution in the metadata."""
+def write_geopackage(table, path, *, stage=None):
+    """GeoPackage 1.3 point layer ``borings`` in the site CRS, caution in the metadata.
+
+    ``stage``: a :class:`transport.io.atomic.OutputSet` (renamed with the run's other
+    outputs), else the file is written through its own temporary name and a rename."""
     frame = _frame(table)
     return _atomic(path, lambda tmp: frame.to_file(
         tmp, driver="GPKG", layer="borings", engine="pyogrio",
         dataset_options={"VERSION": "1.3"},
-        metadata={"DESCRIPTION": _description(table)}))
+        metadata={"DESCRIPTION": _description(table)}), stage)
 
 
-def write_geojson(table, path):
+def write_geojson(table, path, *, stage=None):
     """GeoJSON per RFC 7946: WGS 84 lon/lat, caution in the ``description`` member."""
     frame = _frame(table).to_crs("EPSG:4326")
     return _atomic(path, lambda tmp: frame.to_file(
         tmp, driver="GeoJSON", engine="pyogrio",
         layer_options={"RFC7946": "YES", "COORDINATE_PRECISION": str(GEOJSON_DECIMALS),
-                       "DESCRIPTION": _description(table), "WRITE_NAME": "NO"}))
+                       "DESCRIPTION": _description(table), "WRITE_NAME": "NO"}), stage)
 
 
-def write_metrics_csv(table, path, epsg=None):
+def write_metrics_csv(table, path, epsg=None, *, stage=None):
     """CSV of per-boring metrics, with ``#`` header lines (CRS, units, caution)."""
     head = [f"# {line}" for line in textwrap.wrap(_description(table), 100)]
     head.append(f"# x_m, y_m: site CRS EPSG:{epsg}" if epsg else
@@ -142,10 +146,10 @@ def write_metrics_csv(table, path, epsg=None):
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write("\n".join(head) + "\n")
             table.to_csv(fh, index=False, float_format="%.10g")
-    return _atomic(path, write)
+    return _atomic(path, write, stage)
 
 
-def plot_site_map(table, path, *, dpi=150):
+def plot_site_map(table, path, *, dpi=150, stage=None):
     """Map of breakthrough time per boring (and exceedance probability after Monte
     Carlo), screening level in the title, caution in the footer. Returns the path."""
     from matplotlib.figure import Figure
@@ -185,4 +189,4 @@ def plot_site_map(table, path, *, dpi=150):
     fig.get_layout_engine().set(rect=(0, 0.07, 1, 0.93))
     fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION_SHORT, 150)), fontsize=7,
              va="bottom", ha="left")
-    return _atomic(path, lambda tmp: fig.savefig(tmp, dpi=dpi, format="png"))
+    return _atomic(path, lambda tmp: fig.savefig(tmp, dpi=dpi, format="png"), stage)

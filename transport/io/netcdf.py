@@ -9,21 +9,21 @@ knows elapsed time only, and says so in the ``comment``). Units follow UDUNITS-2
 Per-layer properties (``layer`` dimension) and the mass budget ``(time,)`` are stored
 beside the fields so that a reviewer can re-check the run from the file alone.
 
-Writing is atomic: the dataset goes to a temporary file in the output directory, which
-is renamed over the target with :func:`os.replace` only once it is complete. On any
-failure the temporary file is removed and an existing output is left untouched.
+Writing is atomic (:mod:`transport.io.atomic`): the dataset goes to a temporary file in
+the output directory, which is renamed over the target with :func:`os.replace` only once
+it is complete, together with the other outputs of the run. On any failure the temporary
+file is removed and an existing output is left untouched.
 """
 from __future__ import annotations
 
-import contextlib
 import datetime as _dt
 import os
-import tempfile
 
 import numpy as np
 import xarray as xr
 
 from transport.caution import CAUTION
+from transport.io.atomic import new_file_mode, stage_or_write
 
 __all__ = [
     "NOMINAL_START",
@@ -343,45 +343,33 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
 
 def _new_file_mode(path: str) -> int:
     """Permissions for the output: those of the file replaced, else 0o666 minus umask."""
-    try:
-        return os.stat(path).st_mode & 0o7777
-    except OSError:
-        umask = os.umask(0)
-        os.umask(umask)
-        return 0o666 & ~umask
+    return new_file_mode(path)
 
 
-def write_dataset_atomic(ds: xr.Dataset, path) -> str:
+def write_dataset_atomic(ds: xr.Dataset, path, *, stage=None) -> str:
     """Write ``ds`` to ``path`` as NETCDF4 through a temporary file and a rename.
 
     The temporary file lives in the same directory (same file system, so
     :func:`os.replace` is atomic on POSIX and Windows). On any exception it is removed
-    and the exception re-raised; an existing ``path`` is then untouched.
+    and the exception re-raised; an existing ``path`` is then untouched. With ``stage``
+    (a :class:`transport.io.atomic.OutputSet`) the file is only staged: it is renamed
+    into place with the other outputs of the run when the set is committed.
     """
     path = os.fspath(path)
     directory = os.path.dirname(os.path.abspath(path))
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".part",
-                                   dir=directory)
-    except OSError as exc:  # name the file the user asked for, not the temporary one
-        raise type(exc)(exc.errno, f"{exc.strerror} (directory {directory})", path) from None
-    os.close(fd)
-    try:
-        ds.to_netcdf(tmp, mode="w", format="NETCDF4", engine="netcdf4")
-        os.chmod(tmp, _new_file_mode(path))
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.remove(tmp)
-        raise
-    return path
+    if not os.path.isdir(directory):  # name the directory the user asked for
+        raise FileNotFoundError(2, f"No such file or directory (directory {directory})",
+                                path)
+    return stage_or_write(stage, path, lambda tmp: ds.to_netcdf(
+        tmp, mode="w", format="NETCDF4", engine="netcdf4"))
 
 
 def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None = None,
                         screening_level: float | None = None,
                         receptor_depth: float | None = None,
-                        history: str | None = None) -> str:
-    """Write one column run to a CF-1.11 NetCDF file, atomically.
+                        history: str | None = None, stage=None) -> str:
+    """Write one column run to a CF-1.11 NetCDF file, atomically (``stage``: see
+    :func:`write_dataset_atomic`).
 
     See :func:`column_dataset` for the parameters and the layout. Returns the path.
 
@@ -392,7 +380,7 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
     ds = column_dataset(solution, title=title, scenario_text=scenario_text,
                         screening_level=screening_level, receptor_depth=receptor_depth,
                         history=history)
-    return write_dataset_atomic(ds, path)
+    return write_dataset_atomic(ds, path, stage=stage)
 
 
 def read_column_netcdf(path, *, decode_times: bool = True) -> xr.Dataset:

@@ -11,20 +11,21 @@ long_name (no two-dimension cell_methods).
 
 :class:`SiteNetCDFWriter` writes with netCDF4 directly: the file is created in the
 output directory under a temporary name, filled chunk by chunk (memory stays at one
-chunk) and renamed over the target only when complete; on failure it is removed.
+chunk) and renamed over the target only when complete (with ``stage``, together with
+the other outputs of the run: :mod:`transport.io.atomic`); on failure it is removed.
 """
 from __future__ import annotations
 
 import contextlib
 import os
-import tempfile
 
 import netCDF4
 import numpy as np
 
 from transport.caution import CAUTION
+from transport.io.atomic import OutputSet
 from transport.io.netcdf import (FILL_VALUE, NOMINAL_START, SECONDS_PER_DAY, TIME_UNITS,
-                                 _depth_bounds, _new_file_mode, _utc_now, _version)
+                                 _depth_bounds, _utc_now, _version)
 
 __all__ = ["SiteNetCDFWriter", "STATION_METRICS", "MC_METRICS"]
 
@@ -75,20 +76,21 @@ class SiteNetCDFWriter:
     site : transport.site.Site (stations, CRS, grid, settings)
     monte_carlo : dict or None, {"realizations", "seed", "sampling"} when MC ran
     history : command line or call, prefixed with the UTC time
+    stage : transport.io.atomic.OutputSet or None; with a set the finished file stays
+        under its temporary name (``self.tmp``) until the set is committed
     """
 
-    def __init__(self, path, site, *, monte_carlo=None, history=None):
+    def __init__(self, path, site, *, monte_carlo=None, history=None, stage=None):
         self.path, self.site, self.mc = os.fspath(path), site, monte_carlo
         self.history = history or "transport.site_run.run_site"
         self.tmp, self.nc = None, None
+        self._own = stage is None
+        self.stage = OutputSet() if stage is None else stage
 
     def __enter__(self):
-        directory = os.path.dirname(os.path.abspath(self.path))
-        fd, self.tmp = tempfile.mkstemp(prefix=f".{os.path.basename(self.path)}.",
-                                        suffix=".part", dir=directory)
-        os.close(fd)
-        self.nc = netCDF4.Dataset(self.tmp, "w", format="NETCDF4")
+        self.tmp = self.stage.reserve(self.path)
         try:
+            self.nc = netCDF4.Dataset(self.tmp, "w", format="NETCDF4")
             self._define()
         except BaseException:
             self._discard()
@@ -99,10 +101,14 @@ class SiteNetCDFWriter:
         if kind is not None:
             self._discard()
             return False
-        self.nc.close()
+        try:
+            self.nc.close()
+        except BaseException:
+            self._discard()
+            raise
         self.nc = None
-        os.chmod(self.tmp, _new_file_mode(self.path))
-        os.replace(self.tmp, self.path)
+        if self._own:
+            self.stage.commit()
         return False
 
     def _discard(self):
@@ -112,6 +118,8 @@ class SiteNetCDFWriter:
             self.nc = None
         with contextlib.suppress(OSError):
             os.remove(self.tmp)
+        if self._own:
+            self.stage.discard()
 
     def _var(self, name, dtype, dims, attrs, fill=None, **kw):
         v = self.nc.createVariable(name, dtype, dims, fill_value=fill, **kw)
