@@ -219,7 +219,7 @@ def test_error_names_file_key_value_and_fix():
     ("porosity = 0.45", 'porosity = "abc"', "layers[2].porosity"),
     ('kind = "mass-transfer"', 'kind = "mass transfer"', "bottom.kind"),
     ('name = "trichloroethene"', 'name = "trichlorethene"', "chemical.name"),
-    ('times = ["31557600 s", "315576000 s"]', 'times = ["1 m"]', "output.times[0]"),
+    ('times = ["31557600 s", "315576000 s"]', 'times = ["1 m"]', "output.times[1]"),
     ('times = ["31557600 s", "315576000 s"]', 'times = "soon"', "output.times"),
     ('times = ["31557600 s", "315576000 s"]', 'times = []', "output.times"),
     ('depth_spacing = "0.1 m"', 'depth_spacing = "1 nm"', "output.depth_spacing"),
@@ -258,7 +258,7 @@ def test_partition_with_flow_rejected_with_key_path():
 def test_sample_below_bottom_rejected():
     text = scenario_text() + '[initial]\nsamples = [["0 m", "1 mg/L"], ["2.5 m", "0 mg/L"]]\n'
     err = error_of(text)
-    assert err.key == "initial.samples[1][0]"
+    assert err.key == "initial.samples[2][1]"
     assert "below the column bottom" in str(err)
 
 

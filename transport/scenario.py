@@ -39,7 +39,6 @@ from __future__ import annotations
 
 import difflib
 import math
-import tomllib
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -48,14 +47,15 @@ import numpy as np
 
 from . import chemicals, media
 from .model import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, Layer
-from .scenario_output import OutputSpec, _output, _read_samples_file
+from .scenario_output import OutputSpec, _output, _read_samples_file, check_run_size
 from .scenario_output import _samples, _with_cap_depths
 from .scenario_output import DEFAULT_TOLERANCE, MAX_DEPTHS, _times  # noqa: F401  (site.py)
-from .scenario_reader import _MISSING, ScenarioError, _Reader, read_text_file
-from .scenario_stages import parse_actions, parse_value
+from .scenario_reader import _MISSING, ScenarioError, _Reader, parse_toml, read_text_file
+from .scenario_stages import check_inlet, parse_actions, parse_value
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
-           "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text", "DERIVED_UNITS"]
+           "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text",
+           "DERIVED_UNITS", "MAX_LAYERS"]
 
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
@@ -72,6 +72,12 @@ BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentra
                                                             "outside_concentration"),
                        "free-outflow": (), "sealed": ()}
 INITIAL_KEYS = ("samples", "samples_file")
+#: Most layers a column may have (a detailed boring log has tens): the run time and
+#: memory of a column grow with its layer count.
+MAX_LAYERS = 1000
+#: Largest layer diffusivity D = D_w tau + alpha |v| the engines are asked to handle
+#: (m2 s-1); dispersion alone reaches it only at absurd velocities.
+MAX_LAYER_DIFFUSIVITY = 1.0
 
 #: SI units of the columns of :meth:`Scenario.derived_table`.
 DERIVED_UNITS = {
@@ -240,6 +246,11 @@ def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, la
     half_life = r.half_life(t, key)
     half_life = chem.half_life if half_life is _MISSING else half_life
     source = r.optional(t, "source_rate", "mass_rate_density", key, default=0.0)
+    if source < 0:
+        raise r.error(f"{key}.source_rate", t["source_rate"], "a negative zero-order source "
+                      "is a sink that keeps removing mass where none is left (the stored "
+                      "mass and the concentration turn negative)", allowed=">= 0",
+                      fix="model a loss by first-order decay (half_life) instead")
     partition = r.optional(t, "partition_to_next", "dimensionless", key, default=1.0, low=0,
                            low_open=True)
     if last and partition != 1.0:
@@ -250,6 +261,16 @@ def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, la
         raise r.error(f"{key}.partition_to_next", t["partition_to_next"],
                       f"a partition jump with nonzero Darcy flux ({q} m/s) is not physical in "
                       "this 1-D model", fix="set flow.darcy_flux to 0 or partition_to_next to 1")
+    if routes and routes[0] != "retardation_factor" and retardation > 1e8:
+        raise r.error(f"{key}.{routes[0]}", t[routes[0]], f"gives a retardation factor of "
+                      f"{retardation:.3g}, outside what the model represents",
+                      allowed="retardation factors up to 1e8 (common practice)",
+                      fix="check the value and its units (and bulk_density)")
+    if molecular + dispersion > MAX_LAYER_DIFFUSIVITY:
+        raise r.error(f"{key}.dispersivity", t.get("dispersivity"), f"dispersion alpha |v| = "
+                      f"{dispersion:.3g} m^2/s (pore velocity {abs(v):.3g} m/s), outside what "
+                      "the model represents", allowed=f"D up to {MAX_LAYER_DIFFUSIVITY:g} m^2/s",
+                      fix="check dispersivity, water_content and flow.darcy_flux")
     try:
         layer = Layer(thickness=thickness, porosity=theta, diffusivity=molecular + dispersion,
                       retardation=retardation, decay_rate=media.decay_rate_from_half_life(half_life),
@@ -303,10 +324,8 @@ def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary
         if "concentration" not in t:
             raise r.error(f"{where}.concentration", problem=f"missing for kind {kind!r}",
                           fix='add concentration = "120 mg/L" (your value)')
-        if kind == "inlet" and q == 0:
-            raise r.error(f"{where}.kind", kind, "an inlet boundary carries q C_in and needs a "
-                          "nonzero flow.darcy_flux", fix='use kind = "concentration" for '
-                          "diffusion only, or give the Darcy flux")
+        if kind == "inlet":
+            check_inlet(r, f"{where}.kind", end, q)
         value, sched = parse_value(r, t["concentration"], "concentration",
                                    f"{where}.concentration", low=0)
         return Boundary(kind, value, schedule=sched)
@@ -330,26 +349,30 @@ def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary
     return Boundary(kind)
 
 
+def _read(text, path):
+    file = str(path)
+    base_dir = Path(file).parent if file != "<string>" else Path.cwd()
+    r = _Reader(file, base_dir)
+    data = parse_toml(r, text)
+    r.keys(data, TOP_KEYS, "")
+    return r, data, file
+
+
 def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
     """Parse scenario TOML text (``path`` is used in messages and for relative files).
+
+    The base scenario (the file without its ``[[alternatives]]``) is returned; every
+    alternative is validated too, so a file that loads is a file that runs.
 
     Raises
     ------
     ScenarioError
         Any problem in the text, with file, key path, value and fix.
     """
-    file = str(path)
-    base_dir = Path(file).parent if file != "<string>" else Path.cwd()
-    r = _Reader(file, base_dir)
-    if not isinstance(text, str):
-        raise r.error("(file)", problem="scenario text must be a string")
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise r.error("(TOML syntax)", problem=str(exc), fix="correct the TOML syntax "
-                      "(strings with units need quotes)") from None
-    r.keys(data, TOP_KEYS, "")
-    return _parse_data(r, data, text, file)
+    r, data, file = _read(text, path)
+    base = _parse_data(r, data, text, file)
+    _alternatives(r, data, text, file)
+    return base
 
 
 def parse_alternatives(text: str, path: str | Path = "<string>") -> list:
@@ -358,13 +381,16 @@ def parse_alternatives(text: str, path: str | Path = "<string>") -> list:
     Each alternative has a ``name`` (its title) and replaces the file's ``actions``
     (an empty list means no action) and optionally its ``top`` boundary.
     """
-    base = parse_scenario(text, path)
-    file = str(path)
-    r = _Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
-    data = tomllib.loads(text)
+    r, data, file = _read(text, path)
+    base = _parse_data(r, data, text, file)
+    return _alternatives(r, data, text, file) or [base]
+
+
+def _alternatives(r, data, text, file) -> list:
+    """The scenarios of the ``[[alternatives]]`` tables (empty list: none given)."""
     alts = data.get("alternatives")
     if alts is None:
-        return [base]
+        return []
     if not isinstance(alts, list) or not alts or not all(isinstance(a, dict) for a in alts):
         raise r.error("alternatives", alts, "must be a list of [[alternatives]] tables",
                       fix='add [[alternatives]] tables with name = "..." and actions = [...]')
@@ -401,6 +427,10 @@ def _parse_data(r, data, text, file, prefix=""):
         raise r.error("layers", _MISSING if raw_layers is None else raw_layers,
                       "at least one [[layers]] table is needed", fix="add [[layers]] tables, "
                       "top first")
+    if len(raw_layers) > MAX_LAYERS:
+        raise r.error("layers", problem=f"{len(raw_layers)} layers, more than the "
+                      f"{MAX_LAYERS} a column may have", allowed=f"1 to {MAX_LAYERS} layers",
+                      fix="merge neighbouring layers of the same material")
     layers, details, initial_values, top = [], [], [], 0.0
     for i, raw in enumerate(raw_layers, start=1):
         layer, detail, init = _layer(r, raw, i, chem, q, top, i == len(raw_layers))
@@ -445,6 +475,7 @@ def _parse_data(r, data, text, file, prefix=""):
         t_end=float(output.times.max()), prefix=prefix)
     if timeline is not None:
         output = _with_cap_depths(output, timeline)
+    check_run_size(r, output, column, initial, timeline)
     return Scenario(title=title, path=None if file == "<string>" else file, column=column,
                     initial=initial, chemical=chem, output=output, source_text=text,
                     layer_details=tuple(details), timeline=timeline)

@@ -21,7 +21,6 @@ from __future__ import annotations
 import csv
 import io
 import re
-from pathlib import Path
 
 import numpy as np
 
@@ -30,11 +29,14 @@ from .schedules import Schedule
 from .timeline import (Timeline, amend_layer, excavate, place_cap, remove_source,
                        set_boundary, set_flow)
 
-__all__ = ["parse_value", "parse_actions", "ACTION_KINDS"]
+__all__ = ["parse_value", "parse_actions", "check_inlet", "ACTION_KINDS"]
 
 SCHEDULE_KEYS = ("steps", "table", "table_file", "initial", "half_life", "rate", "start")
 ACTION_KINDS = ("remove-source", "set-top", "set-bottom", "excavate", "place-cap",
                 "amend-layer", "set-flow")
+#: Most [time, value] pairs of one schedule (about three years of daily values): each
+#: change is solved on its own by the Laplace engine, so the cost grows with the count.
+MAX_PAIRS = 1000
 ACTION_KEYS = {"remove-source": ("top",), "set-top": ("top",), "set-bottom": ("bottom",),
                "excavate": ("depth", "top"), "place-cap": ("layers", "top"),
                "amend-layer": ("layer",), "set-flow": ("darcy_flux",)}
@@ -75,7 +77,7 @@ def parse_value(r, raw, dimension: str, key: str, low=None):
         times, values = _pairs(r, pairs, dimension, f"{key}.{given[0]}", low)
         if given[0] == "steps":
             if times[0] != 0.0:
-                raise r.error(f"{key}.steps[0][0]", pairs[0][0], "the first step must be at "
+                raise r.error(f"{key}.steps[1][1]", pairs[0][0], "the first step must be at "
                               "time 0", fix='start with ["0 yr", value]')
             return 0.0, Schedule.steps(times, values)
         return 0.0, Schedule.table(times, values)
@@ -88,27 +90,24 @@ def _pairs(r, raw, dimension, key, low):
         raise r.error(key, raw, "must be a list of [time, value] pairs",
                       fix='e.g. [["0 yr", "120 mg/L"], ["10 yr", "0 mg/L"]]')
     times, values = [], []
-    for j, pair in enumerate(raw):
+    if len(raw) > MAX_PAIRS:
+        raise r.error(key, problem=f"{len(raw)} pairs", allowed=f"at most {MAX_PAIRS}",
+                      fix="resample the schedule more coarsely")
+    for j, pair in enumerate(raw, start=1):
         if not isinstance(pair, list) or len(pair) != 2:
             raise r.error(f"{key}[{j}]", pair, "must be a [time, value] pair")
-        t = r.quantity(pair[0], "time", f"{key}[{j}][0]", low=0)
+        t = r.quantity(pair[0], "time", f"{key}[{j}][1]", low=0)
         if times and t <= times[-1]:
-            raise r.error(f"{key}[{j}][0]", pair[0], "times must increase strictly",
+            raise r.error(f"{key}[{j}][1]", pair[0], "times must increase strictly",
                           fix="list the pairs in time order, each time once")
         times.append(t)
-        values.append(r.quantity(pair[1], dimension, f"{key}[{j}][1]", low=low))
+        values.append(r.quantity(pair[1], dimension, f"{key}[{j}][2]", low=low))
     return times, values
 
 
 def _read_pairs(r, raw, key):
-    if not isinstance(raw, str) or not raw.strip():
-        raise r.error(key, raw, "must be a file name", fix='e.g. table_file = "leachate.csv"')
-    path = Path(raw) if Path(raw).is_absolute() else r.base_dir / raw
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeError) as exc:
-        raise r.error(key, raw, f"cannot read {path}: {exc}",
-                      fix="check the path (relative to the scenario file)") from None
+    path, text = r.input_file(raw, key, "a schedule CSV (time [unit],value [unit])",
+                              example="leachate.csv")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     rows = list(csv.reader(io.StringIO("\n".join(lines))))
     units = [(re.search(r"\[(.+)\]", h).group(1).strip() if re.search(r"\[(.+)\]", h) else None)
@@ -119,9 +118,28 @@ def _read_pairs(r, raw, key):
     out = []
     for j, row in enumerate(rows[1:], start=1):
         if len(row) != 2:
-            raise r.error(f"{key} row {j}", row, "needs exactly two cells (time, value)")
+            raise r.error(f"{key} row {j}", problem=f"{path.name} row {j} has {len(row)} "
+                          "cell(s); each row needs exactly two (time, value)",
+                          fix="one pair per row: time,value")
         out.append([f"{row[0].strip()} {units[0]}", f"{row[1].strip()} {units[1]}"])
     return out
+
+
+def check_inlet(r, key: str, end: str, q: float):
+    """An inlet (F = q C_in) needs water entering the column at its end: q > 0 at the
+    top, q < 0 at the bottom (q positive downward)."""
+    if q == 0:
+        raise r.error(key, "inlet", "an inlet boundary carries q C_in and needs a nonzero "
+                      "flow.darcy_flux", fix='use kind = "concentration" for diffusion only, '
+                      "or give the Darcy flux")
+    if (end == "top" and q < 0) or (end == "bottom" and q > 0):
+        where = "up through the top" if end == "top" else "down through the bottom"
+        raise r.error(key, "inlet", f"with darcy_flux = {q:.3g} m/s (positive downward) the "
+                      f"water leaves the column {where}, so an inlet there (which carries "
+                      "q C_in INTO the column) would draw mass out at a fixed concentration, "
+                      "which is not physical",
+                      fix='put the inlet at the end where the water enters, and use kind = '
+                      f'"free-outflow" at the {end}')
 
 
 def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_end,
@@ -136,8 +154,10 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
     if not isinstance(raw, list) or not all(isinstance(a, dict) for a in raw):
         raise r.error(f"{prefix}actions", raw, "must be a list of [[actions]] tables")
     timeline = Timeline.single(column)
-    # raw layer tables of the current stage, by name, to re-derive amended layers
-    tables = {lay.name: dict(t) for lay, t in zip(column.layers, raw_layers)}
+    # raw layer tables of the current stage, one per layer (top first), to re-derive
+    # amended layers and dispersion under a new flow: by position, so two layers that
+    # share a name keep their own properties
+    tables = [dict(t) for t in raw_layers]
     current_q, prev_t = q, 0.0
     for j, act in enumerate(raw, start=1):
         key = f"{prefix}actions[{j}]"
@@ -193,15 +213,28 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                 new = []
                 for k, lt in enumerate(layers_raw, start=1):
                     new.append(make_layer(lt, f"{key}.layers[{k}]", current_q, 0.0, False))
-                    tables[new[-1].name] = dict(lt)
+                cap_tables = [dict(lt) for lt in layers_raw]
                 top = make_boundary({"top": act["top"]}, "top", current_q,
                                     f"{key}.top") if "top" in act else None
                 action = place_cap(new, top)
             elif kind == "amend-layer":
                 name = act.get("layer")
-                if not isinstance(name, str) or name not in tables:
-                    raise r.error(f"{key}.layer", name, "no layer of that name",
-                                  allowed=", ".join(tables), fix="use a layer name")
+                names = [lay.name for lay in stage.column.layers]
+                if not isinstance(name, str) or name not in names:
+                    raise r.error(f"{key}.layer", name, "no layer of that name in the column "
+                                  f"at {act['at']}", allowed=", ".join(dict.fromkeys(names)),
+                                  fix="use a layer name")
+                same = [i for i, n in enumerate(names) if n == name]
+                if len(same) > 1:
+                    first = len(timeline.stages) == 1
+                    where = ", ".join(f"layers[{i + 1}]" if first else
+                                      f"layer {i + 1} from the top at that time" for i in same)
+                    raise r.error(f"{key}.layer", name, f"{len(same)} layers are named "
+                                  f"{name!r} ({where}); an action that refers to a layer by "
+                                  "name needs a name no other layer has",
+                                  fix=f"rename them, e.g. name = \"{name} (upper)\" and "
+                                  f"name = \"{name} (lower)\", and refer to the one to amend")
+                position = same[0]
                 changes = {k: v for k, v in act.items() if k not in ("at", "kind", "layer")}
                 if not changes:
                     raise r.error(key, problem="nothing to change",
@@ -210,7 +243,7 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                     if bad in changes:
                         raise r.error(f"{key}.{bad}", changes[bad], "cannot be amended",
                                       fix="remove it")
-                merged = dict(tables[name])
+                merged = dict(tables[position])
                 sorption = ("organic_carbon_fraction", "distribution_coefficient",
                             "retardation_factor")
                 if any(s in changes for s in sorption):
@@ -218,7 +251,7 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                         merged.pop(s, None)
                 merged.update(changes)
                 lay = make_layer(merged, key, current_q, 0.0, False)
-                tables[name] = merged
+                tables[position] = merged
                 action = amend_layer(name, porosity=lay.porosity, retardation=lay.retardation,
                                      diffusivity=lay.diffusivity, decay_rate=lay.decay_rate,
                                      source_rate=lay.source_rate)
@@ -227,11 +260,27 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                     raise r.error(f"{key}.darcy_flux", problem="missing",
                                   fix='add darcy_flux = "0.01 m/yr"')
                 q_new = r.quantity(act["darcy_flux"], "velocity", f"{key}.darcy_flux")
-                diffs = [make_layer(tables[lay.name], f"{key} (layer {lay.name!r})", q_new,
-                                    0.0, False).diffusivity for lay in stage.column.layers]
+                for end in ("top", "bottom"):
+                    if getattr(stage.column, end).kind == "inlet":
+                        check_inlet(r, f"{key}.darcy_flux", end, q_new)
+                diffs = [make_layer(tables[i], f"{key} (layer {lay.name!r})", q_new,
+                                    0.0, False).diffusivity
+                         for i, lay in enumerate(stage.column.layers)]
                 current_q = q_new
                 action = set_flow(q_new, diffs)
             timeline = timeline.then(at, action, label=kind)
+            after = timeline.stages[-1].column
+            if kind == "excavate":  # whole layers dug out from the top
+                tables = tables[len(tables) - len(after.layers):]
+            elif kind == "place-cap":
+                tables = cap_tables + tables
+            if len(tables) != len(after.layers):  # pragma: no cover - kept in step above
+                raise InputError("internal: layer tables out of step with the column")
+            if kind in ("set-top", "remove-source", "excavate", "place-cap") and \
+                    after.top.kind == "inlet":
+                check_inlet(r, f"{key}.top", "top", current_q)
+            if kind == "set-bottom" and after.bottom.kind == "inlet":
+                check_inlet(r, f"{key}.bottom", "bottom", current_q)
         except InputError as exc:
             raise r.error(key, problem=str(exc), fix="correct the action") from None
     return timeline
