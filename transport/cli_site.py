@@ -47,7 +47,9 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
     """Solve every boring of SITE.toml; write NetCDF, GeoPackage, GeoJSON, CSV and a map.
 
     An interrupted run continues where it stopped when started again with the same
-    inputs (finished chunks are kept beside the output until the run completes).
+    inputs (finished chunks are kept beside the output, with checksums, until the run
+    completes; damaged ones are computed again). All five files are renamed into place
+    together once all are written: a failed run leaves the previous ones unchanged.
 
     \b
     Examples:
@@ -76,15 +78,22 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
                         ("--workers", workers)):
         if value is not None:
             command += [flag, str(value)]
+    from transport.io.atomic import terminate_as_exit
+
     try:
-        with click.progressbar(length=len(loaded.borings), label="borings",
-                               file=click.get_text_stream("stderr")) as bar:
+        # SIGTERM ends the run like Ctrl-C: temporary files are removed on the way out
+        with terminate_as_exit(), click.progressbar(
+                length=len(loaded.borings), label="borings",
+                file=click.get_text_stream("stderr")) as bar:
             files = run_site(loaded, out_dir, realizations=realizations, seed=seed,
                              sampling=sampling, workers=workers, scheduler=scheduler,
                              chunk_size=chunk_size, progress=bar.update,
                              history=shlex.join(command))
     except (ValueError, OSError) as exc:
         _fail(exc)
+    if files.chunks_damaged:
+        click.echo(f"{files.chunks_damaged} saved chunk(s) of the interrupted run were "
+                   "damaged (checksum mismatch) and were computed again.", err=True)
     if files.chunks_reused:
         click.echo(f"Resumed: {files.chunks_reused} chunk(s) reused from the interrupted run.",
                    err=True)

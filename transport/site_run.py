@@ -116,7 +116,8 @@ def _chunk_intact(folder: Path, index: int, sha256: str | None, n_stations: int)
 
 
 #: temporaries of earlier versions: chunks (``.chunk-000001.<pid>.npz``), sidecar
-#: (``<stem>.nc.progress.json.tmp<pid>``) and NetCDF (``.<stem>.nc.<8 random>.part``)
+#: (``<stem>.nc.progress.json.tmp<pid>``), GIS files (``<stem>.part<pid>.gpkg``); the
+#: NetCDF ones are found by :func:`transport.io.atomic.clean_stale`
 _LEGACY_CHUNK_TMP = re.compile(r"^\.chunk-\d{6}\.(?P<pid>\d+)\.npz$")
 _CHUNK = re.compile(r"^chunk-(?P<index>\d{6})\.npz$")
 
@@ -146,8 +147,7 @@ def _clean_chunk_folder(folder: Path, keep: set, n_chunks: int):
 
 def _clean_legacy_outputs(out: Path, stem: str):
     """Temporaries of earlier versions of this tool for the same outputs."""
-    patterns = (re.compile(rf"^\.{re.escape(stem)}\.nc\.[a-z0-9_]{{8}}\.part$"),
-                re.compile(rf"^{re.escape(stem)}\.nc\.progress\.json\.tmp(?P<pid>\d+)$"),
+    patterns = (re.compile(rf"^{re.escape(stem)}\.nc\.progress\.json\.tmp(?P<pid>\d+)$"),
                 re.compile(rf"^{re.escape(stem)}(_borings|_map)?\.part(?P<pid>\d+)"
                            r"\.(gpkg|geojson|csv|png)$"))
     with contextlib.suppress(OSError):

@@ -39,23 +39,20 @@ import secrets
 import time
 
 __all__ = ["OutputSet", "atomic_write", "clean_stale", "temporary_name", "TEMP_PATTERN",
-           "new_file_mode", "fsync_file", "terminate_as_exit"]
+           "LEGACY_PATTERN", "new_file_mode", "fsync_file", "stage_or_write",
+           "terminate_as_exit"]
 
 #: ``.<name>.<pid>-<token>.part[<ext>]`` or ``.<name>.<pid>-<token>.bak``
 TEMP_PATTERN = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)-(?P<token>[a-z0-9]{6})"
                           r"\.(?:part(?P<ext>\.[A-Za-z0-9]+)?|bak)$")
+#: the temporaries of earlier versions (:func:`tempfile.mkstemp`: ``.<name>.<8>.part``)
+LEGACY_PATTERN = re.compile(r"^\.(?P<name>.+)\.(?P<token>[a-z0-9_]{8})\.part$")
 
 
-def _process_start() -> float:
-    """Start time of this process (epoch seconds); the import time if unknown."""
-    with contextlib.suppress(Exception):
-        import psutil
-
-        return float(psutil.Process().create_time())
-    return time.time()
-
-
-_STARTED = min(_process_start(), time.time())
+#: when this module was loaded: no temporary file of this process is older (the
+#: process start time from the kernel is rounded to a second of boot time, too coarse
+#: for a run started right after a killed one)
+_STARTED = time.time()
 
 
 def new_file_mode(path: str) -> int:
@@ -94,10 +91,10 @@ def _alive(pid: int) -> bool:
 def clean_stale(paths) -> list:
     """Remove temporaries left by killed earlier runs for the outputs ``paths``.
 
-    A file is removed only if its name matches :data:`TEMP_PATTERN` for one of
-    ``paths`` (same directory, same output name), it was last modified before this
-    process started, and the process id in its name is not running. Returns the
-    removed paths.
+    A file is removed only if its name matches :data:`TEMP_PATTERN` (or
+    :data:`LEGACY_PATTERN`, the name earlier versions used) for one of ``paths`` (same
+    directory, same output name), it was last modified before this process started,
+    and the process id in its name, if any, is not running. Returns the removed paths.
     """
     wanted = {}
     for p in paths:
@@ -110,7 +107,7 @@ def clean_stale(paths) -> list:
         except OSError:
             continue
         for entry in entries:
-            match = TEMP_PATTERN.match(entry.name)
+            match = TEMP_PATTERN.match(entry.name) or LEGACY_PATTERN.match(entry.name)
             if not match or match["name"] not in names:
                 continue
             try:
@@ -120,7 +117,8 @@ def clean_stale(paths) -> list:
                     continue
             except OSError:
                 continue
-            if _alive(int(match["pid"])):
+            pid = match.groupdict().get("pid")
+            if pid is not None and _alive(int(pid)):
                 continue
             with contextlib.suppress(OSError):
                 os.remove(entry.path)
