@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import hashlib
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -41,7 +40,8 @@ import numpy as np
 from . import scenario as _sc
 from .model import InitialState
 from .scenario import ScenarioError
-from .scenario_reader import read_text_file
+from .scenario_output import MEMORY_BUDGET, run_memory_bytes
+from .scenario_reader import parse_toml, read_text_file
 from .site_columns import boring_column, material_layers, material_properties
 from .site_logs import FACE_TOLERANCE, _read_borings, _read_initial, _read_log  # noqa: F401
 from .uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
@@ -233,10 +233,7 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
 
     file = str(path)
     r = _sc._Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise r.error("(TOML syntax)", problem=str(exc), fix="correct the TOML syntax") from None
+    data = parse_toml(r, text)
     r.keys(data, SITE_KEYS, "")
     title = r.text(data, "title", "", default=Path(file).stem)
     crs_raw = data.get("crs")
@@ -310,6 +307,15 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
         raise r.error(key, problem=f"outside {len(bad)} boring(s):\n  " + "\n  ".join(bad),
                       fix="deepen those logs or move the receptor")
     grid = _common_grid(r, out, max(b.depth for b in borings))
+    nseg = max(len(b.intervals) + len(b.initial) for b in borings)
+    need = run_memory_bytes(times.size, grid.size, nseg)
+    if need > MEMORY_BUDGET:
+        raise r.error("output", problem=f"each boring's run would need about "
+                      f"{need / 1e9:.3g} GB of memory ({times.size} output times x "
+                      f"{grid.size} depths, up to {nseg} layers and profile pieces), more "
+                      f"than the {MEMORY_BUDGET / 1024 ** 3:.0f} GiB budget",
+                      fix="ask for fewer output times or a coarser output.depth_spacing, or "
+                      "merge thin intervals of the logs")
     digest = hashlib.sha256()
     for part in (text, btext, ltext, itext):
         digest.update(part.encode("utf-8") + b"\0")

@@ -22,6 +22,7 @@ import numpy as np
 from . import media
 from .model import Column, InputError
 from .scenario import ScenarioError
+from .scenario_reader import DIMENSION_RANGES, KEY_RANGES
 
 __all__ = ["MATERIAL_DIMENSIONS", "DRAW_LIMITS", "material_properties", "material_layers",
            "boring_column", "check_draws"]
@@ -43,7 +44,7 @@ DRAW_LIMITS = {
     "distribution_coefficient": (0.0, None, False), "retardation_factor": (0.0, None, True),
     "tortuosity": (0.0, 1.0, True), "pore_diffusivity": (0.0, None, True),
     "dispersivity": (0.0, None, False), "half_life": (0.0, None, True),
-    "source_rate": (None, None, False), "free_water_diffusivity": (0.0, None, True),
+    "source_rate": (0.0, None, False), "free_water_diffusivity": (0.0, None, True),
     "organic_carbon_partition": (0.0, None, False), "darcy_flux": (None, None, False),
 }
 _KWARG = {"retardation_factor": "retardation_factor_value"}  # media.derive_layer names
@@ -119,6 +120,22 @@ def boring_column(site, boring, layers=None, darcy_flux=None) -> Column:
     return Column(stack, site.top, site.bottom, darcy_flux)
 
 
+_DRAW_DIMENSIONS = {**MATERIAL_DIMENSIONS, "free_water_diffusivity": "diffusivity",
+                    "organic_carbon_partition": "specific_volume", "darcy_flux": "velocity"}
+
+
+def _unrepresentable(name: str, x: np.ndarray) -> np.ndarray:
+    """Draws outside what the model represents (the limits a scenario file's value of
+    the same key meets: :data:`transport.scenario_reader.KEY_RANGES`)."""
+    tiny, huge, _ = DIMENSION_RANGES[_DRAW_DIMENSIONS[name]]
+    low, high, _ = KEY_RANGES.get(name, (None, None, ""))
+    a = np.abs(x)
+    with np.errstate(invalid="ignore"):
+        bad = (a > 0) & (a < max(tiny, low or 0.0))
+        bad |= a > min(huge if huge is not None else np.inf, high if high is not None else np.inf)
+    return bad
+
+
 def check_draws(site, samples: np.ndarray):
     """Raise ScenarioError for the first drawn value outside its key's allowed range
     (the limits of a scenario file), naming the parameter and the realization."""
@@ -131,8 +148,13 @@ def check_draws(site, samples: np.ndarray):
             bad |= (x <= low) if low_open else (x < low)
         if high is not None:
             bad |= x > high
-        if dist.parameter == "flow.darcy_flux" and site.top.kind == "inlet":
-            bad |= x == 0
+        bad |= _unrepresentable(name, x)
+        if dist.parameter == "flow.darcy_flux":
+            # an inlet needs water entering at its end (see scenario.check_inlet)
+            if site.top.kind == "inlet":
+                bad |= ~(x > 0)
+            if site.bottom.kind == "inlet":
+                bad |= ~(x < 0)
         if bad.any():
             k = int(np.flatnonzero(bad)[0])
             limit = ("" if low is None else f"{'>' if low_open else '>='} {low:g}") + (

@@ -11,28 +11,47 @@ from __future__ import annotations
 import csv
 import math
 import re
-from pathlib import Path
 
 import numpy as np
 
-from .scenario import ScenarioError
+from .scenario import MAX_LAYERS, ScenarioError
+from .scenario_reader import range_error
 from .units import UnitError, to_si
 
 #: Two log depths closer than this are the same face (m); larger mismatches are gaps
 #: or overlaps (common practice: logs are recorded to the centimetre at best).
 FACE_TOLERANCE = 1e-6
+#: Borings (or rows) listed by name in one message; the rest are counted.
+MAX_LISTED = 20
+#: Margin (degrees) around a CRS's area of use within which borings are accepted (a site
+#: at the edge of a UTM zone is often mapped in the neighbouring zone: common practice).
+AREA_MARGIN = 1.0
+_SAFE_NAME = re.compile(r"^[A-Za-z0-9_ ]{1,32}$")
+
+
+def _listed(items, what="more"):
+    """The first MAX_LISTED items, one per line, and a count of the rest."""
+    items = list(items)
+    shown = items[:MAX_LISTED]
+    more = len(items) - len(shown)
+    return "\n  " + "\n  ".join(shown) + (f"\n  ... and {more} {what}" if more else "")
+
+
+def _header_error(path, needed: str, cols, example: str):
+    """The header is not the one expected: name the file and the columns needed; list
+    the columns found only when they look like column names (never a line of some
+    unrelated file)."""
+    names = [c for c in cols]
+    found = (f"; found the columns {', '.join(names)}"
+             if 0 < len(names) <= 12 and all(_SAFE_NAME.match(c) for c in names) else
+             f"; its first line is not such a header ({len(names)} comma-separated cell(s))")
+    return ScenarioError(str(path), "header", problem=f"needs the columns {needed}{found}",
+                         fix=f"write '{example}' as the first line (after # comments)")
 
 
 def _read_table(r, key: str, raw, required: dict):
     """Rows of a CSV named at ``key``: (path, text, [(line, {column: (text, unit)})])."""
-    if not isinstance(raw, str) or not raw.strip():
-        raise r.error(key, raw, "must be a file name", fix=f'e.g. {key} = "borings.csv"')
-    path = Path(raw) if Path(raw).is_absolute() else r.base_dir / raw
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except (OSError, UnicodeError) as exc:
-        raise r.error(key, raw, f"cannot read {path}: {exc}",
-                      fix="check the path (relative to the site file)") from None
+    path, text = r.input_file(raw, key, "a CSV table with a header", example=f"{key[:-5]}.csv")
     numbered = [(i, ln) for i, ln in enumerate(text.splitlines(), start=1)
                 if ln.strip() and not ln.lstrip().startswith("#")]
     if not numbered:
@@ -42,6 +61,11 @@ def _read_table(r, key: str, raw, required: dict):
     for j, cell in enumerate(header):
         m = re.match(r"^\s*([^\[]+?)\s*(?:\[(.+)\])?\s*$", cell)
         name = m.group(1).strip().lower().replace(" ", "_") if m else cell
+        if name in columns and name:
+            shown = name if _SAFE_NAME.match(name) else "a column"
+            raise ScenarioError(str(path), "header", problem=f"the column {shown!r} appears "
+                                f"twice (cells {columns[name][0] + 1} and {j + 1})",
+                                fix="keep one column of each name")
         columns[name] = (j, m.group(2).strip() if m and m.group(2) else None)
     rows = []
     for line, text_line in numbered[1:]:
@@ -65,11 +89,18 @@ def _unit_factor(path, column, unit, dimension):
 def _per_boring_error(path, key: str, problems: dict, fix: str) -> ScenarioError:
     """One ScenarioError listing every boring's problems ({id: [messages]}); the ids are
     kept in ``.borings`` for callers and tests."""
-    listed = [f"boring {bid}: " + "; ".join(msgs) for bid, msgs in problems.items()]
+    listed = [f"boring {_short_id(bid)}: " + "; ".join(msgs[:3])
+              + (f"; and {len(msgs) - 3} more" if len(msgs) > 3 else "")
+              for bid, msgs in problems.items()]
     err = ScenarioError(str(path), key, problem=f"{len(problems)} boring(s) with problems:"
-                        "\n  " + "\n  ".join(listed), fix=fix)
+                        + _listed(listed, "more boring(s)"), fix=fix)
     err.borings = tuple(problems)
     return err
+
+
+def _short_id(bid) -> str:
+    bid = str(bid)
+    return bid if len(bid) <= 40 else bid[:37] + "..."
 
 
 def _id_column(cols):
@@ -92,9 +123,8 @@ def _read_borings(r, data, crs):
     has_xy = "x" in cols and "y" in cols
     has_ll = ("lon" in cols or "longitude" in cols) and ("lat" in cols or "latitude" in cols)
     if id_col is None or not (has_xy or has_ll) or "ground_elevation" not in cols:
-        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, x and "
-                            "y (or lon and lat) and ground_elevation",
-                            fix="write e.g. 'id,x [m],y [m],ground_elevation [m]'")
+        raise _header_error(path, "id, x and y (or lon and lat) and ground_elevation", cols,
+                            "id,x [m],y [m],ground_elevation [m]")
     f_elev = _unit_factor(path, "ground_elevation", cols["ground_elevation"][1], "length")
     if has_xy:
         for c in ("x", "y"):
@@ -124,10 +154,16 @@ def _read_borings(r, data, crs):
         if not has_xy and not (-180 <= vals[0] <= 180 and -90 <= vals[1] <= 90):
             problems.append(f"boring {bid} ({where}): lon/lat out of range")
             continue
+        if range_error("ground_elevation", "length", vals[2] * f_elev) is not None:
+            problems.append(f"boring {bid} ({where}): ground_elevation outside +-100 km")
+            continue
         borings[bid] = (line, vals[0], vals[1], vals[2] * f_elev)
     if problems:
-        raise ScenarioError(str(path), "borings", problem=f"{len(problems)} problem(s):\n  "
-                            + "\n  ".join(problems), fix="correct the listed rows")
+        raise ScenarioError(str(path), "borings", problem=f"{len(problems)} problem(s):"
+                            + _listed(problems), fix="correct the listed rows")
+    if not borings:
+        raise ScenarioError(str(path), "borings", problem="no borings listed",
+                            fix="add one row per boring below the header")
     ids = list(borings)
     a = np.array([borings[i][1] for i in ids])
     b = np.array([borings[i][2] for i in ids])
@@ -138,8 +174,39 @@ def _read_borings(r, data, crs):
     else:
         lon, lat = a, b
         x, y = pyproj.Transformer.from_crs(geo, crs, always_xy=True).transform(a, b)
+    _check_area(path, crs, ids, a, b, np.asarray(lon, float), np.asarray(lat, float), has_xy,
+                {i: borings[i][0] for i in ids})
     return path, text, {i: (borings[i][0], float(x[k]), float(y[k]), float(lon[k]),
                             float(lat[k]), borings[i][3]) for k, i in enumerate(ids)}
+
+
+def _check_area(path, crs, ids, a, b, lon, lat, has_xy, lines):
+    """Every boring must lie in the CRS's area of use (with :data:`AREA_MARGIN`)."""
+    if has_xy and np.all(np.abs(a) <= 180) and np.all(np.abs(b) <= 90):
+        raise ScenarioError(str(path), "borings", problem="every x and y lies within "
+                            "+-180 and +-90: these look like longitude and latitude in "
+                            f"degrees, not metres of {crs.name}",
+                            fix="name the columns 'lon [deg]' and 'lat [deg]' (or give the "
+                            "projected x and y in metres)")
+    area = crs.area_of_use
+    bad = ~(np.isfinite(lon) & np.isfinite(lat))
+    if area is not None:
+        w, s_, e, n = area.bounds
+        lon_ok = ((lon >= w - AREA_MARGIN) & (lon <= e + AREA_MARGIN)) if w <= e else (
+            (lon >= w - AREA_MARGIN) | (lon <= e + AREA_MARGIN))
+        bad |= ~(lon_ok & (lat >= s_ - AREA_MARGIN) & (lat <= n + AREA_MARGIN))
+    if bad.any():
+        cols = "x, y" if has_xy else "lon, lat"
+        listed = [f"boring {_short_id(ids[k])} ({path.name} line {lines[ids[k]]}): {cols} = "
+                  f"{a[k]:.6g}, {b[k]:.6g} is at lon {lon[k]:.4g}, lat {lat[k]:.4g}"
+                  for k in np.flatnonzero(bad)]
+        where = (f"the area of use of {crs.name} (lon {area.bounds[0]:g} to "
+                 f"{area.bounds[2]:g}, lat {area.bounds[1]:g} to {area.bounds[3]:g})"
+                 if area is not None else f"{crs.name}")
+        raise ScenarioError(str(path), "borings", problem=f"{int(bad.sum())} boring(s) lie "
+                            f"outside {where}:" + _listed(listed, "more boring(s)"),
+                            fix="check the coordinates (a mistyped digit, lon/lat in the x/y "
+                            "columns) or the site's crs")
 
 
 def _boring_rows(r, key: str, data, columns: dict, example: str):
@@ -149,8 +216,7 @@ def _boring_rows(r, key: str, data, columns: dict, example: str):
     path, text, cols, rows = _read_table(r, key, data.get(key), {})
     id_col = _id_column(cols)
     if id_col is None or not set(columns) <= set(cols):
-        raise ScenarioError(str(path), "header", ",".join(cols), "needs the columns id, "
-                            + ", ".join(columns), fix=f"write '{example}'")
+        raise _header_error(path, "id, " + ", ".join(columns), cols, example)
     factors = {c: _unit_factor(path, c, cols[c][1], dim) for c, dim in columns.items() if dim}
     return path, text, id_col, factors, rows
 
@@ -180,6 +246,12 @@ def _read_log(r, data, materials, boring_ids, borings_path):
             problems.setdefault(bid, []).append(f"{where}: needs 0 <= top < bottom, got "
                                                 f"{top:g} m to {bot:g} m")
             continue
+        bad = range_error("thickness", "length", bot - top) or range_error("depth", "length",
+                                                                            bot)
+        if bad is not None:
+            problems.setdefault(bid, []).append(f"{where}: {top:g} m to {bot:g} m is outside "
+                                                f"what the model represents ({bad[0]})")
+            continue
         logs.setdefault(bid, []).append((top, bot, mat, line))
     for bid in boring_ids:
         if bid not in logs:
@@ -188,6 +260,10 @@ def _read_log(r, data, materials, boring_ids, borings_path):
                                                     f"{path.name}")
             continue
         ivs = sorted(logs[bid])
+        if len(ivs) > MAX_LAYERS:
+            problems.setdefault(bid, []).append(
+                f"{len(ivs)} intervals in {path.name}, more than the {MAX_LAYERS} a column "
+                "may have (merge neighbouring intervals of the same material)")
         if ivs[0][0] > FACE_TOLERANCE:
             problems.setdefault(bid, []).append(f"{path.name} line {ivs[0][3]}: the log "
                                                 f"starts at {ivs[0][0]:g} m, not at 0 m")
@@ -232,6 +308,10 @@ def _read_initial(r, data, boring_ids, bottoms, borings_path):
                 f"{where}: depth {z:g} m outside the log (0 to {bottoms[bid]:g} m)")
         elif c < 0:
             problems.setdefault(bid, []).append(f"{where}: negative concentration")
+        elif range_error("concentration", "concentration", c) is not None:
+            problems.setdefault(bid, []).append(
+                f"{where}: concentration {c * 1e3:.3g} mg/L is outside what the model "
+                "represents (" + range_error("concentration", "concentration", c)[0] + ")")
         else:
             samples.setdefault(bid, []).append((z, c, line))
     for bid, rows_b in samples.items():
