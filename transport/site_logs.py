@@ -198,7 +198,10 @@ def _check_area(path, crs, ids, a, b, lon, lat, has_xy, lines):
     if bad.any():
         cols = "x, y" if has_xy else "lon, lat"
         listed = [f"boring {_short_id(ids[k])} ({path.name} line {lines[ids[k]]}): {cols} = "
-                  f"{a[k]:.6g}, {b[k]:.6g} is at lon {lon[k]:.4g}, lat {lat[k]:.4g}"
+                  f"{a[k]:.2f}, {b[k]:.2f} "
+                  + (f"is at lon {lon[k]:.4g}, lat {lat[k]:.4g}"
+                     if np.isfinite(lon[k]) and np.isfinite(lat[k]) else
+                     "does not map to any longitude and latitude")
                   for k in np.flatnonzero(bad)]
         where = (f"the area of use of {crs.name} (lon {area.bounds[0]:g} to "
                  f"{area.bounds[2]:g}, lat {area.bounds[1]:g} to {area.bounds[3]:g})"
