@@ -171,6 +171,15 @@ def test_values_the_model_cannot_represent_are_refused_with_the_range(old, new, 
     assert "outside what the model represents" in str(err) and "Allowed:" in str(err)
 
 
+def test_advection_the_engines_cannot_invert_is_refused_up_front():
+    """1000 m/yr through a layer with D = 1e-20 m^2/s and no dispersivity: before, the
+    Laplace engine tried to allocate 164 GiB for its contour."""
+    text = with_('darcy_flux = "0.1 m/yr"', 'darcy_flux = "1000 m/yr"')
+    text = with_('tortuosity = "millington-quirk"', 'pore_diffusivity = "1e-20 m^2/s"', text)
+    err = error_of(with_('dispersivity = "0.05 m"', 'dispersivity = "0 m"', text))
+    assert err.key == "flow.darcy_flux" and "dispersivity" in str(err) and "'fill'" in str(err)
+
+
 def test_deeply_nested_toml_is_refused():
     for text in ("x = " + "[" * 500 + "]" * 500 + "\n",
                  "x = " + "{a = " * 300 + "1" + "}" * 300 + "\n"):

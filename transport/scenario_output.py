@@ -13,7 +13,8 @@ import numpy as np
 from .model import Column, InitialState
 from .scenario_reader import _Reader
 
-__all__ = ["OutputSpec", "check_run_size", "run_memory_bytes", "MEMORY_BUDGET"]
+__all__ = ["OutputSpec", "check_run_size", "check_advection", "run_memory_bytes",
+           "MEMORY_BUDGET", "MAX_CONTOUR_NODES"]
 
 MAX_TIMES = 10_000  # output times; more is a typo, not a use case
 MAX_DEPTHS = 20_001  # output depths
@@ -206,8 +207,38 @@ def run_memory_bytes(n_times: int, n_depths: int, n_segments: int) -> float:
     return 150e6 + points * (6e3 + 50.0 * n_segments)
 
 
+#: Most nodes per output time of the Laplace engine's parabolic contour (its count is
+#: 12 sqrt(s0 t) + 24, s0 = q^2 / (4 theta D theta R): transport.laplace.parabola_count).
+MAX_CONTOUR_NODES = 20_000
+
+
+def check_advection(r: _Reader, layers, q: float, t_max: float, key: str):
+    """Refuse a column whose advection so dominates dispersion that the Laplace engine's
+    contour would need more than :data:`MAX_CONTOUR_NODES` nodes per output time (this
+    is where a memory cliff or an endless run would come from)."""
+    if q == 0 or not layers:
+        return
+    worst = max(layers, key=lambda lay: q * q / (4 * lay.porosity * lay.diffusivity
+                                                  * lay.porosity * lay.retardation))
+    s0 = q * q / (4 * worst.porosity * worst.diffusivity * worst.porosity * worst.retardation)
+    nodes = 12 * math.sqrt(s0 * t_max) + 24
+    if nodes > MAX_CONTOUR_NODES:
+        peclet = abs(q) * worst.thickness / (worst.porosity * worst.diffusivity)
+        raise r.error(key, problem=f"advection dominates dispersion too strongly in layer "
+                      f"{worst.name!r} (layer Peclet number {peclet:.3g}): the engines would "
+                      f"need about {nodes:.3g} contour nodes per output time, more than "
+                      f"{MAX_CONTOUR_NODES}",
+                      fix="give the layer a dispersivity (common practice: about a tenth of "
+                      "the travel distance) or check darcy_flux and pore_diffusivity")
+
+
 def check_run_size(r: _Reader, output: OutputSpec, column: Column, initial, timeline=None):
-    """Refuse up front a run whose working memory would exceed :data:`MEMORY_BUDGET`."""
+    """Refuse up front a run whose working memory would exceed :data:`MEMORY_BUDGET`, or
+    whose advection the engines cannot invert (:func:`check_advection`)."""
+    t_max = float(max(output.times.max(), output.design_life or 0.0))
+    columns = [column] if timeline is None else [st.column for st in timeline.stages]
+    for col in columns:
+        check_advection(r, col.layers, col.darcy_flux, t_max, "flow.darcy_flux")
     nseg = len(column.layers) + (len(initial.depths) if initial.kind == "profile" else 0)
     stages = 1
     if timeline is not None:

@@ -114,15 +114,17 @@ def range_error(key: str, dimension: str, si: float):
     tiny, huge, why = DIMENSION_RANGES.get(dimension, (0.0, None, ""))
     low_k = high_k = None
     special = _key_range(key)
+    a = abs(si)
+    slack = 1 + 1e-9  # a limit written in other units converts with rounding
     if special is not None:
         low_k, high_k, why_k = special
-        if low_k is not None and 0 < abs(si) < low_k:
+        if low_k is not None and 0 < a * slack < low_k:
             return why_k, low_k, high_k
-        if high_k is not None and abs(si) > high_k:
+        if high_k is not None and a > high_k * slack:
             return why_k, low_k, high_k
-    if si != 0 and abs(si) < tiny:
+    if si != 0 and a * slack < tiny:
         return why, tiny, huge
-    if huge is not None and abs(si) > huge:
+    if huge is not None and a > huge * slack:
         return why, tiny, huge
     return None
 

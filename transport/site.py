@@ -40,7 +40,7 @@ import numpy as np
 from . import scenario as _sc
 from .model import InitialState
 from .scenario import ScenarioError
-from .scenario_output import MEMORY_BUDGET, run_memory_bytes
+from .scenario_output import MEMORY_BUDGET, check_advection, run_memory_bytes
 from .scenario_reader import parse_toml, read_text_file
 from .site_columns import boring_column, material_layers, material_properties
 from .site_logs import FACE_TOLERANCE, _read_borings, _read_initial, _read_log  # noqa: F401
@@ -253,10 +253,10 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     flow = r.table(data.get("flow"), "flow")
     r.keys(flow, _sc.FLOW_KEYS, "flow")
     q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
-    props = {}
+    props, unit_layers = {}, []
     for name, mat in materials.items():  # each material as a 1 m layer, to validate keys
-        _sc._layer(r, {**mat, "thickness": "1 m", "name": name}, name, chem, q, 0.0, True,
-                   key=f"materials.{name}")
+        unit_layers.append(_sc._layer(r, {**mat, "thickness": "1 m", "name": name}, name,
+                                      chem, q, 0.0, True, key=f"materials.{name}")[0])
         props[name] = material_properties(r, name, mat)
     top_bc = _sc._boundary(r, data, "top", q)
     bottom_bc = _sc._boundary(r, data, "bottom", q)
@@ -273,6 +273,7 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     if positive.size == 0 or life <= positive.min():
         raise r.error("output.design_life", out["design_life"], "must exceed the earliest "
                       "positive output time", fix="add an earlier output time")
+    check_advection(r, unit_layers, q, float(max(times.max(), life)), "flow.darcy_flux")
     tol = r.optional(out, "tolerance", "dimensionless", "output",
                      default=_sc.DEFAULT_TOLERANCE, low=1e-14, high=1e-2)
     if "receptor_depth" in out and "receptor_elevation" in out:
