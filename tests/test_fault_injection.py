@@ -218,32 +218,39 @@ def test_run_failing_in_the_summary_keeps_the_file(run_folders):
     assert temporaries(folder) == []
 
 
-def test_run_sigterm_while_writing_removes_temporaries(run_folders, monkeypatch):
-    """SIGTERM during the figures ends the run like Ctrl-C: old files kept, no debris."""
-    folder, scenario = run_folders
-    before = snapshot(folder / "out", folder / "figs")
+class Escaped(Exception):
+    """SIGTERM reached the test's own handler: the command installed none."""
 
-    class Escaped(Exception):
-        pass
 
-    def fallback(signum, frame):  # only reached if the command installed no handler
+def invoke_with_sigterm(monkeypatch, module, name, args):
+    """Invoke the CLI with SIGTERM sent from inside ``module.name`` (after the first
+    outputs are staged). A fallback handler turns a missing handler in the command
+    into a test failure instead of the end of the test process."""
+    real = getattr(module, name)
+
+    def terminated(*a, **kw):
+        os.kill(os.getpid(), signal.SIGTERM)
+        return real(*a, **kw)
+
+    def fallback(signum, frame):
         raise Escaped
 
-    import transport.plots as plots
-    real = plots.plot_breakthrough
-
-    def terminated(*args, **kwargs):
-        os.kill(os.getpid(), signal.SIGTERM)
-        return real(*args, **kwargs)
-
-    monkeypatch.setattr(plots, "plot_breakthrough", terminated)
+    monkeypatch.setattr(module, name, terminated)
     previous = signal.signal(signal.SIGTERM, fallback)
     try:
-        result = CliRunner().invoke(main, ["run", str(scenario), "-o",
-                                           str(folder / "out/keep.nc"), "--plots",
-                                           str(folder / "figs")])
+        return CliRunner().invoke(main, [str(a) for a in args])
     finally:
         signal.signal(signal.SIGTERM, previous)
+
+
+def test_run_sigterm_while_writing_removes_temporaries(run_folders, monkeypatch):
+    """SIGTERM during the figures ends the run like Ctrl-C: old files kept, no debris."""
+    import transport.plots as plots
+
+    folder, scenario = run_folders
+    before = snapshot(folder / "out", folder / "figs")
+    result = invoke_with_sigterm(monkeypatch, plots, "plot_breakthrough", [
+        "run", scenario, "-o", folder / "out/keep.nc", "--plots", folder / "figs"])
     assert not isinstance(result.exception, Escaped)
     assert result.exit_code == 128 + signal.SIGTERM
     assert snapshot(folder / "out", folder / "figs") == before
@@ -313,6 +320,22 @@ def test_compare_failure_at_each_step_keeps_previous_files(compare_baseline, tmp
     _inject(monkeypatch, COMPARE_FAULTS[step])
     result = CliRunner().invoke(main, ["compare", str(a), str(b), "-o", str(tmp_path / "out")])
     assert result.exit_code != 0, result.output
+    assert snapshot(tmp_path / "out") == before
+    assert temporaries(tmp_path) == []
+
+
+def test_compare_sigterm_while_writing_removes_temporaries(compare_baseline, tmp_path,
+                                                           monkeypatch):
+    import transport.plots_compare as plots_compare
+
+    shutil.copytree(compare_baseline / "out", tmp_path / "out")
+    a = slab(tmp_path, "a.toml", title="Alternative A, again (invented)", conc=120)
+    b = slab(tmp_path, "b.toml", title="Alternative B, again (invented)", conc=30)
+    before = snapshot(tmp_path / "out")
+    result = invoke_with_sigterm(monkeypatch, plots_compare, "plot_comparison", [
+        "compare", a, b, "-o", tmp_path / "out"])
+    assert not isinstance(result.exception, Escaped)
+    assert result.exit_code == 128 + signal.SIGTERM
     assert snapshot(tmp_path / "out") == before
     assert temporaries(tmp_path) == []
 
@@ -387,8 +410,8 @@ def test_site_failure_at_each_step_keeps_previous_files(site_baseline, tmp_path,
 
 
 def test_site_mistyped_easting_keeps_previous_files(site_baseline, tmp_path):
-    """The case of the issue: an easting typed with two extra digits is refused by the
-    GIS writers as one input error (no traceback) and nothing is replaced."""
+    """The case of the issue: an easting typed with two extra digits ends in one input
+    error (no traceback) and nothing is replaced."""
     out = tmp_path / "out"
     shutil.copytree(site_baseline / "out", out)
     before = snapshot(out)
@@ -397,8 +420,21 @@ def test_site_mistyped_easting_keeps_previous_files(site_baseline, tmp_path):
     result = CliRunner().invoke(main, ["site", str(site_file), "-o", str(out), "--workers",
                                        "1", "--chunk-size", "2"])
     assert result.exit_code == 2, result.output
-    assert "Traceback" not in result.output and "no output file" in result.output
+    assert "Traceback" not in result.output
     assert_unchanged(out, before)
+
+
+def test_gis_writer_refusal_is_an_input_error(site_baseline, tmp_path):
+    """Should coordinates that GDAL refuses reach the GIS writers, the refusal names the
+    file and the cause, and leaves no file behind."""
+    from transport.io.mapping import station_table, write_geojson
+
+    table = station_table(site_baseline / "out" / "site.nc")
+    table.loc[2, "x_m"] = 50006100.0
+    target = tmp_path / "site.geojson"
+    with pytest.raises(ValueError, match="site.geojson.*no output file was changed"):
+        write_geojson(table, target)
+    assert list(tmp_path.iterdir()) == []
 
 
 # ------------------------------------------------------------------------ damaged chunks

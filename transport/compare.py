@@ -238,7 +238,7 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
     (:class:`transport.io.atomic.OutputSet`): a failure in any of them leaves every
     previous file of ``out_dir`` as it was.
     """
-    from .io.atomic import OutputSet
+    from .io.atomic import OutputSet, terminate_as_exit
     from .plots_compare import plot_comparison
 
     os.makedirs(out_dir, exist_ok=True)
@@ -249,7 +249,8 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
                     + "\n".join(f"- {ln}" for ln in verdict_lines(alts))
                     + f"\n\n{CAUTION}\n"))
     paths = []
-    with OutputSet() as stage:
+    # SIGTERM while writing ends the program like Ctrl-C: the temporaries are removed
+    with terminate_as_exit(), OutputSet() as stage:
         for ext, text in texts:
             paths.append(stage.write(os.path.join(out_dir, f"{stem}.{ext}"),
                                      lambda tmp, text=text: _write_text(tmp, text)))

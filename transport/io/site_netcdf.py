@@ -92,6 +92,12 @@ class SiteNetCDFWriter:
         try:
             self.nc = netCDF4.Dataset(self.tmp, "w", format="NETCDF4")
             self._define()
+        except OSError as exc:
+            self._discard()
+            if exc.filename is not None and os.fspath(exc.filename) == self.tmp:
+                # name the file the user asked for, not the temporary one
+                raise type(exc)(exc.errno, exc.strerror or str(exc), self.path) from exc
+            raise
         except BaseException:
             self._discard()
             raise
