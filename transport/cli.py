@@ -36,6 +36,7 @@ EXIT_REFUSED = 3
 # Prefix per error class; a ScenarioError already starts with the file and key path.
 _ERROR_KIND = {
     "ScenarioError": "",
+    "ClusterError": "",
     "UnitError": "invalid units: ",
     "InputError": "invalid input: ",
     "TOMLDecodeError": "the scenario file is not valid TOML: ",

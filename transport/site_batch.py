@@ -50,7 +50,7 @@ from .uncertainty import sample_matrix
 __all__ = ["SCAN_SAMPLES", "QUANTILES", "receptor_metrics", "site_series", "solve_chunk",
            "plan_chunks",
            "iter_chunks", "solve_site", "SiteResult", "draw_samples", "METRIC_KEYS",
-           "MC_KEYS"]
+           "MC_KEYS", "ClusterError"]
 
 #: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
 #: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
@@ -516,16 +516,7 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
         return
     window = max(2, 2 * (workers or os.cpu_count() or 1))
     if scheduler is not None:
-        from distributed import Client, wait
-
-        with Client(scheduler) as client:
-            site_f, samples_f = client.scatter([site, samples], broadcast=True)
-            window = max(window, 2 * max(1, sum(client.nthreads().values())))
-            yield from _windowed(
-                lambda a, b: client.submit(solve_chunk, site_f, a, b, samples_f, pure=False),
-                chunks, window,
-                lambda pending: wait(pending, return_when="FIRST_COMPLETED").done,
-                lambda fut: (fut.result(), fut.release())[0])
+        yield from _on_cluster(site, chunks, samples, scheduler, window)
         return
     workers = workers or os.cpu_count() or 1
     if workers == 1 or len(chunks) == 1:
@@ -538,6 +529,72 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
                              lambda pending: futures_wait(pending,
                                                           return_when=FIRST_COMPLETED).done,
                              lambda fut: fut.result())
+
+
+#: Seconds to reach a Dask scheduler before the run is refused.
+SCHEDULER_TIMEOUT = 10
+
+
+class ClusterError(ValueError):
+    """The Dask cluster cannot be reached or stopped answering (one paragraph, with the
+    address and the fix)."""
+
+
+def _cluster_failure(scheduler, exc, started):
+    what = ("cannot reach a Dask scheduler at" if not started
+            else "the Dask cluster stopped answering at")
+    reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    if isinstance(exc, MemoryError):
+        reason = "the address answers, but not in the Dask protocol"
+    elif not isinstance(exc, OSError):  # cancelled futures: the scheduler went away
+        reason = "its tasks were cancelled: the scheduler went away"
+    fix = ("check that `dask scheduler` runs there and that the address and port are "
+           "right (e.g. tcp://host:8786), or leave out --scheduler to use local worker "
+           "processes" if not started else
+           "chunks already finished are kept: run the same command again to resume, on "
+           "a working cluster or with local worker processes (no --scheduler)")
+    return ClusterError(f"{what} {scheduler!r} ({reason}); {fix}.")
+
+
+def _on_cluster(site, chunks, samples, scheduler, window):
+    """The chunks on a dask.distributed cluster; a scheduler that cannot be reached, or
+    that speaks another protocol, or dies during the run becomes one ClusterError
+    (within SCHEDULER_TIMEOUT seconds), never a traceback or a hang."""
+    import logging
+    from concurrent.futures import CancelledError
+
+    from distributed import Client, wait
+    started = False
+    # the client logs its own tracebacks when the scheduler goes away; the run reports
+    # the failure itself, in one paragraph
+    logs = [logging.getLogger(name) for name in list(logging.root.manager.loggerDict)
+            if name == "distributed" or name.startswith("distributed.")]
+    levels = [log.level for log in logs]
+
+    def restore():
+        for log, level in zip(logs, levels):
+            log.setLevel(level)
+    for log in logs:
+        log.setLevel(logging.CRITICAL)
+    try:
+        client = Client(scheduler, timeout=f"{SCHEDULER_TIMEOUT}s")
+    except (OSError, MemoryError, ValueError, TypeError) as exc:
+        restore()
+        raise _cluster_failure(scheduler, exc, started) from None
+    try:
+        with client:
+            started = True
+            site_f, samples_f = client.scatter([site, samples], broadcast=True)
+            window = max(window, 2 * max(1, sum(client.nthreads().values())))
+            yield from _windowed(
+                lambda a, b: client.submit(solve_chunk, site_f, a, b, samples_f, pure=False),
+                chunks, window,
+                lambda pending: wait(pending, return_when="FIRST_COMPLETED").done,
+                lambda fut: (fut.result(), fut.release())[0])
+    except (OSError, MemoryError, CancelledError) as exc:
+        raise _cluster_failure(scheduler, exc, started) from None
+    finally:
+        restore()
 
 
 def _windowed(submit, chunks, window, wait_done, result):
