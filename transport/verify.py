@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import os
 import platform
-import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -89,20 +88,15 @@ def _versions() -> list:
     return rows
 
 
-def _atomic_write(path: Path, data: bytes):
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name, suffix=".tmp")
-    try:
-        with os.fdopen(fd, "wb") as fh:
+def _stage_bytes(out, path: Path, data: bytes):
+    """Stage ``data`` as ``path`` in the output set ``out`` (renamed with the others)."""
+    def writer(tmp):
+        with open(tmp, "wb") as fh:
             fh.write(data)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    out.write(path, writer)
 
 
-def _figure(results, out_dir: Path) -> list:
+def _figure(results, out_dir: Path, out) -> list:
     import io
 
     import matplotlib
@@ -129,16 +123,23 @@ def _figure(results, out_dir: Path) -> list:
         buf = io.BytesIO()
         fig.savefig(buf, format="png", dpi=110)
         plt.close(fig)
-        _atomic_write(out_dir / name, buf.getvalue())
+        _stage_bytes(out, out_dir / name, buf.getvalue())
         written.append(name)
     return written
 
 
 def write_report(results, out_dir, quick: bool = False) -> Path:
-    """Write ``verification.md`` and figures into ``out_dir`` (created if needed)."""
+    """Write ``verification.md`` and figures into ``out_dir`` (created if needed), all
+    of them together or none (:class:`transport.io.atomic.OutputSet`)."""
+    from .io.atomic import OutputSet
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    figures = _figure(results, out_dir)
+    with OutputSet() as out:
+        return _write_report(results, out_dir, quick, out)
+
+
+def _write_report(results, out_dir, quick, out):
+    figures = _figure(results, out_dir, out)
     n_fail = sum(not r.passed for r in results)
     lines = ["# stratiflux verification report", "",
              f"Suite: {'quick' if quick else 'full'}; {len(results)} cases, "
@@ -172,5 +173,5 @@ def write_report(results, out_dir, quick: bool = False) -> Path:
     lines += [f"| {k} | {v} |" for k, v in _versions()]
     lines += ["", "## Caution", "", CAUTION, ""]
     path = out_dir / "verification.md"
-    _atomic_write(path, "\n".join(lines).encode("utf-8"))
+    _stage_bytes(out, path, "\n".join(lines).encode("utf-8"))
     return path
