@@ -8,7 +8,7 @@ Run:  python benchmarks/bench_checks.py
 import glob
 import os
 import platform
-import time
+import sys
 import warnings
 
 import numpy as np
@@ -21,15 +21,8 @@ from transport.runner import solve_scenario
 from transport.scenario import load_scenario
 
 HERE = os.path.join(os.path.dirname(__file__), "..", "scenarios")
-
-
-def _best(fn, repeat=3):
-    best, out = np.inf, None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, out
+sys.path.insert(0, os.path.dirname(__file__))
+from bench_engines import _timed as _best  # noqa: E402  (best of three, same process)
 
 
 def main():

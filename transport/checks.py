@@ -38,8 +38,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
-           "budget_residual", "QUANTITIES", "quantities", "choose", "CheckedResult",
-           "smoke_alarm", "describe_refusal", "clip_to_bounds"]
+           "budget_residual", "QUANTITIES", "quantities", "choose",
+           "describe_refusal", "clip_to_bounds"]
 
 #: The reported quantities and their names in messages.
 QUANTITIES = ("concentration", "total_flux", "cumulative_mass", "budget")
@@ -395,32 +395,6 @@ def clip_to_bounds(column, bounds: Bounds | None, depths, conc, error):
         hi = bounds.hi * kap
         out = np.where((out > hi) & (out <= hi + err), hi, out)
     return out
-
-
-def smoke_alarm(column, initial, times, depths, conc, budget, tolerance):
-    """The smoke alarm alone (for a result from one engine): per time, the bound
-    violation (kg m-3) and the relative budget residual; returns (violation,
-    relative residual, concentration scale used)."""
-    times = np.asarray(times, float)
-    t_end = float(times.max()) if times.size else 0.0
-    b = concentration_bounds(column, initial, t_end)
-    v = bound_violation(column, b, depths, conc)
-    res, big = budget_residual(budget)
-    rel = res / np.maximum(big, 1e-300)
-    rel = np.where(big == 0, np.where(res == 0, 0.0, np.inf), rel)
-    return v, rel, b
-
-
-@dataclass(frozen=True)
-class CheckedResult:
-    """What the checks found: per-time engine, error bound per quantity, reliability."""
-
-    engine_by_time: np.ndarray
-    error: dict
-    reliable: np.ndarray
-    failed: dict
-    scale: dict
-    tolerance: float
 
 
 def describe_refusal(times, choice: Choice, tolerance: float, tried: str,

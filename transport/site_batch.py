@@ -273,10 +273,10 @@ def _solve_column(site, col, depth, times, grid, initial=None):
                 f"at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; use later "
                 "output times or cross-check with another engine", AccuracyWarning)
     conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
+    receptor = probe.rows(slice(-1, None))
     conc, cum, conc_at = _checked(site, col, initial, times, np.append(z, depth), t_end,
                                   conc, cum, lambda t: receptor.concentration(t)[:, 0])
     t_start = float(times[positive].min())
-    receptor = probe.rows(slice(-1, None))
     m = _curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics,
