@@ -13,12 +13,12 @@ import warnings
 
 import numpy as np
 
-from transport.checks import (assemble, choose, concentration_bounds, own_errors,
+from transport.solvers.checks import (assemble, choose, concentration_bounds, own_errors,
                               quantities)
-from transport.laplace import solve_laplace
-from transport.modal import solve
-from transport.runner import solve_scenario
-from transport.scenario import load_scenario
+from transport.solvers.laplace import solve_laplace
+from transport.solvers.modal.series import solve
+from transport.api import solve_scenario
+from transport.scenario.schema import load_scenario
 
 HERE = os.path.join(os.path.dirname(__file__), "..", "scenarios")
 sys.path.insert(0, os.path.dirname(__file__))
@@ -34,7 +34,7 @@ def main():
         sc = load_scenario(path)
         if sc.timeline is not None and len(sc.timeline.stages) > 1:
             # staged: the whole checked run against the unchecked modal stages
-            from transport.timeline import _solve_timeline_modal
+            from transport.solvers.timeline import _solve_timeline_modal
             t_modal, _ = _best(lambda: _solve_timeline_modal(
                 sc.timeline, sc.times, sc.depths, sc.initial, sc.output.tolerance, 4000))
             t_run, (sol, _) = _best(lambda: solve_scenario(sc))

@@ -9,9 +9,9 @@ import time
 
 import numpy as np
 
-from transport import spectrum as sp
-from transport.model import Boundary, Column, Layer
-from transport.modal import build_series
+from transport.solvers import modal as sp
+from transport.model.column import Boundary, Column, Layer
+from transport.solvers.modal.series import build_series
 
 YEAR = 365.25 * 86400.0
 

@@ -14,11 +14,11 @@ import numpy as np
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "tests"))
 
 from reference import laplace_reference  # noqa: E402
-from transport.engines import solve_column  # noqa: E402
-from transport.finite_volume import solve_fv  # noqa: E402
-from transport.laplace import solve_laplace  # noqa: E402
-from transport.modal import solve  # noqa: E402
-from transport.model import Boundary, Column, Layer  # noqa: E402
+from transport.solvers.engines import solve_column  # noqa: E402
+from transport.solvers.fv.engine import solve_fv  # noqa: E402
+from transport.solvers.laplace import solve_laplace  # noqa: E402
+from transport.solvers.modal.series import solve  # noqa: E402
+from transport.model.column import Boundary, Column, Layer  # noqa: E402
 
 YEAR = 365.25 * 86400.0
 

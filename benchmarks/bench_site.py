@@ -11,7 +11,7 @@ whose thicknesses differ from boring to boring (no two stacks alike, so the per-
 cache does not help; ``--repeat-logs`` cycles 48 stacks instead), and 100 log-spaced
 output times (deterministic runs, no Monte Carlo unless ``--realizations``).
 
-Rates are wall time of :func:`transport.site_run.run_site`, including writing every
+Rates are wall time of :func:`transport.site.run.run_site`, including writing every
 output (NetCDF, GeoPackage, GeoJSON, CSV, map) and, for the cluster, excluding its
 start-up. Peak memory is measured two ways for in-process runs (workers=1): the
 tracemalloc peak (Python and numpy allocations) and the growth of the process's peak
@@ -50,7 +50,7 @@ def _log_rows(bid: str, k: int, elevation: float, distinct: bool) -> list:
 
 def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
     """The demo site with n five-layer borings and ``times`` output times."""
-    from transport.site import load_site
+    from transport.site.config import load_site
 
     text = (DEMO / "site.toml").read_text(encoding="utf-8")
     text = text.replace('count = 12, spacing = "log"', f'count = {times}, spacing = "log"')
@@ -75,8 +75,8 @@ def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
 def timed_run(site, out, realizations=0, **options):
     """Wall time of one site run, with the per-process column caches emptied first (local
     workers are forked from this process and would inherit them)."""
-    from transport.site_batch import clear_caches
-    from transport.site_run import run_site
+    from transport.site.batch import clear_caches
+    from transport.site.run import run_site
 
     clear_caches()
     start = time.perf_counter()

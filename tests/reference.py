@@ -1,7 +1,7 @@
 """Independent reference solutions for the layered transport problem (test helper).
 
-Nothing here imports the engines (``transport.spectrum``, ``transport.modal``,
-``transport.laplace``, ``transport.engines``, nor ``transport.timeline``, which imports
+Nothing here imports the engines (``transport.solvers.modal.spectrum``, ``transport.solvers.modal.series``,
+``transport.solvers.laplace``, ``transport.solvers.engines``, nor ``transport.solvers.timeline``, which imports
 the modal engine): these routines are the yardsticks the engines are measured against.
 
 * :func:`laplace_reference_full` -- the layered problem solved exactly in the Laplace
@@ -22,7 +22,7 @@ the modal engine): these routines are the yardsticks the engines are measured ag
   slab, Carslaw & Jaeger (1959), *Conduction of Heat in Solids*, composite solids
   chapter; Mikhailov & Ozisik (1984).
 
-Conventions (as ``transport.model``): z positive down, z = 0 at the top; on each layer
+Conventions (as ``transport.model.column``): z positive down, z = 0 at the top; on each layer
 theta R dC/dt = d/dz(theta D dC/dz) - q dC/dz - theta R mu C + sigma; total flux
 F = q C - theta D dC/dz, positive downward.
 """
@@ -35,7 +35,7 @@ import mpmath as mp
 import numpy as np
 from scipy.special import erfc, erfcx
 
-from transport.model import Column, InitialState, InputError
+from transport.model.column import Column, InitialState, InputError
 
 __all__ = [
     "laplace_reference",
@@ -448,7 +448,7 @@ def laplace_reference_full(column: Column, depths, times, initial=None, dps: int
 
     Parameters
     ----------
-    column : transport.model.Column; boundary values constant or scheduled (step, ramp
+    column : transport.model.column.Column; boundary values constant or scheduled (step, ramp
         and exponential atoms), zero-order layer sources (optionally scheduled), decay,
         partition jumps.
     depths : (nz,) m in [0, L]; at a partition face the concentration just below it.

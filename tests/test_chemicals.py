@@ -5,7 +5,7 @@ from importlib import resources
 
 import pytest
 
-from transport import chemicals
+from transport.model import chemicals
 
 PROVENANCE_WORDS = ("from memory", "common practice")
 

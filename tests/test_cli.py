@@ -11,7 +11,7 @@ External references:
 * Crank (1975) eq. 4.17 / Carslaw & Jaeger (1959) sec. 3.3: a slab 0 < z < L with fixed
   concentrations at both faces decays in modes exp(-lambda_n t),
   lambda_n = D n^2 pi^2 / (R L^2).
-* The NetCDF written by ``run`` is compared with ``transport.modal.solve`` on the same
+* The NetCDF written by ``run`` is compared with ``transport.solvers.modal.series.solve`` on the same
   scenario (the CLI must add nothing and lose nothing but float32 rounding).
 """
 from __future__ import annotations
@@ -25,11 +25,11 @@ import pytest
 from click.testing import CliRunner
 from scipy.special import erfc, erfcinv
 
-from transport.cli import main
-from transport.metrics import first_exceedance, peak
+from transport.cli.main import main
+from transport.analysis.metrics import first_exceedance, peak
 from transport.io.netcdf import elapsed_seconds, read_column_netcdf
-from transport.modal import solve
-from transport.scenario import load_scenario, starter_scenario_text
+from transport.solvers.modal.series import solve
+from transport.scenario.schema import load_scenario, starter_scenario_text
 
 SCENARIOS = sorted((Path(__file__).resolve().parent.parent / "scenarios").glob("*.toml"))
 YEAR = 365.25 * 86400.0  # Julian year, as transport.units
@@ -89,7 +89,7 @@ def slab(tmp_path):
 @pytest.mark.filterwarnings("ignore::UserWarning")
 @pytest.mark.parametrize("scenario", SCENARIOS, ids=lambda p: p.stem)
 def test_run_writes_the_core_solution(scenario, tmp_path):
-    """run: the NetCDF fields equal transport.modal.solve on the same scenario, within
+    """run: the NetCDF fields equal transport.solvers.modal.series.solve on the same scenario, within
     the run's tolerance (auto serves the modal value where the Laplace engine confirms
     it, else the Laplace value); the budget closes to the tolerance."""
     out = tmp_path / f"{scenario.stem}.nc"
@@ -197,7 +197,7 @@ def test_summary_flags_breakthrough_within_solver_error():
     from types import SimpleNamespace
 
     from test_netcdf import fake_solution
-    from transport.cli import _summary_lines
+    from transport.cli.main import _summary_lines
 
     base = fake_solution()
     scenario = SimpleNamespace(title="stand-in", receptor_depth=0.3, screening_level=0.05,

@@ -10,8 +10,8 @@ from pathlib import Path
 
 import pytest
 
-from transport import site_batch
-from transport.site_batch import ClusterError, iter_chunks
+from transport.site import batch as site_batch
+from transport.site.batch import ClusterError, iter_chunks
 
 pytest.importorskip("distributed")
 
@@ -27,7 +27,7 @@ def _free_port():
 
 
 def _site():
-    from transport.site import load_site
+    from transport.site.config import load_site
     return load_site(SITE)
 
 

@@ -7,11 +7,11 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from transport.cli import main
-from transport.compare import comparison_table, compare_alternatives
-from transport.metrics import receptor_metrics
-from transport.scenario import load_scenario
-from transport.runner import solve_scenario
+from transport.cli.main import main
+from transport.analysis.compare import comparison_table, compare_alternatives
+from transport.analysis.metrics import receptor_metrics
+from transport.scenario.schema import load_scenario
+from transport.api import solve_scenario
 
 from test_netcdf import failed_items, run_cf_checker
 
@@ -93,7 +93,7 @@ def test_duplicate_labels_are_refused():
 def test_alternatives_in_one_file_equal_separate_files():
     """Identity: the [[alternatives]] of one file give the same scenarios (and the same
     receptor metrics) as the separate demo files."""
-    from transport.scenario import load_alternatives
+    from transport.scenario.schema import load_alternatives
     one = load_alternatives(ALTS[0].parent.parent / "depot-alternatives.toml")
     separate = [load_scenario(p) for p in ALTS]
     assert [s.title for s in one] == [s.title for s in separate]
@@ -106,7 +106,7 @@ def test_alternatives_in_one_file_equal_separate_files():
 
 
 def test_alternative_errors_name_the_alternative():
-    from transport.scenario import ScenarioError, parse_alternatives
+    from transport.scenario.schema import ScenarioError, parse_alternatives
     text = (ALTS[0].parent.parent / "depot-alternatives.toml").read_text(encoding="utf-8")
     bad = text.replace('{ at = "1 yr", kind = "remove-source" }]',
                        '{ at = "1 yr", kind = "remove-sorce" }]', 1)

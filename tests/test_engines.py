@@ -4,9 +4,9 @@ import warnings
 import numpy as np
 import pytest
 
-from transport.engines import solve_column
-from transport.modal import solve
-from transport.model import Boundary, Column, InputError, Layer
+from transport.solvers.engines import solve_column
+from transport.solvers.modal.series import solve
+from transport.model.column import Boundary, Column, InputError, Layer
 
 from reference import laplace_reference
 
@@ -93,8 +93,8 @@ def test_every_engine_serves_continuous_time_metrics():
     modal series to 1e-7 of the source; finite volumes (40 cells per layer, second
     order) to 1e-3.
     Cross-engine check (independent methods)."""
-    from transport.engines import solve_column
-    from transport.model import Boundary, Column, Layer
+    from transport.solvers.engines import solve_column
+    from transport.model.column import Boundary, Column, Layer
     year = 365.25 * 86400.0
     col = Column(layers=(Layer(0.6, 0.35, 6e-10, 2.0), Layer(0.9, 0.3, 8e-10, 1.5)),
                  top=Boundary("concentration", 1.0), bottom=Boundary("free-outflow"),

@@ -29,8 +29,8 @@ import numpy as np
 
 from reference import laplace_reference_full
 from test_regime_matrix import BUDGET_TERMS, LAYERS, Cell, build
-from transport.checks import UnreliableResultError
-from transport.engines import solve_column
+from transport.solvers.checks import UnreliableResultError
+from transport.solvers.engines import solve_column
 
 N_CASES = 200
 SEED = 20240611

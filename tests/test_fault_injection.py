@@ -32,10 +32,10 @@ from matplotlib.figure import Figure
 
 from test_site import BORINGS, SITE_TOML, write_small_site
 from test_site_outputs import MC
-from transport.cli import main
+from transport.cli.main import main
 from transport.io.atomic import TEMP_PATTERN, OutputSet, clean_stale
-from transport.site import load_site
-from transport.site_run import run_site
+from transport.site.config import load_site
+from transport.site.run import run_site
 
 SLAB = """\
 title = "{title}"
@@ -175,12 +175,12 @@ def run_folders(run_baseline, tmp_path):
 
 
 RUN_FAULTS = {
-    "solve": ("transport.runner.solve_scenario", raiser),
-    "summary": ("transport.cli._summary_lines", raiser),
+    "solve": ("transport.api.solve_scenario", raiser),
+    "summary": ("transport.cli.main._summary_lines", raiser),
     "netcdf writer": ("transport.io.netcdf.write_column_netcdf", raiser),
     "netcdf disk full": (xr.Dataset, "to_netcdf", partial_to_netcdf),
-    "profiles figure": ("transport.plots.plot_profiles", raiser),
-    "breakthrough figure": ("transport.plots.plot_breakthrough", raiser),
+    "profiles figure": ("transport.plot.column.plot_profiles", raiser),
+    "breakthrough figure": ("transport.plot.column.plot_breakthrough", raiser),
     "second savefig": (Figure, "savefig", lambda: partial_savefig(2)),
     "last rename": (os, "replace", lambda: replace_failing_for("keep_breakthrough.png")),
 }
@@ -245,7 +245,7 @@ def invoke_with_sigterm(monkeypatch, module, name, args):
 
 def test_run_sigterm_while_writing_removes_temporaries(run_folders, monkeypatch):
     """SIGTERM during the figures ends the run like Ctrl-C: old files kept, no debris."""
-    import transport.plots as plots
+    import transport.plot.column as plots
 
     folder, scenario = run_folders
     before = snapshot(folder / "out", folder / "figs")
@@ -298,13 +298,13 @@ def compare_baseline(tmp_path_factory):
 
 
 COMPARE_FAULTS = {
-    "solve": ("transport.compare.compare_alternatives", raiser),
-    "table": ("transport.compare.table_csv", raiser),
-    "verdicts": ("transport.compare.verdict_lines", raiser),
-    "netcdf dataset": ("transport.compare.comparison_dataset", raiser),
-    "netcdf writer": ("transport.compare.write_dataset_atomic", raiser),
+    "solve": ("transport.analysis.compare.compare_alternatives", raiser),
+    "table": ("transport.analysis.compare.table_csv", raiser),
+    "verdicts": ("transport.analysis.compare.verdict_lines", raiser),
+    "netcdf dataset": ("transport.analysis.compare.comparison_dataset", raiser),
+    "netcdf writer": ("transport.analysis.compare.write_dataset_atomic", raiser),
     "netcdf disk full": (xr.Dataset, "to_netcdf", partial_to_netcdf),
-    "figures": ("transport.plots_compare.plot_comparison", raiser),
+    "figures": ("transport.plot.compare.plot_comparison", raiser),
     "third savefig": (Figure, "savefig", lambda: partial_savefig(3)),
     "last rename": (os, "replace", lambda: replace_failing_for("comparison_profiles.png")),
 }
@@ -326,7 +326,7 @@ def test_compare_failure_at_each_step_keeps_previous_files(compare_baseline, tmp
 
 def test_compare_sigterm_while_writing_removes_temporaries(compare_baseline, tmp_path,
                                                            monkeypatch):
-    import transport.plots_compare as plots_compare
+    import transport.plot.compare as plots_compare
 
     shutil.copytree(compare_baseline / "out", tmp_path / "out")
     a = slab(tmp_path, "a.toml", title="Alternative A, again (invented)", conc=120)
@@ -372,13 +372,13 @@ def second_site(folder: Path, borings=BORINGS):
 
 
 SITE_FAULTS = {
-    "solve": ("transport.site_batch.solve_chunk", None),  # fails at the second chunk
+    "solve": ("transport.site.batch.solve_chunk", None),  # fails at the second chunk
     "netcdf chunk": ("transport.io.site_netcdf.SiteNetCDFWriter.write_chunk", None),
-    "station table": ("transport.io.mapping.station_table", raiser),
-    "geopackage": ("transport.io.mapping.write_geopackage", raiser),
-    "geojson": ("transport.io.mapping.write_geojson", raiser),
-    "csv": ("transport.io.mapping.write_metrics_csv", raiser),
-    "map": ("transport.io.mapping.plot_site_map", raiser),
+    "station table": ("transport.io.gis.station_table", raiser),
+    "geopackage": ("transport.io.gis.write_geopackage", raiser),
+    "geojson": ("transport.io.gis.write_geojson", raiser),
+    "csv": ("transport.io.gis.write_metrics_csv", raiser),
+    "map": ("transport.io.gis.plot_site_map", raiser),
     "savefig": (Figure, "savefig", lambda: partial_savefig(1)),
     "last rename": (os, "replace", lambda: replace_failing_for("site_map.png")),
 }
@@ -427,7 +427,7 @@ def test_site_mistyped_easting_keeps_previous_files(site_baseline, tmp_path):
 def test_gis_writer_refusal_is_an_input_error(site_baseline, tmp_path):
     """Should coordinates that GDAL refuses reach the GIS writers, the refusal names the
     file and the cause, and leaves no file behind."""
-    from transport.io.mapping import station_table, write_geojson
+    from transport.io.gis import station_table, write_geojson
 
     table = station_table(site_baseline / "out" / "site.nc")
     table.loc[2, "x_m"] = 50006100.0
@@ -464,7 +464,7 @@ def site_reference(tmp_path_factory):
     site = load_site(write_small_site(base))
     files = run_site(site, base / "ref", realizations=0, workers=1, chunk_size=2)
     interrupted = base / "interrupted"
-    import transport.io.mapping as mapping
+    import transport.io.gis as mapping
 
     real = mapping.plot_site_map
     mapping.plot_site_map = raiser
@@ -615,7 +615,7 @@ def _running(pid) -> bool:
 
 def _site_command(site_file, out):
     return [sys.executable, "-c", "import sys; sys.argv[0] = 'stratiflux'; "
-            "from transport.cli import main; main()", "site", str(site_file), "-o", str(out),
+            "from transport.cli.main import main; main()", "site", str(site_file), "-o", str(out),
             "--workers", "2", "--chunk-size", "1", "--realizations",
             str(KILL_MC["realizations"]), "--seed", str(KILL_MC["seed"])]
 

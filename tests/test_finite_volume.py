@@ -17,11 +17,11 @@ from scipy.optimize import brentq
 from scipy.special import erfc
 
 from reference import crank_slab_series, laplace_reference
-from transport import closed_forms as cf
-from transport import modal
-from transport.finite_volume import (FVAccuracyWarning, build_mesh, build_storage, solve_fv,
+from transport.verify import closed_forms as cf
+from transport.solvers.modal import series as modal
+from transport.solvers.fv.engine import (FVAccuracyWarning, build_mesh, build_storage, solve_fv,
                                      solve_fv_result)
-from transport.model import Boundary, Column, InitialState, InputError, Layer
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
 
 YEAR = 3.15576e7  # s, Julian year (IAU)
 THETA, RHO, KF = 0.35, 1600.0, 2e-4  # porosity, bulk density kg/m3, K_F m3/kg at n = 1

@@ -18,8 +18,8 @@ from hypothesis import HealthCheck, event, given, settings, strategies as st
 
 from test_scenario import _paths, _to_toml, _values, mutate
 from test_site import BORINGS, LOG, SITE_TOML
-from transport.scenario import TOP_KEYS, ScenarioError, parse_scenario
-from transport.site import SITE_KEYS, load_site
+from transport.scenario.schema import TOP_KEYS, ScenarioError, parse_scenario
+from transport.site.config import SITE_KEYS, load_site
 
 EXPLORE = os.environ.get("HYPOTHESIS_PROFILE") == "explore"
 N_SCENARIO = 3000 if EXPLORE else 200

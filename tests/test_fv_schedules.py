@@ -16,12 +16,12 @@ import numpy as np
 import pytest
 
 from reference import laplace_reference
-from transport import modal
-from transport.engines import solve_column
-from transport.finite_volume import solve_fv, solve_fv_result
-from transport.laplace import solve_laplace
-from transport.model import Boundary, Column, Layer
-from transport.schedules import Schedule
+from transport.solvers.modal import series as modal
+from transport.solvers.engines import solve_column
+from transport.solvers.fv.engine import solve_fv, solve_fv_result
+from transport.solvers.laplace import solve_laplace
+from transport.model.column import Boundary, Column, Layer
+from transport.model.schedules import Schedule
 
 YEAR = 3.15576e7  # s, Julian year (IAU)
 T = np.array([1.0, 3.0, 3.5, 6.0, 12.0]) * YEAR  # 3 yr: a change time of every schedule

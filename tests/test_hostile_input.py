@@ -11,13 +11,13 @@ import numpy as np
 import pytest
 
 from test_site import BORINGS, LOG, SITE_TOML, write_small_site
-from transport import laplace
-from transport.metrics import receptor_metrics
-from transport.runner import solve_scenario
-from transport.scenario import (ScenarioError, load_alternatives, load_scenario,
+from transport.solvers import laplace
+from transport.analysis.metrics import receptor_metrics
+from transport.api import solve_scenario
+from transport.scenario.schema import (ScenarioError, load_alternatives, load_scenario,
                                 parse_scenario, starter_scenario_text)
-from transport.scenario_reader import MAX_TOML_BYTES
-from transport.site import load_site
+from transport.scenario.reader import MAX_TOML_BYTES
+from transport.site.config import load_site
 
 STARTER = starter_scenario_text()
 SECRET = "root:x:0:0:secret-line-of-another-file:/root:/bin/bash"

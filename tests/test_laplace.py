@@ -4,10 +4,10 @@ import warnings
 import numpy as np
 import pytest
 
-from transport.laplace import solve_laplace
-from transport.modal import AccuracyWarning, ModeCapWarning, solve
-from transport.model import Boundary, Column, InitialState, Layer
-from transport.scenario import load_scenario
+from transport.solvers.laplace import solve_laplace
+from transport.solvers.modal.series import AccuracyWarning, ModeCapWarning, solve
+from transport.model.column import Boundary, Column, InitialState, Layer
+from transport.scenario.schema import load_scenario
 
 from reference import (assert_relative, crank_slab_series, erfc_semi_infinite, laplace_reference,
                        ogata_banks)
@@ -185,7 +185,7 @@ def test_agrees_with_modal_on_demo_scenarios(name):
 
 def test_initial_time_and_validation():
     """t = 0 returns the initial profile (common practice); bad depths are refused."""
-    from transport.model import InputError
+    from transport.model.column import InputError
     col = Column(layers=(Layer(1.0, 0.3, 1e-9),), top=Boundary("concentration", 1.0),
                  bottom=Boundary("sealed"))
     init = InitialState.profile([0.0, 0.5], [0.2, 0.4])

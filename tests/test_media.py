@@ -1,12 +1,12 @@
-"""Derived layer properties (transport.media) against the published formulas."""
+"""Derived layer properties (transport.model.media) against the published formulas."""
 import math
 
 import mpmath
 import numpy as np
 import pytest
 
-from transport import media
-from transport.model import Layer
+from transport.model import media
+from transport.model.column import Layer
 
 mpmath.mp.dps = 30
 

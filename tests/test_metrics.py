@@ -3,10 +3,10 @@ import numpy as np
 import pytest
 from scipy.special import erfc, erfcinv
 
-from transport.metrics import receptor_metrics
-from transport.modal import solve
-from transport.model import Boundary, Column, Layer
-from transport.timeline import Timeline, remove_source, solve_timeline
+from transport.analysis.metrics import receptor_metrics
+from transport.solvers.modal.series import solve
+from transport.model.column import Boundary, Column, Layer
+from transport.solvers.timeline import Timeline, remove_source, solve_timeline
 
 YEAR = 365.25 * 86400.0
 

@@ -4,8 +4,8 @@ import warnings
 import numpy as np
 import pytest
 
-from transport.modal import ModeCapWarning, solve
-from transport.model import Boundary, Column, InitialState, InputError, Layer
+from transport.solvers.modal.series import ModeCapWarning, solve
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
 
 from reference import (assert_relative, crank_slab_series, erfc_semi_infinite,
                        laplace_reference, ogata_banks)
@@ -232,7 +232,7 @@ def test_sample_below_column_is_rejected():
 def test_high_peclet_rounding_is_reported():
     """Column Peclet ~100 at early time: the modal series cannot be summed to the tolerance
     in double precision; it must warn rather than return a silently wrong profile."""
-    from transport.modal import AccuracyWarning
+    from transport.solvers.modal.series import AccuracyWarning
     col = Column(layers=(Layer(0.8, 0.35, 2e-10, 2.0), Layer(1.2, 0.4, 5e-11, 4.0)),
                  top=Boundary("concentration", 0.12), bottom=Boundary("free-outflow"),
                  darcy_flux=0.05 / YEAR)

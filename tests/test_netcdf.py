@@ -8,7 +8,7 @@ External references used here:
 * netCDF4-python reading the file independently of xarray.
 
 The solution written is a stand-in object with the attributes of
-``transport.modal.ColumnSolution``; its fields are the semi-infinite fixed-surface
+``transport.solvers.modal.series.ColumnSolution``; its fields are the semi-infinite fixed-surface
 diffusion solution C = C0 erfc(z / (2 sqrt(D t / R))) (Crank 1975, *The Mathematics of
 Diffusion*, 2nd ed., eq. 2.45 with a retarded time) so the file holds realistic data.
 The checks below are on the file, not on the physics.
@@ -34,7 +34,7 @@ from transport.io.netcdf import (
     read_column_netcdf,
     write_column_netcdf,
 )
-from transport.model import Boundary, Column, Layer
+from transport.model.column import Boundary, Column, Layer
 
 YEAR = 365.25 * 86400.0
 BUDGET_KEYS = ("stored", "initial_stored", "entered_top", "left_bottom", "decayed",
@@ -43,7 +43,7 @@ BUDGET_KEYS = ("stored", "initial_stored", "entered_top", "left_bottom", "decaye
 
 @dataclass(frozen=True)
 class FakeSolution:
-    """Stand-in with the attribute names of transport.modal.ColumnSolution."""
+    """Stand-in with the attribute names of transport.solvers.modal.series.ColumnSolution."""
 
     column: Column
     times: np.ndarray

@@ -15,7 +15,7 @@ import pytest
 from test_netcdf import fake_solution, write_example
 from transport.caution import CAUTION_SHORT
 from transport.io.netcdf import read_column_netcdf
-from transport.plots import (
+from transport.plot.column import (
     DPI,
     breakthrough_figure,
     plot_breakthrough,

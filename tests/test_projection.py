@@ -5,10 +5,10 @@ import warnings
 import numpy as np
 import pytest
 
-from transport.modal import AccuracyWarning, ModeCapWarning, solve
-from transport.model import Boundary, Column, InitialState, InputError, Layer
-from transport.projection import initial_profile
-from transport.scenario import ScenarioError, parse_scenario
+from transport.solvers.modal.series import AccuracyWarning, ModeCapWarning, solve
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+from transport.solvers.modal.projection import initial_profile
+from transport.scenario.schema import ScenarioError, parse_scenario
 
 from test_laplace import YEAR, _sealed_step
 from test_scenario import scenario_text

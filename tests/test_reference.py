@@ -16,9 +16,9 @@ import pytest
 from reference import (carslaw_jaeger_two_layer_eigenvalues, crank_slab_series,
                        erfc_semi_infinite, interpolated_state, laplace_reference,
                        laplace_reference_full, ogata_banks)
-from transport.finite_volume import solve_fv
-from transport.model import Boundary, Column, InitialState, Layer
-from transport.schedules import Schedule
+from transport.solvers.fv.engine import solve_fv
+from transport.model.column import Boundary, Column, InitialState, Layer
+from transport.model.schedules import Schedule
 
 YEAR = 3.15576e7  # s, Julian year (IAU)
 

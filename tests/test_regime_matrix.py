@@ -5,10 +5,10 @@ a flow regime (column Peclet number Pe = sum |q| l_i / (theta_i D_i) of 0, 1, 10
 100, 300, 1000, downward or upward), a pair of boundary kinds, a source signal
 (constant, step-off, piecewise-linear, exponential depletion with half-lives of 0.1 to
 100 advective travel times), an initial state (clean, uniform, measured profile) and
-early / mid / late output times.  ``transport.engines.solve_column(engine="auto")``
+early / mid / late output times.  ``transport.solvers.engines.solve_column(engine="auto")``
 must return C, the total flux, the cumulative mass through every output depth (the
 column ends among them) and every budget term within ``tol`` times the scale of that
-quantity, or raise :class:`transport.checks.UnreliableResultError`.
+quantity, or raise :class:`transport.solvers.checks.UnreliableResultError`.
 
 Check values: the independent mpmath Laplace-domain solution ``tests/reference.py``
 (laplace_reference_full; verified in tests/test_reference.py against Crank 1975,
@@ -17,7 +17,7 @@ Scale of a quantity: max |reference| over the cell's times and depths; for the b
 the largest |budget term|.  The layer data, signals and times are invented inputs.
 
 Staged cells (source removal, removal over a depleting source, cap placement,
-excavation) run through ``transport.timeline.solve_timeline``; their reference is
+excavation) run through ``transport.solvers.timeline.solve_timeline``; their reference is
 exact for source removal (the same column with a switched schedule) and two mpmath
 stages for cap and excavation (the stage-1 state carried as Chebyshev pieces; the
 carry error is measured per cell and, with a margin, sets that cell's tolerance).
@@ -35,10 +35,10 @@ import numpy as np
 import pytest
 
 from reference import interpolated_state, laplace_reference_full
-from transport.checks import UnreliableResultError
-from transport.engines import solve_column
-from transport.model import Boundary, Column, InitialState, Layer
-from transport.schedules import Schedule
+from transport.solvers.checks import UnreliableResultError
+from transport.solvers.engines import solve_column
+from transport.model.column import Boundary, Column, InitialState, Layer
+from transport.model.schedules import Schedule
 
 REF_DPS = 20  # decimal digits of the reference (plus its advection guard digits)
 BUDGET_TERMS = ("stored", "entered_top", "left_bottom", "decayed", "produced")
@@ -315,7 +315,7 @@ def test_matrix_covers_the_regimes():
 # staged cells
 # --------------------------------------------------------------------------------------
 def _timeline_api():
-    from transport import timeline as tl
+    from transport.solvers import timeline as tl
     params = inspect.signature(tl.solve_timeline).parameters
     return tl, "engine" in params and "tolerance" in params
 

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from transport import media
-from transport.model import Column
-from transport.scenario import (ScenarioError, load_scenario, parse_scenario,
+from transport.model import media
+from transport.model.column import Column
+from transport.scenario.schema import (ScenarioError, load_scenario, parse_scenario,
                                 starter_scenario_text)
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"

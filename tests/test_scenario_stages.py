@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, example, given, settings, strategies as st
 
-from transport.scenario import ScenarioError, parse_scenario
-from transport.schedules import Schedule
+from transport.scenario.schema import ScenarioError, parse_scenario
+from transport.model.schedules import Schedule
 
 from test_scenario import _paths, _to_toml, _values, mutate, parses_or_raises_scenario_error
 

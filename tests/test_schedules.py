@@ -3,9 +3,9 @@ import mpmath
 import numpy as np
 import pytest
 
-from transport.modal import solve
-from transport.model import Boundary, Column, InitialState, InputError, Layer
-from transport.schedules import Schedule, phi
+from transport.solvers.modal.series import solve
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+from transport.model.schedules import Schedule, phi
 
 from reference import assert_relative, laplace_reference
 
@@ -131,7 +131,7 @@ def test_laplace_engine_agrees_on_scheduled_signals():
     """Cross-engine: the Laplace engine (transform of each switched signal group) and the
     modal Duhamel solution agree to 1e-7 where C > 1e-7 of the source, for a step-off top,
     a depleting bottom and a switched layer source."""
-    from transport.laplace import solve_laplace
+    from transport.solvers.laplace import solve_laplace
     col = _switched_column()
     z = np.array([0.0, 0.4, 0.75, 1.4, 2.0])
     t = np.array([2.0, 4.0, 6.0, 20.0]) * YEAR

@@ -2,8 +2,8 @@
 
 External references used here:
 
-* the single-column path of this project (``transport.scenario.load_scenario`` +
-  ``transport.modal.solve``) on a scenario file written out by hand for one boring;
+* the single-column path of this project (``transport.scenario.schema.load_scenario`` +
+  ``transport.solvers.modal.series.solve``) on a scenario file written out by hand for one boring;
 * Crank 1975, *The Mathematics of Diffusion*, 2nd ed., ch. 4: plane sheet with a held
   surface and a sealed face (``tests/reference.py: crank_slab_series``) for the
   exact exceedance probability;
@@ -27,10 +27,10 @@ from scipy import stats
 from scipy.optimize import brentq
 
 from reference import crank_slab_series
-from transport.modal import solve
-from transport.scenario import ScenarioError, load_scenario
-from transport.site import load_site, parse_site
-from transport.site_batch import solve_site
+from transport.solvers.modal.series import solve
+from transport.scenario.schema import ScenarioError, load_scenario
+from transport.site.config import load_site, parse_site
+from transport.site.batch import solve_site
 
 YEAR = 365.25 * 86400.0
 

@@ -1,7 +1,7 @@
 """Measured initial pore-water profiles per boring in a site run.
 
 Checks against things outside the site code path: the single-column solver
-(:func:`transport.modal.solve`, an independent entry point) on the boring's own
+(:func:`transport.solvers.modal.series.solve`, an independent entry point) on the boring's own
 scenario, numpy's linear interpolation for the state at t = 0 (the definition of a
 piecewise-linear profile), and identity with the clean run for borings without samples.
 The test site and its samples are invented.
@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 
 from test_site import SITE_TOML, assert_station_equals_column_run, write_small_site
-from transport.scenario import ScenarioError
-from transport.site import boring_scenario, load_site
-from transport.site_batch import solve_site
-from transport.site_run import run_site
+from transport.scenario.schema import ScenarioError
+from transport.site.config import boring_scenario, load_site
+from transport.site.batch import solve_site
+from transport.site.run import run_site
 
 MG_L = 1e-3  # kg m-3
 

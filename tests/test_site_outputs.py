@@ -25,9 +25,9 @@ import xarray as xr
 from test_netcdf import failed_items, run_cf_checker
 from test_site import write_small_site
 from transport.caution import CAUTION
-from transport.site import load_site
-from transport.site_batch import solve_site
-from transport.site_run import run_site
+from transport.site.config import load_site
+from transport.site.batch import solve_site
+from transport.site.run import run_site
 
 MC = """
 [uncertainty]

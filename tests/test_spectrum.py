@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from transport import spectrum as sp
-from transport.model import Boundary, Column, Layer
+from transport.solvers import modal as sp
+from transport.model.column import Boundary, Column, Layer
 
 from reference import carslaw_jaeger_two_layer_eigenvalues
 

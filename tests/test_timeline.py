@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from transport.modal import solve
-from transport.model import Boundary, Column, InitialState, InputError, Layer
-from transport.schedules import Schedule
-from transport.timeline import (Timeline, amend_layer, excavate, place_cap, remove_source,
+from transport.solvers.modal.series import solve
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+from transport.model.schedules import Schedule
+from transport.solvers.timeline import (Timeline, amend_layer, excavate, place_cap, remove_source,
                                 set_boundary, set_flow, solve_timeline)
 
 YEAR = 365.25 * 86400.0
@@ -129,8 +129,8 @@ def test_depleting_source_keeps_its_clock_across_an_action():
     restart an exponentially depleting source.  Checked against the independent mpmath
     Laplace solution of the same column without stages (tests/reference.py, exact
     transform of A e^{-r t}: Abramowitz & Stegun 1964, 29.3.8)."""
-    from transport.schedules import Schedule
-    from transport.timeline import amend_layer
+    from transport.model.schedules import Schedule
+    from transport.solvers.timeline import amend_layer
     from reference import laplace_reference
 
     year = 365.25 * 86400.0

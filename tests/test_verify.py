@@ -1,4 +1,4 @@
-"""Closed forms of ``transport.closed_forms`` against independent evaluations, and the
+"""Closed forms of ``transport.verify.closed_forms`` against independent evaluations, and the
 ``stratiflux verify`` command.
 
 Independent evaluations: the numpy versions in tests/reference.py (written separately),
@@ -14,10 +14,10 @@ import pytest
 from click.testing import CliRunner
 
 from reference import crank_slab_series, erfc_semi_infinite, laplace_reference, ogata_banks
-from transport import closed_forms as cf
-from transport import verify as suite
-from transport.cli_verify import verify
-from transport.model import Boundary, Column, Layer
+from transport.verify import closed_forms as cf
+from transport.verify import report as suite
+from transport.cli.verify import verify
+from transport.model.column import Boundary, Column, Layer
 
 KAPPA, LENGTH = 5e-10, 0.5  # m2/s (D/R), m
 Z = np.linspace(0.0, LENGTH, 11)

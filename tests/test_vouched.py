@@ -10,11 +10,11 @@ import math
 import numpy as np
 import pytest
 
-from transport.checks import UnreliableResultError, concentration_bounds
-from transport.engines import solve_column
-from transport.model import Boundary, Column, InitialState, Layer
-from transport.schedules import Schedule
-from transport.timeline import Timeline, place_cap, solve_timeline
+from transport.solvers.checks import UnreliableResultError, concentration_bounds
+from transport.solvers.engines import solve_column
+from transport.model.column import Boundary, Column, InitialState, Layer
+from transport.model.schedules import Schedule
+from transport.solvers.timeline import Timeline, place_cap, solve_timeline
 
 from reference import laplace_reference_full
 

@@ -2,7 +2,7 @@
 
 Diffusion, linear sorption, first-order decay, zero-order sources and steady
 advection in a stack of homogeneous layers, with SI floats inside and units only at
-the edges (``transport.units``, ``transport.scenario``).
+the edges (``transport.units``, ``transport.scenario.schema``).
 
 A screening-level model under stated assumptions (see ``transport.caution``);
 decisions rest with regulators, local codes and licensed professionals.

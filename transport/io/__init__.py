@@ -1,5 +1,5 @@
 """File input and output: CF NetCDF (``transport.io.netcdf``, ``transport.io.site_netcdf``),
-GIS exports (``transport.io.mapping``), and the all-or-nothing writing every output goes
+GIS exports (``transport.io.gis``), and the all-or-nothing writing every output goes
 through (``transport.io.atomic``)."""
 from transport.io.netcdf import (
     NOMINAL_START,

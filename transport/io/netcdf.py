@@ -159,7 +159,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     Parameters
     ----------
     solution : ColumnSolution
-        Result of ``transport.modal.solve`` (or any object with the same attributes:
+        Result of ``transport.solvers.modal.series.solve`` (or any object with the same attributes:
         ``column, times, depths, concentration, total_flux, cumulative_mass, budget,
         n_modes, engine``), SI units.
     title : str

@@ -73,7 +73,7 @@ class SiteNetCDFWriter:
     Parameters
     ----------
     path : target file
-    site : transport.site.Site (stations, CRS, grid, settings)
+    site : transport.site.config.Site (stations, CRS, grid, settings)
     monte_carlo : dict or None, {"realizations", "seed", "sampling"} when MC ran
     history : command line or call, prefixed with the UTC time
     stage : transport.io.atomic.OutputSet or None; with a set the finished file stays
@@ -82,7 +82,7 @@ class SiteNetCDFWriter:
 
     def __init__(self, path, site, *, monte_carlo=None, history=None, stage=None):
         self.path, self.site, self.mc = os.fspath(path), site, monte_carlo
-        self.history = history or "transport.site_run.run_site"
+        self.history = history or "transport.site.run.run_site"
         self.tmp, self.nc = None, None
         self._own = stage is None
         self.stage = OutputSet() if stage is None else stage

@@ -1,0 +1,267 @@
+"""Side-by-side comparison of remediation alternatives.
+
+Each alternative is a scenario (its own column, schedules and actions).  All are solved
+on one common (time, depth) grid, their receptor metrics computed on the continuous
+solution, and the results written as a table (terminal, CSV, Markdown), one CF NetCDF
+file with a ``scenario`` dimension (integer index, labels in a string auxiliary
+coordinate, as recommended for CF 1.11) and figures.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import os
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from transport.caution import CAUTION
+from transport.io.netcdf import column_dataset, write_dataset_atomic
+from transport.analysis.metrics import ReceptorMetrics, receptor_metrics
+from transport.solvers.checks import UnreliableResultError
+from transport.api import solve_scenario
+
+__all__ = ["Alternative", "compare_alternatives", "comparison_table", "comparison_dataset",
+           "verdict_lines"]
+
+YEAR = 365.25 * 86400.0
+
+
+@dataclass(frozen=True)
+class Alternative:
+    label: str
+    scenario: object
+    solution: object
+    metrics: ReceptorMetrics
+    warnings: tuple = ()
+
+
+def compare_alternatives(scenarios, labels=None, engine="auto", progress=None,
+                         tolerance=None):
+    """Solve every scenario on the union of their output grids; returns Alternatives."""
+    labels = list(labels) if labels else [s.title for s in scenarios]
+    if len(set(labels)) != len(labels):
+        raise ValueError("alternative labels must differ; give each scenario its own title")
+    times = np.unique(np.concatenate([np.asarray(s.output.times) for s in scenarios]))
+    depths = np.unique(np.concatenate([np.asarray(s.output.depths) for s in scenarios]))
+    out = []
+    for label, sc in zip(labels, scenarios):
+        if progress:
+            progress(label)
+        # depths outside this alternative's column (another one's cap) come back as NaN
+        inside = depths[(depths >= _top(sc)) & (depths <= sc.column.length)]
+        try:
+            sol, caught = solve_scenario(sc, depths=inside, times=times, engine=engine,
+                                         tolerance=tolerance)
+        except UnreliableResultError as exc:
+            raise UnreliableResultError(f"alternative {label!r}: {exc}", exc.times,
+                                        exc.quantities) from None
+        sol = _on_grid(sol, depths, inside)
+        horizon = sc.output.design_life or float(times.max())
+        m = receptor_metrics(sol, sc.output.receptor_depth, sc.output.screening_level,
+                             horizon)
+        out.append(Alternative(label, sc, sol, m, tuple(caught)))
+    return out
+
+
+def _top(sc):
+    tl = sc.timeline
+    return min(st.offset for st in tl.stages) if tl is not None else 0.0
+
+
+class _Padded:
+    """A solution seen on a larger depth grid (NaN where the column is absent)."""
+
+    def __init__(self, sol, depths, inside):
+        self._sol = sol
+        idx = np.searchsorted(depths, inside)
+        self.depths = depths
+        for name in ("concentration", "total_flux", "cumulative_mass"):
+            full = np.full((sol.times.size, depths.size), np.nan)
+            full[:, idx] = getattr(sol, name)
+            setattr(self, name, full)
+
+    def __getattr__(self, name):
+        return getattr(self._sol, name)
+
+
+def _on_grid(sol, depths, inside):
+    return sol if inside.size == depths.size else _Padded(sol, depths, inside)
+
+
+def _years(t):
+    return "" if t is None else f"{t / YEAR:.4g}"
+
+
+def comparison_table(alts):
+    """Rows (list of dicts) of the metrics that decide between alternatives."""
+    rows = []
+    for a in alts:
+        m = a.metrics
+        b = {k: float(np.asarray(v)[-1]) for k, v in a.solution.budget.items()}
+        rows.append({
+            "alternative": a.label,
+            "receptor_depth_m": m.receptor_depth,
+            "screening_level_mg_L": None if m.screening_level is None
+            else m.screening_level * 1e3,
+            "horizon_yr": m.horizon / YEAR,
+            "stays_below_level": None if m.stays_below_level is None
+            else ("yes" if m.stays_below_level else "no"),
+            "first_exceedance_yr": None if m.first_exceedance is None
+            else m.first_exceedance / YEAR,
+            "time_above_level_yr": None if m.time_above_level is None
+            else m.time_above_level / YEAR,
+            "peak_mg_L": m.peak_concentration * 1e3,
+            "peak_time_yr": m.peak_time / YEAR,
+            "mass_to_receptor_mg_m2": None if m.cumulative_mass is None
+            else m.cumulative_mass * 1e6,
+            "time_to_95pct_steady_yr": None if m.time_to_95_percent_steady is None
+            else m.time_to_95_percent_steady / YEAR,
+            "stored_end_mg_m2": b.get("stored", np.nan) * 1e6,
+            "decayed_end_mg_m2": b.get("decayed", np.nan) * 1e6,
+            "removed_end_mg_m2": b.get("removed", 0.0) * 1e6,
+            "budget_residual_mg_m2": b.get("residual", np.nan) * 1e6,
+        })
+    return rows
+
+
+def _fmt(v):
+    if v is None:
+        return "-"
+    if isinstance(v, str):
+        return v
+    return f"{v:.4g}"
+
+
+def table_text(rows, markdown=False):
+    keys = list(rows[0])
+    cells = [[_fmt(r[k]) for k in keys] for r in rows]
+    if markdown:
+        head = "| " + " | ".join(keys) + " |"
+        sep = "|" + "|".join("---" for _ in keys) + "|"
+        return "\n".join([head, sep] + ["| " + " | ".join(c) + " |" for c in cells])
+    # transposed for the terminal: one line per metric, one column per alternative
+    width = max(len(k) for k in keys)
+    colw = [max(12, max(len(c[i]) for c in cells + [[r["alternative"] for r in rows]]))
+            for i in range(1)]
+    lines = []
+    for j, k in enumerate(keys):
+        vals = [c[j] for c in cells]
+        lines.append(k.ljust(width) + "  " + "  ".join(v.rjust(colw[0]) for v in vals))
+    return "\n".join(lines)
+
+
+def table_csv(rows):
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=list(rows[0]))
+    w.writeheader()
+    for r in rows:
+        w.writerow({k: ("" if v is None else v) for k, v in r.items()})
+    return buf.getvalue()
+
+
+def verdict_lines(alts):
+    """Plain statements: which alternatives keep the receptor below the level."""
+    lines = []
+    for a in alts:
+        m = a.metrics
+        if m.screening_level is None:
+            lines.append(f"{a.label}: no screening level given; see the peak and mass.")
+        elif m.stays_below_level:
+            lines.append(f"{a.label}: stays below {m.screening_level * 1e3:.4g} mg/L at "
+                         f"{m.receptor_depth:g} m over {m.horizon / YEAR:.4g} yr "
+                         f"(peak {m.peak_concentration * 1e3:.3g} mg/L).")
+        else:
+            lines.append(f"{a.label}: exceeds {m.screening_level * 1e3:.4g} mg/L at "
+                         f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
+                         f"for {m.time_above_level / YEAR:.4g} yr within "
+                         f"{m.horizon / YEAR:.4g} yr.")
+    lines.append("This comparison is a screening tool; the choice of a remedy rests with "
+                 "the regulator and licensed professionals under local rules.")
+    return lines
+
+
+def comparison_dataset(alts, title="stratiflux comparison", history=None):
+    """One CF dataset (scenario, time, depth) with the alternatives side by side."""
+    parts = []
+    for a in alts:
+        ds = column_dataset(a.solution, title=a.label, history=history)
+        keep = [v for v in ds.data_vars if ds[v].dims and ds[v].dims[0] == "time"]
+        parts.append(ds[keep + ["depth_bnds"]].drop_vars("station_id", errors="ignore"))
+    ds = xr.concat([p.drop_vars("depth_bnds") for p in parts], dim="scenario",
+                   coords="minimal", compat="override", join="override")
+    ds["depth_bnds"] = parts[0]["depth_bnds"]
+    ds = ds.assign_coords(
+        scenario=("scenario", np.arange(len(alts), dtype=np.int32),
+                  {"long_name": "alternative index"}),
+        label=("scenario", np.array([a.label for a in alts], dtype=object),
+               {"long_name": "name of the remediation alternative"}))
+    rows = comparison_table(alts)
+    for key, units, long in (
+            ("first_exceedance_yr", "s", "first time the receptor reaches the screening "
+                                         "level, per alternative (fill: never)"),
+            ("peak_mg_L", "kg m-3", "peak concentration at the receptor per alternative"),
+            ("mass_to_receptor_mg_m2", "kg m-2", "mass per area through the receptor depth "
+                                                 "over the horizon per alternative")):
+        scale = {"s": YEAR, "kg m-3": 1e-3, "kg m-2": 1e-6}[units]
+        vals = np.array([np.nan if r[key] is None else r[key] * scale for r in rows])
+        ds[key.rsplit("_", 2)[0] if units != "s" else "first_exceedance_time"] = (
+            ("scenario",), vals, {"long_name": long, "units": units, "comment": CAUTION})
+    for name in ds.data_vars:
+        var = ds[name]
+        if name in ("depth_bnds", "engine", "reliable"):
+            var.encoding = {"_FillValue": None}
+        elif var.dims[-2:] == ("time", "depth"):
+            # double precision: single precision (1e-7) would break the stated tolerance
+            var.encoding = {"zlib": True, "complevel": 4, "shuffle": True, "dtype": "float64",
+                            "_FillValue": -9999.0}
+        else:
+            var.encoding = {"dtype": "float64", "_FillValue": -9999.0}
+    for name in ds.coords:
+        ds[name].encoding = {"_FillValue": None}
+    ds["time"].encoding["dtype"] = "float64"
+    attrs = dict(parts[0].attrs)
+    attrs.pop("featureType", None)
+    attrs.pop("scenario_text", None)
+    attrs.update(title=title, summary="Remediation alternatives of one column side by side: "
+                 "pore-water concentration, total flux, cumulative mass and mass budget "
+                 "versus alternative, time and depth.")
+    ds.attrs = attrs
+    return ds
+
+
+def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
+    """CSV, Markdown, NetCDF and figures into ``out_dir``; returns the paths.
+
+    All files are produced under temporary names and renamed into place together
+    (:class:`transport.io.atomic.OutputSet`): a failure in any of them leaves every
+    previous file of ``out_dir`` as it was.
+    """
+    from transport.io.atomic import OutputSet, terminate_as_exit
+    from transport.plot.compare import plot_comparison
+
+    os.makedirs(out_dir, exist_ok=True)
+    rows = comparison_table(alts)
+    texts = (("csv", table_csv(rows)),
+             ("md", f"# {title or 'Comparison of alternatives'}\n\n"
+                    + table_text(rows, markdown=True) + "\n\n"
+                    + "\n".join(f"- {ln}" for ln in verdict_lines(alts))
+                    + f"\n\n{CAUTION}\n"))
+    paths = []
+    # SIGTERM while writing ends the program like Ctrl-C: the temporaries are removed
+    with terminate_as_exit(), OutputSet() as stage:
+        for ext, text in texts:
+            paths.append(stage.write(os.path.join(out_dir, f"{stem}.{ext}"),
+                                     lambda tmp, text=text: _write_text(tmp, text)))
+        nc = os.path.join(out_dir, f"{stem}.nc")
+        paths.append(write_dataset_atomic(
+            comparison_dataset(alts, title or "stratiflux comparison", history), nc,
+            stage=stage))
+        paths += plot_comparison(alts, out_dir, stem, title=title, stage=stage)
+    return paths
+
+
+def _write_text(path, text):
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(text)

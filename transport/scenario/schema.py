@@ -1,0 +1,500 @@
+"""Scenario files: TOML in, a validated SI :class:`Scenario` out.
+
+Every dimensional value is a string with units (``"0.05 m/yr"``, ``"120 mg/L"``),
+read by :func:`transport.units.to_si`; everything after loading is SI. Layers are
+counted from 1, top first, in key paths (``layers[2].porosity``). Any problem raises
+:class:`ScenarioError` naming the file, the key path, the value, what is allowed and
+the fix; unknown keys get a did-you-mean suggestion.
+
+Schema (all keys spelled out; ``docs/scenario-reference.md`` has the full page)::
+
+    title = "..."                                  # optional, default: file name
+    [chemical]                                     # optional if every layer gives pore_diffusivity
+    name = "trichloroethene"                       # table lookup (transport/data/chemicals.csv)
+    free_water_diffusivity = "9.65e-10 m^2/s"      # overrides the table
+    organic_carbon_partition = "94 L/kg"           # Koc, overrides the table
+    half_life = "5 yr"                             # or "none"; the table's range is never applied
+    [flow]
+    darcy_flux = "0.2 m/yr"                        # downward positive, default 0
+    [[layers]]                                     # one table per layer, top first
+    name, thickness (length), porosity (total, 0-1), water_content (0-porosity, default porosity),
+    bulk_density (density), ONE OF organic_carbon_fraction | distribution_coefficient
+    | retardation_factor (none: R = 1), tortuosity ("millington-quirk" default, or 0-1)
+    OR pore_diffusivity (D_w * tau directly), dispersivity (length, default 0),
+    half_life (time or "none"; overrides the chemical), source_rate (mass per bulk volume
+    per time), partition_to_next (C_next = K C_this, needs darcy_flux = 0),
+    initial_concentration (concentration)
+    [top] / [bottom]
+    kind = "concentration" | "flux" | "inlet" | "free-outflow" | "mass-transfer" | "sealed"
+    concentration (concentration, inlet) | flux (flux) | transfer_coefficient and
+    outside_concentration (mass-transfer)
+    [initial]
+    samples = [["0 m", "80 mg/L"], ...]  OR  samples_file = "profile.csv"
+    [output]
+    times = ["1 yr", ...]  OR  times = {start = "1 yr", stop = "100 yr", count = 20, spacing = "log"}
+    depths = ["0 m", ...]  OR  depth_spacing = "1 cm"    (default: 200 intervals)
+    receptor_depth (default: column bottom), screening_level, design_life, tolerance (1e-8)
+"""
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+
+from transport.model import chemicals
+from transport.model import media
+from transport.model.column import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, Layer
+from transport.scenario.output import OutputSpec, _output, _read_samples_file, check_run_size
+from transport.scenario.output import _samples, _with_cap_depths
+from transport.scenario.output import DEFAULT_TOLERANCE, MAX_DEPTHS, _times  # noqa: F401  (site.py)
+from transport.scenario.reader import _MISSING, ScenarioError, _Reader, parse_toml, read_text_file
+from transport.scenario.actions import check_inlet, parse_actions, parse_value
+
+__all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
+           "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text",
+           "DERIVED_UNITS", "MAX_LAYERS"]
+
+
+TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
+            "actions", "alternatives")
+ALTERNATIVE_KEYS = ("name", "actions", "top")
+CHEMICAL_KEYS = ("name", "free_water_diffusivity", "organic_carbon_partition", "half_life")
+FLOW_KEYS = ("darcy_flux",)
+LAYER_KEYS = ("name", "thickness", "porosity", "water_content", "bulk_density",
+              "organic_carbon_fraction", "distribution_coefficient", "retardation_factor",
+              "tortuosity", "pore_diffusivity", "dispersivity", "half_life", "source_rate",
+              "partition_to_next", "initial_concentration")
+BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentration",),
+                       "flux": ("flux",), "mass-transfer": ("transfer_coefficient",
+                                                            "outside_concentration"),
+                       "free-outflow": (), "sealed": ()}
+INITIAL_KEYS = ("samples", "samples_file")
+#: Most layers a column may have (a detailed boring log has tens): the run time and
+#: memory of a column grow with its layer count.
+MAX_LAYERS = 1000
+#: Largest layer diffusivity D = D_w tau + alpha |v| the engines are asked to handle
+#: (m2 s-1); dispersion alone reaches it only at absurd velocities.
+MAX_LAYER_DIFFUSIVITY = 1.0
+
+#: SI units of the columns of :meth:`Scenario.derived_table`.
+DERIVED_UNITS = {
+    "top": "m", "bottom": "m", "thickness": "m", "porosity": "1", "water_content": "1",
+    "bulk_density": "kg m-3", "distribution_coefficient": "m3 kg-1", "retardation_factor": "1",
+    "tortuosity": "1", "pore_diffusivity": "m2 s-1", "dispersion": "m2 s-1",
+    "diffusivity": "m2 s-1", "half_life": "s", "decay_rate": "s-1", "pore_velocity": "m s-1",
+    "peclet_number": "1", "diffusion_time": "s", "advection_time": "s",
+    "source_rate": "kg m-3 s-1", "partition_to_next": "1",
+}
+
+
+@dataclass(frozen=True)
+class ChemicalSpec:
+    """Chemical properties in force (SI) and where each came from."""
+
+    name: str | None
+    free_water_diffusivity: float | None
+    organic_carbon_partition: float | None
+    half_life: float | None  # s; None: no decay unless a layer gives one
+    sources: dict = field(default_factory=dict)
+    table_entry: chemicals.Chemical | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class Scenario:
+    """A loaded, validated scenario (SI inside)."""
+
+    title: str
+    path: str | None
+    column: Column
+    initial: InitialState
+    chemical: ChemicalSpec
+    output: OutputSpec
+    source_text: str
+    layer_details: tuple = ()
+    timeline: object = None  # transport.solvers.timeline.Timeline when [[actions]] are given
+
+    @property
+    def times(self) -> np.ndarray:
+        return self.output.times
+
+    @property
+    def depths(self) -> np.ndarray:
+        return self.output.depths
+
+    def derived_table(self) -> list:
+        """Per-layer derived properties (SI floats; units in :data:`DERIVED_UNITS`).
+
+        One dict per layer, top first: name, top, bottom, thickness, porosity,
+        water_content, bulk_density, distribution_coefficient, retardation_factor,
+        tortuosity, pore_diffusivity, dispersion, diffusivity, half_life, decay_rate,
+        pore_velocity, peclet_number, diffusion_time, advection_time, source_rate,
+        partition_to_next, and the provenance texts sorption_source, diffusion_source.
+        """
+        return [dict(row) for row in self.layer_details]
+
+
+def _chemical(r: _Reader, data) -> ChemicalSpec:
+    table = r.table(data.get("chemical"), "chemical")
+    r.keys(table, CHEMICAL_KEYS, "chemical")
+    name = r.text(table, "name", "chemical")
+    entry, sources = None, {}
+    if name is not None:
+        try:
+            entry = chemicals.lookup(name)
+        except chemicals.ChemicalError as exc:
+            raise r.error("chemical.name", name, str(exc),
+                          fix="correct the name or give the properties directly") from None
+    dw = r.optional(table, "free_water_diffusivity", "diffusivity", "chemical", low=0, low_open=True)
+    if dw is not None:
+        sources["free_water_diffusivity"] = "scenario file"
+    elif entry is not None:
+        dw, sources["free_water_diffusivity"] = (entry.free_water_diffusivity,
+                                                 entry.diffusivity_source)
+    koc = r.optional(table, "organic_carbon_partition", "specific_volume", "chemical", low=0)
+    if koc is not None:
+        sources["organic_carbon_partition"] = "scenario file"
+    elif entry is not None:
+        koc, sources["organic_carbon_partition"] = entry.organic_carbon_partition, entry.koc_source
+    half_life = r.half_life(table, "chemical")
+    half_life = None if half_life is _MISSING else half_life
+    sources["half_life"] = "scenario file" if "half_life" in table else "not given: no decay"
+    return ChemicalSpec(entry.name if entry else None, dw, koc, half_life, sources, entry)
+
+
+def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, last: bool,
+           key: str = None):
+    key = key or f"layers[{i}]"
+    t = r.table(raw, key, required=True)
+    r.keys(t, LAYER_KEYS, key)
+    name = r.text(t, "name", key, default=f"layer {i}")
+    if "thickness" not in t or "porosity" not in t:
+        missing = "thickness" if "thickness" not in t else "porosity"
+        raise r.error(f"{key}.{missing}", problem="missing", fix=f"add {missing} to layer {i}")
+    thickness = r.quantity(t["thickness"], "length", f"{key}.thickness", low=0, low_open=True)
+    n = r.quantity(t["porosity"], "dimensionless", f"{key}.porosity", low=0, high=1,
+                   low_open=True)
+    theta = r.optional(t, "water_content", "dimensionless", key, default=n, low=0, high=n,
+                       low_open=True)
+    rho_b = r.optional(t, "bulk_density", "density", key, low=0, low_open=True)
+    routes = [k for k in ("organic_carbon_fraction", "distribution_coefficient",
+                          "retardation_factor") if k in t]
+    if len(routes) > 1:
+        raise r.error(f"{key}.{routes[1]}", t[routes[1]], f"given together with {routes[0]}",
+                      fix="keep only one way of giving sorption")
+    kd, sorption_source = None, "none given: R = 1"
+    if routes == ["retardation_factor"]:
+        retardation = r.quantity(t["retardation_factor"], "dimensionless",
+                                 f"{key}.retardation_factor", low=0, low_open=True)
+        sorption_source = "retardation_factor from scenario file"
+    elif routes:
+        if routes[0] == "organic_carbon_fraction":
+            foc = r.quantity(t["organic_carbon_fraction"], "dimensionless",
+                             f"{key}.organic_carbon_fraction", low=0, high=1)
+            if chem.organic_carbon_partition is None:
+                why = (f"{chem.name} has no Koc ({chem.sources.get('organic_carbon_partition')})"
+                       if chem.table_entry else "the chemical has no Koc")
+                raise r.error(f"{key}.organic_carbon_fraction", t["organic_carbon_fraction"],
+                              why, fix="give distribution_coefficient, or "
+                              "chemical.organic_carbon_partition")
+            kd = media.kd_from_koc(chem.organic_carbon_partition, foc)
+            sorption_source = ("Kd = Koc foc, Koc: "
+                               + chem.sources.get("organic_carbon_partition", ""))
+        else:
+            kd = r.quantity(t["distribution_coefficient"], "specific_volume",
+                            f"{key}.distribution_coefficient", low=0)
+            sorption_source = "distribution_coefficient from scenario file"
+        if rho_b is None:
+            raise r.error(f"{key}.bulk_density", problem=f"missing, needed with {routes[0]}",
+                          fix='add bulk_density, e.g. "1.7 g/cm^3"')
+        retardation = media.retardation_factor(rho_b, theta, kd)
+    else:
+        retardation = 1.0
+
+    if "pore_diffusivity" in t:
+        if "tortuosity" in t:
+            raise r.error(f"{key}.tortuosity", t["tortuosity"], "given together with "
+                          "pore_diffusivity", fix="keep one: pore_diffusivity already "
+                          "includes the tortuosity")
+        molecular = r.quantity(t["pore_diffusivity"], "diffusivity", f"{key}.pore_diffusivity",
+                               low=0, low_open=True)
+        tau, diffusion_source = math.nan, "pore_diffusivity from scenario file"
+    else:
+        tort = t.get("tortuosity", "millington-quirk")
+        if isinstance(tort, str) and tort.strip().lower() == "millington-quirk":
+            tau = media.millington_quirk_tortuosity(theta, n)
+            diffusion_source = "Millington & Quirk 1961 tortuosity"
+        elif isinstance(tort, str):
+            raise r.error(f"{key}.tortuosity", tort, "unknown tortuosity model",
+                          allowed='"millington-quirk" or a number in (0, 1]',
+                          fix='write tortuosity = "millington-quirk" or e.g. 0.5')
+        else:
+            tau = r.quantity(tort, "dimensionless", f"{key}.tortuosity", low=0, high=1,
+                             low_open=True)
+            diffusion_source = "tortuosity factor from scenario file"
+        if chem.free_water_diffusivity is None:
+            raise r.error(f"{key}.pore_diffusivity", problem="no diffusivity for this layer",
+                          fix="give chemical.name or chemical.free_water_diffusivity, or "
+                          "pore_diffusivity in this layer")
+        molecular = chem.free_water_diffusivity * tau
+        diffusion_source += "; D_w: " + chem.sources.get("free_water_diffusivity", "")
+    alpha = r.optional(t, "dispersivity", "length", key, default=0.0, low=0)
+    v = media.pore_velocity(q, theta)
+    dispersion = alpha * abs(v)
+    half_life = r.half_life(t, key)
+    half_life = chem.half_life if half_life is _MISSING else half_life
+    source = r.optional(t, "source_rate", "mass_rate_density", key, default=0.0)
+    if source < 0:
+        raise r.error(f"{key}.source_rate", t["source_rate"], "a negative zero-order source "
+                      "is a sink that keeps removing mass where none is left (the stored "
+                      "mass and the concentration turn negative)", allowed=">= 0",
+                      fix="model a loss by first-order decay (half_life) instead")
+    partition = r.optional(t, "partition_to_next", "dimensionless", key, default=1.0, low=0,
+                           low_open=True)
+    if last and partition != 1.0:
+        raise r.error(f"{key}.partition_to_next", t["partition_to_next"], "the last layer has "
+                      "no layer below", fix="remove it, or model the outside with the bottom "
+                      "boundary")
+    if partition != 1.0 and q != 0:
+        raise r.error(f"{key}.partition_to_next", t["partition_to_next"],
+                      f"a partition jump with nonzero Darcy flux ({q} m/s) is not physical in "
+                      "this 1-D model", fix="set flow.darcy_flux to 0 or partition_to_next to 1")
+    if routes and routes[0] != "retardation_factor" and retardation > 1e8:
+        raise r.error(f"{key}.{routes[0]}", t[routes[0]], f"gives a retardation factor of "
+                      f"{retardation:.3g}, outside what the model represents",
+                      allowed="retardation factors up to 1e8 (common practice)",
+                      fix="check the value and its units (and bulk_density)")
+    if molecular + dispersion > MAX_LAYER_DIFFUSIVITY:
+        raise r.error(f"{key}.dispersivity", t.get("dispersivity"), f"dispersion alpha |v| = "
+                      f"{dispersion:.3g} m^2/s (pore velocity {abs(v):.3g} m/s), outside what "
+                      "the model represents", allowed=f"D up to {MAX_LAYER_DIFFUSIVITY:g} m^2/s",
+                      fix="check dispersivity, water_content and flow.darcy_flux")
+    try:
+        layer = Layer(thickness=thickness, porosity=theta, diffusivity=molecular + dispersion,
+                      retardation=retardation, decay_rate=media.decay_rate_from_half_life(half_life),
+                      source_rate=source, partition_to_next=partition, name=name)
+    except InputError as exc:
+        raise r.error(key, problem=str(exc), fix="correct the layer's properties") from None
+    detail = {
+        "name": name, "top": top, "bottom": top + thickness, "thickness": thickness,
+        "porosity": n, "water_content": theta, "bulk_density": rho_b,
+        "distribution_coefficient": kd, "retardation_factor": layer.retardation,
+        "tortuosity": tau, "pore_diffusivity": molecular, "dispersion": dispersion,
+        "diffusivity": layer.diffusivity, "half_life": half_life,
+        "decay_rate": layer.decay_rate, "pore_velocity": v,
+        "peclet_number": media.peclet_number(v, thickness, layer.diffusivity),
+        "diffusion_time": media.diffusion_time(thickness, layer.diffusivity, layer.retardation),
+        "advection_time": media.advection_time(thickness, v, layer.retardation),
+        "source_rate": source, "partition_to_next": partition,
+        "sorption_source": sorption_source, "diffusion_source": diffusion_source,
+    }
+    initial = r.optional(t, "initial_concentration", "concentration", key, low=0)
+    return layer, detail, initial
+
+
+def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary:
+    where = key or end
+    t = r.table(data.get(end), where, required=True)
+    kind = t.get("kind", _MISSING)
+    if kind is _MISSING:
+        raise r.error(f"{where}.kind", problem="missing", allowed=" | ".join(BOUNDARY_KINDS),
+                      fix=f'add kind = "concentration" (or another kind) to [{where}]')
+    if kind not in BOUNDARY_KINDS:
+        close = difflib.get_close_matches(str(kind), BOUNDARY_KINDS, n=1)
+        raise r.error(f"{where}.kind", kind, "unknown boundary kind",
+                      allowed=" | ".join(BOUNDARY_KINDS),
+                      fix=f"did you mean {close[0]!r}?" if close else "pick one of the kinds")
+    wanted = BOUNDARY_VALUE_KEYS[kind]
+    for name in t:
+        if name != "kind" and name not in wanted:
+            known = {k for ks in BOUNDARY_VALUE_KEYS.values() for k in ks}
+            problem = (f"not used by kind {kind!r}" if name in known else "unknown key")
+            close = difflib.get_close_matches(str(name), wanted, n=1, cutoff=0.6)
+            raise r.error(f"{where}.{name}", t[name], problem,
+                          allowed=", ".join(("kind",) + wanted),
+                          fix=f"did you mean {close[0]!r}?" if close else "remove it")
+    for name in wanted:
+        if isinstance(t.get(name), list):
+            raise r.error(f"{where}.{name}", t[name], "a list is not a boundary value",
+                          fix='give one value, or a schedule table such as '
+                          '{ steps = [["0 yr", "120 mg/L"], ["10 yr", "0 mg/L"]] }')
+    if kind in ("concentration", "inlet"):
+        if "concentration" not in t:
+            raise r.error(f"{where}.concentration", problem=f"missing for kind {kind!r}",
+                          fix='add concentration = "120 mg/L" (your value)')
+        if kind == "inlet":
+            check_inlet(r, f"{where}.kind", end, q)
+        value, sched = parse_value(r, t["concentration"], "concentration",
+                                   f"{where}.concentration", low=0)
+        return Boundary(kind, value, schedule=sched)
+    if kind == "flux":
+        if "flux" not in t:
+            raise r.error(f"{where}.flux", problem="missing for kind 'flux'",
+                          fix='add flux = "0 g/m^2/d" (positive downward)')
+        value, sched = parse_value(r, t["flux"], "mass_flux", f"{where}.flux")
+        return Boundary(kind, value, schedule=sched)
+    if kind == "mass-transfer":
+        if "transfer_coefficient" not in t:
+            raise r.error(f"{where}.transfer_coefficient", problem="missing for kind "
+                          "'mass-transfer'", fix='add transfer_coefficient = "1e-6 m/s"')
+        h = r.quantity(t["transfer_coefficient"], "velocity", f"{where}.transfer_coefficient",
+                       low=0, low_open=True)
+        outside, sched = 0.0, None
+        if "outside_concentration" in t:
+            outside, sched = parse_value(r, t["outside_concentration"], "concentration",
+                                         f"{where}.outside_concentration", low=0)
+        return Boundary(kind, outside, h, schedule=sched)
+    return Boundary(kind)
+
+
+def _read(text, path):
+    file = str(path)
+    base_dir = Path(file).parent if file != "<string>" else Path.cwd()
+    r = _Reader(file, base_dir)
+    data = parse_toml(r, text)
+    r.keys(data, TOP_KEYS, "")
+    return r, data, file
+
+
+def parse_scenario(text: str, path: str | Path = "<string>") -> Scenario:
+    """Parse scenario TOML text (``path`` is used in messages and for relative files).
+
+    The base scenario (the file without its ``[[alternatives]]``) is returned; every
+    alternative is validated too, so a file that loads is a file that runs.
+
+    Raises
+    ------
+    ScenarioError
+        Any problem in the text, with file, key path, value and fix.
+    """
+    r, data, file = _read(text, path)
+    base = _parse_data(r, data, text, file)
+    _alternatives(r, data, text, file)
+    return base
+
+
+def parse_alternatives(text: str, path: str | Path = "<string>") -> list:
+    """The scenarios of a file: one, or one per ``[[alternatives]]`` table.
+
+    Each alternative has a ``name`` (its title) and replaces the file's ``actions``
+    (an empty list means no action) and optionally its ``top`` boundary.
+    """
+    r, data, file = _read(text, path)
+    base = _parse_data(r, data, text, file)
+    return _alternatives(r, data, text, file) or [base]
+
+
+def _alternatives(r, data, text, file) -> list:
+    """The scenarios of the ``[[alternatives]]`` tables (empty list: none given)."""
+    alts = data.get("alternatives")
+    if alts is None:
+        return []
+    if not isinstance(alts, list) or not alts or not all(isinstance(a, dict) for a in alts):
+        raise r.error("alternatives", alts, "must be a list of [[alternatives]] tables",
+                      fix='add [[alternatives]] tables with name = "..." and actions = [...]')
+    out, names = [], set()
+    for j, alt in enumerate(alts, start=1):
+        key = f"alternatives[{j}]"
+        r.keys(alt, ALTERNATIVE_KEYS, key)
+        name = r.text(alt, "name", key)
+        if not name:
+            raise r.error(f"{key}.name", problem="missing", fix='add name = "cap at 5 yr"')
+        if name in names:
+            raise r.error(f"{key}.name", name, "two alternatives have the same name",
+                          fix="give each alternative its own name")
+        names.add(name)
+        variant = {k: v for k, v in data.items() if k not in ("alternatives", "actions")}
+        variant["title"] = name
+        if "actions" in alt:
+            variant["actions"] = alt["actions"]
+        if "top" in alt:
+            variant["top"] = alt["top"]
+        out.append(_parse_data(r, variant, text, file, prefix=f"{key}."))
+    return out
+
+
+def _parse_data(r, data, text, file, prefix=""):
+    title = r.text(data, "title", "", default=Path(file).stem)
+    chem = _chemical(r, data)
+    flow = r.table(data.get("flow"), "flow")
+    r.keys(flow, FLOW_KEYS, "flow")
+    q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
+
+    raw_layers = data.get("layers")
+    if not isinstance(raw_layers, list) or not raw_layers:
+        raise r.error("layers", _MISSING if raw_layers is None else raw_layers,
+                      "at least one [[layers]] table is needed", fix="add [[layers]] tables, "
+                      "top first")
+    if len(raw_layers) > MAX_LAYERS:
+        raise r.error("layers", problem=f"{len(raw_layers)} layers, more than the "
+                      f"{MAX_LAYERS} a column may have", allowed=f"1 to {MAX_LAYERS} layers",
+                      fix="merge neighbouring layers of the same material")
+    layers, details, initial_values, top = [], [], [], 0.0
+    for i, raw in enumerate(raw_layers, start=1):
+        layer, detail, init = _layer(r, raw, i, chem, q, top, i == len(raw_layers))
+        layers.append(layer)
+        details.append(detail)
+        initial_values.append(init)
+        top += layer.thickness
+
+    bottom_boundary = _boundary(r, data, "bottom", q)
+    try:
+        column = Column(tuple(layers), _boundary(r, data, "top", q, key=f"{prefix}top"),
+                        bottom_boundary, q)
+    except InputError as exc:
+        raise r.error("flow.darcy_flux", q, str(exc), fix="see the message") from None
+    if not math.isfinite(column.length) or column.length <= 0:
+        raise r.error("layers", problem="total thickness is not a finite positive length")
+
+    init_table = r.table(data.get("initial"), "initial")
+    r.keys(init_table, INITIAL_KEYS, "initial")
+    per_layer = any(v is not None for v in initial_values)
+    if len(init_table) > 1:
+        raise r.error("initial.samples_file", init_table["samples_file"], "given together "
+                      "with initial.samples", fix="keep one")
+    if init_table and per_layer:
+        raise r.error("initial", problem="a measured profile and layers[].initial_concentration "
+                      "are both given", fix="keep one way of giving the initial state")
+    if "samples" in init_table:
+        initial = _samples(r, init_table["samples"], column.length)
+    elif "samples_file" in init_table:
+        initial = _read_samples_file(r, init_table["samples_file"], column.length)
+    elif per_layer:
+        initial = InitialState.uniform([v or 0.0 for v in initial_values])
+    else:
+        initial = InitialState.clean()
+
+    output = _output(r, data, column)
+    timeline = parse_actions(
+        r, data, column, q, raw_layers,
+        make_layer=lambda raw, key, q_, top_, last_: _layer(r, raw, 0, chem, q_, top_, last_,
+                                                             key=key)[0],
+        make_boundary=lambda table, end, q_, key: _boundary(r, table, end, q_, key=key),
+        t_end=float(output.times.max()), prefix=prefix)
+    if timeline is not None:
+        output = _with_cap_depths(output, timeline)
+    check_run_size(r, output, column, initial, timeline)
+    return Scenario(title=title, path=None if file == "<string>" else file, column=column,
+                    initial=initial, chemical=chem, output=output, source_text=text,
+                    layer_details=tuple(details), timeline=timeline)
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario file (TOML, UTF-8)."""
+    text = read_text_file(path)
+    return parse_scenario(text, path)
+
+
+def load_alternatives(path: str | Path) -> list:
+    """The scenarios of a file (see :func:`parse_alternatives`)."""
+    text = read_text_file(path)
+    return parse_alternatives(text, path)
+
+
+def starter_scenario_text() -> str:
+    """A commented starter scenario (the text ``stratiflux new`` writes)."""
+    return resources.files("transport").joinpath("data/starter.toml").read_text(
+        encoding="utf-8")

@@ -1,0 +1,264 @@
+"""Engine selection: every number vouched for by two independent engines, or refused.
+
+``solve_column`` runs the engines and chooses, per output time, the value it can vouch
+for (:func:`transport.solvers.checks.choose`):
+
+* ``auto``: the modal series (:mod:`transport.solvers.modal.series`) where it agrees with the Laplace
+  engine (:mod:`transport.solvers.laplace`) within the tolerance for EVERY quantity (C, total
+  flux, cumulative mass, budget terms), the Laplace value where only its own error
+  bound meets the tolerance, and a refusal (:class:`transport.solvers.checks.
+  UnreliableResultError`) where neither does.  The physical bounds and the budget
+  closure are checked on every candidate (the smoke alarm);
+* ``modal`` / ``laplace`` / ``finite-volume``: that engine's values, vouched for by
+  its own bound or its agreement with the Laplace engine, else refused;
+* a semi-infinite bottom layer: the Laplace engine with its own bound.
+
+The result records, per output time, the engine used and the error bound of every
+quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from transport.solvers.modal import series as modal
+from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose, clip_to_bounds,
+                     concentration_bounds, describe_refusal, own_errors, quantities)
+from transport.solvers.fv.engine import solve_fv_result
+from transport.solvers.laplace import EngineSolution, solve_laplace
+from transport.model.column import Column, InitialState, InputError
+from transport.solvers.modal.projection import initial_profile
+from transport.solvers.modal.operator import build_operator
+
+__all__ = ["solve_column", "ENGINES", "CheckedSolution", "ON_UNRELIABLE", "modal_evaluator",
+           "checked_fields"]
+
+ENGINES = ("auto", "modal", "laplace", "finite-volume")
+ON_UNRELIABLE = ("raise", "flag")
+#: Default relative tolerance; the finite-volume engine (a second-order scheme, whose
+#: error estimate comes from mesh doubling) defaults to a looser one.
+DEFAULT_TOLERANCE, FV_TOLERANCE = 1e-8, 1e-3
+
+
+@dataclass(frozen=True)
+class CheckedSolution(EngineSolution):
+    """An :class:`EngineSolution` whose every number was checked: ``error`` maps each
+    quantity ("concentration", "total_flux", "cumulative_mass", "budget") to its
+    absolute error bound per output time (nt,); ``reliable`` (nt,) is False where no
+    engine could vouch for a time (its values are then NaN); ``tolerance`` is the
+    relative tolerance asked for and ``scale`` the scale of each quantity it refers to."""
+
+    error: dict = field(default=None, repr=False, compare=False)
+    reliable: np.ndarray = field(default=None, repr=False, compare=False)
+    tolerance: float = None
+    scale: dict = field(default=None, repr=False, compare=False)
+    mass_at: object = field(default=None, repr=False, compare=False)
+
+    def cumulative_mass_at(self, depth: float, t: float):
+        """Vouched cumulative mass (kg m-2) through ``depth`` during (0, t), and its
+        error bound: the modal value where it agrees with the Laplace engine within the
+        tolerance, else the Laplace value with its own bound."""
+        lap_v, lap_e = self.mass_at(float(depth), float(t))
+        if self.series is not None:
+            try:
+                m = float(self.series.cumulative_mass(np.array([float(depth)]),
+                                                      np.array([float(t)]))[0, 0])
+            except (AttributeError, ValueError):
+                m = np.nan
+            diff = abs(m - lap_v) + lap_e
+            if np.isfinite(diff) and diff <= self.tolerance * self.scale["cumulative_mass"]:
+                return m, diff
+        return lap_v, lap_e
+
+
+def _weyl_modes(op, t, tolerance):
+    """Mode count the modal tail bound needs at time t (no cap), as modal.required_modes."""
+    return modal.required_modes(op, t, tolerance, 10 ** 9)
+
+
+def _laplace_evaluator(column, initial, semi_infinite_bottom):
+    """C(depth, t) at any times by Laplace inversion (the initial state at t = 0)."""
+    def at(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.empty(t.size)
+        pos = t > 0
+        if pos.any():
+            out[pos] = solve_laplace(column, t[pos], [depth], initial,
+                                     semi_infinite_bottom).concentration[:, 0]
+        if (~pos).any():
+            out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
+        return out
+    return at
+
+
+def _auto_evaluator(series, t_modal, laplace_at):
+    """Modal series from ``t_modal`` on (where it was vouched for), Laplace before."""
+    def at(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.empty(t.size)
+        late = t >= t_modal
+        if late.any():
+            out[late] = series.concentration_at(depth, t[late])
+        if (~late).any():
+            out[~late] = laplace_at(depth, t[~late])
+        return out
+    return at
+
+
+def _expand(sol, rows, nt):
+    """A candidate (quantities, own errors, budget) on the full time grid from a
+    solution at ``rows`` (NaN elsewhere)."""
+    vals, own = quantities(sol), own_errors(sol)
+    full_v = {q: np.full((nt,) + v.shape[1:], np.nan) for q, v in vals.items()}
+    full_e = {q: np.full(nt, np.nan) for q in QUANTITIES}
+    for q in QUANTITIES:
+        full_v[q][rows] = vals[q]
+        full_e[q][rows] = own[q]
+    budget = {k: np.full(nt, np.nan) for k in sol.budget}
+    for k in sol.budget:
+        budget[k][rows] = np.asarray(sol.budget[k], float)
+    return full_v, full_e, budget
+
+
+def solve_column(column: Column, times, depths, initial: InitialState = None,
+                 engine: str = "auto", tolerance: float = None, max_modes: int = 4000,
+                 semi_infinite_bottom: bool = False, cells_per_layer=None,
+                 on_unreliable: str = "raise"):
+    """Solve a layered column; every returned number is vouched for within ``tolerance``.
+
+    Parameters
+    ----------
+    column, times (s), depths (m), initial : as :func:`transport.solvers.modal.series.solve`
+    engine : "auto" | "modal" | "laplace" | "finite-volume"
+    tolerance : relative tolerance of every quantity, relative to the scale of its own
+        series over the run (C: the largest concentration the inputs allow); default
+        1e-8, and 1e-3 for the finite-volume engine
+    max_modes : cap of the modal series
+    semi_infinite_bottom : last layer extends to infinity (Laplace engine only)
+    cells_per_layer : finite-volume mesh (finite-volume engine only; default: planned
+        from the decay, dispersion and boundary-layer lengths, then refined by doubling
+        to the tolerance)
+    on_unreliable : "raise" (default): :class:`transport.solvers.checks.UnreliableResultError`
+        when an output time cannot be vouched for; "flag": its values are NaN and
+        ``reliable`` is False there
+
+    Returns
+    -------
+    CheckedSolution with ``engine_by_time`` (nt,) strings ("modal", "laplace",
+    "finite-volume", "initial" at t = 0, "" where refused), ``error`` (quantity ->
+    (nt,) absolute bounds), ``error_estimate`` (that of C, kg m-3) and ``reliable``.
+    ``concentration_at(depth, times)`` serves any times from the engine that was
+    vouched for there.
+    """
+    if engine not in ENGINES:
+        raise InputError(f"engine {engine!r} is unknown; use one of " + ", ".join(ENGINES))
+    if on_unreliable not in ON_UNRELIABLE:
+        raise InputError(f"on_unreliable {on_unreliable!r} is unknown; use "
+                         + " or ".join(ON_UNRELIABLE))
+    if tolerance is None:
+        tolerance = FV_TOLERANCE if engine == "finite-volume" else DEFAULT_TOLERANCE
+    if not (isinstance(tolerance, (int, float)) and 0 < tolerance < 1):
+        raise InputError(f"tolerance must be a number between 0 and 1, got {tolerance!r}")
+    initial = initial or InitialState.clean()
+    times = np.asarray(times, dtype=float).ravel()
+    depths = np.asarray(depths, dtype=float).ravel()
+    if semi_infinite_bottom and engine in ("modal", "finite-volume"):
+        raise InputError(f"a semi-infinite bottom layer needs the Laplace engine (or auto), "
+                         f"not {engine!r}")
+    nt = times.size
+    lap = solve_laplace(column, times, depths, initial, semi_infinite_bottom)
+    everything = np.arange(nt)
+    lap_c = _expand(lap, everything, nt)
+    laplace_at = _laplace_evaluator(column, initial, semi_infinite_bottom)
+    bounds = None if semi_infinite_bottom else concentration_bounds(
+        column, initial, float(times.max()) if nt else 0.0)
+    series, evaluator = None, laplace_at
+    eig, n_modes = np.empty(0), 0
+    if engine == "laplace" or semi_infinite_bottom:
+        cands = [("laplace", lap_c)]
+    elif engine == "finite-volume":
+        fv = solve_fv_result(column, times, depths, initial, cells_per_layer=cells_per_layer,
+                             tolerance=tolerance)
+        cands = [("finite-volume", _expand(fv, everything, nt)), ("laplace", lap_c)]
+        evaluator = fv.evaluator
+    else:
+        rows = _modal_rows(column, times, tolerance, max_modes, forced=engine == "modal")
+        cands = []
+        if rows.size:
+            with warnings.catch_warnings():
+                if engine == "auto":  # the cross-check below settles what they warn of
+                    warnings.simplefilter("ignore", modal.ModeCapWarning)
+                    warnings.simplefilter("ignore", modal.AccuracyWarning)
+                sol = modal.solve(column, times[rows], depths, initial, tolerance, max_modes)
+            cands.append(("modal", _expand(sol, rows, nt)))
+            series = sol.series
+            eig, n_modes = sol.eigenvalues, sol.n_modes
+        cands.append(("laplace", lap_c))
+    selectable = 1 if engine != "auto" else len(cands)
+    choice = choose(times, [(n, c[0], c[1]) for n, c in cands], tolerance, bounds, column,
+                    depths, budgets=[c[2] for n, c in cands], selectable=selectable)
+    if not choice.reliable.all() and on_unreliable == "raise":
+        tried = " and ".join(n for n, _ in cands[:selectable]) + (
+            " (cross-checked against laplace)" if selectable < len(cands) else "")
+        raise UnreliableResultError(describe_refusal(times, choice, tolerance, tried),
+                                    times[~choice.reliable],
+                                    [q for q in QUANTITIES
+                                     if np.any(choice.failed[q] & ~choice.reliable)])
+    vals, budget = assemble([(n, c[0], c[1]) for n, c in cands], choice,
+                            [c[2] for n, c in cands])
+    vals["concentration"] = clip_to_bounds(column, bounds, depths, vals["concentration"],
+                                           choice.error["concentration"])
+    series, evaluator = modal_evaluator(choice, times, series, evaluator)
+    eig, n_modes = (eig, n_modes) if series is not None else (np.empty(0), 0)
+    return CheckedSolution(column=column, times=times, depths=depths, eigenvalues=eig,
+                           n_modes=n_modes, series=series, evaluator=evaluator,
+                           mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
+                           **checked_fields(choice, vals, budget, tolerance))
+
+
+def modal_evaluator(choice, times, series, fallback):
+    """(series, C(depth, t)) for the continuous-time metrics: the modal series from the
+    first output time after which it served every time (Laplace before), or (None,
+    ``fallback``) when it serves no such tail."""
+    used = choice.engine == "modal"
+    later = np.flatnonzero(~used & (times > 0))
+    cut = later.max() + 1 if later.size else 0
+    if series is not None and cut < times.size and used[cut:].all():
+        return series, _auto_evaluator(series, float(times[cut]), fallback)
+    return None, fallback
+
+
+def checked_fields(choice, vals, budget, tolerance) -> dict:
+    """The fields a :class:`CheckedSolution` takes from a choice between engines."""
+    names = sorted({e for e in choice.engine if e not in ("", "initial")})
+    return dict(concentration=vals["concentration"], total_flux=vals["total_flux"],
+                cumulative_mass=vals["cumulative_mass"], budget=budget,
+                engine="+".join(names) or "none", engine_by_time=choice.engine,
+                error_estimate=choice.error["concentration"], error=choice.error,
+                reliable=choice.reliable, tolerance=float(tolerance), scale=choice.scale)
+
+
+def _laplace_mass_at(column, initial, semi_infinite_bottom):
+    def at(depth, t):
+        if t <= 0:
+            return 0.0, 0.0
+        sol = solve_laplace(column, [t], [depth], initial, semi_infinite_bottom)
+        err = own_errors(sol)["cumulative_mass"][0]
+        return float(sol.cumulative_mass[0, 0]), float(np.nan_to_num(err, nan=np.inf))
+    return at
+
+
+def _modal_rows(column, times, tolerance, max_modes, forced):
+    """Output times the modal engine is asked for: all positive times when forced, else
+    those its mode cap can resolve (Weyl estimate); none beyond its Peclet range."""
+    positive = np.flatnonzero(times > 0)
+    if forced:
+        return positive
+    try:
+        op = build_operator(column)
+    except InputError:  # column Peclet number beyond the modal engine's range
+        return np.empty(0, int)
+    need = np.array([_weyl_modes(op, t, tolerance) for t in times[positive]])
+    return positive[need <= max_modes]

@@ -1,0 +1,505 @@
+"""Modal superposition on the exact layered spectrum.
+
+With u = C / kappa, the steady responses phi_k of :mod:`transport.solvers.modal.lifting` (k = top value,
+bottom value, source of each layer) and their signals b_k(t) (:mod:`transport.model.schedules`):
+
+    u(z, t) = sum_k b_k(t) phi_k(z) + e^{A(z)} sum_n a_n(t) psi_n(z),
+    a_n' + lambda_n a_n = sum_k c_kn (eps b_k - b_k'),   a_n(0) = P_n - sum_k b_k(0) c_kn,
+
+where psi_n are the weight-normalised eigenfunctions (:mod:`transport.solvers.modal.spectrum`),
+c_kn the projections of phi_k from Green's identity (boundary term plus source
+projection, divided by lambda_n + eps: no quadrature of the lifting), P_n the projection
+of the initial state (Gauss-Legendre, :mod:`transport.solvers.modal.projection`).  ``eps`` is 0 when
+a steady state exists, else a positive shift giving a smooth lifting.  The modal ODEs
+are solved exactly for steps, ramps and exponential depletion (Duhamel).
+
+Fluxes, cumulative mass through any depth and the full budget follow termwise in closed
+form in time; the slowly converging 1/lambda part of the time integrals is replaced by
+its exact Green's-function value (no truncation error in cumulative masses).
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from transport.solvers.modal.lifting import SteadyResponses, steady_responses
+from transport.model.column import Column, InitialState, InputError, check_output_grid
+from transport.solvers.modal.projection import gauss_nodes, green_flux, initial_profile
+from transport.model.schedules import Schedule, phi
+from transport.solvers.modal.eigenfunctions import Modes, modes
+from transport.solvers.modal.operator import Operator, build_operator
+from transport.solvers.modal.spectrum import eigenvalues
+
+__all__ = ["solve", "ColumnSolution", "ModalSeries", "ModeCapWarning", "AccuracyWarning",
+           "build_series", "required_modes", "initial_profile", "column_signals"]
+
+
+class ModeCapWarning(UserWarning):
+    """The mode cap stops the series from meeting the tolerance at the earliest times."""
+
+
+class AccuracyWarning(UserWarning):
+    """Rounding error (high Peclet number, early time) exceeds the requested tolerance."""
+
+
+def column_signals(column: Column, op: Operator):
+    """Signals b_k(t) (Schedules) of the top, bottom and per-layer source responses."""
+    def bc_signal(bc, gamma):
+        if gamma == 0.0:
+            return Schedule()
+        sched = bc.schedule if bc.schedule is not None else Schedule.constant(bc.value)
+        return sched.scaled(gamma)
+    sig = [bc_signal(column.top, op.top_u[2]), bc_signal(column.bottom, op.bottom_u[2])]
+    for lay in column.layers:
+        if lay.source_rate == 0.0:
+            sig.append(Schedule())
+        else:
+            sig.append(lay.source_schedule if lay.source_schedule is not None
+                       else Schedule.constant(1.0))
+    return tuple(sig)
+
+
+@dataclass(frozen=True)
+class ModalSeries:
+    """Everything needed to evaluate the solution at any depth and time."""
+
+    column: Column
+    op: Operator
+    modes: Modes
+    lifting: SteadyResponses
+    signals: tuple  # Schedules, (K,)
+    proj0: np.ndarray  # P_n, projection of the initial state, (n,)
+    lift_coef: np.ndarray  # c_kn, (K, n)
+    mass_modes: np.ndarray  # int a e^A psi_n over each layer, (N, n)
+    mass_lift: np.ndarray  # int a phi_k over each layer, (N, K)
+    initial: object = field(default_factory=InitialState.clean)
+    initial_mass: float = 0.0
+    breaks: tuple = ()
+    extra_rate: float = 0.0
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def eigenvalues(self):
+        return self.modes.lam
+
+    def resolved_after(self, tolerance: float = 1e-8) -> float:
+        """Time after a signal change from which the truncated series meets
+        ``tolerance`` (the tail bound used to size it): lambda_N t >= ln(1/tol) + ln N + 2."""
+        lam = self.modes.lam
+        return (math.log(1 / tolerance) + math.log(lam.size) + 2) / max(float(lam[-1]), 1e-300)
+
+    def change_times(self):
+        out = {0.0}
+        for sig in self.signals:
+            out.update(sig.change_times)
+        return sorted(out)
+
+    @property
+    def eps(self):
+        return self.lifting.eps
+
+    def _active(self):
+        return [k for k, s in enumerate(self.signals) if s.atoms]
+
+    def signal_values(self, t):
+        """Signal values b_k(t), (K, nt); at a change time the value just before it."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([s.value(t, left=True) for s in self.signals])
+
+    def signal_integrals(self, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([s.integral(t) for s in self.signals])
+
+    def _atom_groups(self):
+        """Modal weights summed over signals per distinct atom (kind, t0, rate), so each
+        time kernel is evaluated once; a step at t = 0 (eps = 0) joins the initial term."""
+        if "atoms" not in self._cache:
+            initial = self.proj0.copy()
+            groups = {}
+            for k in self._active():
+                for kind, t0, amp, rate in self.signals[k].atoms:
+                    if kind == "step" and t0 == 0.0 and self.eps == 0.0:
+                        initial -= amp * self.lift_coef[k]  # kernel -e^{-lambda t}
+                        continue
+                    key = (kind, t0, rate)
+                    groups[key] = groups.get(key, 0.0) + amp * self.lift_coef[k]
+            self._cache["atoms"] = (initial, groups)
+        return self._cache["atoms"]
+
+    def coefficients(self, t):
+        """a_n(t), shape (n, t.size)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam
+        initial, groups = self._atom_groups()
+        out = np.exp(-lam[:, None] * t[None, :])
+        out *= initial[:, None]
+        for (kind, t0, rate), w in groups.items():
+            unit = Schedule(((kind, t0, 1.0, rate),))
+            out += w[:, None] * unit.modal(lam, t, self.eps, left=True)
+        return out
+
+    def integrated_coefficients(self, t):
+        """int_0^t a_n, shape (n, t.size)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam
+        initial, groups = self._atom_groups()
+        out = initial[:, None] * phi(1, lam[:, None], t[None, :])
+        for (kind, t0, rate), w in groups.items():
+            unit = Schedule(((kind, t0, 1.0, rate),))
+            out += w[:, None] * unit.modal(lam, t, self.eps, True, left=True)
+        return out
+
+    def _fields(self, z):
+        """Matrices for C and F at depths z: (z, modes) and lifting (z, K); kept for the
+        last depth grid asked for (the probes and the tail corrections share it)."""
+        op = self.op
+        z = np.atleast_1d(np.asarray(z, dtype=float))
+        key = ("fields", z.tobytes())
+        found = self._cache.get("fields")
+        if found is not None and found[0] == key:
+            return found[1]
+        lay = self.modes.layer_of(z)
+        kap = op.kappa[lay][:, None]
+        psi, dpsi = self.modes.evaluate(z, exp_sign=+1)
+        u_l, du_l = self.lifting.evaluate(z)
+        out = (kap * psi, 0.5 * op.q * psi - dpsi, kap * u_l, op.q * u_l - du_l)
+        for a in out:
+            a.flags.writeable = False
+        self._cache["fields"] = (key, out)
+        return out
+
+    def _drive(self, t):
+        """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt), as
+        the left limit at a change time (the modes beyond the truncation have not yet
+        responded to a change at that very instant)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return np.array([self.eps * s.value(t, left=True) - s.derivative(t)
+                         for s in self.signals])
+
+    def concentration(self, z, t):
+        """C (kg m-3), shape (t.size, z.size)."""
+        c_modes, _, c_lift, _ = self._fields(z)
+        out = (c_modes @ self.coefficients(t) + c_lift @ self.signal_values(t)).T
+        drive = self._drive(t)
+        if np.any(drive):
+            corr = self._tail_corrections(z)["C"][:, 1:]
+            out = out + (corr @ drive).T
+        return out
+
+    def concentration_at(self, depth, times):
+        """C at one depth for any times: 1-D array (continuous in time)."""
+        return self.concentration(np.array([float(depth)]), times)[:, 0]
+
+    def total_flux(self, z, t):
+        _, f_modes, _, f_lift = self._fields(z)
+        out = (f_modes @ self.coefficients(t) + f_lift @ self.signal_values(t)).T
+        drive = self._drive(t)
+        if np.any(drive):
+            corr = self._tail_corrections(z)["F"][:, 1:]
+            out = out + (corr @ drive).T
+        return out
+
+    def roundoff_bound(self, z, t, c_modes=None):
+        """Estimated rounding error of C (kg m-3), shape (t.size, z.size).
+
+        The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
+        the terms, before they cancel, are multiplied by e^{A(z)} on the way back.  At
+        high Peclet numbers and early times this, not the mode count, limits accuracy.
+        ``c_modes``: the concentration rows of :meth:`_fields` at z, if at hand."""
+        if c_modes is None:
+            c_modes = self._fields(z)[0]
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        lam = self.modes.lam[:, None]
+        size = np.abs(self.proj0)[:, None] * np.exp(-lam * t[None, :])
+        for k in self._active():
+            sched = self.signals[k]
+            amp = sum(abs(a) for _, _, a, _ in sched.atoms)
+            # the latest change at or before each t (0 where there is none)
+            changes = np.sort(np.asarray(sched.change_times, dtype=float))
+            i = np.searchsorted(changes, t, side="right")
+            last = np.where(i > 0, changes[np.maximum(i - 1, 0)] if changes.size else 0.0,
+                            0.0)
+            size = size + np.abs(self.lift_coef[k])[:, None] * amp * np.exp(
+                -lam * np.maximum(t - last, 0.0)[None, :])
+        n = max(self.modes.lam.size, 1)
+        return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
+
+    # --- exact corrections of the time integrals (steady-state case) -----------------
+    def _w0_functions(self, zq, lq, uq=None):
+        """u-space initial state and lifting functions at nodes: (nq, 1 + K)."""
+        u0 = initial_profile(self.column, self.initial, zq) / self.op.kappa[lq]
+        if uq is None:
+            uq, _ = self.lifting.evaluate(zq)
+        return np.column_stack([u0, uq])
+
+    def _tail_corrections(self, z):
+        """Exact minus truncated 1/(lambda + eps) sums, for the initial state (column 0)
+        and each lifting (columns 1..K): "C" values (nz, 1+K) and "F" fluxes at z, and
+        "D" for the decayed mass (1+K,).  Modes beyond the truncation respond
+        quasi-statically, a_n ~ c_kn (eps b_k - b_k') / (lambda_n + eps); these sums
+        replace their slowly converging tails by Green's-function values."""
+        op = self.op
+        z = np.atleast_1d(np.asarray(z, dtype=float))
+        key = z.tobytes()
+        cache = self._cache
+        if key in cache:
+            return cache[key]
+        ends = np.array([0.0, op.z[-1]])
+        nodes = gauss_nodes(op, np.array([0.0]), tuple(self.breaks) + tuple(z.tolist()),
+                            self.extra_rate)
+        zq, wq, lq = nodes
+        uq, _ = self.lifting.evaluate(zq)
+        w0 = self._w0_functions(zq, lq, uq)
+        F, U = green_flux(op, self.lifting, np.concatenate([z, ends]), w0, nodes, values=True,
+                          lift_nodes=uq)
+        Fz, Fe = F[:z.size], F[z.size:]
+        integ = (wq * op.a[lq]) @ w0
+        lam_e = self.modes.lam + self.eps
+        coef = np.vstack([self.proj0, self.lift_coef]) / lam_e[None, :]  # (1+K, n)
+        stored_w = coef @ self.mass_modes.sum(axis=0)  # int a W, converges fast
+        QD = Fe[0] - Fe[1] + integ - self.eps * stored_w
+        c_modes, f_modes, _, _ = self._fields(z)
+        D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
+        lay = self.modes.layer_of(z)
+        out = {"C": op.kappa[lay][:, None] * U[:z.size] - c_modes @ coef.T,
+               "F": Fz - f_modes @ coef.T, "D": QD - coef @ D}
+        if len(cache) > 64:
+            cache.clear()
+        cache[key] = out
+        return out
+
+    def _integrated_correction(self, corr, t):
+        """corr_0 H(t) + sum_k (eps int_0^t b_k - b_k(t)) corr_k  (corr: (..., 1+K))."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        # left limits at a change time, as in _drive: (K, nt)
+        weight = self.eps * self.signal_integrals(t) - self.signal_values(t)
+        corr = np.atleast_2d(corr)
+        return (np.outer((t > 0).astype(float), corr[:, 0])
+                + (corr[:, 1:] @ weight).T)
+
+    def cumulative_mass(self, z, t):
+        """Mass per area that crossed depth z downward during (0, t) (kg m-2)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        _, f_modes, _, f_lift = self._fields(z)
+        out = (f_modes @ self.integrated_coefficients(t) + f_lift @ self.signal_integrals(t)).T
+        out = out + self._integrated_correction(self._tail_corrections(z)["F"], t)
+        return np.where(t[:, None] == 0, 0.0, out)
+
+    def budget(self, t):
+        """Mass budget per unit area (kg m-2) at times t.  Stored mass comes from the
+        series, entered/left from the boundary fluxes and decayed from the decay terms,
+        independently, so the residual measures the solution's consistency."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        op = self.op
+        coef = self.coefficients(t)
+        icoef = self.integrated_coefficients(t)
+        b, ib = self.signal_values(t), self.signal_integrals(t)
+        stored = self.mass_modes.sum(axis=0) @ coef + self.mass_lift.sum(axis=0) @ b
+        D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
+        decayed = D @ icoef + (op.decay @ self.mass_lift) @ ib
+        corr_d = self._tail_corrections(np.array([0.0]))["D"]
+        decayed = decayed + self._integrated_correction(corr_d[None, :], t)[:, 0]
+        decayed = np.where(t == 0, 0.0, decayed)
+        produced = (op.source * op.thickness) @ ib[2:]
+        cum = self.cumulative_mass(np.array([0.0, op.z[-1]]), t)
+        stored = np.where(t == 0, self.initial_mass, stored)
+        entered, left = cum[:, 0], cum[:, 1]
+        residual = stored - self.initial_mass - entered + left + decayed - produced
+        return {"stored": stored, "initial_stored": np.full(t.size, self.initial_mass),
+                "entered_top": entered, "left_bottom": left, "decayed": decayed,
+                "produced": produced, "residual": residual}
+
+
+def required_modes(op: Operator, t_min: float, tolerance: float, n_max: int) -> int:
+    """Mode count with lambda_N t_min >= ln(1/tol) + ln N + 2 (tail bound), Weyl estimate."""
+    weyl = float(np.sum(op.thickness * np.sqrt(op.a / op.k)))
+    shift = float(np.min(op.s / op.a))
+    n = 8
+    for _ in range(60):
+        target = (math.log(1 / tolerance) + math.log(n) + 2) / t_min
+        n_new = int(math.ceil(weyl / math.pi * math.sqrt(max(target - shift, 0.0)))) + 4
+        if n_new <= n:
+            break
+        n = min(n_new, n_max)
+        if n == n_max:
+            break
+    return max(n, 8)
+
+
+def _mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
+    n_modes = required_modes(op, t_min, tolerance, max_modes)
+    lam = eigenvalues(op, n_modes)
+    target = max((math.log(1 / tolerance) + math.log(n_modes) + 2) / t_min, lam_floor)
+    while lam[-1] < target and n_modes < max_modes:
+        n_modes = min(max_modes, int(n_modes * 1.5) + 8)
+        lam = eigenvalues(op, n_modes)
+    if lam[-1] < target:
+        t_ok = (math.log(1 / tolerance) + math.log(n_modes) + 2) / lam[-1]
+        warnings.warn(
+            f"{n_modes} modes (the cap) do not meet the tolerance {tolerance:g} at the "
+            f"earliest time {t_min:.4g} s after a change; results are accurate from about "
+            f"{t_ok:.4g} s after it. Raise max_modes or use later output times.",
+            ModeCapWarning, stacklevel=4)
+    return lam
+
+
+def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
+                 max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0,
+                 masses: bool = True):
+    """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`.
+
+    ``initial`` is an :class:`InitialState` or a callable C0(z) (then give its kinks in
+    ``breaks`` and its highest spatial frequency in ``extra_rate``).  With
+    ``masses=False`` a clean column without sources skips the quadrature (its
+    projections are zero); concentrations and cumulative masses are unchanged, the
+    layer masses (budget, decayed mass) are left NaN so they cannot be misread.
+    """
+    initial = initial if initial is not None else InitialState.clean()
+    op = build_operator(column)
+    if n_modes is None:
+        if t_min is None or t_min <= 0:
+            raise InputError("give the earliest positive output time (t_min) or n_modes")
+        # exponential signals: the quasi-static tail is exact to first order in
+        # rate / lambda; the second order is made negligible by lambda_N >= rate/sqrt(tol)
+        rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
+                 if kind == "decay"]
+        floor = max(rates, default=0.0) / math.sqrt(tolerance)
+        lam = _mode_count(op, t_min, tolerance, max_modes, floor)
+    else:
+        lam = eigenvalues(op, n_modes)
+    md = modes(op, lam)
+    lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
+    eps = abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
+    lift = steady_responses(op, eps)
+    signals = column_signals(column, op)
+    K = len(signals)
+    # Green's identity: (lambda + eps) c_kn = boundary term + source projection
+    green = np.zeros((K, lam.size))
+    psi_e, dpsi_e = md.evaluate(np.array([0.0, op.z[-1]]), exp_sign=0)
+    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
+        c_v, c_p, G = op.v_condition(end)
+        j = 0 if end == "top" else 1
+        green[k] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
+    skip = (not masses and not callable(initial) and initial.kind == "clean"
+            and not np.any(op.source))
+    if skip:
+        undefined = np.full((op.n_layers, lam.size), np.nan)
+        return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
+                           proj0=np.zeros(lam.size), lift_coef=green / (lam + eps)[None, :],
+                           mass_modes=undefined, mass_lift=np.full((op.n_layers, K), np.nan),
+                           initial=initial)
+    if not callable(initial) and initial.kind == "profile":
+        breaks = tuple(breaks) + tuple(initial.depths)
+    zq, wq, lq = gauss_nodes(op, lam, breaks, extra_rate)
+    u0 = initial_profile(column, initial, zq) / op.kappa[lq]
+    proj0 = np.zeros(lam.size)
+    mass_modes = np.zeros((op.n_layers, lam.size))
+    chunk = max(1, 4_000_000 // max(lam.size, 1))
+    for start in range(0, zq.size, chunk):
+        sl = slice(start, start + chunk)
+        psi_m, _ = md.evaluate(zq[sl], exp_sign=-1)
+        wa = wq[sl] * op.a[lq[sl]]
+        proj0 += (wa * u0[sl]) @ psi_m
+        for i in np.unique(lq[sl]):
+            if op.source[i] != 0.0:
+                sel = lq[sl] == i
+                green[2 + i] += (wq[sl][sel] * op.source[i]) @ psi_m[sel]
+        psi_p, _ = md.evaluate(zq[sl], exp_sign=+1)
+        np.add.at(mass_modes, lq[sl], wa[:, None] * psi_p)
+    lift_coef = green / (lam + eps)[None, :]
+    u_lift, _ = lift.evaluate(zq)
+    mass_lift = np.zeros((op.n_layers, K))
+    np.add.at(mass_lift, lq, (wq * op.a[lq])[:, None] * u_lift)
+    initial_mass = float(np.sum(wq * op.a[lq] * u0))
+    return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
+                       proj0=proj0, lift_coef=lift_coef, mass_modes=mass_modes,
+                       mass_lift=mass_lift, initial=initial, initial_mass=initial_mass,
+                       breaks=tuple(breaks), extra_rate=extra_rate)
+
+
+@dataclass(frozen=True)
+class ColumnSolution:
+    """Fields of one column on a (time, depth) grid, SI units (see API notes)."""
+
+    column: Column
+    times: np.ndarray
+    depths: np.ndarray
+    concentration: np.ndarray
+    total_flux: np.ndarray
+    cumulative_mass: np.ndarray
+    budget: dict
+    eigenvalues: np.ndarray
+    n_modes: int
+    engine: str = "modal"
+    series: ModalSeries = field(default=None, repr=False, compare=False)
+
+    def roundoff_bound(self, z, t):
+        """Estimated rounding error of C (kg m-3), shape (t.size, z.size)."""
+        return self.series.roundoff_bound(z, t)
+
+    def concentration_at(self, depth, times):
+        return self.series.concentration_at(depth, times)
+
+    def to_dataset(self, title: str = "stratiflux column"):
+        """The fields as an xarray.Dataset (CF layout, units in the attributes)."""
+        from transport.io.netcdf import column_dataset
+        return column_dataset(self, title=title)
+
+
+def earliest_time_after_change(column: Column, times) -> float | None:
+    """Smallest positive (t - t_change) over output times and signal switch-on times."""
+    times = np.asarray(times, dtype=float)
+    changes = {0.0}
+    for sched in (column.top.schedule, column.bottom.schedule,
+                  *(lay.source_schedule for lay in column.layers)):
+        if sched is not None:
+            changes.update(sched.change_times)
+    gaps = [t - c for t in times for c in changes if t - c > 0]
+    if not gaps:
+        return None
+    # resolve every change as finely as the run's start, so that continuous-time
+    # metrics are accurate after each change, not only at the output times
+    return min(min(gaps), float(times[times > 0].min()))
+
+
+def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,
+          max_modes: int = 4000, n_modes: int = None):
+    """Solve the layered column at ``times`` (s) and ``depths`` (m).
+
+    Returns a :class:`ColumnSolution`.  At t = 0 the initial profile itself is returned
+    (the series is not used there).  Mode count: from the earliest positive time after a
+    change of a boundary or source signal and the tolerance, unless ``n_modes`` is
+    given; :class:`ModeCapWarning` if the cap prevents meeting the tolerance,
+    :class:`AccuracyWarning` if rounding (high Peclet, early time) exceeds it.
+    """
+    initial = initial if initial is not None else InitialState.clean()
+    times, depths = check_output_grid(column, times, depths)
+    t_min = earliest_time_after_change(column, times)
+    if t_min is None and n_modes is None:
+        n_modes = 8
+    series = build_series(column, initial, t_min, tolerance, max_modes, n_modes)
+    conc = series.concentration(depths, times)
+    flux = series.total_flux(depths, times)
+    cum = series.cumulative_mass(depths, times)
+    positive = times > 0
+    if positive.any():
+        scale = max(float(np.max(np.abs(conc))), 1e-300)
+        bound = series.roundoff_bound(depths, times[positive])
+        if bound.max() > tolerance * scale:
+            bad_t = times[positive][np.any(bound > tolerance * scale, axis=1)]
+            warnings.warn(
+                f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
+                f"column Peclet number is about {2 * (series.op.A.max() - series.op.A.min()):.0f})"
+                f" exceeds the tolerance at {bad_t.size} output time(s), the latest "
+                f"{bad_t.max():.4g} s; use later output times or cross-check with another "
+                "engine", AccuracyWarning, stacklevel=2)
+    zero = times == 0
+    if zero.any():
+        conc[zero] = initial_profile(column, initial, depths)
+    return ColumnSolution(column=column, times=times, depths=depths, concentration=conc,
+                          total_flux=flux, cumulative_mass=cum, budget=series.budget(times),
+                          eigenvalues=series.eigenvalues, n_modes=series.eigenvalues.size,
+                          series=series)

@@ -1,0 +1,461 @@
+"""Remediation timelines: the column or its boundaries change at given times.
+
+Each stage has its own exact spectrum; the state at a stage start is carried onto the new
+stage's modes by projection (Gauss-Legendre, exact for the carried profile).  Depths are
+measured below the ORIGINAL top of the column (z = 0); a cap placed later occupies
+negative depths, an excavation moves the top down.  A stage's local depth is
+z_local = z - offset.
+
+Carried state: soil that stays keeps its mass per volume, so a layer whose capacity
+theta R changes (an amendment) starts with C_new = C_old (theta R)_old / (theta R)_new;
+new layers (a cap, backfill) start clean.  The budget carries across stages and reports
+the mass removed with excavated soil.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from transport.solvers.engines import CheckedSolution, checked_fields, modal_evaluator
+from transport.solvers.modal.series import ColumnSolution, build_series, earliest_time_after_change
+from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+
+__all__ = ["Stage", "Timeline", "solve_timeline", "remove_source", "excavate", "place_cap",
+           "amend_layer", "set_flow", "set_boundary"]
+
+
+@dataclass(frozen=True)
+class Stage:
+    """From ``start`` (s) on, ``column`` holds, its top at depth ``offset`` (m, original
+    frame).  ``carry[i]`` multiplies the carried concentration in layer i (None: the
+    layer is new and starts clean)."""
+
+    start: float
+    column: Column
+    offset: float = 0.0
+    carry: tuple = None
+    label: str = ""
+
+
+@dataclass(frozen=True)
+class Timeline:
+    stages: tuple
+
+    def __post_init__(self):
+        stages = tuple(self.stages)
+        object.__setattr__(self, "stages", stages)
+        if not stages or stages[0].start != 0.0:
+            raise InputError("a timeline starts with a stage at time 0")
+        starts = [s.start for s in stages]
+        if any(b <= a for a, b in zip(starts, starts[1:])):
+            raise InputError(f"stage times must increase strictly, got {starts}")
+
+    @classmethod
+    def single(cls, column: Column):
+        return cls((Stage(0.0, column),))
+
+    def then(self, start: float, action, label: str = ""):
+        """A new timeline with ``action`` (a function Stage -> Stage) applied at ``start``."""
+        if not math.isfinite(start) or start <= self.stages[-1].start:
+            raise InputError(f"an action at {start!r} s must come after the previous one "
+                             f"({self.stages[-1].start} s)")
+        prev = self.stages[-1]
+        new = action(prev)
+        column = _global_clock(new.column, prev.column, float(start))
+        return Timeline(self.stages + (replace(new, column=column, start=float(start),
+                                               label=label),))
+
+
+def _delayed(schedule, start):
+    return None if schedule is None else schedule.shifted(-start)
+
+
+def _global_clock(column: Column, before: Column, start: float) -> Column:
+    """Schedules of a stage column on the run's clock (t = 0 at the start of the run).
+
+    A boundary or source kept from the previous stage keeps its schedule (already on the
+    run's clock: a depleting source goes on depleting); one the action brings in (a new
+    top, a cap layer's source) starts its schedule at the action time."""
+    def bc(new, old):
+        if new.schedule is None or new.schedule is old.schedule:
+            return new
+        return replace(new, schedule=_delayed(new.schedule, start))
+    old_sched = {id(l.source_schedule) for l in before.layers if l.source_schedule is not None}
+    layers = tuple(l if l.source_schedule is None or id(l.source_schedule) in old_sched
+                   else replace(l, source_schedule=_delayed(l.source_schedule, start))
+                   for l in column.layers)
+    return replace(column, top=bc(column.top, before.top),
+                   bottom=bc(column.bottom, before.bottom), layers=layers)
+
+
+def local_column(stage: Stage) -> Column:
+    """The stage's column with its schedules on the stage's own clock (t = 0 at its
+    start), as the engines solve it."""
+    col, dt = stage.column, stage.start
+    if dt == 0:
+        return col
+
+    def sh(x):
+        return None if x is None else x.shifted(dt)
+    return replace(col, top=replace(col.top, schedule=sh(col.top.schedule)),
+                   bottom=replace(col.bottom, schedule=sh(col.bottom.schedule)),
+                   layers=tuple(replace(l, source_schedule=sh(l.source_schedule))
+                                for l in col.layers))
+
+
+# --- actions (Stage -> Stage) ---------------------------------------------------------
+
+def _same(stage, column, offset=None, carry=None):
+    n = len(column.layers)
+    return Stage(stage.start, column, stage.offset if offset is None else offset,
+                 tuple([1.0] * n) if carry is None else tuple(carry))
+
+
+def set_boundary(end: str, boundary: Boundary):
+    """Replace the top or bottom boundary (e.g. the source is removed)."""
+    def act(stage):
+        col = replace(stage.column, **{end: boundary})
+        return _same(stage, col)
+    return act
+
+
+def remove_source(clean: Boundary = None):
+    """The source is taken away: the top becomes clean (a zero concentration by default)."""
+    return set_boundary("top", clean or Boundary("concentration", 0.0))
+
+
+def excavate(thickness: float, top: Boundary = None):
+    """Remove ``thickness`` (m) from the top; the rest keeps its state."""
+    def act(stage):
+        col = stage.column
+        if not (thickness > 0 and thickness < col.length):
+            raise InputError(f"excavation depth {thickness!r} m must be > 0 and less than "
+                             f"the column ({col.length} m)")
+        layers, cut = [], thickness
+        for lay in col.layers:
+            if cut >= lay.thickness * (1 - 1e-12):
+                cut -= lay.thickness
+                continue
+            layers.append(replace(lay, thickness=lay.thickness - cut) if cut > 0 else lay)
+            cut = 0.0
+        new = replace(col, layers=tuple(layers), top=top or col.top)
+        return _same(stage, new, offset=stage.offset + thickness)
+    return act
+
+
+def place_cap(layers, top: Boundary = None):
+    """Place new clean layers (top first) on the column."""
+    layers = tuple(layers)
+
+    def act(stage):
+        col = stage.column
+        if col.darcy_flux != 0 and any(l.partition_to_next != 1 for l in layers):
+            raise InputError("cap layers with partition jumps need a zero Darcy flux")
+        new = Column(layers=layers + col.layers, top=top or col.top, bottom=col.bottom,
+                     darcy_flux=col.darcy_flux)
+        cap = sum(l.thickness for l in layers)
+        carry = (None,) * len(layers) + (1.0,) * len(col.layers)
+        return Stage(stage.start, new, stage.offset - cap, carry)
+    return act
+
+
+def amend_layer(name: str, **changes):
+    """Change properties of the layer called ``name`` (retardation, decay_rate,
+    diffusivity, porosity ...); its mass in place is kept."""
+    def act(stage):
+        col = stage.column
+        names = [l.name for l in col.layers]
+        if name not in names:
+            raise InputError(f"no layer named {name!r} to amend; layers are {names}")
+        carry, layers = [], []
+        for lay in col.layers:
+            if lay.name == name:
+                new = replace(lay, **changes)
+                carry.append(lay.porosity * lay.retardation / (new.porosity * new.retardation))
+                layers.append(new)
+            else:
+                carry.append(1.0)
+                layers.append(lay)
+        return _same(stage, replace(col, layers=tuple(layers)), carry=carry)
+    return act
+
+
+def set_flow(darcy_flux: float, diffusivities=None):
+    """Change the Darcy flux (and, since dispersion follows the pore velocity, optionally
+    each layer's diffusivity)."""
+    def act(stage):
+        col = stage.column
+        layers = col.layers
+        if diffusivities is not None:
+            layers = tuple(replace(l, diffusivity=d) for l, d in zip(layers, diffusivities))
+        return _same(stage, Column(layers=layers, top=col.top, bottom=col.bottom,
+                                   darcy_flux=darcy_flux))
+    return act
+
+
+# --- solving --------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class TimelineSeries:
+    """Stage series and the carried budget, for evaluation at any time."""
+
+    timeline: Timeline
+    series: tuple
+    carried: tuple  # budget totals at each stage start (dict)
+
+    def _stage_of(self, t):
+        starts = np.array([s.start for s in self.timeline.stages])
+        # a stage start belongs to the stage before it (its end state is exact there)
+        return np.clip(np.searchsorted(starts, t, side="left") - 1, 0, len(starts) - 1)
+
+    def concentration(self, z, t):
+        """C at original-frame depths z and times t: (t.size, z.size); NaN outside the
+        column of the stage."""
+        return self._by_stage(z, t, lambda i, ser, zl, tl, zo: ser.concentration(zl, tl))
+
+    def concentration_at(self, depth, times):
+        return self.concentration(np.array([float(depth)]), times)[:, 0]
+
+    def _by_stage(self, z, t, fn):
+        z = np.atleast_1d(np.asarray(z, float))
+        t = np.atleast_1d(np.asarray(t, float))
+        out = np.full((t.size, z.size), np.nan)
+        idx = self._stage_of(t)
+        for i in np.unique(idx):
+            st, ser = self.timeline.stages[i], self.series[i]
+            zl = z - st.offset
+            inside = (zl >= -1e-12) & (zl <= st.column.length * (1 + 1e-12))
+            if inside.any():
+                sel = idx == i
+                out[np.ix_(sel, inside)] = fn(i, ser, np.clip(zl[inside], 0, None),
+                                              t[sel] - st.start, z[inside])
+        return out
+
+    def total_flux(self, z, t):
+        return self._by_stage(z, t, lambda i, ser, zl, tl, zo: ser.total_flux(zl, tl))
+
+    def cumulative_mass(self, z, t):
+        """Mass through original-frame depth z since t = 0, over all stages."""
+        def fn(i, ser, zl, tl, zo):
+            before = np.zeros(zo.size)
+            for j in range(i):
+                st, s_j = self.timeline.stages[j], self.series[j]
+                end = self.timeline.stages[j + 1].start - st.start
+                zlj = zo - st.offset
+                ok = (zlj >= -1e-12) & (zlj <= st.column.length * (1 + 1e-12))
+                if ok.any():
+                    before[ok] += s_j.cumulative_mass(np.clip(zlj[ok], 0, None),
+                                                      np.array([end]))[0]
+            return before[None, :] + ser.cumulative_mass(zl, tl)
+        return self._by_stage(z, t, fn)
+
+    def budget(self, t):
+        t = np.atleast_1d(np.asarray(t, float))
+        keys = ("stored", "initial_stored", "entered_top", "left_bottom", "decayed",
+                "produced", "removed", "residual")
+        out = {k: np.zeros(t.size) for k in keys}
+        idx = self._stage_of(t)
+        for i in np.unique(idx):
+            sel = idx == i
+            st = self.timeline.stages[i]
+            b = self.series[i].budget(t[sel] - st.start)
+            c = self.carried[i]
+            out["stored"][sel] = b["stored"]
+            out["initial_stored"][sel] = self.carried[0]["initial"]
+            for k in ("entered_top", "left_bottom", "decayed", "produced"):
+                out[k][sel] = c[k] + b[k]
+            out["removed"][sel] = c["removed"]
+        out["residual"] = (out["stored"] - out["initial_stored"] - out["entered_top"]
+                           + out["left_bottom"] + out["decayed"] - out["produced"]
+                           + out["removed"])
+        return out
+
+
+def _carried_profile(prev_stage, prev_series, t_local, new_stage):
+    """C0(z_local_new) for the new stage from the previous stage's state."""
+    new_col, off_new, off_old = new_stage.column, new_stage.offset, prev_stage.offset
+    faces = new_col.interfaces
+    carry = new_stage.carry or (1.0,) * len(new_col.layers)
+
+    def c0(zl):
+        zl = np.asarray(zl, float)
+        out = np.zeros(zl.shape)
+        lay = np.clip(np.searchsorted(faces, zl, side="right") - 1, 0, len(faces) - 2)
+        zo = zl + off_new - off_old
+        for i in np.unique(lay):
+            if carry[i] is None:
+                continue
+            sel = lay == i
+            z_old = np.clip(zo[sel], 0.0, prev_stage.column.length)
+            out[sel] = carry[i] * prev_series.concentration(z_old, np.array([t_local]))[0]
+        return out
+    return c0
+
+
+def _rate_of(series):
+    op, lam = series.op, series.modes.lam
+    return float(np.max(np.sqrt(np.maximum(lam.max() * op.a - op.s, 0.0) / op.k)))
+
+
+def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
+                   max_modes=4000):
+    """Series for every stage, carrying the state and the budget across stage starts."""
+    stages = timeline.stages
+    times = np.asarray(times, float)
+    series, carried = [], []
+    init = initial if initial is not None else InitialState.clean()
+    totals = dict(entered_top=0.0, left_bottom=0.0, decayed=0.0, produced=0.0, removed=0.0)
+    positive = times[times > 0]
+    for i, st in enumerate(stages):
+        end = stages[i + 1].start if i + 1 < len(stages) else np.inf
+        local = times[(times > st.start) & (times <= end)] - st.start
+        if i + 1 < len(stages):
+            local = np.append(local, end - st.start)
+        column = local_column(st)
+        t_min = earliest_time_after_change(column, local)
+        if t_min is not None and positive.size:
+            t_min = min(t_min, float(positive.min()))
+        if i == 0:
+            ser = build_series(column, init, t_min, tolerance, max_modes,
+                               None if t_min else 8)
+            totals["initial"] = ser.initial_mass
+        else:
+            prev_st, prev = stages[i - 1], series[-1]
+            t_loc = st.start - prev_st.start
+            c0 = _carried_profile(prev_st, prev, t_loc, st)
+            old_faces = prev_st.column.interfaces + prev_st.offset - st.offset
+            breaks = tuple(old_faces[(old_faces > 0) & (old_faces < st.column.length)])
+            ser = build_series(column, c0, t_min, tolerance, max_modes,
+                               None if t_min else 8, breaks=breaks,
+                               extra_rate=_rate_of(prev))
+            b_prev = prev.budget(np.array([t_loc]))
+            for k in ("entered_top", "left_bottom", "decayed", "produced"):
+                totals[k] += float(b_prev[k][0])
+            # what the new stage does not carry (excavated soil) was removed
+            totals["removed"] += float(b_prev["stored"][0]) - ser.initial_mass
+        carried.append(dict(totals))
+        series.append(ser)
+    return TimelineSeries(timeline, tuple(series), tuple(carried))
+
+
+def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e-8,
+                   max_modes=4000, engine: str = "auto", on_unreliable: str = "raise"):
+    """Fields on the (time, depth) grid for a staged run; depths in the original frame.
+
+    ``engine``: "auto" (the modal stages where they agree with the staged Laplace engine
+    of :mod:`transport.solvers.staged` within ``tolerance`` for every quantity, else the
+    Laplace value where its own bound meets it), "modal" or "laplace" (that engine's
+    values, vouched for as in :func:`transport.solvers.engines.solve_column`).  Times no engine
+    can vouch for raise :class:`transport.solvers.checks.UnreliableResultError`, or with
+    ``on_unreliable="flag"`` are NaN and flagged in ``reliable``.
+    """
+    from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
+                         concentration_bounds, describe_refusal, quantities)
+    from transport.solvers.staged import solve_staged_laplace
+    if engine not in ("auto", "modal", "laplace"):
+        raise InputError(f"a scenario with [[actions]] runs on the auto, modal or laplace "
+                         f"engine; {engine!r} does not take stages yet")
+    if on_unreliable not in ("raise", "flag"):
+        raise InputError(f"on_unreliable {on_unreliable!r} is unknown; use raise or flag")
+    times = np.asarray(times, float).ravel()
+    depths = np.asarray(depths, float).ravel()
+    if np.any(times < 0) or not np.all(np.isfinite(times)):
+        raise InputError("output times must be finite and >= 0 s")
+    initial = initial or InitialState.clean()
+    nt = times.size
+    t_end = float(times.max()) if nt else 0.0
+    # bounds (maximum principle) hold stage by stage; a carried state lies within the
+    # previous stage's bounds, so the union over stages bounds the run
+    stage_bounds = [concentration_bounds(local_column(st), initial if i == 0 else None,
+                                         max(t_end - st.start, 0.0))
+                    for i, st in enumerate(timeline.stages)]
+    bounds = None
+    if all(np.all(b.kappa == 1.0) for b in stage_bounds):
+        lo = [b.lo for b in stage_bounds]
+        hi = [b.hi for b in stage_bounds]
+        from transport.solvers.checks import Bounds
+        bounds = Bounds(None if None in lo else min(lo), None if None in hi else max(hi),
+                        np.ones(len(timeline.stages[0].column.layers)))
+    cands, series, modal_sol = [], None, None
+    if engine in ("auto", "modal"):
+        import warnings
+        with warnings.catch_warnings():
+            if engine == "auto":
+                from transport.solvers.modal.series import AccuracyWarning, ModeCapWarning
+                warnings.simplefilter("ignore", AccuracyWarning)
+                warnings.simplefilter("ignore", ModeCapWarning)
+            modal_sol = _solve_timeline_modal(timeline, times, depths, initial, tolerance,
+                                              max_modes)
+        nan = {q: np.full(nt, np.nan) for q in QUANTITIES}
+        cands.append(("modal", quantities(modal_sol), nan, modal_sol.budget))
+        series = modal_sol.series
+    scale = bounds.scale if bounds is not None and bounds.scale is not None else None
+    if scale is None:
+        c = np.abs(modal_sol.concentration) if modal_sol is not None else np.zeros(1)
+        c = c[np.isfinite(c)]
+        scale = float(c.max()) if c.size and c.max() > 0 else 1.0
+    lv, lown, lbudget, staged, lwit = solve_staged_laplace(timeline, times, depths, initial,
+                                                     tolerance, scale, local_column)
+    lq = dict(lv)
+    from transport.solvers.checks import budget_terms
+    lq["budget"] = budget_terms(lbudget, nt)
+    cands.append(("laplace", lq, lown, lbudget))
+    selectable = len(cands) if engine == "auto" else 1
+    col0 = timeline.stages[0].column
+    choice = choose(times, [c[:3] for c in cands], tolerance, bounds, col0, depths,
+                    budgets=[c[3] for c in cands], selectable=selectable,
+                    witness=[None] * (len(cands) - 1) + [lwit])
+    if not choice.reliable.all() and on_unreliable == "raise":
+        tried = " and ".join(c[0] for c in cands[:selectable]) + " on every stage" + (
+            " (cross-checked against laplace)" if selectable < len(cands) else "")
+        raise UnreliableResultError(describe_refusal(times, choice, tolerance, tried),
+                                    times[~choice.reliable],
+                                    [q for q in QUANTITIES
+                                     if np.any(choice.failed[q] & ~choice.reliable)])
+    vals, budget = assemble([c[:3] for c in cands], choice, [c[3] for c in cands])
+    from transport.solvers.checks import clip_to_bounds
+    vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
+                                           choice.error["concentration"])
+    series, evaluator = modal_evaluator(choice, times, series, staged.concentration_at)
+    n_modes = modal_sol.n_modes if series is not None else 0
+    eig = modal_sol.eigenvalues if n_modes else np.empty(0)
+    return TimelineSolution(column=col0, times=times, depths=depths, eigenvalues=eig,
+                            n_modes=n_modes, series=series, evaluator=evaluator,
+                            timeline=timeline, mass_at=staged.mass_at,
+                            **checked_fields(choice, vals, budget, tolerance))
+
+
+def _solve_timeline_modal(timeline: Timeline, times, depths, initial, tolerance,
+                          max_modes):
+    """The modal stages on the output grid (unchecked)."""
+    ts = build_timeline(timeline, initial, times, tolerance, max_modes)
+    conc = ts.concentration(depths, times)
+    first = timeline.stages[0]
+    zero = times == 0
+    if zero.any():
+        from transport.solvers.modal.projection import initial_profile
+        conc[zero] = initial_profile(first.column, initial, depths)
+    return ColumnSolution(
+        column=first.column, times=times, depths=depths, concentration=conc,
+        total_flux=ts.total_flux(depths, times),
+        cumulative_mass=np.where(zero[:, None], 0.0, ts.cumulative_mass(depths, times)),
+        budget=ts.budget(times), eigenvalues=ts.series[-1].eigenvalues,
+        n_modes=int(max(s.eigenvalues.size for s in ts.series)), series=ts)
+
+
+@dataclass(frozen=True)
+class TimelineSolution(CheckedSolution):
+    timeline: Timeline = field(default=None, repr=False, compare=False)
+
+    def roundoff_bound(self, z, t):
+        out = np.zeros((np.size(t), np.size(z)))
+        ts = self.series
+        idx = ts._stage_of(np.atleast_1d(t))
+        for i in np.unique(idx):
+            st = ts.timeline.stages[i]
+            zl = np.clip(np.atleast_1d(z) - st.offset, 0, st.column.length)
+            sel = idx == i
+            out[sel] = ts.series[i].roundoff_bound(zl, np.atleast_1d(t)[sel] - st.start)
+        return out
