@@ -112,7 +112,7 @@ def _segments(column: Column, initial):
                 pieces.append((z0, z1, poly))
         for j, (z0, z1, poly) in enumerate(pieces):
             last = j == len(pieces) - 1
-            segs.append(dict(layer=i, top=z0, bot=z1, theta=lay.porosity, D=lay.diffusivity,
+            segs.append(dict(layer=i, top=z0, bot=z1, theta=lay.water_content, D=lay.diffusivity,
                              R=lay.retardation, mu=lay.decay_rate, poly=tuple(poly),
                              K=lay.partition_to_next if last else 1.0))
     return segs
@@ -437,7 +437,7 @@ class ReferenceSolution:
 def advection_guard_digits(column: Column) -> int:
     """Guard digits for advection: the transform carries factors up to
     exp(int_0^L |q| / (2 theta D) dz) that cancel in the inversion sum."""
-    guard = sum(abs(column.darcy_flux) * lay.thickness / (2 * lay.porosity * lay.diffusivity)
+    guard = sum(abs(column.darcy_flux) * lay.thickness / (2 * lay.water_content * lay.diffusivity)
                 for lay in column.layers)
     return int(math.ceil(guard / math.log(10)))
 
@@ -742,8 +742,8 @@ def carslaw_jaeger_two_layer_eigenvalues(column: Column, n: int, dps: int = 30) 
         raise ValueError("bottom boundary must be 'concentration' or zero flux")
     l1, l2 = column.layers
     with mp.workdps(dps):
-        a1, a2 = (mp.mpf(x.porosity) * x.retardation for x in (l1, l2))
-        k1, k2 = (mp.mpf(x.porosity) * x.diffusivity for x in (l1, l2))
+        a1, a2 = (mp.mpf(x.water_content) * x.retardation for x in (l1, l2))
+        k1, k2 = (mp.mpf(x.water_content) * x.diffusivity for x in (l1, l2))
         m1, m2 = mp.mpf(l1.decay_rate), mp.mpf(l2.decay_rate)
         h1, h2 = mp.mpf(l1.thickness), mp.mpf(l2.thickness)
         kp = mp.mpf(l1.partition_to_next)

@@ -96,7 +96,7 @@ def test_derive_layer_matches_formulas():
                                organic_carbon_partition=0.1, half_life=1e8, name="silt")
     assert isinstance(layer, Layer)
     tau = theta ** (7 / 3) / n ** 2
-    assert layer.porosity == theta
+    assert layer.water_content == theta
     assert layer.diffusivity == pytest.approx(1e-9 * tau + 0.05 * q / theta, rel=1e-14)
     assert layer.retardation == pytest.approx(1 + 1600.0 * 1e-3 / theta, rel=1e-14)
     assert layer.decay_rate == pytest.approx(math.log(2) / 1e8, rel=1e-15)

@@ -202,13 +202,13 @@ def test_units_do_not_matter():
 @pytest.mark.parametrize("bad, match", [
     (dict(thickness=0.0), "thickness"),
     (dict(thickness=-1.0), "thickness"),
-    (dict(porosity=1.5), "porosity"),
-    (dict(porosity=0.0), "porosity"),
+    (dict(water_content=1.5), "water_content"),
+    (dict(water_content=0.0), "water_content"),
     (dict(diffusivity=float("nan")), "diffusivity"),
 ])
 def test_bad_layer_is_a_clear_error(bad, match):
     """Bad input names the layer and the value (no numpy traceback)."""
-    kw = dict(thickness=1.0, porosity=0.3, diffusivity=1e-9, name="silt")
+    kw = dict(thickness=1.0, water_content=0.3, diffusivity=1e-9, name="silt")
     kw.update(bad)
     with pytest.raises(InputError, match=match) as err:
         Layer(**kw)
@@ -255,7 +255,7 @@ def test_steady_profile_with_decay_matches_danckwerts():
 
 from hypothesis import given, settings, strategies as st  # noqa: E402
 
-_layer = st.builds(Layer, thickness=st.floats(0.01, 1.0), porosity=st.floats(0.1, 0.6),
+_layer = st.builds(Layer, thickness=st.floats(0.01, 1.0), water_content=st.floats(0.1, 0.6),
                    diffusivity=st.floats(1e-11, 1e-9), retardation=st.floats(1.0, 20.0),
                    decay_rate=st.sampled_from([0.0, 1e-9]),
                    source_rate=st.sampled_from([0.0, 1e-13]))

@@ -327,8 +327,8 @@ staged_mark = pytest.mark.xfail(not _STAGED_ENGINE, strict=False,
 # stage-1 column of the staged cells: Pe 10 downward, two layers, C = 1 on top
 _ST_LAYERS = (Layer(0.5, 0.35, 1.0e-9, 1.5, name="fill"), Layer(0.7, 0.4, 4.0e-10, 2.5,
                                                                  name="silt"))
-_ST_Q = 10 / sum(l.thickness / (l.porosity * l.diffusivity) for l in _ST_LAYERS)
-_ST_TADV = sum(l.porosity * l.retardation * l.thickness for l in _ST_LAYERS) / _ST_Q
+_ST_Q = 10 / sum(l.thickness / (l.water_content * l.diffusivity) for l in _ST_LAYERS)
+_ST_TADV = sum(l.water_content * l.retardation * l.thickness for l in _ST_LAYERS) / _ST_Q
 _ST_TS = 0.4 * _ST_TADV  # stage change
 _ST_TIMES = np.array([0.2, 0.7, 1.5]) * _ST_TADV
 _ST_INIT = InitialState.profile([0.0, 0.4, 0.9, 1.2], [0.0, 0.5, 0.2, 0.0])

@@ -110,7 +110,7 @@ def test_unit_invariance():
     assert a.column.top.kind == b.column.top.kind and a.column.bottom.kind == b.column.bottom.kind
     assert b.column.darcy_flux == pytest.approx(a.column.darcy_flux, rel=1e-12)
     for la, lb in zip(a.column.layers, b.column.layers, strict=True):
-        for attr in ("thickness", "porosity", "diffusivity", "retardation", "decay_rate",
+        for attr in ("thickness", "water_content", "diffusivity", "retardation", "decay_rate",
                      "source_rate", "partition_to_next"):
             assert getattr(lb, attr) == pytest.approx(getattr(la, attr), rel=1e-12, abs=0)
     for attr in ("value", "transfer_coefficient"):

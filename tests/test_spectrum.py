@@ -139,7 +139,7 @@ def test_modes_orthonormal_with_advection():
 layer_st = st.builds(
     Layer,
     thickness=st.floats(1e-3, 2.0),
-    porosity=st.floats(0.05, 1.0),
+    water_content=st.floats(0.05, 1.0),
     diffusivity=st.floats(1e-13, 1e-8),
     retardation=st.floats(1.0, 100.0),
     decay_rate=st.sampled_from([0.0, 1e-10, 1e-8]),

@@ -21,7 +21,8 @@ import re
 
 import pint
 
-__all__ = ["ureg", "UnitError", "DIMENSIONS", "to_si", "si_unit"]
+__all__ = ["ureg", "UnitError", "DIMENSIONS", "to_si", "si_unit", "YEAR", "DAY", "MG_PER_L",
+           "UG_PER_L", "MG_PER_M2", "LITRE_PER_KG"]
 
 #: The project's single unit registry. Never create another one.
 ureg = pint.UnitRegistry()
@@ -32,6 +33,29 @@ if not math.isclose(ureg.Quantity(1, "year").to("second").magnitude, 365.25 * 86
                     rel_tol=0, abs_tol=0):  # pragma: no cover - depends on pint's defaults
     raise ImportError("pint's year is not the Julian year (365.25 d); stratiflux relies on it")
 
+
+
+def _unit_free(text: str, si: str) -> float:
+    """The SI magnitude of one ``text``, derived once from the registry and rounded to 15
+    significant digits (pint's conversions carry rounding noise such as 1 mg/L =
+    0.0009999999999999998 kg/m3; the definitions themselves are exact decimals)."""
+    return float(f"{ureg.Quantity(text).m_as(si):.15g}")
+
+
+# Unit-free constants for output conversions, derived once (as MetPy's constants.nounit).
+# Divide an SI value by one of them to express it in that unit: c / MG_PER_L is in mg/L.
+#: The Julian year in seconds (31 557 600 s).
+YEAR = _unit_free("1 year", "s")
+#: The day in seconds.
+DAY = _unit_free("1 day", "s")
+#: One mg/L in kg m-3 (SI concentration).
+MG_PER_L = _unit_free("1 mg/L", "kg/m^3")
+#: One ug/L in kg m-3.
+UG_PER_L = _unit_free("1 ug/L", "kg/m^3")
+#: One mg/m2 in kg m-2 (mass per unit area).
+MG_PER_M2 = _unit_free("1 mg/m^2", "kg/m^2")
+#: One L/kg in m3 kg-1 (distribution coefficients).
+LITRE_PER_KG = _unit_free("1 L/kg", "m^3/kg")
 
 class UnitError(ValueError):
     """A value that is not a number with units of the expected dimension.

@@ -270,6 +270,15 @@ def _summary_lines(scenario, solution):
     return lines
 
 
+def _total_porosity(sc, solution):
+    """Total porosity per layer for the NetCDF file, where the file's layers are the
+    scenario's (a staged run may end with other layers)."""
+    details = getattr(sc, "layer_details", ()) or ()
+    if getattr(sc, "timeline", None) is not None or len(details) != len(solution.column.layers):
+        return None
+    return [d["porosity"] for d in details]
+
+
 def _write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title,
                  stage=None):
     """The run's figures; with ``stage`` (an OutputSet) they are renamed with the other
@@ -424,7 +433,8 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
         write_column_netcdf(solution, output, title=sc.title,
                             scenario_text=getattr(sc, "source_text", None),
                             screening_level=level, receptor_depth=receptor,
-                            history=shlex.join(command), stage=stage)
+                            history=shlex.join(command), stage=stage,
+                            porosity=_total_porosity(sc, solution))
         if plots_dir:
             _progress(4, total, f"drawing figures in {plots_dir}")
             figures = _write_plots(solution, plots_dir, Path(output).stem,

@@ -153,7 +153,8 @@ def _check_variables(solution, nt: int, caution: str) -> dict:
 def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                    screening_level: float | None = None,
                    receptor_depth: float | None = None,
-                   history: str | None = None, station_id: str = "column") -> xr.Dataset:
+                   history: str | None = None, station_id: str = "column",
+                   porosity=None) -> xr.Dataset:
     """Build the CF dataset of one column run (no file is written).
 
     Parameters
@@ -175,6 +176,9 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
         Command line or call that produced the file; prefixed with the UTC time.
     station_id : str
         Name of the single station (CF ``timeseries_id``).
+    porosity : sequence of float, optional
+        Total porosity n of each layer, written as ``porosity`` beside the water-filled
+        ``water_content`` theta that the engines use (they differ above the water table).
 
     Returns
     -------
@@ -238,9 +242,9 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
         "layer_bottom": (("layer",), interfaces[1:],
                          {"long_name": "depth of the bottom face of the layer", "units": "m",
                           **layer_attrs}),
-        "porosity": (("layer",), [lay.porosity for lay in layers],
-                     {"long_name": "water-filled porosity of the layer", "units": "1",
-                      **layer_attrs}),
+        "water_content": (("layer",), [lay.water_content for lay in layers],
+                          {"long_name": "volumetric water content (water-filled porosity) of "
+                                        "the layer", "units": "1", **layer_attrs}),
         "diffusivity": (("layer",), [lay.diffusivity for lay in layers],
                         {"long_name": "pore-water diffusion plus mechanical dispersion "
                                       "coefficient of the layer", "units": "m2 s-1",
@@ -266,6 +270,12 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                        {"long_name": "steady Darcy flux, positive downward",
                         "units": "m s-1", **layer_attrs}),
     })
+    if porosity is not None:
+        values = np.asarray(porosity, dtype=float)
+        if values.shape != (len(layers),):
+            raise ValueError(f"porosity has shape {values.shape}, expected ({len(layers)},)")
+        data_vars["porosity"] = (("layer",), values, {
+            "long_name": "total porosity of the layer", "units": "1", **layer_attrs})
     data_vars.update(_check_variables(solution, times.size, caution))
     if screening_level is not None:
         data_vars["screening_level"] = ((), float(screening_level), {
@@ -367,7 +377,7 @@ def write_dataset_atomic(ds: xr.Dataset, path, *, stage=None) -> str:
 def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None = None,
                         screening_level: float | None = None,
                         receptor_depth: float | None = None,
-                        history: str | None = None, stage=None) -> str:
+                        history: str | None = None, stage=None, porosity=None) -> str:
     """Write one column run to a CF-1.11 NetCDF file, atomically (``stage``: see
     :func:`write_dataset_atomic`).
 
@@ -379,7 +389,7 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
     """
     ds = column_dataset(solution, title=title, scenario_text=scenario_text,
                         screening_level=screening_level, receptor_depth=receptor_depth,
-                        history=history)
+                        history=history, porosity=porosity)
     return write_dataset_atomic(ds, path, stage=stage)
 
 

@@ -59,7 +59,7 @@ class Layer:
     Parameters
     ----------
     thickness : m, > 0
-    porosity : water-filled porosity theta, 0 < theta <= 1
+    water_content : volumetric water content theta (the water-filled porosity), 0 < theta <= 1
     diffusivity : pore-water diffusion + mechanical dispersion D, m2 s-1, > 0
     retardation : R >= 1 (values below 1, anion exclusion, are accepted if > 0)
     decay_rate : first-order rate mu, s-1, >= 0 (acts on dissolved and sorbed phases)
@@ -71,7 +71,7 @@ class Layer:
     """
 
     thickness: float
-    porosity: float
+    water_content: float
     diffusivity: float
     retardation: float = 1.0
     decay_rate: float = 0.0
@@ -82,14 +82,14 @@ class Layer:
 
     def __post_init__(self):
         label = f"layer {self.name!r}" if self.name else "layer"
-        for attr in ("thickness", "porosity", "diffusivity", "retardation", "decay_rate",
+        for attr in ("thickness", "water_content", "diffusivity", "retardation", "decay_rate",
                      "source_rate", "partition_to_next"):
             object.__setattr__(self, attr, _finite(f"{label}: {attr}", getattr(self, attr)))
         if self.thickness <= 0:
             raise InputError(f"{label}: thickness must be > 0 m, got {self.thickness!r}; "
                              "remove the layer or give its real thickness")
-        if not 0 < self.porosity <= 1:
-            raise InputError(f"{label}: porosity must be in (0, 1], got {self.porosity!r}")
+        if not 0 < self.water_content <= 1:
+            raise InputError(f"{label}: water_content must be in (0, 1], got {self.water_content!r}")
         if self.diffusivity <= 0:
             raise InputError(f"{label}: diffusivity must be > 0 m2/s, got {self.diffusivity!r}")
         if self.retardation <= 0:

@@ -282,6 +282,6 @@ def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
     else:
         retardation = 1.0
 
-    return Layer(thickness=thickness, porosity=theta, diffusivity=diffusivity,
+    return Layer(thickness=thickness, water_content=theta, diffusivity=diffusivity,
                  retardation=retardation, decay_rate=decay_rate_from_half_life(half_life),
                  source_rate=source_rate, partition_to_next=partition_to_next, name=name)

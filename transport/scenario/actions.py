@@ -252,7 +252,7 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                 merged.update(changes)
                 lay = make_layer(merged, key, current_q, 0.0, False)
                 tables[position] = merged
-                action = amend_layer(name, porosity=lay.porosity, retardation=lay.retardation,
+                action = amend_layer(name, water_content=lay.water_content, retardation=lay.retardation,
                                      diffusivity=lay.diffusivity, decay_rate=lay.decay_rate,
                                      source_rate=lay.source_rate)
             else:  # set-flow

@@ -218,12 +218,12 @@ def check_advection(r: _Reader, layers, q: float, t_max: float, key: str):
     is where a memory cliff or an endless run would come from)."""
     if q == 0 or not layers:
         return
-    worst = max(layers, key=lambda lay: q * q / (4 * lay.porosity * lay.diffusivity
-                                                  * lay.porosity * lay.retardation))
-    s0 = q * q / (4 * worst.porosity * worst.diffusivity * worst.porosity * worst.retardation)
+    worst = max(layers, key=lambda lay: q * q / (4 * lay.water_content * lay.diffusivity
+                                                  * lay.water_content * lay.retardation))
+    s0 = q * q / (4 * worst.water_content * worst.diffusivity * worst.water_content * worst.retardation)
     nodes = 12 * math.sqrt(s0 * t_max) + 24
     if nodes > MAX_CONTOUR_NODES:
-        peclet = abs(q) * worst.thickness / (worst.porosity * worst.diffusivity)
+        peclet = abs(q) * worst.thickness / (worst.water_content * worst.diffusivity)
         raise r.error(key, problem=f"advection dominates dispersion too strongly in layer "
                       f"{worst.name!r} (layer Peclet number {peclet:.3g}): the engines would "
                       f"need about {nodes:.3g} contour nodes per output time, more than "

@@ -273,7 +273,7 @@ def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, la
                       "the model represents", allowed=f"D up to {MAX_LAYER_DIFFUSIVITY:g} m^2/s",
                       fix="check dispersivity, water_content and flow.darcy_flux")
     try:
-        layer = Layer(thickness=thickness, porosity=theta, diffusivity=molecular + dispersion,
+        layer = Layer(thickness=thickness, water_content=theta, diffusivity=molecular + dispersion,
                       retardation=retardation, decay_rate=media.decay_rate_from_half_life(half_life),
                       source_rate=source, partition_to_next=partition, name=name)
     except InputError as exc:

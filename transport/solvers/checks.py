@@ -244,8 +244,8 @@ def scales(a: dict, b: dict | None, bounds: Bounds | None, column=None) -> dict:
         c_s = out["concentration"]
         length = column.length
         f_in = c_s * (abs(column.darcy_flux)
-                      + max(l.porosity * l.diffusivity for l in column.layers) / length)
-        m_in = c_s * sum(l.porosity * l.retardation * l.thickness for l in column.layers)
+                      + max(l.water_content * l.diffusivity for l in column.layers) / length)
+        m_in = c_s * sum(l.water_content * l.retardation * l.thickness for l in column.layers)
         out["total_flux"] = max(out["total_flux"], f_in)
         out["cumulative_mass"] = max(out["cumulative_mass"], m_in)
         out["budget"] = max(out["budget"], m_in)

@@ -105,7 +105,7 @@ def default_nodes(column: Column) -> int:
     (the transform approaches a pure delay e^{-s tau}, whose sharp fronts need finer
     quadrature): N = 32 + 6 log2(Pe / 10), capped at 96 (rounding grows like
     e^{0.171 N}: ~1e-13 at N = 32, ~3e-11 at N = 64, ~5e-9 at N = 96)."""
-    pe = sum(abs(column.darcy_flux) * lay.thickness / (lay.porosity * lay.diffusivity)
+    pe = sum(abs(column.darcy_flux) * lay.thickness / (lay.water_content * lay.diffusivity)
              for lay in column.layers)
     if pe <= 10:
         return DEFAULT_NODES
@@ -284,8 +284,8 @@ def _segments(column: Column, initial: InitialState):
                 c1 = float(initial.profile_at(z1, "left"))
                 a, b = c0, (c1 - c0) / (z1 - z0)
             last = j == len(cuts) - 2
-            rows.append((z0, z1 - z0, lay.porosity * lay.diffusivity,
-                         lay.porosity * lay.retardation, lay.decay_rate, lay.source_rate,
+            rows.append((z0, z1 - z0, lay.water_content * lay.diffusivity,
+                         lay.water_content * lay.retardation, lay.decay_rate, lay.source_rate,
                          a, b, lay.partition_to_next if last else 1.0))
     out = {key: np.array(col) for key, col in
            zip(("top", "l", "k", "c", "mu", "sigma", "a", "b", "K"), zip(*rows))}
@@ -319,8 +319,8 @@ def _cubic_segments(column: Column, initial):
     at_face = np.isclose(bottoms, faces[lay + 1], rtol=1e-12, atol=1e-15)
     L = column.layers
     return {"top": tops, "l": lengths,
-            "k": np.array([L[i].porosity * L[i].diffusivity for i in lay]),
-            "c": np.array([L[i].porosity * L[i].retardation for i in lay]),
+            "k": np.array([L[i].water_content * L[i].diffusivity for i in lay]),
+            "c": np.array([L[i].water_content * L[i].retardation for i in lay]),
             "mu": np.array([L[i].decay_rate for i in lay]),
             "sigma": np.array([L[i].source_rate for i in lay]),
             "a": coefs[:, 0], "b": coefs[:, 1], "a2": coefs[:, 2], "a3": coefs[:, 3],

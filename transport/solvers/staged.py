@@ -81,7 +81,7 @@ def _handover(prev_col, prev_init, t_loc, prev_off, stage, local, scale, toleran
         j = int(np.clip(np.searchsorted(old_faces, mid_old, side="right") - 1, 0,
                         len(prev_col.layers) - 1))
         old = prev_col.layers[j]
-        k_old = old.porosity * old.diffusivity
+        k_old = old.water_content * old.diffusivity
         bottom_jump = old.partition_to_next if j + 1 < len(prev_col.layers) else 1.0
 
         def at(zl, j=j, k_old=k_old, bottom_jump=bottom_jump, factor=carry[i]):
@@ -129,7 +129,7 @@ def _handover(prev_col, prev_init, t_loc, prev_off, stage, local, scale, toleran
         lengths.append(np.diff(z))
         coefs.append(cf)
         err = max(err, e)
-        mass += e * lay.porosity * lay.retardation * (bot - top)
+        mass += e * lay.water_content * lay.retardation * (bot - top)
     initial = PiecewiseCubic(tuple(np.concatenate(tops)), tuple(np.concatenate(lengths)),
                              tuple(map(tuple, np.vstack(coefs))))
     return _Handover(initial, err, mass)
@@ -274,7 +274,7 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
         # own bounds: this stage's inversion bound plus what the hand-overs carried in
         tau = np.maximum(tl, 1e-300)
         kappa_min = min(l.diffusivity / l.retardation for l in col.layers)
-        k_max = max(l.porosity * l.diffusivity for l in col.layers)
+        k_max = max(l.water_content * l.diffusivity for l in col.layers)
         # an initial error e0 moves the flux by at most about theta D e0 |grad G|_L1 +
         # |q| e0, with |grad G|_L1 = 1 / sqrt(pi kappa tau) for the heat kernel (Carslaw
         # & Jaeger 1959, sec. 2.2), doubled for the layered medium

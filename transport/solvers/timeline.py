@@ -163,7 +163,7 @@ def place_cap(layers, top: Boundary = None):
 
 def amend_layer(name: str, **changes):
     """Change properties of the layer called ``name`` (retardation, decay_rate,
-    diffusivity, porosity ...); its mass in place is kept."""
+    diffusivity, water_content ...); its mass in place is kept."""
     def act(stage):
         col = stage.column
         names = [l.name for l in col.layers]
@@ -173,7 +173,7 @@ def amend_layer(name: str, **changes):
         for lay in col.layers:
             if lay.name == name:
                 new = replace(lay, **changes)
-                carry.append(lay.porosity * lay.retardation / (new.porosity * new.retardation))
+                carry.append(lay.water_content * lay.retardation / (new.water_content * new.retardation))
                 layers.append(new)
             else:
                 carry.append(1.0)

@@ -304,7 +304,7 @@ def _pruefer(quick):
 def _freundlich_linear(quick):
     theta, rho, kf = 0.35, 1600.0, 2e-4
     ret = 1 + rho * kf / theta
-    lay = dict(thickness=0.5, porosity=theta, diffusivity=6e-10, decay_rate=1e-9)
+    lay = dict(thickness=0.5, water_content=theta, diffusivity=6e-10, decay_rate=1e-9)
     top, bot = Boundary("concentration", 1.0), Boundary("mass-transfer", 0.0, 1e-8)
     lin = Column((Layer(retardation=ret, **lay), Layer(0.5, 0.45, 1e-10, ret)), top, bot)
     non = Column((Layer(retardation=1.0, **lay), Layer(0.5, 0.45, 1e-10, 1.0)), top, bot)

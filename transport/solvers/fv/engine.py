@@ -191,7 +191,7 @@ def plan_mesh(column: Column, times, initial: InitialState | None = None,
     k = float(cells_per_scale)
     counts, maps = [], []
     for i, lay in enumerate(column.layers):
-        l, D, R, mu, th = lay.thickness, lay.diffusivity, lay.retardation, lay.decay_rate, lay.porosity
+        l, D, R, mu, th = lay.thickness, lay.diffusivity, lay.retardation, lay.decay_rate, lay.water_content
         v = q / th
         kappa = D / R
         l_fast = D / (abs(v) / 2 + np.sqrt(v * v / 4 + D * R * mu)) if (v or mu) else np.inf
@@ -284,8 +284,8 @@ def assemble(column: Column, mesh: Mesh, scheme: str = "exponential") -> System:
     """
     q = column.darcy_flux
     n = mesh.centres.size
-    k = _cell_props(column, mesh, "porosity") * _cell_props(column, mesh, "diffusivity")
-    cap = _cell_props(column, mesh, "porosity") * _cell_props(column, mesh, "retardation")
+    k = _cell_props(column, mesh, "water_content") * _cell_props(column, mesh, "diffusivity")
+    cap = _cell_props(column, mesh, "water_content") * _cell_props(column, mesh, "retardation")
     mu = _cell_props(column, mesh, "decay_rate")
     sigma = _cell_props(column, mesh, "source_rate")
     vol = np.diff(mesh.faces)
@@ -407,7 +407,7 @@ def build_storage(column: Column, mesh: Mesh, isotherm=None) -> Storage:
     """Per-cell :class:`Storage` for the layers and their isotherms."""
     isos = _isotherm_list(column, isotherm)
     n = mesh.centres.size
-    a = _cell_props(column, mesh, "porosity") * _cell_props(column, mesh, "retardation")
+    a = _cell_props(column, mesh, "water_content") * _cell_props(column, mesh, "retardation")
     arr = {k: np.zeros(n) for k in ("rho", "kf", "nf", "smax", "kl")}
     fr, la = np.zeros(n, bool), np.zeros(n, bool)
     for i, iso in enumerate(isos):

@@ -80,7 +80,7 @@ def build_operator(column: Column) -> Operator:
     kappa = np.ones(len(lays))
     for i in range(1, len(lays)):
         kappa[i] = kappa[i - 1] * lays[i - 1].partition_to_next
-    theta = np.array([lay.porosity for lay in lays])
+    theta = np.array([lay.water_content for lay in lays])
     R = np.array([lay.retardation for lay in lays])
     D = np.array([lay.diffusivity for lay in lays])
     mu = np.array([lay.decay_rate for lay in lays])
