@@ -194,19 +194,15 @@ def test_summary_flags_breakthrough_within_solver_error():
 
     Curve: Crank (1975) eq. 2.45 (stand-in solution of tests/test_netcdf.py).
     """
-    from types import SimpleNamespace
-
     from test_netcdf import fake_solution
-    from transport.cli.main import _summary_lines
+    from transport.analysis.summary import summary_lines
 
     base = fake_solution()
-    scenario = SimpleNamespace(title="stand-in", receptor_depth=0.3, screening_level=0.05,
-                               design_life=None, tolerance=1e-8)
-
     for error, flagged in ((1e-9, False), (2e-2, True)):
         solution = type(base)(**{f: getattr(base, f) for f in base.__dataclass_fields__})
         object.__setattr__(solution, "error_estimate", np.full(np.size(base.times), error))
-        text = " ".join(_summary_lines(scenario, solution))
+        text = " ".join(summary_lines(solution, title="stand-in", receptor_depth=0.3,
+                                      screening_level=0.05))
         assert "first reached at" in text
         assert ("not reliable" in text) is flagged
 

@@ -175,9 +175,9 @@ def run_folders(run_baseline, tmp_path):
 
 
 RUN_FAULTS = {
-    "solve": ("transport.api.solve_scenario", raiser),
-    "summary": ("transport.cli.main._summary_lines", raiser),
-    "netcdf writer": ("transport.io.netcdf.write_column_netcdf", raiser),
+    "solve": ("transport.cli.common.solve_scenario", raiser),
+    "summary": ("transport.cli.run.summary_lines", raiser),
+    "netcdf writer": ("transport.cli.run.write_column_netcdf", raiser),
     "netcdf disk full": (xr.Dataset, "to_netcdf", partial_to_netcdf),
     "profiles figure": ("transport.plot.column.plot_profiles", raiser),
     "breakthrough figure": ("transport.plot.column.plot_breakthrough", raiser),
@@ -298,7 +298,7 @@ def compare_baseline(tmp_path_factory):
 
 
 COMPARE_FAULTS = {
-    "solve": ("transport.analysis.compare.compare_alternatives", raiser),
+    "solve": ("transport.cli.compare.compare_alternatives", raiser),
     "table": ("transport.analysis.compare.table_csv", raiser),
     "verdicts": ("transport.analysis.compare.verdict_lines", raiser),
     "netcdf dataset": ("transport.analysis.compare.comparison_dataset", raiser),
@@ -374,11 +374,11 @@ def second_site(folder: Path, borings=BORINGS):
 SITE_FAULTS = {
     "solve": ("transport.site.batch.solve_chunk", None),  # fails at the second chunk
     "netcdf chunk": ("transport.io.site_netcdf.SiteNetCDFWriter.write_chunk", None),
-    "station table": ("transport.io.gis.station_table", raiser),
-    "geopackage": ("transport.io.gis.write_geopackage", raiser),
-    "geojson": ("transport.io.gis.write_geojson", raiser),
-    "csv": ("transport.io.gis.write_metrics_csv", raiser),
-    "map": ("transport.io.gis.plot_site_map", raiser),
+    "station table": ("transport.site.run.station_table", raiser),
+    "geopackage": ("transport.site.run.write_geopackage", raiser),
+    "geojson": ("transport.site.run.write_geojson", raiser),
+    "csv": ("transport.site.run.write_metrics_csv", raiser),
+    "map": ("transport.site.run.plot_site_map", raiser),
     "savefig": (Figure, "savefig", lambda: partial_savefig(1)),
     "last rename": (os, "replace", lambda: replace_failing_for("site_map.png")),
 }
@@ -464,15 +464,15 @@ def site_reference(tmp_path_factory):
     site = load_site(write_small_site(base))
     files = run_site(site, base / "ref", realizations=0, workers=1, chunk_size=2)
     interrupted = base / "interrupted"
-    import transport.io.gis as mapping
+    import transport.site.run as site_run
 
-    real = mapping.plot_site_map
-    mapping.plot_site_map = raiser
+    real = site_run.plot_site_map
+    site_run.plot_site_map = raiser
     try:
         with pytest.raises(Injected):
             run_site(site, interrupted, realizations=0, workers=1, chunk_size=2)
     finally:
-        mapping.plot_site_map = real
+        site_run.plot_site_map = real
     state = json.loads((interrupted / "site.nc.progress.json").read_text())
     assert state["done"] == [0, 1, 2] and len(state["sha256"]) == 3
     return site, files, interrupted

@@ -174,11 +174,11 @@ def test_verify_reports_a_failing_case(tmp_path, monkeypatch):
     """A case above its tolerance is reported as FAIL and the exit status is 1; a case
     that raises is a failure too (common practice: a verification run must not hide
     errors)."""
-    bad = [suite._Case("too-far", "deliberately wrong", "none", "test", 1e-3,
-                       lambda quick: (1.0, "", ())),
-           suite._Case("crashes", "raises", "none", "test", 1e-3,
-                       lambda quick: 1 / 0)]
-    monkeypatch.setattr(suite, "_cases", lambda: bad)
+    bad = [suite.Case("too-far", "deliberately wrong", "none", "test", 1e-3,
+                      lambda quick: (1.0, "", ())),
+           suite.Case("crashes", "raises", "none", "test", 1e-3,
+                      lambda quick: 1 / 0)]
+    monkeypatch.setattr(suite, "cases", lambda: bad)
     result = CliRunner().invoke(verify, ["--quick", "--out", str(tmp_path)])
     assert result.exit_code == 1
     text = (tmp_path / "verification.md").read_text()

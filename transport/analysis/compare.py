@@ -16,20 +16,29 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from transport.caution import CAUTION
-from transport.io.netcdf import column_dataset, write_dataset_atomic
 from transport.analysis.metrics import ReceptorMetrics, receptor_metrics
-from transport.solvers.checks import UnreliableResultError
+from transport.analysis.summary import final_budget, verdict_line
 from transport.api import solve_scenario
+from transport.caution import CAUTION
+from transport.io.atomic import OutputSet, terminate_as_exit, write_text
+from transport.io.netcdf import column_dataset, write_dataset_atomic
+from transport.solvers.checks import UnreliableResultError
+from transport.units import MG_PER_L, MG_PER_M2, YEAR
 
 __all__ = ["Alternative", "compare_alternatives", "comparison_table", "comparison_dataset",
-           "verdict_lines"]
+           "verdict_lines", "table_text", "table_csv", "write_outputs"]
 
-YEAR = 365.25 * 86400.0
+# Table units per SI unit. The reciprocals of MG_PER_L and MG_PER_M2 are exact (1e3,
+# 1e6), so a product rounds once; the CSV keeps every digit of the values.
+_MG_L_PER_SI = 1.0 / MG_PER_L
+_MG_M2_PER_SI = 1.0 / MG_PER_M2
 
 
 @dataclass(frozen=True)
 class Alternative:
+    """One solved alternative: its label, scenario, solution (on the common grid),
+    receptor metrics over its horizon and the warnings of its solve."""
+
     label: str
     scenario: object
     solution: object
@@ -90,21 +99,17 @@ def _on_grid(sol, depths, inside):
     return sol if inside.size == depths.size else _Padded(sol, depths, inside)
 
 
-def _years(t):
-    return "" if t is None else f"{t / YEAR:.4g}"
-
-
 def comparison_table(alts):
     """Rows (list of dicts) of the metrics that decide between alternatives."""
     rows = []
     for a in alts:
         m = a.metrics
-        b = {k: float(np.asarray(v)[-1]) for k, v in a.solution.budget.items()}
+        b = final_budget(a.solution)
         rows.append({
             "alternative": a.label,
             "receptor_depth_m": m.receptor_depth,
             "screening_level_mg_L": None if m.screening_level is None
-            else m.screening_level * 1e3,
+            else m.screening_level * _MG_L_PER_SI,
             "horizon_yr": m.horizon / YEAR,
             "stays_below_level": None if m.stays_below_level is None
             else ("yes" if m.stays_below_level else "no"),
@@ -112,16 +117,16 @@ def comparison_table(alts):
             else m.first_exceedance / YEAR,
             "time_above_level_yr": None if m.time_above_level is None
             else m.time_above_level / YEAR,
-            "peak_mg_L": m.peak_concentration * 1e3,
+            "peak_mg_L": m.peak_concentration * _MG_L_PER_SI,
             "peak_time_yr": m.peak_time / YEAR,
             "mass_to_receptor_mg_m2": None if m.cumulative_mass is None
-            else m.cumulative_mass * 1e6,
+            else m.cumulative_mass * _MG_M2_PER_SI,
             "time_to_95pct_steady_yr": None if m.time_to_95_percent_steady is None
             else m.time_to_95_percent_steady / YEAR,
-            "stored_end_mg_m2": b.get("stored", np.nan) * 1e6,
-            "decayed_end_mg_m2": b.get("decayed", np.nan) * 1e6,
-            "removed_end_mg_m2": b.get("removed", 0.0) * 1e6,
-            "budget_residual_mg_m2": b.get("residual", np.nan) * 1e6,
+            "stored_end_mg_m2": b.get("stored", np.nan) * _MG_M2_PER_SI,
+            "decayed_end_mg_m2": b.get("decayed", np.nan) * _MG_M2_PER_SI,
+            "removed_end_mg_m2": b.get("removed", 0.0) * _MG_M2_PER_SI,
+            "budget_residual_mg_m2": b.get("residual", np.nan) * _MG_M2_PER_SI,
         })
     return rows
 
@@ -162,21 +167,9 @@ def table_csv(rows):
 
 
 def verdict_lines(alts):
-    """Plain statements: which alternatives keep the receptor below the level."""
-    lines = []
-    for a in alts:
-        m = a.metrics
-        if m.screening_level is None:
-            lines.append(f"{a.label}: no screening level given; see the peak and mass.")
-        elif m.stays_below_level:
-            lines.append(f"{a.label}: stays below {m.screening_level * 1e3:.4g} mg/L at "
-                         f"{m.receptor_depth:g} m over {m.horizon / YEAR:.4g} yr "
-                         f"(peak {m.peak_concentration * 1e3:.3g} mg/L).")
-        else:
-            lines.append(f"{a.label}: exceeds {m.screening_level * 1e3:.4g} mg/L at "
-                         f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
-                         f"for {m.time_above_level / YEAR:.4g} yr within "
-                         f"{m.horizon / YEAR:.4g} yr.")
+    """Plain statements: which alternatives keep the receptor below the level
+    (:func:`transport.analysis.summary.verdict_line` each), then the caveat."""
+    lines = [verdict_line(a.label, a.metrics) for a in alts]
     lines.append("This comparison is a screening tool; the choice of a remedy rests with "
                  "the regulator and licensed professionals under local rules.")
     return lines
@@ -197,17 +190,17 @@ def comparison_dataset(alts, title="stratiflux comparison", history=None):
                   {"long_name": "alternative index"}),
         label=("scenario", np.array([a.label for a in alts], dtype=object),
                {"long_name": "name of the remediation alternative"}))
-    rows = comparison_table(alts)
-    for key, units, long in (
-            ("first_exceedance_yr", "s", "first time the receptor reaches the screening "
-                                         "level, per alternative (fill: never)"),
-            ("peak_mg_L", "kg m-3", "peak concentration at the receptor per alternative"),
-            ("mass_to_receptor_mg_m2", "kg m-2", "mass per area through the receptor depth "
-                                                 "over the horizon per alternative")):
-        scale = {"s": YEAR, "kg m-3": 1e-3, "kg m-2": 1e-6}[units]
-        vals = np.array([np.nan if r[key] is None else r[key] * scale for r in rows])
-        ds[key.rsplit("_", 2)[0] if units != "s" else "first_exceedance_time"] = (
-            ("scenario",), vals, {"long_name": long, "units": units, "comment": CAUTION})
+    for name, field, units, long in (
+            ("first_exceedance_time", "first_exceedance", "s", "first time the receptor "
+             "reaches the screening level, per alternative (fill: never)"),
+            ("peak", "peak_concentration", "kg m-3", "peak concentration at the receptor "
+             "per alternative"),
+            ("mass_to_receptor", "cumulative_mass", "kg m-2", "mass per area through the "
+             "receptor depth over the horizon per alternative")):
+        values = [getattr(a.metrics, field) for a in alts]
+        vals = np.array([np.nan if v is None else float(v) for v in values])
+        ds[name] = (("scenario",), vals, {"long_name": long, "units": units,
+                                         "comment": CAUTION})
     for name in ds.data_vars:
         var = ds[name]
         if name in ("depth_bnds", "engine", "reliable"):
@@ -238,7 +231,7 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
     (:class:`transport.io.atomic.OutputSet`): a failure in any of them leaves every
     previous file of ``out_dir`` as it was.
     """
-    from transport.io.atomic import OutputSet, terminate_as_exit
+    # matplotlib is imported lazily: comparisons read without figures start faster
     from transport.plot.compare import plot_comparison
 
     os.makedirs(out_dir, exist_ok=True)
@@ -252,8 +245,8 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
     # SIGTERM while writing ends the program like Ctrl-C: the temporaries are removed
     with terminate_as_exit(), OutputSet() as stage:
         for ext, text in texts:
-            paths.append(stage.write(os.path.join(out_dir, f"{stem}.{ext}"),
-                                     lambda tmp, text=text: _write_text(tmp, text)))
+            paths.append(write_text(os.path.join(out_dir, f"{stem}.{ext}"), text,
+                                    stage=stage))
         nc = os.path.join(out_dir, f"{stem}.nc")
         paths.append(write_dataset_atomic(
             comparison_dataset(alts, title or "stratiflux comparison", history), nc,
@@ -261,7 +254,3 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
         paths += plot_comparison(alts, out_dir, stem, title=title, stage=stage)
     return paths
 
-
-def _write_text(path, text):
-    with open(path, "w", encoding="utf-8", newline="") as fh:
-        fh.write(text)

@@ -1,4 +1,4 @@
-"""The ``compare`` command: remediation alternatives side by side."""
+"""Command ``stratiflux compare``: remediation alternatives side by side."""
 from __future__ import annotations
 
 import shlex
@@ -7,7 +7,10 @@ import textwrap
 
 import click
 
+from transport.analysis.compare import (compare_alternatives, comparison_table, table_text,
+                                        verdict_lines, write_outputs)
 from transport.caution import CAUTION
+from transport.scenario.schema import load_alternatives
 
 __all__ = ["compare"]
 
@@ -36,10 +39,6 @@ def compare(scenarios, out_dir, engine, tolerance):
       stratiflux compare scenarios/alternatives/*.toml -o comparison
       stratiflux compare scenarios/depot-alternatives.toml -o comparison
     """
-    from transport.analysis.compare import comparison_table, compare_alternatives, table_text, verdict_lines
-    from transport.analysis.compare import write_outputs
-    from transport.scenario.schema import load_alternatives
-
     loaded = [sc for p in scenarios for sc in load_alternatives(p)]
     if len(loaded) < 2:
         raise click.UsageError("give two or more scenario files, or one file with "

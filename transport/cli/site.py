@@ -3,7 +3,7 @@
 A thin layer over :func:`transport.site.config.load_site` and
 :func:`transport.site.run.run_site`; input errors end with one paragraph and exit
 status 2 (the group's handler in ``transport.cli.main``; this command also handles them
-itself so that it works on its own).
+itself, through :func:`transport.cli.common.fail`, so that it works on its own).
 """
 from __future__ import annotations
 
@@ -14,16 +14,13 @@ from pathlib import Path
 import click
 
 from transport.caution import CAUTION
+from transport.cli.common import fail
+from transport.io.atomic import terminate_as_exit
+from transport.io.gis import station_table
+from transport.site.config import load_site
+from transport.site.run import run_site
 
 __all__ = ["site"]
-
-SECONDS_PER_YEAR = 365.25 * 86400.0
-
-
-def _fail(exc: BaseException):
-    from transport.cli.main import UserError, _describe
-
-    raise UserError(_describe(exc)) from None
 
 
 @click.command("site")
@@ -58,13 +55,10 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
           --sampling latin-hypercube
       stratiflux site site.toml --scheduler tcp://10.0.0.5:8786 -o results
     """
-    from transport.site.config import load_site
-    from transport.site.run import run_site
-
     try:
         loaded = load_site(site_file)
     except (ValueError, OSError) as exc:
-        _fail(exc)
+        fail(exc)
     out_dir = out_dir or str(Path(site_file).with_name(Path(site_file).stem + "-results"))
     n_real = loaded.realizations if realizations is None else realizations
     mc = bool(n_real and loaded.distributions)
@@ -78,8 +72,6 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
                         ("--workers", workers)):
         if value is not None:
             command += [flag, str(value)]
-    from transport.io.atomic import terminate_as_exit
-
     try:
         # SIGTERM ends the run like Ctrl-C: temporary files are removed on the way out
         with terminate_as_exit(), click.progressbar(
@@ -90,7 +82,7 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
                              chunk_size=chunk_size, progress=bar.update,
                              history=shlex.join(command))
     except (ValueError, OSError) as exc:
-        _fail(exc)
+        fail(exc)
     if files.chunks_damaged:
         click.echo(f"{files.chunks_damaged} saved chunk(s) of the interrupted run were "
                    "damaged (checksum mismatch) and were computed again.", err=True)
@@ -112,8 +104,7 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
 
 
 def _summary(files):
-    from transport.io.gis import station_table
-
+    """The site's reading: borings reaching the level, earliest, exceedance spread."""
     table = station_table(files.netcdf)
     bt = table["breakthrough_yr"]
     n, hit = len(table), int(bt.notna().sum())

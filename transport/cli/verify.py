@@ -9,6 +9,7 @@ from __future__ import annotations
 import click
 
 from transport.caution import CAUTION
+from transport.verify import report as suite
 
 __all__ = ["verify"]
 
@@ -27,8 +28,6 @@ def verify(out_dir, quick):
     Example:
       stratiflux verify --quick --out verification
     """
-    from transport.verify import report as suite
-
     names = suite.case_names(quick)
     click.echo(f"running {len(names)} verification case(s) ({'quick' if quick else 'full'})",
                err=True)

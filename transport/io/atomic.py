@@ -36,11 +36,13 @@ import errno
 import os
 import re
 import secrets
+import signal
+import threading
 import time
 
 __all__ = ["OutputSet", "atomic_write", "clean_stale", "temporary_name", "TEMP_PATTERN",
            "LEGACY_PATTERN", "new_file_mode", "fsync_file", "stage_or_write",
-           "terminate_as_exit"]
+           "terminate_as_exit", "write_text", "STARTED", "process_alive"]
 
 #: ``.<name>.<pid>-<token>.part[<ext>]`` or ``.<name>.<pid>-<token>.bak``
 TEMP_PATTERN = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)-(?P<token>[a-z0-9]{6})"
@@ -49,10 +51,10 @@ TEMP_PATTERN = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)-(?P<token>[a-z0-9]{6})
 LEGACY_PATTERN = re.compile(r"^\.(?P<name>.+)\.(?P<token>[a-z0-9_]{8})\.part$")
 
 
-#: when this module was loaded: no temporary file of this process is older (the
-#: process start time from the kernel is rounded to a second of boot time, too coarse
-#: for a run started right after a killed one)
-_STARTED = time.time()
+#: When this module was loaded (seconds since the epoch): no temporary file of this
+#: process is older (the process start time from the kernel is rounded to a second of
+#: boot time, too coarse for a run started right after a killed one).
+STARTED = time.time()
 
 
 def new_file_mode(path: str) -> int:
@@ -76,7 +78,8 @@ def temporary_name(path, kind: str = "part") -> str:
     return os.path.join(directory, f".{name}.{os.getpid()}-{token}.{kind}{ext}")
 
 
-def _alive(pid: int) -> bool:
+def process_alive(pid: int) -> bool:
+    """Whether a process ``pid`` exists (this one, or one owned by anyone)."""
     if pid == os.getpid():
         return True
     try:
@@ -113,12 +116,12 @@ def clean_stale(paths) -> list:
             try:
                 if not entry.is_file(follow_symlinks=False):
                     continue
-                if entry.stat(follow_symlinks=False).st_mtime >= _STARTED:
+                if entry.stat(follow_symlinks=False).st_mtime >= STARTED:
                     continue
             except OSError:
                 continue
             pid = match.groupdict().get("pid")
-            if pid is not None and _alive(int(pid)):
+            if pid is not None and process_alive(int(pid)):
                 continue
             with contextlib.suppress(OSError):
                 os.remove(entry.path)
@@ -290,14 +293,21 @@ def stage_or_write(stage, path, writer) -> str:
     return atomic_write(path, writer)
 
 
+def write_text(path, text: str, *, stage=None) -> str:
+    """Write ``text`` to ``path`` as UTF-8 (no newline translation) through
+    :func:`stage_or_write`: staged in ``stage`` when given, else atomically on its own.
+    Returns ``path`` as given."""
+    def writer(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+    return stage_or_write(stage, path, writer)
+
+
 @contextlib.contextmanager
 def terminate_as_exit():
     """Within the block, SIGTERM ends the program like Ctrl-C does (through Python's
     exception handling), so temporary files are removed on the way out. Only in the
     main thread; elsewhere a no-op."""
-    import signal
-    import threading
-
     if threading.current_thread() is not threading.main_thread():
         yield
         return

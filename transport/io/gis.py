@@ -16,17 +16,20 @@ from __future__ import annotations
 import os
 import textwrap
 
+import netCDF4
 import numpy as np
+import pandas as pd
 
 from transport.caution import CAUTION, CAUTION_SHORT
 from transport.io.atomic import stage_or_write
+from transport.units import DAY, MG_PER_L, YEAR
 
 __all__ = ["station_table", "write_geopackage", "write_geojson", "write_metrics_csv",
-           "plot_site_map", "SECONDS_PER_YEAR", "MG_PER_L"]
+           "plot_site_map"]
 
-SECONDS_PER_YEAR = 365.25 * 86400.0
-SECONDS_PER_DAY = 86400.0
-MG_PER_L = 1000.0  # 1 kg m-3 = 1000 mg/L
+#: mg/L per kg m-3: the reciprocal of MG_PER_L is exactly 1000, so a product rounds once
+#: (a division by 0.001 would differ in the last bit of some values).
+_MG_L_PER_SI = 1.0 / MG_PER_L
 #: GeoJSON decimals: 1e-10 degree is about 0.01 mm on the ground (GDAL's default, 7
 #: decimals, is about 1 cm: too coarse to round-trip survey coordinates to 1 mm).
 GEOJSON_DECIMALS = 10
@@ -42,10 +45,20 @@ _NAMES = {"breakthrough_time": "breakthrough_yr", "peak_time": "peak_time_yr",
 
 
 def station_table(path):
-    """Per-station metrics of a site NetCDF file as a pandas DataFrame (export units)."""
-    import netCDF4
-    import pandas as pd
+    """Per-station metrics of a site NetCDF file as a pandas DataFrame (export units).
 
+    Parameters
+    ----------
+    path : path
+        A site file written by :class:`transport.io.site_netcdf.SiteNetCDFWriter`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per station; times in years, concentrations in mg/L (column names
+        carry the unit); ``attrs`` hold the title, screening level (mg/L), design life
+        (yr), CRS WKT and the Monte Carlo realization count.
+    """
     with netCDF4.Dataset(path) as nc:
         cols = {"station_id": list(nc["station_id"][:]),
                 "x_m": nc["x"][:].filled(np.nan), "y_m": nc["y"][:].filled(np.nan),
@@ -63,11 +76,11 @@ def station_table(path):
             if name == "initial_samples":
                 values = values.astype(int)
             if name in _TIME:
-                values = values * SECONDS_PER_DAY / SECONDS_PER_YEAR
+                values = values * DAY / YEAR
                 label = _NAMES.get(name, name.replace("breakthrough_time", "breakthrough")
                                    + "_yr")
             elif name in _CONC:
-                values = values * MG_PER_L
+                values = values * _MG_L_PER_SI
                 label = _NAMES.get(name, name.replace("peak_concentration", "peak_conc")
                                    + "_mg_L")
             else:
@@ -76,8 +89,8 @@ def station_table(path):
             if name == "breakthrough_time":
                 cols["exceeds_in_design_life"] = (~np.isnan(values)).astype(int)
         meta = {"title": nc.title, "screening_level_mg_L": float(nc["screening_level"][...])
-                * MG_PER_L, "design_life_yr": float(nc["design_life"][...]) * SECONDS_PER_DAY
-                / SECONDS_PER_YEAR, "crs_wkt": nc["crs"].crs_wkt,
+                * _MG_L_PER_SI, "design_life_yr": float(nc["design_life"][...]) * DAY
+                / YEAR, "crs_wkt": nc["crs"].crs_wkt,
                 "realizations": int(getattr(nc, "monte_carlo_realizations", 0))}
     table = pd.DataFrame(cols)
     table.attrs.update(meta)
@@ -85,6 +98,7 @@ def station_table(path):
 
 
 def _frame(table):
+    # geopandas is imported lazily: it is slow to load and only the site exports need it
     import geopandas as gpd
 
     return gpd.GeoDataFrame(table.copy(), geometry=gpd.points_from_xy(table["x_m"],

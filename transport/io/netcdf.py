@@ -18,12 +18,15 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+from importlib.metadata import PackageNotFoundError, version
 
 import numpy as np
 import xarray as xr
 
+from transport import __version__
 from transport.caution import CAUTION
-from transport.io.atomic import new_file_mode, stage_or_write
+from transport.io.atomic import stage_or_write
+from transport.units import DAY
 
 __all__ = [
     "NOMINAL_START",
@@ -31,12 +34,16 @@ __all__ = [
     "write_column_netcdf",
     "read_column_netcdf",
     "elapsed_seconds",
+    "write_dataset_atomic",
+    "package_version",
+    "utc_now",
+    "depth_bounds",
+    "source_text",
 ]
 
 #: Nominal start of the run. The model has no calendar; times are elapsed times.
 NOMINAL_START = "2000-01-01 00:00:00"
 TIME_UNITS = f"days since {NOMINAL_START}"
-SECONDS_PER_DAY = 86400.0
 #: Fill value of the fields (NETCDF.md); all floating fields are float64.
 FILL_VALUE = -9999.0
 #: zlib level 4 + shuffle: readable by every GDAL and netCDF-C build (NETCDF.md).
@@ -60,27 +67,36 @@ _BUDGET_TERMS = (
 )
 
 
-def _version() -> str:
-    """Installed distribution version, else the package's ``__version__``."""
+def package_version() -> str:
+    """Installed distribution version of stratiflux, else the package's ``__version__``
+    (a source checkout that was never installed)."""
     try:
-        from importlib.metadata import PackageNotFoundError, version
-
         return version("stratiflux")
-    except (ImportError, PackageNotFoundError):
-        try:
-            from transport import __version__
-        except ImportError:  # pragma: no cover - the package always defines it
-            return "unknown"
+    except PackageNotFoundError:
         return str(__version__)
 
 
-def _utc_now() -> str:
+def utc_now() -> str:
+    """The current UTC time as ISO 8601 to the second, e.g. ``2026-01-31T09:15:00Z``."""
     return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace(
         "+00:00", "Z")
 
 
-def _depth_bounds(depths: np.ndarray, length: float) -> np.ndarray:
-    """Cell bounds around each depth node: midpoints inside, the column faces outside."""
+def depth_bounds(depths: np.ndarray, length: float) -> np.ndarray:
+    """Cell bounds around each depth node: midpoints inside, the column faces outside.
+
+    Parameters
+    ----------
+    depths : numpy.ndarray
+        Increasing depths, m.
+    length : float
+        Depth of the bottom face of the column, m.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape ``(depths.size, 2)``: upper and lower bound of each cell (CF ``bounds``).
+    """
     edges = np.empty(depths.size + 1)
     edges[1:-1] = 0.5 * (depths[1:] + depths[:-1])
     edges[0] = min(0.0, depths[0])
@@ -102,17 +118,60 @@ _ERROR_VARS = (("concentration", "concentration_error_bound", "kg m-3"),
                ("budget", "budget_error_bound", "kg m-2"))
 
 
-def _source_text(solution) -> str:
-    engine = getattr(solution, "engine", "unknown")
-    what = {"modal": f"eigenfunction expansion on the exact layered spectrum "
-                     f"({int(getattr(solution, 'n_modes', 0))} modes), confirmed by "
-                     "numerical Laplace inversion",
-            "laplace": "exact layered Laplace-domain solution, numerically inverted on a "
-                       "Talbot contour",
-            "finite-volume": "finite-volume method of lines"}
-    parts = [what.get(e, e) for e in str(engine).split("+")]
+#: What each engine is, in the ``source`` attribute.
+_ENGINE_METHODS = {
+    "modal": "eigenfunction expansion on the exact layered spectrum",
+    "laplace": "exact layered Laplace-domain solution, numerically inverted on a Talbot "
+               "contour",
+    "finite-volume": "finite-volume method of lines",
+}
+
+
+def source_text(solution) -> str:
+    """The ``source`` attribute: the tool, its version and the engine(s) that produced
+    the values of the file.
+
+    Built from ``solution.engine`` (one engine name, or several joined by ``+``) and,
+    for a checked run, ``solution.engine_by_time`` (the engine that served each output
+    time): with several engines each is followed by the number of output times it
+    served; in a checked run the modal and finite-volume values were confirmed by the
+    Laplace engine (an unchecked modal or finite-volume solution says nothing of the
+    kind); the mode count is given where the run kept a modal series.
+
+    Parameters
+    ----------
+    solution : Solution
+        ``engine``, and where present ``engine_by_time``, ``n_modes``, ``tolerance``.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> source_text(solution)                                      # doctest: +SKIP
+    'stratiflux 0.1.0; engine finite-volume: finite-volume method of lines, confirmed ...'
+    """
+    engine = str(getattr(solution, "engine", "unknown"))
+    names = engine.split("+")
+    by_time = getattr(solution, "engine_by_time", None)
+    served = None
+    if by_time is not None:
+        served = [str(e) for e in np.asarray(by_time, dtype=object).ravel()
+                  if e and str(e) != "initial"]
+    n_modes = int(getattr(solution, "n_modes", 0) or 0)
+    parts = []
+    for name in names:
+        text = _ENGINE_METHODS.get(name, name)
+        if name == "modal" and n_modes > 0:
+            text += f" ({n_modes} modes)"
+        if served is not None and name in ("modal", "finite-volume"):
+            text += ", confirmed by numerical Laplace inversion"
+        if served is not None and len(names) > 1:
+            text += f" (at {served.count(name)} of {len(served)} output times)"
+        parts.append(text)
     tol = getattr(solution, "tolerance", None)
-    text = f"stratiflux {_version()}; engine {engine}: " + "; ".join(parts)
+    text = f"stratiflux {package_version()}; engine {engine}: " + "; ".join(parts)
     if tol is not None:
         text += f"; every value within {tol:g} of the scale of its quantity " \
                 "(see the *_error_bound variables) unless flagged in reliable"
@@ -197,7 +256,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     column = solution.column
     layers = column.layers
     interfaces = np.asarray(column.interfaces, dtype=float)
-    created = _utc_now()
+    created = utc_now()
     caution = CAUTION
 
     def field(values, units, long_name, extra=""):
@@ -264,7 +323,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                                **layer_attrs}),
         # a data variable, not a coordinate: xarray would list a bounds coordinate in a
         # non-standard global "coordinates" attribute
-        "depth_bnds": (("depth", "nv"), _depth_bounds(depths, float(column.length)),
+        "depth_bnds": (("depth", "nv"), depth_bounds(depths, float(column.length)),
                        {"units": "m"}),
         "darcy_flux": ((), float(column.darcy_flux),
                        {"long_name": "steady Darcy flux, positive downward",
@@ -287,7 +346,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
             "units": "m"})
 
     coords = {
-        "time": (("time",), times / SECONDS_PER_DAY, {
+        "time": (("time",), times / DAY, {
             "standard_name": "time", "long_name": "elapsed time since the start of the run",
             "units": TIME_UNITS, "calendar": "proleptic_gregorian",
             "units_metadata": "leap_seconds: none", "axis": "T",
@@ -312,7 +371,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
             f"cumulative mass versus depth and elapsed time in a layered soil column "
             f"({n_layers} layer{'s' if n_layers != 1 else ''}, {column.length:g} m), "
             f"with the column mass budget."),
-        "source": _source_text(solution),
+        "source": source_text(solution),
         "history": f"{created} {history or 'transport.io.netcdf.write_column_netcdf'}",
         "references": (
             "CF Conventions 1.11 (https://cfconventions.org); "
@@ -327,7 +386,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     timeline = getattr(solution, "timeline", None)
     if timeline is not None and len(timeline.stages) > 1:
         attrs["stages"] = "; ".join(
-            f"from {st.start / SECONDS_PER_DAY:.6g} days: {st.label or 'initial column'} "
+            f"from {st.start / DAY:.6g} days: {st.label or 'initial column'} "
             f"(top of the column at depth {st.offset:g} m)" for st in timeline.stages)
         attrs["summary"] += (" The column changes with time (see the stages attribute); "
                              "depths are below its original top and values are missing "
@@ -349,11 +408,6 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
             var.encoding = {"_FillValue": None}
     ds["time"].encoding["dtype"] = "float64"
     return ds
-
-
-def _new_file_mode(path: str) -> int:
-    """Permissions for the output: those of the file replaced, else 0o666 minus umask."""
-    return new_file_mode(path)
 
 
 def write_dataset_atomic(ds: xr.Dataset, path, *, stage=None) -> str:
@@ -414,7 +468,7 @@ def read_column_netcdf(path, *, decode_times: bool = True) -> xr.Dataset:
     if units.replace("T", " ") != TIME_UNITS:
         raise ValueError(f"{path}: time units {units!r} are not {TIME_UNITS!r}; "
                          "read it with decode_times=False")
-    milliseconds = np.round(np.asarray(time.values, dtype=float) * SECONDS_PER_DAY * 1e3)
+    milliseconds = np.round(np.asarray(time.values, dtype=float) * DAY * 1e3)  # ms
     start = np.datetime64(NOMINAL_START.replace(" ", "T"), "ms")
     attrs = {k: v for k, v in time.attrs.items() if k not in ("units", "calendar")}
     decoded = xr.Variable(("time",), start + milliseconds.astype("int64").astype(
@@ -435,4 +489,4 @@ def elapsed_seconds(ds: xr.Dataset) -> np.ndarray:
     if not units.startswith("days since"):
         raise ValueError(f"time units {units!r}: expected 'days since ...' as written by "
                          "write_column_netcdf")
-    return values.astype(float) * SECONDS_PER_DAY
+    return values.astype(float) * DAY

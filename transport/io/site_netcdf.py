@@ -24,8 +24,9 @@ import numpy as np
 
 from transport.caution import CAUTION
 from transport.io.atomic import OutputSet
-from transport.io.netcdf import (FILL_VALUE, NOMINAL_START, SECONDS_PER_DAY, TIME_UNITS,
-                                 _depth_bounds, _utc_now, _version)
+from transport.io.netcdf import (FILL_VALUE, NOMINAL_START, TIME_UNITS, depth_bounds,
+                                 package_version, utc_now)
+from transport.units import DAY
 
 __all__ = ["SiteNetCDFWriter", "STATION_METRICS", "MC_METRICS"]
 
@@ -140,7 +141,7 @@ class SiteNetCDFWriter:
         nc.createDimension("time", nt)
         nc.createDimension("depth", nz)
         nc.createDimension("nv", 2)
-        created = _utc_now()
+        created = utc_now()
         mc = self.mc
         nc.setncatts({
             "Conventions": "CF-1.11", "featureType": "timeSeriesProfile",
@@ -150,8 +151,8 @@ class SiteNetCDFWriter:
                         "boring), with per-boring breakthrough, peak and mass metrics at the "
                         "receptor" + (" and Monte Carlo exceedance probabilities" if mc
                                       else "") + "."),
-            "source": f"stratiflux {_version()}; engine modal: eigenfunction expansion on "
-                      "the exact layered spectrum, one column per boring",
+            "source": f"stratiflux {package_version()}; engine modal: eigenfunction "
+                      "expansion on the exact layered spectrum, one column per boring",
             "history": f"{created} {self.history}",
             "references": "CF Conventions 1.11 (https://cfconventions.org), section 9 and "
                           "Appendix H.5.1; Carr and Turner 2016, Appl. Math. Model. 40:7034",
@@ -173,12 +174,12 @@ class SiteNetCDFWriter:
             "units_metadata": "leap_seconds: none", "axis": "T",
             "comment": f"The run starts at time 0; {NOMINAL_START} is a nominal start date, "
                        "not a real one: read the values as elapsed days."})
-        t[:] = np.asarray(site.times) / SECONDS_PER_DAY
+        t[:] = np.asarray(site.times) / DAY
         z = self._var("depth", "f8", ("depth",), {
             "standard_name": "depth", "long_name": "depth below the ground surface",
             "units": "m", "positive": "down", "axis": "Z", "bounds": "depth_bnds"})
         z[:] = site.depths
-        self._var("depth_bnds", "f8", ("depth", "nv"), {})[:] = _depth_bounds(
+        self._var("depth_bnds", "f8", ("depth", "nv"), {})[:] = depth_bounds(
             np.asarray(site.depths), float(site.depths[-1]))
         aux_coords = "station_id lat lon x y"
         sid = self._var("station_id", str, ("station",), {
@@ -209,7 +210,7 @@ class SiteNetCDFWriter:
             "units": "kg m-3", "comment": CAUTION}).assignValue(site.screening_level)
         self._var("design_life", "f8", (), {
             "long_name": "design life: window of the receptor metrics from the start",
-            "units": "d"}).assignValue(site.design_life / SECONDS_PER_DAY)
+            "units": "d"}).assignValue(site.design_life / DAY)
         aux = "station_id lat lon x y"
         chunks = (1, min(nt, 1024), nz)
         for name, units, long_name in _FIELDS:
@@ -239,5 +240,5 @@ class SiteNetCDFWriter:
         for name, units, _ in STATION_METRICS + (MC_METRICS if self.mc else ()):
             values = np.asarray(result[name], dtype=float)
             if units == "d":
-                values = values / SECONDS_PER_DAY
+                values = values / DAY
             self.nc[name][sl] = np.ma.masked_invalid(values)

@@ -4,8 +4,9 @@ Figures are built on :class:`matplotlib.figure.Figure` directly (Agg canvas), ne
 through ``pyplot``'s global state, so they work in batch jobs, tests and servers.
 Every figure carries the caution in a small footer.
 
-Both functions accept either a ``ColumnSolution`` (from ``transport.solvers.modal.series.solve``) or an
-``xarray.Dataset`` read with :func:`transport.io.netcdf.read_column_netcdf`.
+Both functions accept either a solution (:class:`transport.solvers.result.Solution`, as
+returned by :func:`transport.api.solve_scenario`) or an ``xarray.Dataset`` read with
+:func:`transport.io.netcdf.read_column_netcdf`.
 Concentrations are shown in mg/L and times in years (days for runs shorter than a year).
 """
 from __future__ import annotations
@@ -17,16 +18,15 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.figure import Figure
 
+from transport.analysis.metrics import unresolved_windows
+from transport.analysis.summary import format_time
 from transport.caution import CAUTION_SHORT
+from transport.io.atomic import stage_or_write
+from transport.io.netcdf import elapsed_seconds
+from transport.units import DAY, MG_PER_L, YEAR
 
-__all__ = ["plot_profiles", "plot_breakthrough", "profile_figure", "breakthrough_figure",
-           "MG_PER_L", "SECONDS_PER_YEAR"]
+__all__ = ["plot_profiles", "plot_breakthrough", "profile_figure", "breakthrough_figure"]
 
-#: 1 kg m-3 = 1e6 mg / 1e3 L = 1000 mg/L (exact).
-MG_PER_L = 1000.0
-#: Julian year (365.25 d), the year of pint's default registry and of the IAU.
-SECONDS_PER_YEAR = 365.25 * 86400.0
-SECONDS_PER_DAY = 86400.0
 DPI = 150
 #: Profiles drawn when the caller does not choose times: more lines are unreadable.
 MAX_PROFILES = 8
@@ -65,8 +65,6 @@ def _layer_bands(layers):
 def _extract(source):
     """Times (s), depths (m), concentration (kg m-3) and metadata of a run."""
     if _is_dataset(source):
-        from transport.io.netcdf import elapsed_seconds
-
         ds = source
         bands = []
         if {"layer_name", "layer_top", "layer_bottom"} <= set(ds.variables):
@@ -96,8 +94,6 @@ def _extract(source):
 
 
 def _windows(source):
-    from transport.analysis.metrics import unresolved_windows
-
     try:
         return unresolved_windows(source)
     except (AttributeError, TypeError):  # a result without a modal series
@@ -106,15 +102,13 @@ def _windows(source):
 
 def _time_scale(t_max: float):
     """(divisor, unit label) so that the time axis reads in years, or days if short."""
-    if t_max >= SECONDS_PER_YEAR:
-        return SECONDS_PER_YEAR, "years"
-    return SECONDS_PER_DAY, "days"
+    if t_max >= YEAR:
+        return YEAR, "years"
+    return DAY, "days"
 
 
 def _time_label(t: float) -> str:
-    if t >= SECONDS_PER_YEAR:
-        return f"t = {t / SECONDS_PER_YEAR:.4g} yr"
-    return f"t = {t / SECONDS_PER_DAY:.4g} d"
+    return f"t = {format_time(t)}"
 
 
 def _new_figure(title: str):
@@ -130,8 +124,6 @@ def _new_figure(title: str):
 def _save(fig, path, stage=None) -> str:
     """Save a figure (PNG unless the name says otherwise) through a temporary name and a rename (with ``stage``, renamed with the
     run's other outputs: :mod:`transport.io.atomic`)."""
-    from transport.io.atomic import stage_or_write
-
     path = os.fspath(path)
     fmt = os.path.splitext(path)[1][1:].lower() or "png"  # the format of the name asked for
     return stage_or_write(stage, path, lambda tmp: fig.savefig(tmp, dpi=DPI, format=fmt))
@@ -150,7 +142,7 @@ def profile_figure(source, *, layers=None, screening_level=None, times=None, tit
 
     Parameters
     ----------
-    source : ColumnSolution or xarray.Dataset
+    source : Solution or xarray.Dataset
     layers : Column, sequence of Layer, or sequence of (name, top_m, bottom_m), optional
         Layer bands to shade; taken from ``source`` when omitted.
     screening_level : float, optional
@@ -178,7 +170,7 @@ def profile_figure(source, *, layers=None, screening_level=None, times=None, tit
         index = sorted({int(np.argmin(np.abs(all_times - t))) for t in times})
     colours = colormaps["plasma"](np.linspace(0.0, 0.85, max(len(index), 2)))
     for colour, k in zip(colours, index):
-        ax.plot(run["concentration"][k] * MG_PER_L, depths, lw=1.6, color=colour,
+        ax.plot(run["concentration"][k] / MG_PER_L, depths, lw=1.6, color=colour,
                 label=_time_label(all_times[k]))
     for i, (name, top, bottom) in enumerate(bands):
         ax.axhspan(top, bottom, color=_BAND_COLOURS[i % 2], zorder=0, lw=0)
@@ -186,8 +178,8 @@ def profile_figure(source, *, layers=None, screening_level=None, times=None, tit
         ax.annotate(name, xy=(1.01, 0.5 * (top + bottom)),
                     xycoords=("axes fraction", "data"), va="center", ha="left", fontsize=8)
     if screening_level is not None:
-        ax.axvline(screening_level * MG_PER_L, color="crimson", ls="--", lw=1.2,
-                   label=f"screening level {screening_level * MG_PER_L:.3g} mg/L")
+        ax.axvline(screening_level / MG_PER_L, color="crimson", ls="--", lw=1.2,
+                   label=f"screening level {screening_level / MG_PER_L:.3g} mg/L")
     bottom = max([depths[-1]] + [b[2] for b in bands])
     ax.set_ylim(bottom, min([depths[0]] + [b[1] for b in bands]))  # depth grows downward
     ax.set_xlim(left=0.0)
@@ -240,14 +232,14 @@ def breakthrough_figure(source, *, receptor_depth=None, screening_level=None, ti
                         n_samples: int = 400, log_scale=None):
     """Concentration versus time at the receptor, with the screening level.
 
-    With a ``ColumnSolution`` the curve is the continuous solution
+    With a solution the curve is the continuous solution
     (``concentration_at``) sampled at ``n_samples`` times from the earliest positive
     output time on; with a dataset it is interpolated linearly in depth at the stored
     times (markers show the stored times).
 
     Parameters
     ----------
-    source : ColumnSolution or xarray.Dataset
+    source : Solution or xarray.Dataset
     receptor_depth : float
         Depth of the receptor, m (taken from a dataset when omitted).
     screening_level : float, optional
@@ -276,11 +268,11 @@ def breakthrough_figure(source, *, receptor_depth=None, screening_level=None, ti
     heading = title if title is not None else run["title"]
     fig, ax = _new_figure(heading)
     ax.set_position((0.13, 0.15, 0.82, 0.76))
-    ax.plot(times / scale, conc * MG_PER_L, lw=1.6, marker=None if continuous else "o",
+    ax.plot(times / scale, conc / MG_PER_L, lw=1.6, marker=None if continuous else "o",
             ms=3, label=f"receptor at {receptor_depth:g} m")
     if screening_level is not None:
-        ax.axhline(screening_level * MG_PER_L, color="crimson", ls="--", lw=1.2,
-                   label=f"screening level {screening_level * MG_PER_L:.3g} mg/L")
+        ax.axhline(screening_level / MG_PER_L, color="crimson", ls="--", lw=1.2,
+                   label=f"screening level {screening_level / MG_PER_L:.3g} mg/L")
     ax.set_xlim(min(0.0, times[0] / scale), times[-1] / scale)
     peak_value = float(np.nanmax(conc)) if conc.size else 0.0
     if log_scale is None:
@@ -288,8 +280,8 @@ def breakthrough_figure(source, *, receptor_depth=None, screening_level=None, ti
     if log_scale and screening_level:
         # the level would be a line on the axis: show decades around it instead
         ax.set_yscale("log")
-        ax.set_ylim(screening_level * MG_PER_L / 100.0,
-                    max(peak_value, screening_level) * MG_PER_L * 2.0)
+        ax.set_ylim(screening_level / MG_PER_L / 100.0,
+                    max(peak_value, screening_level) / MG_PER_L * 2.0)
     else:
         ax.set_ylim(bottom=0.0)
     ax.set_xlabel(f"elapsed time ({unit})")

@@ -13,12 +13,13 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.figure import Figure
 
+from transport.analysis.metrics import unresolved_windows
 from transport.caution import CAUTION_SHORT
+from transport.io.atomic import OutputSet, stage_or_write
+from transport.units import MG_PER_L, MG_PER_M2, YEAR
 
 __all__ = ["plot_comparison"]
 
-YEAR = 365.25 * 86400.0
-MG_PER_L = 1000.0
 DPI = 150
 
 
@@ -30,8 +31,6 @@ def _footer(fig):
 def _save(fig, out_dir, name, stage=None):
     """PNG through a temporary name (with ``stage``, renamed with the run's other
     outputs: :mod:`transport.io.atomic`)."""
-    from transport.io.atomic import stage_or_write
-
     return stage_or_write(stage, os.path.join(out_dir, name),
                           lambda tmp: fig.savefig(tmp, dpi=DPI, format="png"))
 
@@ -47,8 +46,6 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None, *, stage=None)
     Without ``stage`` the three are staged in one :class:`transport.io.atomic.OutputSet`
     and appear together; with one they are renamed when the caller commits it."""
     if stage is None:
-        from transport.io.atomic import OutputSet
-
         with OutputSet() as own:
             return plot_comparison(alts, out_dir, stem, title, stage=own)
     cols = _colours(len(alts))
@@ -61,19 +58,18 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None, *, stage=None)
     t_lo = min(float(np.min(a.solution.times[a.solution.times > 0])) for a in alts)
     t = np.geomspace(t_lo, t_hi, 400) if t_lo > 0 else np.linspace(0, t_hi, 400)
     peak = 0.0
-    from transport.analysis.metrics import unresolved_windows
     for a, c in zip(alts, cols):
-        y = np.asarray(a.solution.concentration_at(a.metrics.receptor_depth, t)) * MG_PER_L
+        y = np.asarray(a.solution.concentration_at(a.metrics.receptor_depth, t)) / MG_PER_L
         for w0, w1 in unresolved_windows(a.solution):  # not resolved just after a change
             y[(t > w0) & (t < w1)] = np.nan
         peak = max(peak, float(np.nanmax(y)))
         ax.plot(t / YEAR, y, color=c, lw=1.8, label=a.label)
     if level is not None:
-        ax.axhline(level * MG_PER_L, color="crimson", ls="--", lw=1.2,
-                   label=f"screening level {level * MG_PER_L:.3g} mg/L")
-        if peak > 50 * level * MG_PER_L:
+        ax.axhline(level / MG_PER_L, color="crimson", ls="--", lw=1.2,
+                   label=f"screening level {level / MG_PER_L:.3g} mg/L")
+        if peak > 50 * level / MG_PER_L:
             ax.set_yscale("log")
-            ax.set_ylim(level * MG_PER_L * 1e-2, peak * 2)
+            ax.set_ylim(level / MG_PER_L * 1e-2, peak * 2)
     ax.set_xlabel("elapsed time (years)")
     ax.set_ylabel(f"pore-water concentration at {alts[0].metrics.receptor_depth:g} m (mg/L)")
     ax.grid(alpha=0.3)
@@ -88,9 +84,9 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None, *, stage=None)
     panels = (
         ("first exceedance (yr)", [np.nan if a.metrics.first_exceedance is None
                                    else a.metrics.first_exceedance / YEAR for a in alts]),
-        ("peak at receptor (mg/L)", [a.metrics.peak_concentration * MG_PER_L for a in alts]),
+        ("peak at receptor (mg/L)", [a.metrics.peak_concentration / MG_PER_L for a in alts]),
         ("mass to receptor (mg/m2)", [np.nan if a.metrics.cumulative_mass is None
-                                      else a.metrics.cumulative_mass * 1e6 for a in alts]),
+                                      else a.metrics.cumulative_mass / MG_PER_M2 for a in alts]),
     )
     for k, (label, vals) in enumerate(panels):
         ax = fig.add_axes((0.07 + 0.32 * k, 0.33, 0.24, 0.55))
@@ -117,7 +113,7 @@ def plot_comparison(alts, out_dir, stem="comparison", title=None, *, stage=None)
         sol = a.solution
         for tt, c in zip(pick, tcols):
             i = int(np.argmin(np.abs(sol.times - tt)))
-            ax.plot(sol.concentration[i] * MG_PER_L, sol.depths, color=c,
+            ax.plot(sol.concentration[i] / MG_PER_L, sol.depths, color=c,
                     label=f"{tt / YEAR:.3g} yr")
         ax.invert_yaxis() if not ax.yaxis_inverted() else None
         ax.set_title(textwrap.shorten(a.label, 30), fontsize=8)

@@ -1,7 +1,7 @@
 """Case definitions of the verification suite (:mod:`transport.verify.report`).
 
-Each case is a :class:`_Case`: name, description, published source, engine, tolerance
-and a ``run(quick) -> (error, note, profile)`` callable; :func:`_cases` lists them in
+Each case is a :class:`Case`: name, description, published source, engine, tolerance
+and a ``run(quick) -> (error, note, profile)`` callable; :func:`cases` lists them in
 the order the suite runs them.
 
 Error measures: the maximum absolute error of C over the listed depths and times,
@@ -21,20 +21,27 @@ from pathlib import Path
 
 import numpy as np
 
-from transport.verify import closed_forms as cf
-from transport.solvers.modal import series as modal
-from transport.solvers.fv.engine import solve_fv, solve_fv_result
 from transport.model.column import Boundary, Column, InitialState, Layer
+from transport.model.schedules import Schedule
+from transport.scenario.schema import load_scenario
+from transport.solvers.fv.engine import solve_fv, solve_fv_result
+from transport.solvers.modal import series as modal
 from transport.solvers.modal.eigenfunctions import modes
 from transport.solvers.modal.operator import build_operator
 from transport.solvers.modal.spectrum import count_below, eigenvalues
+from transport.units import YEAR
+from transport.verify import closed_forms as cf
 
-YEAR = 365.25 * 86400.0  # s, Julian year
 MODAL_TOL = 1e-8  # requested accuracy of the modal series
 
 
 @dataclass(frozen=True)
-class _Case:
+class Case:
+    """One verification case: what is checked, against which source, with which
+    engine, to which tolerance; ``run(quick)`` returns ``(error, note, profile)`` with
+    ``profile`` a ``(depths, |error|)`` pair or ``()``; ``quick``: part of the quick
+    suite."""
+
     name: str
     description: str
     source: str
@@ -142,7 +149,9 @@ def _uptake(quick):
 
 
 # ------------------------------------------------------------------------ Laplace engine
-def _laplace():
+def laplace_engine():
+    """:func:`transport.solvers.laplace.solve_laplace`, or None where that engine is
+    not available (its cases are then skipped)."""
     try:
         return importlib.import_module("transport.solvers.laplace").solve_laplace
     except (ImportError, AttributeError):
@@ -150,7 +159,7 @@ def _laplace():
 
 
 def _laplace_half_space(quick):
-    solve_laplace = _laplace()
+    solve_laplace = laplace_engine()
     col = Column((Layer(0.3, 0.3, D, 1.5, 2e-9), Layer(1.0, 0.3, D, 1.5, 2e-9)),
                  Boundary("concentration", 1.0), Boundary("sealed"))
     z, t = np.linspace(0, 0.6, 25), np.array([1e5, 1e7, 1e8])
@@ -160,7 +169,7 @@ def _laplace_half_space(quick):
 
 
 def _laplace_third_type(quick):
-    solve_laplace = _laplace()
+    solve_laplace = laplace_engine()
     col, v, dr, mu = _advective_column(Boundary("inlet", 1.0))
     z, t = np.linspace(0, 1.2, 25), np.array([1e6, 1e7, 1e8])
     got = solve_laplace(col, t, z, semi_infinite_bottom=True).concentration
@@ -169,7 +178,7 @@ def _laplace_third_type(quick):
 
 
 def _laplace_vs_modal(quick):
-    solve_laplace = _laplace()
+    solve_laplace = laplace_engine()
     col = _contrast_column()
     z, t = np.linspace(0, col.length, 41), np.array([1, 5, 20]) * YEAR
     got = solve_laplace(col, t, z).concentration
@@ -208,7 +217,6 @@ def _peclet_column():
 def _scheduled_column():
     """Source held 4 yr then removed, a depleting source in the second layer (half-life
     3 yr, from 1 yr): every kind of time signal both engines take."""
-    from transport.model.schedules import Schedule
     top = Schedule.steps([0.0, 4 * YEAR], [1.0, 0.0])
     depleting = Schedule.depletion(1.0, math.log(2) / (3 * YEAR), start=1 * YEAR)
     return Column((Layer(0.4, 0.35, 6e-10, 2.0, 1e-9),
@@ -233,7 +241,6 @@ def _cross(column_fn, times, initial=None):
 
 def _scenario_case(path):
     def run(quick):
-        from transport.scenario.schema import load_scenario
         sc = load_scenario(path)
         col = sc.column
         t = np.asarray(sc.times, float)
@@ -360,78 +367,79 @@ def _budget_freundlich(quick):
 _CRANK = "Crank (1975), The Mathematics of Diffusion, ch. 4"
 
 
-def _scenario_dir() -> Path:
+def scenario_dir() -> Path:
     """Demo scenarios of a source checkout (not installed with the package)."""
     return Path(__file__).resolve().parents[2] / "scenarios"
 
 
-def _cases():
-    scen_dir = _scenario_dir()
-    cases = [
-        _Case("crank-noflux", "Split slab (2 layers), C = 1 on top, sealed base, modal",
+def cases() -> list:
+    """Every case of the suite, in report order (the quick ones flagged ``quick``)."""
+    scen_dir = scenario_dir()
+    out = [
+        Case("crank-noflux", "Split slab (2 layers), C = 1 on top, sealed base, modal",
               _CRANK + ", sheet with one face held (eq. 4.15/4.17, M)", "modal", 1e-7,
               _crank_noflux),
-        _Case("crank-two-faces", "Split slab, C = 1 top, 0.3 base, initial 0.5, modal",
+        Case("crank-two-faces", "Split slab, C = 1 top, 0.3 base, initial 0.5, modal",
               _CRANK + ", both faces held (eq. 4.16, M)", "modal", 1e-7, _crank_two_faces),
-        _Case("danckwerts-decay", "Half-space with first-order decay, modal",
+        Case("danckwerts-decay", "Half-space with first-order decay, modal",
               "Danckwerts (1951), Trans. Faraday Soc. 47:1014", "modal", 1e-7, _danckwerts),
-        _Case("ogata-banks-decay", "Fixed inlet, advection-dispersion with decay, modal",
+        Case("ogata-banks-decay", "Fixed inlet, advection-dispersion with decay, modal",
               "Ogata & Banks (1961) USGS PP 411-A; van Genuchten & Alves (1982) "
               "USDA TB 1661", "modal", 1e-7, _ogata_banks),
-        _Case("third-type-inlet", "Flux-type inlet with decay, modal",
+        Case("third-type-inlet", "Flux-type inlet with decay, modal",
               "van Genuchten & Alves (1982), USDA TB 1661, third-type inlet", "modal", 1e-7,
               _third_type),
-        _Case("time-lag", "Cumulative mass through a held slab (membrane), modal",
+        Case("time-lag", "Cumulative mass through a held slab (membrane), modal",
               _CRANK + ", time lag (eq. 4.24a, M)", "modal", 1e-7, _time_lag),
-        _Case("uptake", "Mass taken up by a slab with a sealed base, modal budget",
+        Case("uptake", "Mass taken up by a slab with a sealed base, modal budget",
               _CRANK + ", uptake (eq. 4.18, M)", "modal", 1e-7, _uptake),
     ]
-    if _laplace() is not None:
-        cases += [
-            _Case("laplace-half-space", "Half-space with decay, Laplace engine",
+    if laplace_engine() is not None:
+        out += [
+            Case("laplace-half-space", "Half-space with decay, Laplace engine",
                   "Danckwerts (1951)", "laplace", 1e-7, _laplace_half_space),
-            _Case("laplace-third-type", "Flux-type inlet with decay, Laplace engine",
+            Case("laplace-third-type", "Flux-type inlet with decay, Laplace engine",
                   "van Genuchten & Alves (1982)", "laplace", 1e-7, _laplace_third_type),
-            _Case("laplace-vs-modal", "Contrast column (theta D 1:40:1), Laplace vs modal",
+            Case("laplace-vs-modal", "Contrast column (theta D 1:40:1), Laplace vs modal",
                   "independent engine", "laplace/modal", 1e-7, _laplace_vs_modal),
         ]
     fv = "independent engine (finite volumes, Patankar 1980)"
-    cases += [
-        _Case("fv-contrast", "Fill / clay / sand, theta D contrast 1:40:1, mass transfer",
+    out += [
+        Case("fv-contrast", "Fill / clay / sand, theta D contrast 1:40:1, mass transfer",
               fv, "modal/finite-volume", 1e-3, _cross(_contrast_column,
                                                       np.array([1, 5, 20]) * YEAR)),
-        _Case("fv-thin-layer", "2 mm polymer-like sheet (D = 3e-13 m2/s) between soils",
+        Case("fv-thin-layer", "2 mm polymer-like sheet (D = 3e-13 m2/s) between soils",
               fv, "modal/finite-volume", 1e-3, _cross(_thin_layer_column,
                                                       np.array([5, 50, 300]) * YEAR)),
-        _Case("fv-partition", "Partition jump K = 80 at the first face, sealed base",
+        Case("fv-partition", "Partition jump K = 80 at the first face, sealed base",
               fv, "modal/finite-volume", 1e-3, _cross(_partition_column,
                                                       np.array([0.5, 2, 10]) * YEAR)),
-        _Case("fv-peclet", "Column Peclet number 50, flux inlet, free outflow",
+        Case("fv-peclet", "Column Peclet number 50, flux inlet, free outflow",
               fv, "modal/finite-volume", 1e-3, _cross(_peclet_column,
                                                       np.array([1, 3, 10]) * YEAR)),
-        _Case("fv-schedules", "Source removed at 4 yr, depleting layer source from 1 yr",
+        Case("fv-schedules", "Source removed at 4 yr, depleting layer source from 1 yr",
               fv, "modal/finite-volume", 1e-3, _cross(_scheduled_column,
                                                       np.array([2, 4, 6, 15]) * YEAR)),
     ]
     for p in sorted(scen_dir.glob("*.toml")):
-        cases.append(_Case(f"scenario-{p.stem}", f"Demo scenario {p.name}: modal vs FV",
+        out.append(Case(f"scenario-{p.stem}", f"Demo scenario {p.name}: modal vs FV",
                            fv, "modal/finite-volume", 2e-3, _scenario_case(p)))
-    cases += [
-        _Case("budget-modal", "Mass budget closure, contrast column, modal (relative)",
+    out += [
+        Case("budget-modal", "Mass budget closure, contrast column, modal (relative)",
               "conservation of mass (identity)", "modal", 1e-9, _budget_modal),
-        _Case("budget-fv", "Mass budget closure, Peclet column, finite volumes",
+        Case("budget-fv", "Mass budget closure, Peclet column, finite volumes",
               "conservation of mass (identity)", "finite-volume", 1e-9, _budget_fv),
-        _Case("orthogonality", "Weighted orthogonality of the eigenfunctions, K = 80",
+        Case("orthogonality", "Weighted orthogonality of the eigenfunctions, K = 80",
               "Sturm-Liouville theory (Pryce 1993, ch. 2)", "spectrum", 1e-9, _orthogonality),
-        _Case("pruefer-count", "Pruefer count and eigenvalues of a slab cut in 4 (1 mm layer)",
+        Case("pruefer-count", "Pruefer count and eigenvalues of a slab cut in 4 (1 mm layer)",
               _CRANK + " (n pi/l)^2 kappa; Pruefer (1926)", "spectrum", 1e-11, _pruefer),
-        _Case("freundlich-linear-limit", "Freundlich n = 1 (FV) vs linear R (modal)",
+        Case("freundlich-linear-limit", "Freundlich n = 1 (FV) vs linear R (modal)",
               "Freundlich (1906); independent engine", "finite-volume/modal", 5e-4,
               _freundlich_linear),
-        _Case("langmuir-front", "Langmuir front width (10-90 %) vs travelling wave",
+        Case("langmuir-front", "Langmuir front width (10-90 %) vs travelling wave",
               "van der Zee (1990), WRR 26:2563; Langmuir (1918)", "finite-volume", 3e-3,
               _langmuir_front),
-        _Case("budget-nonlinear", "Mass budget closure with Freundlich and Langmuir layers",
+        Case("budget-nonlinear", "Mass budget closure with Freundlich and Langmuir layers",
               "conservation of mass (identity)", "finite-volume", 1e-8, _budget_freundlich),
     ]
-    return cases
+    return out

@@ -18,15 +18,17 @@ import os
 import platform
 import time
 from dataclasses import dataclass, field
+from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
 import numpy as np
 
-from transport.caution import CAUTION
-from transport.verify.cases import (  # noqa: F401 - re-exported for callers and tests
-    MODAL_TOL, YEAR, D, R, THETA, _Case, _cases, _laplace, _scenario_dir)
+from transport import __version__
+from transport.caution import CAUTION, CAUTION_SHORT
+from transport.io.atomic import OutputSet, write_text
+from transport.verify.cases import Case, cases, laplace_engine, scenario_dir
 
-__all__ = ["CaseResult", "case_names", "run_suite", "write_report"]
+__all__ = ["Case", "CaseResult", "case_names", "run_suite", "write_report"]
 
 
 @dataclass(frozen=True)
@@ -50,13 +52,13 @@ class CaseResult:
 
 def case_names(quick: bool = False) -> list:
     """Names of the cases the suite runs (quick subset or all)."""
-    return [c.name for c in _cases() if c.quick or not quick]
+    return [c.name for c in cases() if c.quick or not quick]
 
 
 def run_suite(quick: bool = False, progress=None) -> list:
     """Run the cases; a case that raises is recorded as failed with the message."""
     out = []
-    for case in _cases():
+    for case in cases():
         if quick and not case.quick:
             continue
         if progress:
@@ -77,9 +79,7 @@ def _versions() -> list:
     rows = [("platform", platform.platform()), ("machine", platform.machine()),
             ("processor", platform.processor() or "unknown"),
             ("cpu count", str(os.cpu_count())), ("python", platform.python_version())]
-    from transport import __version__
     rows.append(("stratiflux", __version__))
-    from importlib.metadata import PackageNotFoundError, version
     for mod in ("numpy", "scipy", "matplotlib", "click", "mpmath"):
         try:
             rows.append((mod, version(mod)))
@@ -88,22 +88,10 @@ def _versions() -> list:
     return rows
 
 
-def _stage_bytes(out, path: Path, data: bytes):
-    """Stage ``data`` as ``path`` in the output set ``out`` (renamed with the others)."""
-    def writer(tmp):
-        with open(tmp, "wb") as fh:
-            fh.write(data)
-    out.write(path, writer)
-
-
 def _figure(results, out_dir: Path, out) -> list:
-    import io
-
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    from transport.caution import CAUTION_SHORT
+    """Error-versus-depth figures of the cases with a profile, staged in ``out``."""
+    # matplotlib is imported lazily: the suite and its report run without figures too
+    from matplotlib.figure import Figure
 
     groups = {"errors-published.png": [r for r in results if r.profile and "/" not in r.engine],
               "errors-cross-engine.png": [r for r in results if r.profile and "/" in r.engine]}
@@ -111,7 +99,8 @@ def _figure(results, out_dir: Path, out) -> list:
     for name, rows in groups.items():
         if not rows:
             continue
-        fig, ax = plt.subplots(figsize=(8, 5))
+        fig = Figure(figsize=(8, 5))
+        ax = fig.subplots()
         for r in rows:
             z, err = r.profile
             ax.semilogy(z, np.maximum(err, 1e-17), label=r.name)
@@ -120,10 +109,8 @@ def _figure(results, out_dir: Path, out) -> list:
         ax.set_title("stratiflux verification: error vs depth")
         ax.legend(fontsize=7)
         fig.text(0.01, 0.005, CAUTION_SHORT, fontsize=5.5, wrap=True)
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=110)
-        plt.close(fig)
-        _stage_bytes(out, out_dir / name, buf.getvalue())
+        out.write(out_dir / name, lambda tmp, fig=fig: fig.savefig(tmp, format="png",
+                                                                   dpi=110))
         written.append(name)
     return written
 
@@ -131,7 +118,6 @@ def _figure(results, out_dir: Path, out) -> list:
 def write_report(results, out_dir, quick: bool = False) -> Path:
     """Write ``verification.md`` and figures into ``out_dir`` (created if needed), all
     of them together or none (:class:`transport.io.atomic.OutputSet`)."""
-    from transport.io.atomic import OutputSet
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     with OutputSet() as out:
@@ -161,10 +147,10 @@ def _write_report(results, out_dir, quick, out):
         if r.note:
             lines.append(f"- note: {r.note}")
         lines.append("")
-    if _laplace() is None:
+    if laplace_engine() is None:
         lines += ["Laplace engine not installed (transport.solvers.laplace): its cases were skipped.",
                   ""]
-    if not any(_scenario_dir().glob("*.toml")):
+    if not any(scenario_dir().glob("*.toml")):
         lines += ["Demo scenarios not found beside the package (scenarios/): their "
                   "cross-engine cases were skipped.", ""]
     if figures:
@@ -173,5 +159,5 @@ def _write_report(results, out_dir, quick, out):
     lines += [f"| {k} | {v} |" for k, v in _versions()]
     lines += ["", "## Caution", "", CAUTION, ""]
     path = out_dir / "verification.md"
-    _stage_bytes(out, path, "\n".join(lines).encode("utf-8"))
+    write_text(path, "\n".join(lines), stage=out)
     return path

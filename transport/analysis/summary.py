@@ -1,0 +1,362 @@
+"""The reading of a run in plain sentences: what ``stratiflux run`` and ``compare`` print.
+
+A run is read at its receptor against its screening level: when the level is first
+reached (and whether that is within the design life), how long it stays above it, the
+peak or the plateau at the end of the run, the mass that passed, the time to 95 % of the
+steady value; then the mass budget and the error bounds the engines vouch for. Every
+sentence is built from :class:`transport.analysis.metrics.ReceptorMetrics` (computed on
+the continuous solution) and the solution's own budget and error estimates.
+
+Concentrations are shown in mg/L (ug/L below 0.1 mg/L), times in years (days below one
+year), masses per area in mg/m2: the conversions are the constants of
+:mod:`transport.units`.
+
+Examples
+--------
+>>> for line in summary_lines(solution, title="Invented depot",          # doctest: +SKIP
+...                           receptor_depth=2.0, screening_level=1e-5):
+...     print(line)
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from transport.analysis.metrics import receptor_metrics
+from transport.solvers.checks import QUANTITIES
+from transport.units import DAY, MG_PER_L, MG_PER_M2, UG_PER_L, YEAR
+
+__all__ = ["PLATEAU_RTOL", "RELIABLE_FRACTION", "format_concentration", "format_time",
+           "earliest_resolved_time", "run_horizon", "error_at", "reliability_note",
+           "refused_lines", "receptor_lines", "final_budget", "budget_line", "check_line",
+           "summary_lines", "verdict_line"]
+
+#: A maximum within this relative distance of the end value is a plateau, not a peak
+#: (the series is accurate to the solver tolerance, 1e-8 by default).
+PLATEAU_RTOL = 1e-6
+#: A breakthrough time is flagged as unreliable when the solver's error estimate at that
+#: point exceeds this fraction of the screening level.
+RELIABLE_FRACTION = 0.1
+
+#: Names of the checked quantities in the "Checked" sentence.
+_QUANTITY_NAMES = {"concentration": "concentration", "total_flux": "flux",
+                   "cumulative_mass": "cumulative mass", "budget": "budget"}
+
+
+# ----------------------------------------------------------------------------- formatting
+def format_concentration(c: float) -> str:
+    """A concentration as text: mg/L, or ug/L below 0.1 mg/L.
+
+    Parameters
+    ----------
+    c : float
+        Concentration, kg m-3.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> format_concentration(0.0125)
+    '12.5 mg/L'
+    >>> format_concentration(2e-6)
+    '2 ug/L'
+    """
+    mg_per_l = c / MG_PER_L
+    if mg_per_l != 0 and abs(mg_per_l) < 0.1:
+        return f"{c / UG_PER_L:.4g} ug/L"
+    return f"{mg_per_l:.4g} mg/L"
+
+
+def format_time(t: float) -> str:
+    """An elapsed time as text: years (Julian), or days below one year.
+
+    Parameters
+    ----------
+    t : float
+        Elapsed time, s.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> format_time(31557600.0 * 2.5)
+    '2.5 yr'
+    >>> format_time(86400.0 * 3)
+    '3 d'
+    """
+    if abs(t) >= YEAR:
+        return f"{t / YEAR:.4g} yr"
+    return f"{t / DAY:.4g} d"
+
+
+# ------------------------------------------------------------------------------- the run
+def earliest_resolved_time(times) -> float:
+    """Earliest positive output time: the series meets its tolerance from there on.
+
+    Parameters
+    ----------
+    times : array_like
+        Output times, s.
+
+    Returns
+    -------
+    float
+
+    Raises
+    ------
+    ValueError
+        When no output time is positive (nothing after the initial state was solved).
+    """
+    times = np.asarray(times, dtype=float)
+    positive = times[times > 0]
+    if positive.size == 0:
+        raise ValueError("the run has no positive output time; add output.times")
+    return float(positive.min())
+
+
+def run_horizon(times, design_life=None) -> float:
+    """The span a run is read over: its last output time, or the design life if later.
+
+    Parameters
+    ----------
+    times : array_like
+        Output times, s.
+    design_life : float, optional
+        Design life, s.
+
+    Returns
+    -------
+    float
+        Seconds.
+    """
+    t_end = float(np.max(times))
+    return max(t_end, float(design_life)) if design_life else t_end
+
+
+def error_at(solution, t: float):
+    """The error bound of C (kg m-3) the run reports at the output times around ``t``.
+
+    Parameters
+    ----------
+    solution : Solution
+        A checked run (``error_estimate`` per output time); None is returned otherwise.
+    t : float
+        Elapsed time, s.
+
+    Returns
+    -------
+    float or None
+        The larger bound of the two output times that bracket ``t``.
+    """
+    err = getattr(solution, "error_estimate", None)
+    if err is None:
+        return None
+    times = np.asarray(solution.times, float)
+    err = np.asarray(err, float)
+    i = int(np.searchsorted(times, t))
+    near = err[max(i - 1, 0):i + 1]
+    return float(np.max(near)) if near.size else None
+
+
+def reliability_note(solution, t: float, level: float) -> str:
+    """A warning sentence (with a leading space) when the solver's error estimate at
+    ``t`` is not small against the screening ``level`` (kg m-3); else ``""``."""
+    error = error_at(solution, t)
+    if error is None or error < RELIABLE_FRACTION * level:
+        return ""
+    return (f" CAUTION: the solver's error estimate there ({format_concentration(error)}) "
+            f"is not small compared with the screening level; this time is not reliable. "
+            "Use a tighter tolerance or later output times.")
+
+
+def refused_lines(solution) -> list:
+    """What a run with refused output times could not vouch for (one sentence), or
+    ``[]`` when every time is vouched for."""
+    reliable = getattr(solution, "reliable", None)
+    if reliable is None or np.all(reliable):
+        return []
+    bad = np.asarray(solution.times, float)[~np.asarray(reliable)]
+    shown = ", ".join(format_time(t) for t in bad[:6]) + (" ..." if bad.size > 6 else "")
+    return [f"CAUTION: no engine could vouch for {bad.size} output time(s) within the "
+            f"tolerance {solution.tolerance:g} ({shown}); their values are left empty "
+            "(NaN) and flagged in the file, and no receptor metrics or budget are "
+            "reported for this run. Loosen the tolerance or change the output times."]
+
+
+def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
+                   t_end: float) -> list:
+    """Sentences on the receptor: screening level reached or not, peak or plateau,
+    mass passed, time to 95 % of the steady value.
+
+    Parameters
+    ----------
+    solution : Solution
+        The run (``concentration_at`` and, for the reliability notes, its error bounds).
+    metrics : ReceptorMetrics
+        Metrics at the receptor over [0, ``t_end``].
+    design_life : float, optional
+        Design life, s: a first exceedance is said to fall within or after it.
+    t_start, t_end : float
+        Earliest resolved output time and horizon of the run, s.
+
+    Returns
+    -------
+    list of str
+    """
+    lines = []
+    receptor, level = metrics.receptor_depth, metrics.screening_level
+    where = f"Receptor at {receptor:g} m"
+    if level is not None:
+        t_cross = metrics.first_exceedance
+        shown = format_concentration(level)
+        if t_cross is None:
+            lines.append(f"{where}: screening level {shown} not reached within the run "
+                         f"({format_time(t_start)} to {format_time(t_end)}).")
+        elif t_cross <= t_start:
+            lines.append(f"{where}: screening level {shown} already reached at the "
+                         f"earliest output time {format_time(t_start)}; earlier times "
+                         "are not resolved (add earlier output times)."
+                         + reliability_note(solution, t_start, level))
+        else:
+            against = ""
+            if design_life:
+                side = "within" if t_cross <= design_life else "after"
+                against = f", {side} the {format_time(design_life)} design life"
+            lines.append(f"{where}: screening level {shown} first reached at "
+                         f"{format_time(t_cross)}{against}; above it for "
+                         f"{format_time(metrics.time_above_level)} up to "
+                         f"{format_time(t_end)}."
+                         + reliability_note(solution, t_cross, level))
+    t_peak, c_peak = metrics.peak_time, metrics.peak_concentration
+    c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
+    if c_peak - c_end <= PLATEAU_RTOL * max(abs(c_peak), 1e-300):
+        lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
+                     f"the end of the run ({format_time(t_end)}); it is still rising or "
+                     "at steady state, so the peak lies beyond the run.")
+    else:
+        lines.append(f"{where}: peak {format_concentration(c_peak)} at "
+                     f"{format_time(t_peak)}.")
+    if metrics.cumulative_mass is not None:
+        lines.append(f"{where}: {metrics.cumulative_mass / MG_PER_M2:.4g} mg/m2 passed "
+                     f"downward up to {format_time(t_end)}.")
+    if metrics.time_to_95_percent_steady is not None:
+        lines.append(f"{where}: 95 % of the steady value "
+                     f"{format_concentration(metrics.steady_concentration)} is reached at "
+                     f"{format_time(metrics.time_to_95_percent_steady)}.")
+    return lines
+
+
+def final_budget(solution) -> dict:
+    """Every term of the solution's mass budget at its last output time (kg m-2)."""
+    budget = getattr(solution, "budget", None) or {}
+    return {k: float(np.asarray(v)[-1]) for k, v in budget.items()}
+
+
+def budget_line(solution) -> list:
+    """The mass budget at the end of the run in one sentence (``[]`` without a budget):
+    every term, the residual and its size against the largest term."""
+    last = final_budget(solution)
+    if not last:
+        return []
+    scale = max([abs(v) for k, v in last.items() if k != "residual"] + [1e-300])
+    return [
+        f"Mass budget at {format_time(float(solution.times[-1]))} (kg/m2): "
+        f"stored {last.get('stored', math.nan):.6g}, initial "
+        f"{last.get('initial_stored', math.nan):.6g}, entered top "
+        f"{last.get('entered_top', math.nan):.6g}, left bottom "
+        f"{last.get('left_bottom', math.nan):.6g}, decayed "
+        f"{last.get('decayed', math.nan):.6g}, produced {last.get('produced', math.nan):.6g}; "
+        f"residual {last.get('residual', math.nan):.3g} "
+        f"({abs(last.get('residual', math.nan)) / scale:.2g} of the largest term)."]
+
+
+def check_line(solution) -> list:
+    """The largest error bound of each checked quantity relative to its scale (one
+    sentence), or ``[]`` for a run without error bounds."""
+    err = getattr(solution, "error", None)
+    if err is None or not getattr(solution, "scale", None):
+        return []
+    worst = ", ".join(
+        f"{_QUANTITY_NAMES[q]} {np.nanmax(np.asarray(err[q], float)) / solution.scale[q]:.1g}"
+        for q in QUANTITIES)
+    return [f"Checked (tolerance {solution.tolerance:g}): largest error bound "
+            f"relative to the scale of each quantity: {worst}; physical bounds and "
+            "the mass budget hold at every output time."]
+
+
+def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
+                  screening_level=None, design_life=None) -> list:
+    """The reading of one run, as printed by ``stratiflux run`` (one sentence a line).
+
+    Parameters
+    ----------
+    solution : Solution
+        The run, SI units.
+    metrics : ReceptorMetrics, optional
+        Metrics at ``receptor_depth`` over the run's horizon (:func:`run_horizon`);
+        computed with :func:`transport.analysis.metrics.receptor_metrics` when omitted.
+    title : str
+        Title of the scenario.
+    receptor_depth : float, optional
+        Depth of the receptor, m; without it no receptor sentence is written.
+    screening_level : float, optional
+        Screening level, kg m-3.
+    design_life : float, optional
+        Design life, s; the run is read up to it when it ends later than the run.
+
+    Returns
+    -------
+    list of str
+        The title line; then, for a run with refused output times, only what it could
+        not vouch for; else the receptor sentences (:func:`receptor_lines`), the mass
+        budget (:func:`budget_line`) and the error bounds (:func:`check_line`).
+
+    Raises
+    ------
+    ValueError
+        When the run has no positive output time.
+    """
+    lines = [f"Scenario: {title}"]
+    refused = refused_lines(solution)
+    if refused:
+        return lines + refused
+    t_end = run_horizon(solution.times, design_life)
+    t_start = earliest_resolved_time(solution.times)
+    if receptor_depth is not None:
+        if metrics is None:
+            metrics = receptor_metrics(solution, receptor_depth, screening_level, t_end)
+        lines += receptor_lines(solution, metrics, design_life=design_life,
+                                t_start=t_start, t_end=t_end)
+    return lines + budget_line(solution) + check_line(solution)
+
+
+def verdict_line(label: str, metrics) -> str:
+    """One alternative of a comparison in one sentence: below the screening level over
+    the horizon (with its peak), or from when and for how long above it.
+
+    Parameters
+    ----------
+    label : str
+        Name of the alternative.
+    metrics : ReceptorMetrics
+
+    Returns
+    -------
+    str
+    """
+    m = metrics
+    if m.screening_level is None:
+        return f"{label}: no screening level given; see the peak and mass."
+    if m.stays_below_level:
+        return (f"{label}: stays below {m.screening_level / MG_PER_L:.4g} mg/L at "
+                f"{m.receptor_depth:g} m over {m.horizon / YEAR:.4g} yr "
+                f"(peak {m.peak_concentration / MG_PER_L:.3g} mg/L).")
+    return (f"{label}: exceeds {m.screening_level / MG_PER_L:.4g} mg/L at "
+            f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
+            f"for {m.time_above_level / YEAR:.4g} yr within "
+            f"{m.horizon / YEAR:.4g} yr.")

@@ -1,0 +1,159 @@
+"""What every command shares: user-facing errors, progress lines, settings, solving.
+
+Input errors end a command with one paragraph and exit status 2 (:class:`UserError`);
+a run no engine can vouch for ends with exit status 3 (:class:`Refused`). Both are
+raised by the commands and by the group's handler in :mod:`transport.cli.main`.
+"""
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import click
+
+from transport.api import solve_scenario
+from transport.io.atomic import OutputSet
+from transport.solvers.checks import UnreliableResultError
+
+__all__ = ["EXIT_INPUT", "EXIT_REFUSED", "UserError", "Refused", "describe", "fail",
+           "progress", "echo_wrapped", "setting", "solve", "write_plots"]
+
+EXIT_INPUT = 2
+EXIT_REFUSED = 3
+#: Width of every wrapped paragraph the commands print.
+WIDTH = 88
+
+# Prefix per error class; a ScenarioError already starts with the file and key path.
+_ERROR_KIND = {
+    "ScenarioError": "",
+    "ClusterError": "",
+    "UnitError": "invalid units: ",
+    "InputError": "invalid input: ",
+    "TOMLDecodeError": "the scenario file is not valid TOML: ",
+}
+
+
+class UserError(click.ClickException):
+    """A user-facing failure: printed as one paragraph, exit status 2."""
+
+    exit_code = EXIT_INPUT
+
+    def format_message(self):
+        return textwrap.fill(self.message, width=WIDTH, break_long_words=False,
+                             break_on_hyphens=False)
+
+
+class Refused(UserError):
+    """No engine could vouch for the results: nothing is written, exit status 3."""
+
+    exit_code = EXIT_REFUSED
+
+
+def describe(exc: BaseException) -> str:
+    """The one-paragraph message shown for an expected input error.
+
+    Parameters
+    ----------
+    exc : BaseException
+        An ``OSError`` (named file and reason, with what to check) or a ``ValueError``
+        (``ScenarioError``, ``UnitError``, ``InputError``, ...: its message behind a
+        prefix naming the kind of error; other classes keep their name so that a bug
+        report can be traced).
+
+    Returns
+    -------
+    str
+    """
+    if isinstance(exc, OSError):
+        target = exc.filename if exc.filename is not None else ""
+        reason = exc.strerror or str(exc)
+        return (f"Cannot read or write {target!s}: {reason}. Check that the path exists, "
+                "that its directory is writable and that no other program holds the file.")
+    kind = _ERROR_KIND.get(type(exc).__name__, f"invalid input ({type(exc).__name__}): ")
+    return f"{kind}{exc}"
+
+
+def fail(exc: BaseException):
+    """Raise :class:`UserError` with :func:`describe`'s message for ``exc``."""
+    raise UserError(describe(exc)) from None
+
+
+def progress(step: int, total: int, text: str):
+    """A progress line ``[step/total] text`` on stderr."""
+    click.echo(f"[{step}/{total}] {text}", err=True)
+
+
+def echo_wrapped(text: str):
+    """Print ``text`` as one paragraph wrapped at the commands' width."""
+    click.echo(textwrap.fill(text, width=WIDTH))
+
+
+def setting(scenario, name):
+    """An output setting (receptor_depth, screening_level, design_life, tolerance).
+
+    Read from the scenario itself, else from its ``output`` specification; None when
+    neither has it.
+    """
+    if hasattr(scenario, name):
+        return getattr(scenario, name)
+    return getattr(getattr(scenario, "output", None), name, None)
+
+
+def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable=False):
+    """Solve ``scenario`` (:func:`transport.api.solve_scenario`), print its warnings.
+
+    A run no engine can vouch for raises :class:`Refused`, unless ``allow_unreliable``
+    (then its refused output times are left empty and flagged).
+    """
+    try:
+        solution, caught = solve_scenario(
+            scenario, depths=depths, engine=engine, tolerance=tolerance,
+            on_unreliable="flag" if allow_unreliable else "raise")
+    except UnreliableResultError as exc:
+        raise Refused(f"{getattr(scenario, 'path', None) or 'scenario'}: refused: {exc}") \
+            from None
+    for message in caught:
+        click.echo(textwrap.fill(f"Warning: {message}", width=WIDTH), err=True)
+    return solution
+
+
+def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title,
+                stage=None) -> list:
+    """The figures of a run: ``<stem>_profiles.png`` and, with a receptor,
+    ``<stem>_breakthrough.png`` in ``out_dir`` (created if needed).
+
+    Parameters
+    ----------
+    source : Solution or xarray.Dataset
+        A run, or a file read with :func:`transport.io.netcdf.read_column_netcdf`.
+    out_dir : path
+    stem : str
+    receptor_depth, screening_level : float or None
+        m and kg m-3.
+    title : str
+    stage : transport.io.atomic.OutputSet, optional
+        With a set the figures are renamed into place with the other outputs of the
+        run; without one both appear together once both are drawn.
+
+    Returns
+    -------
+    list of str
+        The paths written.
+    """
+    # matplotlib is imported lazily: commands that draw nothing start faster
+    from transport.plot.column import plot_breakthrough, plot_profiles
+
+    if stage is None:
+        with OutputSet() as own:
+            return write_plots(source, out_dir, stem, receptor_depth=receptor_depth,
+                               screening_level=screening_level, title=title, stage=own)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    written = [plot_profiles(source, out_dir / f"{stem}_profiles.png",
+                             screening_level=screening_level, title=title, stage=stage)]
+    if receptor_depth is not None:
+        written.append(plot_breakthrough(source, out_dir / f"{stem}_breakthrough.png",
+                                         receptor_depth=receptor_depth,
+                                         screening_level=screening_level, title=title,
+                                         stage=stage))
+    return written
