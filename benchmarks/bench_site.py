@@ -29,6 +29,9 @@ import time
 import tracemalloc
 from pathlib import Path
 
+from transport.site.chunks import clear_caches
+from transport.site.config import load_site
+
 DEMO = Path(__file__).resolve().parents[1] / "data" / "site-demo"
 STACK = ("made ground", "silty sand", "clay", "silty sand", "clay")
 RECEPTOR_ELEVATION = 36.0  # m, as in the demo site file
@@ -50,8 +53,6 @@ def _log_rows(bid: str, k: int, elevation: float, distinct: bool) -> list:
 
 def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
     """The demo site with n five-layer borings and ``times`` output times."""
-    from transport.site.config import load_site
-
     text = (DEMO / "site.toml").read_text(encoding="utf-8")
     text = text.replace('count = 12, spacing = "log"', f'count = {times}, spacing = "log"')
     elevations = [ln.split(",")[3] for ln in
@@ -75,7 +76,7 @@ def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
 def timed_run(site, out, realizations=0, **options):
     """Wall time of one site run, with the per-process column caches emptied first (local
     workers are forked from this process and would inherit them)."""
-    from transport.site.batch import clear_caches
+    # imported on the first run: the output libraries' import is part of the cold time
     from transport.site.run import run_site
 
     clear_caches()

@@ -86,20 +86,77 @@ def test_peclet_and_time_scales():
     assert media.advection_time(2.0, 0.0) == math.inf
 
 
-def test_derive_layer_matches_formulas():
-    """derive_layer combines the published forms: R (Freeze & Cherry 1979), Kd = Koc foc,
-    Millington & Quirk 1961 tau, Bear 1972 dispersion, mu = ln2/t_half."""
-    q, theta, n = 3e-9, 0.25, 0.4
-    layer = media.derive_layer(thickness=1.5, porosity=n, water_content=theta, darcy_flux=q,
-                               free_water_diffusivity=1e-9, dispersivity=0.05,
-                               bulk_density=1600.0, organic_carbon_fraction=0.01,
-                               organic_carbon_partition=0.1, half_life=1e8, name="silt")
-    assert isinstance(layer, Layer)
-    tau = theta ** (7 / 3) / n ** 2
-    assert layer.water_content == theta
-    assert layer.diffusivity == pytest.approx(1e-9 * tau + 0.05 * q / theta, rel=1e-14)
-    assert layer.retardation == pytest.approx(1 + 1600.0 * 1e-3 / theta, rel=1e-14)
-    assert layer.decay_rate == pytest.approx(math.log(2) / 1e8, rel=1e-15)
+def _mp(x):
+    return mpmath.mpf(repr(float(x)))
+
+
+def test_derive_layer_against_published_forms():
+    """derive_layer against each published form, evaluated with mpmath at 30 digits:
+    Kd = Koc foc (Karickhoff et al. 1979), R = 1 + rho_b Kd / theta (Freeze & Cherry 1979,
+    eq. 9.14), tau = theta^(7/3) / n^2 (Millington & Quirk 1961), dispersion alpha_L |v|
+    with v = q / theta (Bear 1972), mu = ln 2 / t_half, and the layer numbers
+    Pe = |v| L / D, R L^2 / D, R L / |v| (their definitions)."""
+    q, theta, n, dw, alpha, rho, foc, koc, half, L = (3e-9, 0.25, 0.4, 1e-9, 0.05, 1600.0,
+                                                      0.01, 0.1, 1e8, 1.5)
+    d = media.derive_layer(thickness=L, porosity=n, water_content=theta, darcy_flux=q,
+                           free_water_diffusivity=dw, dispersivity=alpha, bulk_density=rho,
+                           organic_carbon_fraction=foc, organic_carbon_partition=koc,
+                           half_life=half, name="silt")
+    q_, th, n_, dw_, al, rho_, foc_, koc_, half_, L_ = map(
+        _mp, (q, theta, n, dw, alpha, rho, foc, koc, half, L))
+    kd = koc_ * foc_
+    R = 1 + rho_ * kd / th
+    tau = th ** (mpmath.mpf(7) / 3) / n_ ** 2
+    v = q_ / th
+    D = dw_ * tau + al * abs(v)
+    expected = {"distribution_coefficient": kd, "retardation_factor": R, "tortuosity": tau,
+                "pore_velocity": v, "dispersion": al * abs(v), "pore_diffusivity": dw_ * tau,
+                "diffusivity": D, "decay_rate": mpmath.log(2) / half_,
+                "peclet_number": abs(v) * L_ / D, "diffusion_time": R * L_ ** 2 / D,
+                "advection_time": R * L_ / abs(v)}
+    details = d.details()
+    for name, value in expected.items():
+        assert details[name] == pytest.approx(float(value), rel=1e-14), name
+    assert isinstance(d.layer, Layer) and d.layer.name == "silt"
+    assert d.layer.water_content == theta and details["porosity"] == n
+    assert (d.layer.diffusivity, d.layer.retardation) == (details["diffusivity"],
+                                                          details["retardation_factor"])
+    assert (d.sorption, d.diffusion) == ("organic_carbon_fraction", "millington-quirk")
+
+
+def test_derive_layer_retardation_worked_example():
+    """Freeze & Cherry 1979 form with rho_b = 1700 kg/m3, Kd = 0.5 L/kg = 5e-4 m3/kg,
+    n = 0.35 (saturated): R = 1 + 0.85 / 0.35."""
+    d = media.derive_layer(thickness=1.0, porosity=0.35, pore_diffusivity=1e-10,
+                           bulk_density=1700.0, distribution_coefficient=5e-4)
+    assert d.layer.retardation == pytest.approx(1 + 0.85 / 0.35, rel=1e-15)
+    assert d.sorption == "distribution_coefficient"
+
+
+def test_derive_layer_given_pore_diffusivity_and_retardation():
+    """A given pore diffusivity is the molecular part itself (no tortuosity: NaN) and a
+    given R is used as is; dispersion alpha_L |v| uses the magnitude of an upward
+    velocity (Bear 1972): alpha = 0.1 m, q = -4e-9 m/s, theta = 0.2 -> 2e-9 m2/s."""
+    d = media.derive_layer(thickness=2.0, porosity=0.2, darcy_flux=-4e-9,
+                           pore_diffusivity=3e-10, dispersivity=0.1,
+                           retardation_factor_value=2.5)
+    assert math.isnan(d.tortuosity) and d.diffusion == "pore_diffusivity"
+    assert d.dispersion == pytest.approx(2e-9, rel=1e-15)
+    assert d.layer.diffusivity == pytest.approx(3e-10 + 2e-9, rel=1e-15)
+    assert d.layer.retardation == 2.5 and d.sorption == "retardation_factor"
+    assert d.distribution_coefficient is None
+
+
+def test_derive_layer_without_flow_or_sorption():
+    """q = 0: no dispersion, Pe = 0 and an infinite advection time; no sorption route:
+    R = 1 (Freeze & Cherry 1979 with Kd = 0); no half-life: no decay."""
+    d = media.derive_layer(thickness=1.0, porosity=0.3, free_water_diffusivity=1e-9,
+                           tortuosity=0.5, dispersivity=0.2)
+    assert d.dispersion == 0.0 and d.peclet_number == 0.0
+    assert d.advection_time == math.inf
+    assert d.layer.retardation == 1.0 and d.sorption == "none"
+    assert d.layer.decay_rate == 0.0
+    assert d.layer.diffusivity == pytest.approx(5e-10, rel=1e-15)
 
 
 def test_derive_layer_rejects_two_sorption_routes():

@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from transport.model import media
 from transport.model.column import Column
 from transport.scenario.schema import (ScenarioError, load_scenario, parse_scenario,
                                 starter_scenario_text)
@@ -137,15 +136,22 @@ def test_layer_matches_published_forms():
     assert fill.decay_rate == 0.0  # the chemical has no half_life: none applied
 
 
-def test_scenario_layers_agree_with_derive_layer():
-    """The loader and media.derive_layer give the same Layer for the same inputs."""
+def test_derived_table_reports_published_forms():
+    """The derived table gives Kd = Koc foc (Karickhoff et al. 1979, Koc 94.3 L/kg of TCE,
+    US EPA 1996), tau = n^(1/3) for a saturated layer (Millington & Quirk 1961), the
+    dispersion alpha |q| / theta (Bear 1972) and, for a layer with a given pore
+    diffusivity, no tortuosity (NaN) and no Kd-free retardation."""
     s = parse_scenario(scenario_text())
+    fill, clay = s.derived_table()
     q = s.column.darcy_flux
-    expected = media.derive_layer(thickness=0.8, porosity=0.35, darcy_flux=q,
-                                  free_water_diffusivity=9.65e-10, dispersivity=0.05,
-                                  bulk_density=1700.0, organic_carbon_fraction=0.002,
-                                  organic_carbon_partition=94.3e-3, name="fill")
-    assert s.column.layers[0] == expected
+    assert fill["distribution_coefficient"] == pytest.approx(94.3e-3 * 0.002, rel=1e-13)
+    assert fill["tortuosity"] == pytest.approx(0.35 ** (1 / 3), rel=1e-13)
+    assert fill["dispersion"] == pytest.approx(0.05 * q / 0.35, rel=1e-13)
+    assert fill["pore_diffusivity"] == pytest.approx(9.65e-10 * 0.35 ** (1 / 3), rel=1e-13)
+    assert math.isnan(clay["tortuosity"])
+    assert clay["pore_diffusivity"] == pytest.approx(3e-10, rel=1e-13)
+    assert clay["retardation_factor"] == pytest.approx(1 + 1700 * 5e-4 / 0.45, rel=1e-13)
+    assert clay["half_life"] == pytest.approx(5 * YEAR, rel=1e-13)
 
 
 def test_derived_table_columns():

@@ -21,10 +21,9 @@ import re
 from dataclasses import dataclass
 from importlib import resources
 
-__all__ = ["Chemical", "ChemicalError", "load_table", "lookup", "names", "normalise_name"]
+from transport.units import DAY, LITRE_PER_KG
 
-_DAY = 86400.0
-_LITRE_PER_KG = 1e-3  # 1 L/kg = 1e-3 m3/kg
+__all__ = ["Chemical", "ChemicalError", "load_table", "lookup", "names", "normalise_name"]
 
 COLUMNS = ("name", "aliases", "free_water_diffusivity_m2_s", "diffusivity_source",
            "koc_L_kg", "koc_source", "half_life_low_d", "half_life_high_d",
@@ -92,10 +91,10 @@ def parse_table(text: str) -> tuple:
             free_water_diffusivity=_number(rec["free_water_diffusivity_m2_s"], i,
                                            "free_water_diffusivity_m2_s"),
             diffusivity_source=rec["diffusivity_source"].strip(),
-            organic_carbon_partition=None if koc is None else koc * _LITRE_PER_KG,
+            organic_carbon_partition=None if koc is None else koc * LITRE_PER_KG,
             koc_source=rec["koc_source"].strip(),
-            half_life_low=_number(rec["half_life_low_d"], i, "half_life_low_d") * _DAY,
-            half_life_high=_number(rec["half_life_high_d"], i, "half_life_high_d") * _DAY,
+            half_life_low=_number(rec["half_life_low_d"], i, "half_life_low_d") * DAY,
+            half_life_high=_number(rec["half_life_high_d"], i, "half_life_high_d") * DAY,
             half_life_source=rec["half_life_source"].strip(),
         ))
     return tuple(rows)

@@ -20,6 +20,7 @@ References
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -36,6 +37,7 @@ __all__ = [
     "diffusion_time",
     "advection_time",
     "derive_layer",
+    "DerivedLayer",
 ]
 
 LN2 = math.log(2.0)
@@ -185,13 +187,100 @@ def advection_time(thickness, pore_velocity, retardation=1.0):
     return retardation * thickness / abs(pore_velocity)
 
 
+@dataclass(frozen=True)
+class DerivedLayer:
+    """A :class:`~transport.model.column.Layer` and the derived numbers behind it (SI).
+
+    Returned by :func:`derive_layer`; :meth:`details` gives the per-layer table of a
+    scenario (``Scenario.derived_table``).
+
+    Attributes
+    ----------
+    layer : Layer
+        The layer the engines solve.
+    porosity : float
+        Total porosity n.
+    bulk_density : float or None
+        rho_b, kg m-3, as given.
+    distribution_coefficient : float or None
+        Kd, m3 kg-1 (given, or Koc foc); None when R is given directly or absent.
+    tortuosity : float
+        tau; NaN when the pore diffusivity was given directly.
+    pore_diffusivity : float
+        Molecular part D_w tau, m2 s-1.
+    dispersion : float
+        alpha_L |v|, m2 s-1.
+    pore_velocity : float
+        v = q / theta, m s-1.
+    half_life : float or None
+        s; None: no decay.
+    sorption : str
+        How R was obtained: "none", "retardation_factor", "distribution_coefficient" or
+        "organic_carbon_fraction".
+    diffusion : str
+        How the molecular part was obtained: "pore_diffusivity", "millington-quirk" or
+        "tortuosity" (a given factor).
+    """
+
+    layer: Layer
+    porosity: float
+    bulk_density: float | None
+    distribution_coefficient: float | None
+    tortuosity: float
+    pore_diffusivity: float
+    dispersion: float
+    pore_velocity: float
+    half_life: float | None
+    sorption: str
+    diffusion: str
+
+    @property
+    def peclet_number(self) -> float:
+        """|v| L / D of the layer (:func:`peclet_number`)."""
+        return peclet_number(self.pore_velocity, self.layer.thickness, self.layer.diffusivity)
+
+    @property
+    def diffusion_time(self) -> float:
+        """R L^2 / D, s (:func:`diffusion_time`)."""
+        return diffusion_time(self.layer.thickness, self.layer.diffusivity,
+                              self.layer.retardation)
+
+    @property
+    def advection_time(self) -> float:
+        """R L / |v|, s; inf without flow (:func:`advection_time`)."""
+        return advection_time(self.layer.thickness, self.pore_velocity, self.layer.retardation)
+
+    def details(self) -> dict:
+        """The derived numbers as a dict (SI floats, None where not given), keyed by
+        the spelled-out names of a scenario's derived table: thickness, porosity,
+        water_content, bulk_density, distribution_coefficient, retardation_factor,
+        tortuosity, pore_diffusivity, dispersion, diffusivity, half_life, decay_rate,
+        pore_velocity, peclet_number, diffusion_time, advection_time, source_rate,
+        partition_to_next."""
+        layer = self.layer
+        return {
+            "thickness": layer.thickness, "porosity": self.porosity,
+            "water_content": layer.water_content, "bulk_density": self.bulk_density,
+            "distribution_coefficient": self.distribution_coefficient,
+            "retardation_factor": layer.retardation, "tortuosity": self.tortuosity,
+            "pore_diffusivity": self.pore_diffusivity, "dispersion": self.dispersion,
+            "diffusivity": layer.diffusivity, "half_life": self.half_life,
+            "decay_rate": layer.decay_rate, "pore_velocity": self.pore_velocity,
+            "peclet_number": self.peclet_number, "diffusion_time": self.diffusion_time,
+            "advection_time": self.advection_time, "source_rate": layer.source_rate,
+            "partition_to_next": layer.partition_to_next,
+        }
+
+
 def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
                  free_water_diffusivity=None, tortuosity="millington-quirk",
                  pore_diffusivity=None, dispersivity=0.0, bulk_density=None,
                  distribution_coefficient=None, organic_carbon_fraction=None,
                  organic_carbon_partition=None, retardation_factor_value=None,
-                 half_life=None, source_rate=0.0, partition_to_next=1.0, name=""):
-    """Build a :class:`transport.model.column.Layer` from user-facing properties (SI).
+                 half_life=None, source_rate=0.0, partition_to_next=1.0,
+                 name="") -> DerivedLayer:
+    """A layer from user-facing properties (SI): the one place where R, tau, D and mu
+    are derived.
 
     Parameters
     ----------
@@ -214,8 +303,8 @@ def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
         alpha_L, m.
     bulk_density : float, optional
         rho_b, kg m-3; needed with a Kd or organic carbon.
-    distribution_coefficient, organic_carbon_fraction, organic_carbon_partition,
-    retardation_factor_value : float, optional
+    distribution_coefficient, organic_carbon_fraction, organic_carbon_partition, \
+retardation_factor_value : float, optional
         Sorption: Kd (m3 kg-1), or foc with Koc (m3 kg-1), or R directly; at most
         one route. None of them: no sorption, R = 1.
     half_life : float, optional
@@ -228,14 +317,26 @@ def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
 
     Returns
     -------
-    Layer
-        With porosity = theta, diffusivity = D_w tau + alpha_L |q/theta|,
-        retardation = 1 + rho_b Kd / theta, decay_rate = ln2 / half_life.
+    DerivedLayer
+        Its ``layer`` has water_content = theta, diffusivity = D_w tau + alpha_L |q/theta|
+        [Bear72] with tau of [MQ61] unless given, retardation = 1 + rho_b Kd / theta
+        [FC79] with Kd = Koc foc [KBS79] where organic carbon is given, and
+        decay_rate = ln 2 / half_life.
 
     Raises
     ------
     ValueError
-        Missing or contradictory inputs (message names the layer).
+        Missing or contradictory inputs (message names the layer);
+        :class:`~transport.model.column.InputError` (a ValueError) when the layer is
+        not valid.
+
+    Examples
+    --------
+    >>> d = derive_layer(thickness=1.0, porosity=0.4, darcy_flux=1e-8,
+    ...                  free_water_diffusivity=1e-9, dispersivity=0.1,
+    ...                  bulk_density=1600.0, distribution_coefficient=1e-4)
+    >>> round(d.layer.retardation, 12), round(d.pore_velocity, 20)
+    (1.4, 2.5e-08)
     """
     label = f"layer {name!r}" if name else "layer"
     theta = porosity if water_content is None else water_content
@@ -245,7 +346,7 @@ def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
         raise ValueError(f"{label}: water_content must be in (0, porosity], got {theta!r}")
 
     if pore_diffusivity is not None:
-        molecular = pore_diffusivity
+        molecular, tau, diffusion = pore_diffusivity, math.nan, "pore_diffusivity"
     else:
         if free_water_diffusivity is None:
             raise ValueError(f"{label}: needs a free-water diffusivity (chemical) or a "
@@ -254,34 +355,40 @@ def derive_layer(*, thickness, porosity, darcy_flux=0.0, water_content=None,
             if tortuosity != "millington-quirk":
                 raise ValueError(f"{label}: unknown tortuosity model {tortuosity!r}; use "
                                  "'millington-quirk' or a number")
-            tau = millington_quirk_tortuosity(theta, porosity)
+            tau, diffusion = millington_quirk_tortuosity(theta, porosity), "millington-quirk"
         else:
-            tau = float(tortuosity)
+            tau, diffusion = float(tortuosity), "tortuosity"
         molecular = free_water_diffusivity * tau
     v = pore_velocity(darcy_flux, theta)
-    diffusivity = molecular + dispersivity * abs(v)
+    dispersion = dispersivity * abs(v)
 
     routes = [x is not None for x in (distribution_coefficient, organic_carbon_fraction,
                                       retardation_factor_value)]
     if sum(routes) > 1:
         raise ValueError(f"{label}: give only one of distribution_coefficient, "
                          "organic_carbon_fraction, retardation_factor")
+    kd = None
     if retardation_factor_value is not None:
-        retardation = retardation_factor_value
+        retardation, sorption = retardation_factor_value, "retardation_factor"
     elif distribution_coefficient is not None or organic_carbon_fraction is not None:
         if organic_carbon_fraction is not None:
             if organic_carbon_partition is None:
                 raise ValueError(f"{label}: organic_carbon_fraction needs the chemical's "
                                  "organic-carbon partition coefficient (Koc)")
             kd = kd_from_koc(organic_carbon_partition, organic_carbon_fraction)
+            sorption = "organic_carbon_fraction"
         else:
-            kd = distribution_coefficient
+            kd, sorption = distribution_coefficient, "distribution_coefficient"
         if bulk_density is None:
             raise ValueError(f"{label}: sorption from Kd or organic carbon needs bulk_density")
         retardation = retardation_factor(bulk_density, theta, kd)
     else:
-        retardation = 1.0
+        retardation, sorption = 1.0, "none"
 
-    return Layer(thickness=thickness, water_content=theta, diffusivity=diffusivity,
-                 retardation=retardation, decay_rate=decay_rate_from_half_life(half_life),
-                 source_rate=source_rate, partition_to_next=partition_to_next, name=name)
+    layer = Layer(thickness=thickness, water_content=theta, diffusivity=molecular + dispersion,
+                  retardation=retardation, decay_rate=decay_rate_from_half_life(half_life),
+                  source_rate=source_rate, partition_to_next=partition_to_next, name=name)
+    return DerivedLayer(layer=layer, porosity=porosity, bulk_density=bulk_density,
+                        distribution_coefficient=kd, tortuosity=tau,
+                        pore_diffusivity=molecular, dispersion=dispersion, pore_velocity=v,
+                        half_life=half_life, sorption=sorption, diffusion=diffusion)

@@ -19,6 +19,7 @@ Actions change the column at a time (``[[actions]]``, in time order):
 from __future__ import annotations
 
 import csv
+import difflib
 import io
 import re
 
@@ -163,7 +164,6 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
         key = f"{prefix}actions[{j}]"
         kind = act.get("kind")
         if kind not in ACTION_KINDS:
-            import difflib
             close = difflib.get_close_matches(str(kind), ACTION_KINDS, n=1)
             raise r.error(f"{key}.kind", kind, "unknown or missing action kind",
                           allowed=" | ".join(ACTION_KINDS),

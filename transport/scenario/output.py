@@ -11,10 +11,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from transport.model.column import Column, InitialState
-from transport.scenario.reader import _Reader
+from transport.scenario.reader import Reader
+from transport.units import YEAR
 
-__all__ = ["OutputSpec", "check_run_size", "check_advection", "run_memory_bytes",
-           "MEMORY_BUDGET", "MAX_CONTOUR_NODES"]
+__all__ = ["OutputSpec", "read_output", "read_times", "read_samples", "read_samples_file",
+           "depth_grid", "with_cap_depths", "check_run_size", "check_advection",
+           "run_memory_bytes", "MEMORY_BUDGET", "MAX_CONTOUR_NODES", "MAX_TIMES", "MAX_DEPTHS",
+           "DEFAULT_DEPTH_INTERVALS", "DEFAULT_TOLERANCE"]
 
 MAX_TIMES = 10_000  # output times; more is a typo, not a use case
 MAX_DEPTHS = 20_001  # output depths
@@ -37,7 +40,24 @@ class OutputSpec:
     tolerance: float = DEFAULT_TOLERANCE
 
 
-def _read_samples_file(r: _Reader, raw, length: float):
+def read_samples_file(r: Reader, raw, length: float) -> InitialState:
+    """The measured profile of ``initial.samples_file``: a CSV file with a header of two
+    columns carrying their units (``depth [m],concentration [mg/L]``), one sample a row.
+
+    Parameters
+    ----------
+    r : Reader
+        Reader of the scenario file (relative names are read from its folder).
+    raw : str
+        The file name as written.
+    length : float
+        Column length, m: no sample may lie below it.
+
+    Returns
+    -------
+    InitialState
+        Piecewise linear through the samples (see :func:`read_samples`).
+    """
     key = "initial.samples_file"
     path, text = r.input_file(raw, key, "a profile CSV (depth [unit],concentration [unit])",
                               example="profile.csv")
@@ -55,10 +75,28 @@ def _read_samples_file(r: _Reader, raw, length: float):
                           "cell(s); each row needs exactly two (depth, concentration)",
                           fix="one sample per row: depth,concentration")
         pairs.append([c.strip() + (f" {u}" if u else "") for c, u in zip(row, header_units)])
-    return _samples(r, pairs, length, f"{key}({path.name}) row", base=1)
+    return read_samples(r, pairs, length, f"{key}({path.name}) row", base=1)
 
 
-def _samples(r: _Reader, raw, length: float, key="initial.samples", base=1):
+def read_samples(r: Reader, raw, length: float, key="initial.samples", base=1) -> InitialState:
+    """A measured profile from ``[depth, concentration]`` pairs (top to bottom; a depth
+    given twice is a step: the value just above, then just below).
+
+    Parameters
+    ----------
+    r : Reader
+    raw : list
+        The pairs as written (``[["0 m", "80 mg/L"], ...]``).
+    length : float
+        Column length, m.
+    key : str
+        Key path for messages; ``base`` is the number of the first pair in them.
+
+    Returns
+    -------
+    InitialState
+        ``InitialState.profile`` of the depths (m) and concentrations (kg m-3).
+    """
     if not isinstance(raw, list) or not raw:
         raise r.error(key, raw, "must be a list of [depth, concentration] pairs",
                       fix='e.g. samples = [["0 m", "80 mg/L"], ["1 m", "0 mg/L"]]')
@@ -86,7 +124,21 @@ def _samples(r: _Reader, raw, length: float, key="initial.samples", base=1):
     return InitialState.profile(depths, values)
 
 
-def _times(r: _Reader, raw):
+def read_times(r: Reader, raw) -> np.ndarray:
+    """The output times of ``output.times`` (s), sorted and unique.
+
+    Parameters
+    ----------
+    r : Reader
+    raw : list or dict
+        A list of times (``["1 yr", "10 yr"]``) or a range table
+        ``{start, stop, count, spacing = "linear" | "log"}``.
+
+    Returns
+    -------
+    numpy.ndarray
+        Finite times, s.
+    """
     key = "output.times"
     if raw is None:
         raise r.error(key, problem="missing", fix='add times = ["1 yr", "10 yr"] or '
@@ -124,7 +176,32 @@ def _times(r: _Reader, raw):
     return times
 
 
-def _depths(r: _Reader, out, column: Column, receptor: float):
+def depth_grid(column: Column, receptor: float, spacing: float | None = None) -> np.ndarray:
+    """Output depths every ``spacing`` m from the top (default: the column length in
+    :data:`DEFAULT_DEPTH_INTERVALS` intervals), plus the layer interfaces, the bottom
+    and the receptor depth; sorted, within the column.
+
+    Parameters
+    ----------
+    column : Column
+    receptor : float
+        Receptor depth, m.
+    spacing : float, optional
+        Depth step, m.
+
+    Returns
+    -------
+    numpy.ndarray
+    """
+    length = column.length
+    step = length / DEFAULT_DEPTH_INTERVALS if spacing is None else spacing
+    count = length / step
+    grid = list(np.arange(int(math.ceil(count * (1 - 1e-12)))) * step)
+    grid = np.unique(np.concatenate([grid, column.interfaces, [receptor]]))
+    return grid[(grid >= 0) & (grid <= length)]
+
+
+def _depths(r: Reader, out, column: Column, receptor: float):
     length = column.length
     if "depths" in out and "depth_spacing" in out:
         raise r.error("output.depth_spacing", out["depth_spacing"], "given together with "
@@ -145,15 +222,30 @@ def _depths(r: _Reader, out, column: Column, receptor: float):
             raise r.error("output.depth_spacing", out.get("depth_spacing"), f"gives "
                           f"{count:.3g} depths", allowed=f"at most {MAX_DEPTHS}",
                           fix="use a coarser spacing")
-        grid = list(np.arange(int(math.ceil(count * (1 - 1e-12)))) * step)
+        return depth_grid(column, receptor, step)
     grid = np.unique(np.concatenate([grid, column.interfaces, [receptor]]))
     return grid[(grid >= 0) & (grid <= length)]
 
 
-def _output(r: _Reader, data, column: Column) -> OutputSpec:
+def read_output(r: Reader, data, column: Column) -> OutputSpec:
+    """The ``[output]`` table of a scenario for ``column``: times, depths, receptor,
+    screening level, design life and tolerance (SI), validated together.
+
+    Parameters
+    ----------
+    r : Reader
+    data : dict
+        The parsed file (its ``output`` table is read).
+    column : Column
+        The column the depths and the receptor must lie in.
+
+    Returns
+    -------
+    OutputSpec
+    """
     out = r.table(data.get("output"), "output", required=True)
     r.keys(out, OUTPUT_KEYS, "output")
-    times = _times(r, out.get("times"))
+    times = read_times(r, out.get("times"))
     receptor = min(r.optional(out, "receptor_depth", "length", "output",
                               default=column.length, low=0,
                               high=column.length * (1 + 1e-12)), column.length)
@@ -167,7 +259,7 @@ def _output(r: _Reader, data, column: Column) -> OutputSpec:
                       fix='add a later time, e.g. times = ["1 yr", "10 yr"]')
     if life is not None and life <= positive.min():
         raise r.error("output.design_life", out["design_life"], "must exceed the earliest "
-                      f"positive output time ({positive.min() / 3.15576e7:.4g} yr): the "
+                      f"positive output time ({positive.min() / YEAR:.4g} yr): the "
                       "receptor metrics are read over the design life",
                       fix="add an earlier output time or correct the design life")
     tol = r.optional(out, "tolerance", "dimensionless", "output", default=DEFAULT_TOLERANCE,
@@ -177,8 +269,20 @@ def _output(r: _Reader, data, column: Column) -> OutputSpec:
     return OutputSpec(times, depths, receptor, level, life, tol)
 
 
-def _with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
-    """Add output depths above the original top where a cap is placed (negative depths)."""
+def with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
+    """Add output depths above the original top where a cap is placed (negative depths).
+
+    Parameters
+    ----------
+    output : OutputSpec
+    timeline : transport.solvers.timeline.Timeline
+        Its stages' offsets say where the top of the column moves.
+
+    Returns
+    -------
+    OutputSpec
+        ``output`` itself when no stage lies above the original top.
+    """
     top = min(st.offset for st in timeline.stages)
     if top >= 0:
         return output
@@ -212,7 +316,7 @@ def run_memory_bytes(n_times: int, n_depths: int, n_segments: int) -> float:
 MAX_CONTOUR_NODES = 20_000
 
 
-def check_advection(r: _Reader, layers, q: float, t_max: float, key: str):
+def check_advection(r: Reader, layers, q: float, t_max: float, key: str):
     """Refuse a column whose advection so dominates dispersion that the Laplace engine's
     contour would need more than :data:`MAX_CONTOUR_NODES` nodes per output time (this
     is where a memory cliff or an endless run would come from)."""
@@ -232,7 +336,7 @@ def check_advection(r: _Reader, layers, q: float, t_max: float, key: str):
                       "the travel distance) or check darcy_flux and pore_diffusivity")
 
 
-def check_run_size(r: _Reader, output: OutputSpec, column: Column, initial, timeline=None):
+def check_run_size(r: Reader, output: OutputSpec, column: Column, initial, timeline=None):
     """Refuse up front a run whose working memory would exceed :data:`MEMORY_BUDGET`, or
     whose advection the engines cannot invert (:func:`check_advection`)."""
     t_max = float(max(output.times.max(), output.design_life or 0.0))

@@ -17,15 +17,18 @@ import difflib
 import os
 import re
 import stat
+import tomllib
 from pathlib import Path
 
-from transport.units import UnitError, si_unit, to_si
+from transport.units import YEAR, UnitError, si_unit, to_si
 
-__all__ = ["ScenarioError", "read_text_file", "read_input_file", "parse_toml",
+__all__ = ["ScenarioError", "Reader", "MISSING", "read_text_file", "read_input_file",
+           "parse_toml", "range_error",
            "DIMENSION_RANGES", "KEY_RANGES", "MAX_TOML_BYTES", "MAX_TABLE_BYTES",
            "MAX_NESTING"]
 
-_MISSING = object()
+#: Marker of a key that is absent (distinct from a value of None, e.g. half_life = "none").
+MISSING = object()
 
 #: Largest scenario or site file read (bytes): a scenario is a few kB.
 MAX_TOML_BYTES = 4 * 1024 ** 2
@@ -34,14 +37,13 @@ MAX_TABLE_BYTES = 64 * 1024 ** 2
 #: Deepest nesting of tables and lists in a TOML file (a scenario needs 5).
 MAX_NESTING = 12
 
-_YEAR = 365.25 * 86400.0
 # magnitude limits (SI) of every value of a dimension: (smallest nonzero, largest, why)
 DIMENSION_RANGES = {
     "length": (1e-9, 1e5, "lengths from 1 nm to 100 km (common practice: far beyond any "
                "soil column or site)"),
-    "time": (0.0, 1e8 * _YEAR, "times up to 1e8 yr (common practice: beyond the longest "
+    "time": (0.0, 1e8 * YEAR, "times up to 1e8 yr (common practice: beyond the longest "
              "assessment horizons)"),
-    "velocity": (0.0, 1e5 / _YEAR, "velocities up to 1e5 m/yr (common practice)"),
+    "velocity": (0.0, 1e5 / YEAR, "velocities up to 1e5 m/yr (common practice)"),
     "diffusivity": (1e-20, 1e-7, "molecular diffusivities from 1e-20 to 1e-7 m^2/s: the "
                     "fastest free-water diffusivity, of H+, is about 9.3e-9 m^2/s at 25 C "
                     "(Li & Gregory 1974)"),
@@ -61,7 +63,7 @@ DIMENSION_RANGES = {
 KEY_RANGES = {
     "half_life": (1.0, None, "half-lives of at least 1 s (a faster decay is over before "
                   "anything the model resolves)"),
-    "darcy_flux": (None, 1e3 / _YEAR, "Darcy fluxes up to 1000 m/yr in magnitude (common "
+    "darcy_flux": (None, 1e3 / YEAR, "Darcy fluxes up to 1000 m/yr in magnitude (common "
                    "practice: recharge is 0.01-0.5 m/yr, a flooded gravel basin a few m/d)"),
     "dispersivity": (None, 1e4, "dispersivities up to 1e4 m (common practice: field values "
                      "are about a tenth of the travel distance)"),
@@ -84,10 +86,10 @@ _LAST_KEY = re.compile(r"([A-Za-z_]+)(?:\[\d+\])*\s*$")
 class ScenarioError(ValueError):
     """A scenario problem: file, key path, value given, what is allowed, the fix."""
 
-    def __init__(self, file, key, value=_MISSING, problem="", allowed="", fix=""):
+    def __init__(self, file, key, value=MISSING, problem="", allowed="", fix=""):
         self.file, self.key, self.problem, self.allowed, self.fix = file, key, problem, allowed, fix
-        self.value = None if value is _MISSING else value
-        shown = "" if value is _MISSING else f" = {_short(value)}"
+        self.value = None if value is MISSING else value
+        shown = "" if value is MISSING else f" = {_short(value)}"
         msg = f"{file}: {key}{shown}: {str(problem).rstrip('.')}"
         if allowed:
             msg += f". Allowed: {allowed}"
@@ -129,25 +131,45 @@ def range_error(key: str, dimension: str, si: float):
     return None
 
 
-class _Reader:
-    """Validation helpers bound to one file (for messages)."""
+class Reader:
+    """Reads values out of parsed TOML of one file, converting to SI and validating.
+
+    Every method raises (or :meth:`error` builds) a :class:`ScenarioError` naming the
+    file, the key path, the value, what is allowed and the fix.
+
+    Parameters
+    ----------
+    file : str
+        The file name shown in messages (``"<string>"`` for text without a file).
+    base_dir : pathlib.Path
+        Folder that relative file names (``samples_file``, ``borings_file``) are read from.
+
+    Examples
+    --------
+    >>> r = Reader("column.toml", Path("."))
+    >>> r.quantity("2 cm", "length", "layers[1].thickness")
+    0.02
+    """
 
     def __init__(self, file: str, base_dir: Path):
         self.file, self.base_dir = file, base_dir
 
-    def error(self, key, value=_MISSING, problem="", allowed="", fix=""):
+    def error(self, key, value=MISSING, problem="", allowed="", fix=""):
+        """A :class:`ScenarioError` for this file (returned, for the caller to raise)."""
         return ScenarioError(self.file, key, value, problem, allowed, fix)
 
     def table(self, value, key, required=False):
+        """``value`` checked to be a table (dict); an absent optional table is ``{}``."""
         if value is None and not required:
             return {}
         if not isinstance(value, dict):
-            raise self.error(key, _MISSING if value is None else value,
+            raise self.error(key, MISSING if value is None else value,
                              "missing" if value is None else "must be a table",
                              fix=f"add a [{key}] table")
         return value
 
     def keys(self, table, allowed, key):
+        """Refuse a key of ``table`` not in ``allowed``, with a did-you-mean suggestion."""
         for name in table:
             if name not in allowed:
                 close = difflib.get_close_matches(str(name), allowed, n=1, cutoff=0.6)
@@ -157,6 +179,25 @@ class _Reader:
 
     def quantity(self, value, dimension, key, low=None, high=None, low_open=False,
                  high_open=False):
+        """A value with units (or a plain number) as an SI float, checked.
+
+        Parameters
+        ----------
+        value : str or number
+            As written in the file (``"0.2 m/yr"``).
+        dimension : str
+            A dimension of :data:`transport.units.DIMENSIONS` (``"length"``, ...).
+        key : str
+            Key path, for messages and for the per-key range of :data:`KEY_RANGES`.
+        low, high : float, optional
+            Limits in SI; ``low_open``/``high_open`` exclude the limit itself.
+
+        Returns
+        -------
+        float
+            The SI value, within the limits and the range the model represents
+            (:func:`range_error`).
+        """
         try:
             si = to_si(value, dimension, key)
         except UnitError as exc:
@@ -184,11 +225,13 @@ class _Reader:
         return si
 
     def optional(self, table, name, dimension, key, default=None, **limits):
+        """:meth:`quantity` of ``table[name]`` at ``key.name``, or ``default`` if absent."""
         if name not in table:
             return default
         return self.quantity(table[name], dimension, f"{key}.{name}", **limits)
 
     def text(self, table, name, key, default=None):
+        """A text value (or ``default``); anything else is refused."""
         value = table.get(name, default)
         if value is not None and not isinstance(value, str):
             raise self.error(f"{key}.{name}" if key else name, value, "must be text",
@@ -196,8 +239,9 @@ class _Reader:
         return value
 
     def half_life(self, table, key):
+        """A half-life in s; None for "none" (no decay); :data:`MISSING` if absent."""
         if "half_life" not in table:
-            return _MISSING
+            return MISSING
         value = table["half_life"]
         if isinstance(value, str) and value.strip().lower() in ("none", "inf", "infinite"):
             return None
@@ -289,11 +333,9 @@ def _depth(data) -> int:
     return deepest
 
 
-def parse_toml(r: _Reader, text: str) -> dict:
+def parse_toml(r: Reader, text: str) -> dict:
     """TOML text as a dict, or a ScenarioError (syntax, nesting deeper than
     :data:`MAX_NESTING`)."""
-    import tomllib
-
     if not isinstance(text, str):
         raise r.error("(file)", problem="scenario text must be a string")
     if text.startswith("\ufeff"):  # a byte-order mark, as CSV files may carry

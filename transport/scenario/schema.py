@@ -39,35 +39,28 @@ from __future__ import annotations
 
 import difflib
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 
 import numpy as np
 
-from transport.model import chemicals
-from transport.model import media
-from transport.model.column import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError, Layer
-from transport.scenario.output import OutputSpec, _output, _read_samples_file, check_run_size
-from transport.scenario.output import _samples, _with_cap_depths
-from transport.scenario.output import DEFAULT_TOLERANCE, MAX_DEPTHS, _times  # noqa: F401  (site.py)
-from transport.scenario.reader import _MISSING, ScenarioError, _Reader, parse_toml, read_text_file
+from transport.model.column import BOUNDARY_KINDS, Boundary, Column, InitialState, InputError
 from transport.scenario.actions import check_inlet, parse_actions, parse_value
+from transport.scenario.layers import ChemicalSpec, read_chemical, read_layer
+from transport.scenario.output import (OutputSpec, check_run_size, read_output, read_samples,
+                                       read_samples_file, with_cap_depths)
+from transport.scenario.reader import MISSING, Reader, ScenarioError, parse_toml, read_text_file
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
            "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text",
-           "DERIVED_UNITS", "MAX_LAYERS"]
+           "read_boundary", "DERIVED_UNITS", "MAX_LAYERS", "FLOW_KEYS"]
 
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
             "actions", "alternatives")
 ALTERNATIVE_KEYS = ("name", "actions", "top")
-CHEMICAL_KEYS = ("name", "free_water_diffusivity", "organic_carbon_partition", "half_life")
 FLOW_KEYS = ("darcy_flux",)
-LAYER_KEYS = ("name", "thickness", "porosity", "water_content", "bulk_density",
-              "organic_carbon_fraction", "distribution_coefficient", "retardation_factor",
-              "tortuosity", "pore_diffusivity", "dispersivity", "half_life", "source_rate",
-              "partition_to_next", "initial_concentration")
 BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentration",),
                        "flux": ("flux",), "mass-transfer": ("transfer_coefficient",
                                                             "outside_concentration"),
@@ -76,9 +69,6 @@ INITIAL_KEYS = ("samples", "samples_file")
 #: Most layers a column may have (a detailed boring log has tens): the run time and
 #: memory of a column grow with its layer count.
 MAX_LAYERS = 1000
-#: Largest layer diffusivity D = D_w tau + alpha |v| the engines are asked to handle
-#: (m2 s-1); dispersion alone reaches it only at absurd velocities.
-MAX_LAYER_DIFFUSIVITY = 1.0
 
 #: SI units of the columns of :meth:`Scenario.derived_table`.
 DERIVED_UNITS = {
@@ -89,18 +79,6 @@ DERIVED_UNITS = {
     "peclet_number": "1", "diffusion_time": "s", "advection_time": "s",
     "source_rate": "kg m-3 s-1", "partition_to_next": "1",
 }
-
-
-@dataclass(frozen=True)
-class ChemicalSpec:
-    """Chemical properties in force (SI) and where each came from."""
-
-    name: str | None
-    free_water_diffusivity: float | None
-    organic_carbon_partition: float | None
-    half_life: float | None  # s; None: no decay unless a layer gives one
-    sources: dict = field(default_factory=dict)
-    table_entry: chemicals.Chemical | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -137,169 +115,28 @@ class Scenario:
         return [dict(row) for row in self.layer_details]
 
 
-def _chemical(r: _Reader, data) -> ChemicalSpec:
-    table = r.table(data.get("chemical"), "chemical")
-    r.keys(table, CHEMICAL_KEYS, "chemical")
-    name = r.text(table, "name", "chemical")
-    entry, sources = None, {}
-    if name is not None:
-        try:
-            entry = chemicals.lookup(name)
-        except chemicals.ChemicalError as exc:
-            raise r.error("chemical.name", name, str(exc),
-                          fix="correct the name or give the properties directly") from None
-    dw = r.optional(table, "free_water_diffusivity", "diffusivity", "chemical", low=0, low_open=True)
-    if dw is not None:
-        sources["free_water_diffusivity"] = "scenario file"
-    elif entry is not None:
-        dw, sources["free_water_diffusivity"] = (entry.free_water_diffusivity,
-                                                 entry.diffusivity_source)
-    koc = r.optional(table, "organic_carbon_partition", "specific_volume", "chemical", low=0)
-    if koc is not None:
-        sources["organic_carbon_partition"] = "scenario file"
-    elif entry is not None:
-        koc, sources["organic_carbon_partition"] = entry.organic_carbon_partition, entry.koc_source
-    half_life = r.half_life(table, "chemical")
-    half_life = None if half_life is _MISSING else half_life
-    sources["half_life"] = "scenario file" if "half_life" in table else "not given: no decay"
-    return ChemicalSpec(entry.name if entry else None, dw, koc, half_life, sources, entry)
+def read_boundary(r: Reader, data, end: str, q: float, key: str | None = None) -> Boundary:
+    """The ``[top]`` or ``[bottom]`` table: its kind and values (constants or schedules).
 
+    Parameters
+    ----------
+    r : Reader
+    data : dict
+        The table holding ``end`` (the parsed file, or ``{end: table}``).
+    end : {"top", "bottom"}
+    q : float
+        Darcy flux, m s-1 (an inlet needs water entering at its end).
+    key : str, optional
+        Key path of the table in messages; default ``end``.
 
-def _layer(r: _Reader, raw, i: int, chem: ChemicalSpec, q: float, top: float, last: bool,
-           key: str = None):
-    key = key or f"layers[{i}]"
-    t = r.table(raw, key, required=True)
-    r.keys(t, LAYER_KEYS, key)
-    name = r.text(t, "name", key, default=f"layer {i}")
-    if "thickness" not in t or "porosity" not in t:
-        missing = "thickness" if "thickness" not in t else "porosity"
-        raise r.error(f"{key}.{missing}", problem="missing", fix=f"add {missing} to layer {i}")
-    thickness = r.quantity(t["thickness"], "length", f"{key}.thickness", low=0, low_open=True)
-    n = r.quantity(t["porosity"], "dimensionless", f"{key}.porosity", low=0, high=1,
-                   low_open=True)
-    theta = r.optional(t, "water_content", "dimensionless", key, default=n, low=0, high=n,
-                       low_open=True)
-    rho_b = r.optional(t, "bulk_density", "density", key, low=0, low_open=True)
-    routes = [k for k in ("organic_carbon_fraction", "distribution_coefficient",
-                          "retardation_factor") if k in t]
-    if len(routes) > 1:
-        raise r.error(f"{key}.{routes[1]}", t[routes[1]], f"given together with {routes[0]}",
-                      fix="keep only one way of giving sorption")
-    kd, sorption_source = None, "none given: R = 1"
-    if routes == ["retardation_factor"]:
-        retardation = r.quantity(t["retardation_factor"], "dimensionless",
-                                 f"{key}.retardation_factor", low=0, low_open=True)
-        sorption_source = "retardation_factor from scenario file"
-    elif routes:
-        if routes[0] == "organic_carbon_fraction":
-            foc = r.quantity(t["organic_carbon_fraction"], "dimensionless",
-                             f"{key}.organic_carbon_fraction", low=0, high=1)
-            if chem.organic_carbon_partition is None:
-                why = (f"{chem.name} has no Koc ({chem.sources.get('organic_carbon_partition')})"
-                       if chem.table_entry else "the chemical has no Koc")
-                raise r.error(f"{key}.organic_carbon_fraction", t["organic_carbon_fraction"],
-                              why, fix="give distribution_coefficient, or "
-                              "chemical.organic_carbon_partition")
-            kd = media.kd_from_koc(chem.organic_carbon_partition, foc)
-            sorption_source = ("Kd = Koc foc, Koc: "
-                               + chem.sources.get("organic_carbon_partition", ""))
-        else:
-            kd = r.quantity(t["distribution_coefficient"], "specific_volume",
-                            f"{key}.distribution_coefficient", low=0)
-            sorption_source = "distribution_coefficient from scenario file"
-        if rho_b is None:
-            raise r.error(f"{key}.bulk_density", problem=f"missing, needed with {routes[0]}",
-                          fix='add bulk_density, e.g. "1.7 g/cm^3"')
-        retardation = media.retardation_factor(rho_b, theta, kd)
-    else:
-        retardation = 1.0
-
-    if "pore_diffusivity" in t:
-        if "tortuosity" in t:
-            raise r.error(f"{key}.tortuosity", t["tortuosity"], "given together with "
-                          "pore_diffusivity", fix="keep one: pore_diffusivity already "
-                          "includes the tortuosity")
-        molecular = r.quantity(t["pore_diffusivity"], "diffusivity", f"{key}.pore_diffusivity",
-                               low=0, low_open=True)
-        tau, diffusion_source = math.nan, "pore_diffusivity from scenario file"
-    else:
-        tort = t.get("tortuosity", "millington-quirk")
-        if isinstance(tort, str) and tort.strip().lower() == "millington-quirk":
-            tau = media.millington_quirk_tortuosity(theta, n)
-            diffusion_source = "Millington & Quirk 1961 tortuosity"
-        elif isinstance(tort, str):
-            raise r.error(f"{key}.tortuosity", tort, "unknown tortuosity model",
-                          allowed='"millington-quirk" or a number in (0, 1]',
-                          fix='write tortuosity = "millington-quirk" or e.g. 0.5')
-        else:
-            tau = r.quantity(tort, "dimensionless", f"{key}.tortuosity", low=0, high=1,
-                             low_open=True)
-            diffusion_source = "tortuosity factor from scenario file"
-        if chem.free_water_diffusivity is None:
-            raise r.error(f"{key}.pore_diffusivity", problem="no diffusivity for this layer",
-                          fix="give chemical.name or chemical.free_water_diffusivity, or "
-                          "pore_diffusivity in this layer")
-        molecular = chem.free_water_diffusivity * tau
-        diffusion_source += "; D_w: " + chem.sources.get("free_water_diffusivity", "")
-    alpha = r.optional(t, "dispersivity", "length", key, default=0.0, low=0)
-    v = media.pore_velocity(q, theta)
-    dispersion = alpha * abs(v)
-    half_life = r.half_life(t, key)
-    half_life = chem.half_life if half_life is _MISSING else half_life
-    source = r.optional(t, "source_rate", "mass_rate_density", key, default=0.0)
-    if source < 0:
-        raise r.error(f"{key}.source_rate", t["source_rate"], "a negative zero-order source "
-                      "is a sink that keeps removing mass where none is left (the stored "
-                      "mass and the concentration turn negative)", allowed=">= 0",
-                      fix="model a loss by first-order decay (half_life) instead")
-    partition = r.optional(t, "partition_to_next", "dimensionless", key, default=1.0, low=0,
-                           low_open=True)
-    if last and partition != 1.0:
-        raise r.error(f"{key}.partition_to_next", t["partition_to_next"], "the last layer has "
-                      "no layer below", fix="remove it, or model the outside with the bottom "
-                      "boundary")
-    if partition != 1.0 and q != 0:
-        raise r.error(f"{key}.partition_to_next", t["partition_to_next"],
-                      f"a partition jump with nonzero Darcy flux ({q} m/s) is not physical in "
-                      "this 1-D model", fix="set flow.darcy_flux to 0 or partition_to_next to 1")
-    if routes and routes[0] != "retardation_factor" and retardation > 1e8:
-        raise r.error(f"{key}.{routes[0]}", t[routes[0]], f"gives a retardation factor of "
-                      f"{retardation:.3g}, outside what the model represents",
-                      allowed="retardation factors up to 1e8 (common practice)",
-                      fix="check the value and its units (and bulk_density)")
-    if molecular + dispersion > MAX_LAYER_DIFFUSIVITY:
-        raise r.error(f"{key}.dispersivity", t.get("dispersivity"), f"dispersion alpha |v| = "
-                      f"{dispersion:.3g} m^2/s (pore velocity {abs(v):.3g} m/s), outside what "
-                      "the model represents", allowed=f"D up to {MAX_LAYER_DIFFUSIVITY:g} m^2/s",
-                      fix="check dispersivity, water_content and flow.darcy_flux")
-    try:
-        layer = Layer(thickness=thickness, water_content=theta, diffusivity=molecular + dispersion,
-                      retardation=retardation, decay_rate=media.decay_rate_from_half_life(half_life),
-                      source_rate=source, partition_to_next=partition, name=name)
-    except InputError as exc:
-        raise r.error(key, problem=str(exc), fix="correct the layer's properties") from None
-    detail = {
-        "name": name, "top": top, "bottom": top + thickness, "thickness": thickness,
-        "porosity": n, "water_content": theta, "bulk_density": rho_b,
-        "distribution_coefficient": kd, "retardation_factor": layer.retardation,
-        "tortuosity": tau, "pore_diffusivity": molecular, "dispersion": dispersion,
-        "diffusivity": layer.diffusivity, "half_life": half_life,
-        "decay_rate": layer.decay_rate, "pore_velocity": v,
-        "peclet_number": media.peclet_number(v, thickness, layer.diffusivity),
-        "diffusion_time": media.diffusion_time(thickness, layer.diffusivity, layer.retardation),
-        "advection_time": media.advection_time(thickness, v, layer.retardation),
-        "source_rate": source, "partition_to_next": partition,
-        "sorption_source": sorption_source, "diffusion_source": diffusion_source,
-    }
-    initial = r.optional(t, "initial_concentration", "concentration", key, low=0)
-    return layer, detail, initial
-
-
-def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary:
+    Returns
+    -------
+    Boundary
+    """
     where = key or end
     t = r.table(data.get(end), where, required=True)
-    kind = t.get("kind", _MISSING)
-    if kind is _MISSING:
+    kind = t.get("kind", MISSING)
+    if kind is MISSING:
         raise r.error(f"{where}.kind", problem="missing", allowed=" | ".join(BOUNDARY_KINDS),
                       fix=f'add kind = "concentration" (or another kind) to [{where}]')
     if kind not in BOUNDARY_KINDS:
@@ -353,7 +190,7 @@ def _boundary(r: _Reader, data, end: str, q: float, key: str = None) -> Boundary
 def _read(text, path):
     file = str(path)
     base_dir = Path(file).parent if file != "<string>" else Path.cwd()
-    r = _Reader(file, base_dir)
+    r = Reader(file, base_dir)
     data = parse_toml(r, text)
     r.keys(data, TOP_KEYS, "")
     return r, data, file
@@ -418,14 +255,14 @@ def _alternatives(r, data, text, file) -> list:
 
 def _parse_data(r, data, text, file, prefix=""):
     title = r.text(data, "title", "", default=Path(file).stem)
-    chem = _chemical(r, data)
+    chem = read_chemical(r, data)
     flow = r.table(data.get("flow"), "flow")
     r.keys(flow, FLOW_KEYS, "flow")
     q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
 
     raw_layers = data.get("layers")
     if not isinstance(raw_layers, list) or not raw_layers:
-        raise r.error("layers", _MISSING if raw_layers is None else raw_layers,
+        raise r.error("layers", MISSING if raw_layers is None else raw_layers,
                       "at least one [[layers]] table is needed", fix="add [[layers]] tables, "
                       "top first")
     if len(raw_layers) > MAX_LAYERS:
@@ -434,15 +271,15 @@ def _parse_data(r, data, text, file, prefix=""):
                       fix="merge neighbouring layers of the same material")
     layers, details, initial_values, top = [], [], [], 0.0
     for i, raw in enumerate(raw_layers, start=1):
-        layer, detail, init = _layer(r, raw, i, chem, q, top, i == len(raw_layers))
+        layer, detail, init = read_layer(r, raw, i, chem, q, top, i == len(raw_layers))
         layers.append(layer)
         details.append(detail)
         initial_values.append(init)
         top += layer.thickness
 
-    bottom_boundary = _boundary(r, data, "bottom", q)
+    bottom_boundary = read_boundary(r, data, "bottom", q)
     try:
-        column = Column(tuple(layers), _boundary(r, data, "top", q, key=f"{prefix}top"),
+        column = Column(tuple(layers), read_boundary(r, data, "top", q, key=f"{prefix}top"),
                         bottom_boundary, q)
     except InputError as exc:
         raise r.error("flow.darcy_flux", q, str(exc), fix="see the message") from None
@@ -459,23 +296,23 @@ def _parse_data(r, data, text, file, prefix=""):
         raise r.error("initial", problem="a measured profile and layers[].initial_concentration "
                       "are both given", fix="keep one way of giving the initial state")
     if "samples" in init_table:
-        initial = _samples(r, init_table["samples"], column.length)
+        initial = read_samples(r, init_table["samples"], column.length)
     elif "samples_file" in init_table:
-        initial = _read_samples_file(r, init_table["samples_file"], column.length)
+        initial = read_samples_file(r, init_table["samples_file"], column.length)
     elif per_layer:
         initial = InitialState.uniform([v or 0.0 for v in initial_values])
     else:
         initial = InitialState.clean()
 
-    output = _output(r, data, column)
+    output = read_output(r, data, column)
     timeline = parse_actions(
         r, data, column, q, raw_layers,
-        make_layer=lambda raw, key, q_, top_, last_: _layer(r, raw, 0, chem, q_, top_, last_,
-                                                             key=key)[0],
-        make_boundary=lambda table, end, q_, key: _boundary(r, table, end, q_, key=key),
+        make_layer=lambda raw, key, q_, top_, last_: read_layer(r, raw, 0, chem, q_, top_,
+                                                                last_, key=key)[0],
+        make_boundary=lambda table, end, q_, key: read_boundary(r, table, end, q_, key=key),
         t_end=float(output.times.max()), prefix=prefix)
     if timeline is not None:
-        output = _with_cap_depths(output, timeline)
+        output = with_cap_depths(output, timeline)
     check_run_size(r, output, column, initial, timeline)
     return Scenario(title=title, path=None if file == "<string>" else file, column=column,
                     initial=initial, chemical=chem, output=output, source_text=text,

@@ -21,11 +21,10 @@ import numpy as np
 
 from transport.model import media
 from transport.model.column import Column, InputError
-from transport.scenario.schema import ScenarioError
-from transport.scenario.reader import DIMENSION_RANGES, KEY_RANGES
+from transport.scenario.reader import DIMENSION_RANGES, KEY_RANGES, ScenarioError
 
-__all__ = ["MATERIAL_DIMENSIONS", "DRAW_LIMITS", "material_properties", "material_layers",
-           "boring_column", "check_draws"]
+__all__ = ["MATERIAL_DIMENSIONS", "DRAW_LIMITS", "material_properties", "properties_in_force",
+           "derive_material", "material_layers", "boring_column", "check_draws"]
 
 #: Numeric material keys and their dimension (``tortuosity`` may also be the text
 #: "millington-quirk", ``half_life`` the text "none").
@@ -71,12 +70,21 @@ def material_properties(r, name: str, table: dict) -> dict:
     return props
 
 
-def material_layers(site, overrides: dict | None = None) -> tuple:
-    """(Layers of thickness 1 m keyed by material, Darcy flux) for the site's values
-    with ``overrides`` ({"materials.clay.distribution_coefficient": SI float, ...}).
+def properties_in_force(site, overrides: dict | None = None) -> tuple:
+    """The site's SI values with ``overrides`` applied by arithmetic on floats.
 
-    Raises ScenarioError naming the material when the combination is not valid (e.g. a
-    drawn water content above the porosity).
+    Parameters
+    ----------
+    site : transport.site.config.Site
+    overrides : dict, optional
+        Parameter paths to SI values, e.g. ``{"materials.clay.distribution_coefficient":
+        2e-4, "chemical.half_life": 6e7, "flow.darcy_flux": 3e-9}`` (one Monte Carlo draw).
+
+    Returns
+    -------
+    tuple
+        (materials {name: {key: SI value}}, chemical {free_water_diffusivity,
+        organic_carbon_partition, half_life}, Darcy flux in m s-1).
     """
     chem = {"free_water_diffusivity": site.chemical.free_water_diffusivity,
             "organic_carbon_partition": site.chemical.organic_carbon_partition,
@@ -93,19 +101,57 @@ def material_layers(site, overrides: dict | None = None) -> tuple:
                 chem[parts[1]] = float(value)
             else:
                 q = float(value)
-    layers = {}
-    for name, props in mats.items():
-        kwargs = {_KWARG.get(k, k): v for k, v in props.items()}
-        kwargs.setdefault("half_life", chem["half_life"])
-        try:
-            layers[name] = media.derive_layer(
-                thickness=1.0, darcy_flux=q,
-                free_water_diffusivity=chem["free_water_diffusivity"],
-                organic_carbon_partition=chem["organic_carbon_partition"], name=name,
-                **kwargs)
-        except (InputError, ValueError) as exc:
-            raise ScenarioError(site.path, f"materials.{name}", problem=str(exc),
-                                fix="correct the material's properties") from None
+    return mats, chem, q
+
+
+def derive_material(site, name: str, props: dict, chem: dict, q: float,
+                    thickness: float = 1.0) -> media.DerivedLayer:
+    """One material as a layer of ``thickness`` m, by :func:`transport.model.media.derive_layer`.
+
+    Parameters
+    ----------
+    site : transport.site.config.Site
+        For messages (its file).
+    name : str
+        The material.
+    props, chem, q
+        The material's SI properties, the chemical's and the Darcy flux in force
+        (:func:`properties_in_force`).
+    thickness : float
+        m.
+
+    Returns
+    -------
+    transport.model.media.DerivedLayer
+
+    Raises
+    ------
+    ScenarioError
+        Naming the material, when the combination is not valid (e.g. a drawn water
+        content above the porosity).
+    """
+    kwargs = {_KWARG.get(k, k): v for k, v in props.items()}
+    kwargs.setdefault("half_life", chem["half_life"])
+    try:
+        return media.derive_layer(
+            thickness=thickness, darcy_flux=q,
+            free_water_diffusivity=chem["free_water_diffusivity"],
+            organic_carbon_partition=chem["organic_carbon_partition"], name=name, **kwargs)
+    except (InputError, ValueError) as exc:
+        raise ScenarioError(site.path, f"materials.{name}", problem=str(exc),
+                            fix="correct the material's properties") from None
+
+
+def material_layers(site, overrides: dict | None = None) -> tuple:
+    """(Layers of thickness 1 m keyed by material, Darcy flux) for the site's values
+    with ``overrides`` ({"materials.clay.distribution_coefficient": SI float, ...}).
+
+    Raises ScenarioError naming the material when the combination is not valid (e.g. a
+    drawn water content above the porosity).
+    """
+    mats, chem, q = properties_in_force(site, overrides)
+    layers = {name: derive_material(site, name, props, chem, q).layer
+              for name, props in mats.items()}
     return layers, q
 
 

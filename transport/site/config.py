@@ -23,37 +23,45 @@ CSV, defines each material once and gives the shared settings::
     [[uncertainty.parameters]] ...
 
 Each boring becomes the column a single-column scenario with the same layers would
-give (:func:`boring_scenario` goes through the scenario module's own readers), so a
-station of the site equals the single-column run of that boring. Every problem in the
+give: the site's tables are read by the scenario readers (same units, ranges and
+messages) and every layer is derived from SI floats by
+:func:`transport.model.media.derive_layer`, as a scenario's layers are
+(:func:`boring_scenario`), so a station of the site equals the single-column run of that
+boring. Every problem in the
 borings and logs is collected and raised as ONE :class:`ScenarioError` naming each
 offending boring with its file and line.
 """
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pyproj
 
-from transport.scenario import schema as _sc
-from transport.model.column import InitialState
-from transport.scenario.schema import ScenarioError
-from transport.scenario.output import MEMORY_BUDGET, check_advection, run_memory_bytes
-from transport.scenario.reader import parse_toml, read_text_file
-from transport.site.columns import boring_column, material_layers, material_properties
-from transport.site.logs import FACE_TOLERANCE, _read_borings, _read_initial, _read_log  # noqa: F401
+from transport.model.column import Column, InitialState
+from transport.scenario.layers import LAYER_KEYS, layer_detail, read_chemical, read_layer
+from transport.scenario.output import (DEFAULT_TOLERANCE, MAX_DEPTHS, MEMORY_BUDGET, OutputSpec,
+                                       check_advection, depth_grid, read_times,
+                                       run_memory_bytes)
+from transport.scenario.reader import Reader, parse_toml, read_text_file
+from transport.scenario.schema import FLOW_KEYS, Scenario, read_boundary
+from transport.site.batch import solve_site
+from transport.site.columns import (boring_column, derive_material, material_layers,
+                                    material_properties, properties_in_force)
+from transport.site.logs import read_borings, read_initial, read_log
 from transport.site.uncertainty import DISTRIBUTION_PARAMETERS, SAMPLING_METHODS, Distribution
-from transport.units import si_unit, ureg
 
 __all__ = ["Boring", "Site", "load_site", "parse_site", "boring_scenario", "boring_column",
            "material_layers", "solve_site", "UNCERTAIN_KEYS"]
 
 SITE_KEYS = ("title", "crs", "borings_file", "log_file", "initial_file", "chemical", "flow",
              "materials", "top", "bottom", "output", "uncertainty")
-MATERIAL_KEYS = tuple(k for k in _sc.LAYER_KEYS if k not in ("name", "thickness",
-                                                            "initial_concentration"))
+MATERIAL_KEYS = tuple(k for k in LAYER_KEYS if k not in ("name", "thickness",
+                                                        "initial_concentration"))
 SITE_OUTPUT_KEYS = ("times", "depth_spacing", "receptor_depth", "receptor_elevation",
                     "screening_level", "design_life", "tolerance")
 UNCERTAINTY_KEYS = ("realizations", "seed", "sampling", "parameters")
@@ -117,7 +125,7 @@ class Site:
     depths: np.ndarray = field(repr=False)
     screening_level: float = 0.0
     design_life: float = 0.0
-    tolerance: float = _sc.DEFAULT_TOLERANCE
+    tolerance: float = DEFAULT_TOLERANCE
     distributions: tuple = ()
     realizations: int = 0
     seed: int | None = None
@@ -132,8 +140,6 @@ class Site:
 
     @property
     def crs(self):
-        import pyproj
-
         return pyproj.CRS.from_user_input(self.crs_text)
 
     @property
@@ -217,9 +223,9 @@ def _common_grid(r, out, max_depth):
     step = r.optional(out, "depth_spacing", "length", "output",
                       default=max_depth / DEFAULT_DEPTH_INTERVALS, low=0, low_open=True)
     count = max_depth / step
-    if count > _sc.MAX_DEPTHS - 1:
+    if count > MAX_DEPTHS - 1:
         raise r.error("output.depth_spacing", out.get("depth_spacing"),
-                      f"gives {count:.3g} depths", allowed=f"at most {_sc.MAX_DEPTHS}",
+                      f"gives {count:.3g} depths", allowed=f"at most {MAX_DEPTHS}",
                       fix="use a coarser spacing")
     grid = np.arange(int(math.floor(count * (1 + 1e-12))) + 1) * step
     grid = np.unique(np.concatenate([grid[grid < max_depth * (1 - 1e-12)], [max_depth]]))
@@ -229,10 +235,8 @@ def _common_grid(r, out, max_depth):
 
 def parse_site(text: str, path: str | Path = "<string>") -> Site:
     """Parse and validate site TOML text (relative file names from ``path``'s folder)."""
-    import pyproj
-
     file = str(path)
-    r = _sc._Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
+    r = Reader(file, Path(file).parent if file != "<string>" else Path.cwd())
     data = parse_toml(r, text)
     r.keys(data, SITE_KEYS, "")
     title = r.text(data, "title", "", default=Path(file).stem)
@@ -249,20 +253,20 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     for name, mat in materials.items():
         r.keys(r.table(mat, f"materials.{name}", required=True), MATERIAL_KEYS,
                f"materials.{name}")
-    chem = _sc._chemical(r, data)  # validates [chemical] once, with its key paths
+    chem = read_chemical(r, data)  # validates [chemical] once, with its key paths
     flow = r.table(data.get("flow"), "flow")
-    r.keys(flow, _sc.FLOW_KEYS, "flow")
+    r.keys(flow, FLOW_KEYS, "flow")
     q = r.optional(flow, "darcy_flux", "velocity", "flow", default=0.0)
     props, unit_layers = {}, []
     for name, mat in materials.items():  # each material as a 1 m layer, to validate keys
-        unit_layers.append(_sc._layer(r, {**mat, "thickness": "1 m", "name": name}, name,
+        unit_layers.append(read_layer(r, {**mat, "thickness": "1 m", "name": name}, name,
                                       chem, q, 0.0, True, key=f"materials.{name}")[0])
         props[name] = material_properties(r, name, mat)
-    top_bc = _sc._boundary(r, data, "top", q)
-    bottom_bc = _sc._boundary(r, data, "bottom", q)
+    top_bc = read_boundary(r, data, "top", q)
+    bottom_bc = read_boundary(r, data, "bottom", q)
     out = r.table(data.get("output"), "output", required=True)
     r.keys(out, SITE_OUTPUT_KEYS, "output")
-    times = _sc._times(r, out.get("times"))
+    times = read_times(r, out.get("times"))
     level = r.optional(out, "screening_level", "concentration", "output", low=0, low_open=True)
     life = r.optional(out, "design_life", "time", "output", low=0, low_open=True)
     for k, v in (("screening_level", level), ("design_life", life)):
@@ -275,7 +279,7 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
                       "positive output time", fix="add an earlier output time")
     check_advection(r, unit_layers, q, float(max(times.max(), life)), "flow.darcy_flux")
     tol = r.optional(out, "tolerance", "dimensionless", "output",
-                     default=_sc.DEFAULT_TOLERANCE, low=1e-14, high=1e-2)
+                     default=DEFAULT_TOLERANCE, low=1e-14, high=1e-2)
     if "receptor_depth" in out and "receptor_elevation" in out:
         raise r.error("output.receptor_elevation", out["receptor_elevation"],
                       "given together with receptor_depth", fix="keep one")
@@ -283,13 +287,13 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     rec_elev = r.optional(out, "receptor_elevation", "length", "output")
     dists, n_real, seed, sampling = _uncertainty(r, data)
 
-    bpath, btext, braw = _read_borings(r, data, crs)
-    lpath, ltext, logs = _read_log(r, data, materials,
+    bpath, btext, braw = read_borings(r, data, crs)
+    lpath, ltext, logs = read_log(r, data, materials,
                                    {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
                                    bpath)
     itext, initial = "", {}
     if data.get("initial_file") is not None:
-        _, itext, initial = _read_initial(
+        _, itext, initial = read_initial(
             r, data, {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
             {b: logs[b][-1][1] for b in braw}, bpath)
     borings, bad = [], []
@@ -336,62 +340,49 @@ def load_site(path: str | Path) -> Site:
 
 
 # ------------------------------------------------------------------------ one boring
-def _si_value(value: float, dimension: str):
-    return float(value) if dimension == "dimensionless" else ureg.Quantity(
-        float(value), si_unit(dimension))
-
-
-def boring_scenario(site: Site, boring: Boring | str, overrides: dict | None = None):
+def boring_scenario(site: Site, boring: Boring | str, overrides: dict | None = None) -> Scenario:
     """The single-column :class:`~transport.scenario.schema.Scenario` of one boring.
 
-    Built by the scenario module's readers from the site's tables, with the log's
-    intervals as layers (name = material) and the boring's receptor depth, so it is the
-    scenario a user would write for that boring. ``overrides`` maps parameter paths
-    (``"materials.clay.distribution_coefficient"``) to SI values (one Monte Carlo draw).
-    Its ``output.depths`` are the scenario's own grid; a site run uses the common grid
-    ``site.depths`` cut at the boring's bottom.
+    The log's intervals are its layers (name = material), each derived from the site's
+    SI values by :func:`transport.model.media.derive_layer` (as a scenario file's layers
+    are), with the boring's receptor depth and measured initial profile: the scenario a
+    user would write for that boring.
+
+    Parameters
+    ----------
+    site : Site
+    boring : Boring or str
+        The boring or its id.
+    overrides : dict, optional
+        Parameter paths (``"materials.clay.distribution_coefficient"``) to SI values
+        (one Monte Carlo draw).
+
+    Returns
+    -------
+    Scenario
+        Its ``output.depths`` are the scenario's own grid (the column in 200 intervals);
+        a site run uses the common grid ``site.depths`` cut at the boring's bottom.
     """
     if isinstance(boring, str):
         boring = next(b for b in site.borings if b.id == boring)
-    data = site.data
-    chem_t, flow_t = dict(data.get("chemical") or {}), dict(data.get("flow") or {})
-    mats = {k: dict(v) for k, v in data["materials"].items()}
-    for target, value in (overrides or {}).items():
-        parts = target.split(".")
-        group = "materials" if parts[0] == "materials" else parts[0]
-        dim = UNCERTAIN_KEYS[group][parts[-1]]
-        table = mats[parts[1]] if group == "materials" else (
-            chem_t if group == "chemical" else flow_t)
-        table[parts[-1]] = _si_value(value, dim)
-    layers = [{**mats[m], "name": m, "thickness": _si_value(b - a, "length")}
-              for a, b, m in boring.intervals]
-    out = {k: v for k, v in data["output"].items()
-           if k in ("times", "screening_level", "design_life", "tolerance")}
-    out["receptor_depth"] = _si_value(boring.receptor_depth, "length")
-    scen = {"title": f"{site.title}, boring {boring.id}", "chemical": chem_t, "flow": flow_t,
-            "layers": layers, "top": data["top"], "bottom": data["bottom"], "output": out}
-    r = _sc._Reader(site.path, Path(site.path).parent)
-    chem = _sc._chemical(r, scen)
-    q = r.optional(flow_t, "darcy_flux", "velocity", "flow", default=0.0)
-    built, details, top = [], [], 0.0
-    for i, raw in enumerate(layers, start=1):
-        layer, detail, _ = _sc._layer(r, raw, i, chem, q, top, i == len(layers))
-        built.append(layer)
-        details.append(detail)
-        top += layer.thickness
-    from transport.model.column import Column
-
-    column = Column(tuple(built), _sc._boundary(r, scen, "top", q),
-                    _sc._boundary(r, scen, "bottom", q), q)
-    output = _sc._output(r, scen, column)
-    return _sc.Scenario(title=scen["title"], path=site.path, column=column,
-                        initial=boring.initial_state, chemical=chem, output=output,
-                        source_text="", layer_details=tuple(details))
-
-
-def solve_site(site: Site, **options):
-    """Solve every boring (and the Monte Carlo realizations): see
-    :func:`transport.site.batch.solve_site` for the options and the result."""
-    from transport.site.batch import solve_site as _solve
-
-    return _solve(site, **options)
+    mats, chem, q = properties_in_force(site, overrides)
+    chemical = site.chemical
+    drawn = [k.split(".")[1] for k in overrides or () if k.startswith("chemical.")]
+    if drawn:  # values in force, given like a scenario file's
+        chemical = dataclasses.replace(chemical, **chem, sources={
+            **chemical.sources, **{k: "scenario file" for k in drawn}})
+    layers, details, top = [], [], 0.0
+    for a, b, m in boring.intervals:
+        derived = derive_material(site, m, mats[m], chem, q, thickness=b - a)
+        layers.append(derived.layer)
+        details.append(layer_detail(derived, top, chemical))
+        top += derived.layer.thickness
+    column = Column(tuple(layers), site.top, site.bottom, q)
+    receptor = min(boring.receptor_depth, column.length)
+    depths = depth_grid(column, receptor)
+    depths.setflags(write=False)
+    output = OutputSpec(site.times, depths, receptor, site.screening_level, site.design_life,
+                        site.tolerance)
+    return Scenario(title=f"{site.title}, boring {boring.id}", path=site.path, column=column,
+                    initial=boring.initial_state, chemical=chemical, output=output,
+                    source_text="", layer_details=tuple(details))

@@ -13,10 +13,14 @@ import math
 import re
 
 import numpy as np
+import pyproj
 
-from transport.scenario.schema import MAX_LAYERS, ScenarioError
-from transport.scenario.reader import range_error
-from transport.units import UnitError, to_si
+from transport.scenario.reader import ScenarioError, range_error
+from transport.scenario.schema import MAX_LAYERS
+from transport.units import MG_PER_L, UnitError, to_si
+
+__all__ = ["read_borings", "read_log", "read_initial", "FACE_TOLERANCE", "MAX_LISTED",
+           "AREA_MARGIN"]
 
 #: Two log depths closer than this are the same face (m); larger mismatches are gaps
 #: or overlaps (common practice: logs are recorded to the centimetre at best).
@@ -115,9 +119,29 @@ def _number(cell):
     return value if math.isfinite(value) else None
 
 
-def _read_borings(r, data, crs):
-    import pyproj
+def read_borings(r, data, crs):
+    """The borings CSV named by ``borings_file``: one row per boring with its map
+    position (x, y in the site CRS, or lon, lat) and ground elevation.
 
+    Parameters
+    ----------
+    r : transport.scenario.reader.Reader
+        Reader of the site file (the CSV is read relative to its folder).
+    data : dict
+        The parsed site file.
+    crs : pyproj.CRS
+        The site's projected CRS (metres).
+
+    Returns
+    -------
+    tuple
+        (path, text, {id: (line, x m, y m, lon deg, lat deg, ground elevation m)}).
+
+    Raises
+    ------
+    ScenarioError
+        Every problem of every row in one message.
+    """
     path, text, cols, rows = _read_table(r, "borings_file", data.get("borings_file"), {})
     id_col = _id_column(cols)
     has_xy = "x" in cols and "y" in cols
@@ -224,7 +248,32 @@ def _boring_rows(r, key: str, data, columns: dict, example: str):
     return path, text, id_col, factors, rows
 
 
-def _read_log(r, data, materials, boring_ids, borings_path):
+def read_log(r, data, materials, boring_ids, borings_path):
+    """The layer-log CSV named by ``log_file``: per boring its intervals (top, bottom m
+    below ground, material), from 0 m down without gaps or overlaps.
+
+    Parameters
+    ----------
+    r : transport.scenario.reader.Reader
+    data : dict
+        The parsed site file.
+    materials : dict
+        The site's materials (a log may name only these).
+    boring_ids : dict
+        {boring id: where it is listed ("borings.csv line 3")}.
+    borings_path : pathlib.Path
+        The borings CSV, for messages.
+
+    Returns
+    -------
+    tuple
+        (path, text, {boring id: [(top, bottom, material, line), ...] sorted by depth}).
+
+    Raises
+    ------
+    ScenarioError
+        Every problem, for every boring, in one message.
+    """
     path, text, id_col, f, rows = _boring_rows(
         r, "log_file", data, {"top": "length", "bottom": "length", "material": None},
         "id,top [m],bottom [m],material")
@@ -285,10 +334,32 @@ def _read_log(r, data, materials, boring_ids, borings_path):
     return path, text, logs
 
 
-def _read_initial(r, data, boring_ids, bottoms, borings_path):
-    """Measured pore-water profiles: {boring id: ((depth m, C kg m-3), ...)}, sorted by
-    depth; borings without rows start clean.  Every problem, for every boring, is
-    collected into one :class:`ScenarioError`."""
+def read_initial(r, data, boring_ids, bottoms, borings_path):
+    """Measured pore-water profiles of the CSV named by ``initial_file``; borings
+    without rows start clean.
+
+    Parameters
+    ----------
+    r : transport.scenario.reader.Reader
+    data : dict
+        The parsed site file.
+    boring_ids : dict
+        {boring id: where it is listed}.
+    bottoms : dict
+        {boring id: depth of the log's bottom, m}: no sample may lie below it.
+    borings_path : pathlib.Path
+        The borings CSV, for messages.
+
+    Returns
+    -------
+    tuple
+        (path, text, {boring id: ((depth m, C kg m-3), ...) sorted by depth}).
+
+    Raises
+    ------
+    ScenarioError
+        Every problem, for every boring, in one message.
+    """
     path, text, id_col, f, rows = _boring_rows(
         r, "initial_file", data, {"depth": "length", "concentration": "concentration"},
         "id,depth [m],concentration [mg/L]")
@@ -313,7 +384,7 @@ def _read_initial(r, data, boring_ids, bottoms, borings_path):
             problems.setdefault(bid, []).append(f"{where}: negative concentration")
         elif range_error("concentration", "concentration", c) is not None:
             problems.setdefault(bid, []).append(
-                f"{where}: concentration {c * 1e3:.3g} mg/L is outside what the model "
+                f"{where}: concentration {c / MG_PER_L:.3g} mg/L is outside what the model "
                 "represents (" + range_error("concentration", "concentration", c)[0] + ")")
         else:
             samples.setdefault(bid, []).append((z, c, line))

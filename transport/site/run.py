@@ -19,7 +19,6 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
-import os
 import re
 import shutil
 from dataclasses import dataclass
@@ -27,8 +26,13 @@ from pathlib import Path
 
 import numpy as np
 
-from transport.io.atomic import OutputSet, atomic_write, clean_stale
-from transport.site.batch import DEFAULT_CHUNK, draw_samples, iter_chunks, plan_chunks
+from transport.io.atomic import STARTED, OutputSet, atomic_write, clean_stale, process_alive
+from transport.io.gis import (plot_site_map, station_table, write_geojson, write_geopackage,
+                              write_metrics_csv)
+from transport.io.netcdf import package_version
+from transport.io.site_netcdf import SiteNetCDFWriter
+from transport.site.batch import DEFAULT_CHUNK, iter_chunks, plan_chunks
+from transport.site.chunks import draw_samples
 
 __all__ = ["run_site", "SiteRunFiles"]
 
@@ -57,10 +61,8 @@ def _write_json(path, data):
 
 
 def _fingerprint(site, realizations, seed, sampling, chunk_size) -> str:
-    from transport.io.netcdf import _version
-
     text = json.dumps([site.fingerprint, realizations, seed, sampling, chunk_size,
-                       _version()])
+                       package_version()])
     return hashlib.sha256(text.encode()).hexdigest()
 
 
@@ -123,10 +125,9 @@ _CHUNK = re.compile(r"^chunk-(?P<index>\d{6})\.npz$")
 
 
 def _stale_legacy(path: Path, pid: int | None) -> bool:
-    from transport.io.atomic import _STARTED, _alive
-
     try:
-        return path.stat().st_mtime < _STARTED and not (pid is not None and _alive(pid))
+        return path.stat().st_mtime < STARTED and not (pid is not None
+                                                        and process_alive(pid))
     except OSError:
         return False
 
@@ -176,10 +177,6 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
     history : command line stored in the NetCDF ``history``
     stem : output file stem (default: the site file's stem)
     """
-    from transport.io.gis import (plot_site_map, station_table, write_geojson,
-                                      write_geopackage, write_metrics_csv)
-    from transport.io.site_netcdf import SiteNetCDFWriter
-
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     stem = stem or Path(site.path).stem
