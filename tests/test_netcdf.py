@@ -20,6 +20,7 @@ import io
 import json
 import os
 from dataclasses import dataclass, field
+from types import SimpleNamespace
 
 import netCDF4
 import numpy as np
@@ -344,3 +345,36 @@ def test_successful_write_replaces_file_and_leaves_no_temp(tmp_path):
     write_example(path, title="second run")
     assert read_column_netcdf(path).attrs["title"] == "second run"
     assert _leftovers(tmp_path, {"out.nc"}) == []
+
+
+def test_source_names_the_finite_volume_engine_of_a_finite_volume_run():
+    """A run solved by the finite-volume engine says so in ``source`` (CF 1.11 section
+    2.6.2: "the method of production of the original data"), and nothing of modes."""
+    from transport.solvers.engines import solve_column
+
+    column = Column((Layer(0.3, 0.4, 1e-9, 2.0), Layer(0.2, 0.3, 5e-10, 3.0)),
+                    Boundary("concentration", 0.1), Boundary("free-outflow"))
+    solution = solve_column(column, np.array([0.0, 0.5, 2.0]) * YEAR,
+                            np.linspace(0.0, 0.5, 11), engine="finite-volume")
+    served = {str(e) for e, t in zip(solution.engine_by_time, solution.times) if t > 0}
+    assert served == {"finite-volume"}
+    source = column_dataset(solution, title="fv").attrs["source"]
+    assert "engine finite-volume: finite-volume method of lines" in source
+    assert "eigenfunction" not in source and "modes" not in source
+
+
+def test_source_counts_the_output_times_of_each_engine_of_a_mixed_run():
+    """With per-time engine choices ``source`` names every engine with the number of
+    output times it served (counted here from ``engine_by_time`` by hand), and gives no
+    mode count where the run kept no modal series (n_modes = 0)."""
+    base = fake_solution(times_yr=(0.0, 0.01, 1.0, 5.0, 10.0))
+    by_time = np.array(["initial", "laplace", "modal", "modal", "modal"], dtype=object)
+    solution = SimpleNamespace(**{f: getattr(base, f) for f in base.__dataclass_fields__},
+                               engine_by_time=by_time, tolerance=1e-8)
+    solution.engine, solution.n_modes = "laplace+modal", 0
+    source = column_dataset(solution, title="mixed").attrs["source"]
+    assert "engine laplace+modal:" in source
+    assert "Talbot contour (at 1 of 4 output times)" in source
+    assert ("eigenfunction expansion on the exact layered spectrum, confirmed by numerical "
+            "Laplace inversion (at 3 of 4 output times)") in source
+    assert "0 modes" not in source

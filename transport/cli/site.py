@@ -8,6 +8,7 @@ itself, through :func:`transport.cli.common.fail`, so that it works on its own).
 from __future__ import annotations
 
 import shlex
+import sys
 import textwrap
 from pathlib import Path
 
@@ -76,7 +77,7 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
         # SIGTERM ends the run like Ctrl-C: temporary files are removed on the way out
         with terminate_as_exit(), click.progressbar(
                 length=len(loaded.borings), label="borings",
-                file=click.get_text_stream("stderr")) as bar:
+                file=sys.stderr) as bar:
             files = run_site(loaded, out_dir, realizations=realizations, seed=seed,
                              sampling=sampling, workers=workers, scheduler=scheduler,
                              chunk_size=chunk_size, progress=bar.update,
