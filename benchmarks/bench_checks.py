@@ -17,12 +17,13 @@ from transport.solvers.checks import (assemble, choose, concentration_bounds, ow
                               quantities)
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.modal.series import solve
+from transport.solvers.timeline import solve_timeline_modal
 from transport.api import solve_scenario
 from transport.scenario.schema import load_scenario
 
 HERE = os.path.join(os.path.dirname(__file__), "..", "scenarios")
 sys.path.insert(0, os.path.dirname(__file__))
-from bench_engines import _timed as _best  # noqa: E402  (best of three, same process)
+from bench_engines import timed as _best  # noqa: E402  (best of three, same process)
 
 
 def main():
@@ -34,9 +35,9 @@ def main():
         sc = load_scenario(path)
         if sc.timeline is not None and len(sc.timeline.stages) > 1:
             # staged: the whole checked run against the unchecked modal stages
-            from transport.solvers.timeline import _solve_timeline_modal
-            t_modal, _ = _best(lambda: _solve_timeline_modal(
-                sc.timeline, sc.times, sc.depths, sc.initial, sc.output.tolerance, 4000))
+            t_modal, _ = _best(lambda: solve_timeline_modal(
+                sc.timeline, sc.times, sc.depths, initial=sc.initial,
+                tolerance=sc.output.tolerance, max_modes=4000))
             t_run, (sol, _) = _best(lambda: solve_scenario(sc))
             print(f"{os.path.basename(path):34s} {t_modal:8.3f} {'(staged)':>9s} "
                   f"{'':>8s} {t_run:9.3f} {(t_run - t_modal) / t_run:10.0%} "
@@ -45,8 +46,9 @@ def main():
         col, t, z, init = sc.column, sc.times, sc.depths, sc.initial
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            t_modal, m = _best(lambda: solve(col, t, z, init, sc.output.tolerance))
-        t_lap, lap = _best(lambda: solve_laplace(col, t, z, init))
+            t_modal, m = _best(lambda: solve(col, t, z, initial=init,
+                                                    tolerance=sc.output.tolerance))
+        t_lap, lap = _best(lambda: solve_laplace(col, t, z, initial=init))
         bounds = concentration_bounds(col, init, float(t.max()))
         cands = [("modal", quantities(m), {q: np.full(t.size, np.nan) for q in
                                            ("concentration", "total_flux",

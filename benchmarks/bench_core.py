@@ -48,7 +48,7 @@ def main():
     series = build_series(col, n_modes=1000)
     z = np.linspace(0, col.length, 1000)
     t = np.linspace(0.1, 50, 1000) * YEAR
-    c_modes, _, c_lift, _ = series._fields(z)
+    c_modes, _, c_lift, _ = series.fields(z)
     coef = series.coefficients(t)
     t_syn = _best(lambda: series.concentration(z, t))
     t_prod = _best(lambda: c_modes @ coef)

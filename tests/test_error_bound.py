@@ -137,7 +137,7 @@ def test_error_estimates_bound_the_actual_errors():
 def _check_case(i, cell, col, times, depths, init, future, worst, violations, refusals):
     """Solve one case with auto; compare every estimated quantity with the reference."""
     try:
-        sol = solve_column(col, times, depths, init, engine="auto", tolerance=cell.tol)
+        sol = solve_column(col, times, depths, initial=init, engine="auto", tolerance=cell.tol)
     except UnreliableResultError as exc:
         refusals.append(f"#{i} {cell.name} ({','.join(exc.quantities)})")
         future.cancel()

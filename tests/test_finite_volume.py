@@ -19,8 +19,9 @@ from scipy.special import erfc
 from reference import crank_slab_series, laplace_reference
 from transport.verify import closed_forms as cf
 from transport.solvers.modal import series as modal
-from transport.solvers.fv.engine import (FVAccuracyWarning, build_mesh, build_storage, solve_fv,
-                                     solve_fv_result)
+from transport.solvers.fv.assembly import build_storage
+from transport.solvers.fv.engine import FVAccuracyWarning, solve_fv, solve_fv_result
+from transport.solvers.fv.mesh import build_mesh
 from transport.model.column import Boundary, Column, InitialState, InputError, Layer
 
 YEAR = 3.15576e7  # s, Julian year (IAU)
@@ -50,8 +51,8 @@ def test_freundlich_exponent_one_is_the_linear_discrete_system():
     theta: on the same mesh the two runs are the same discrete system, so they agree to
     the time integrator's tolerance (rtol 1e-8), far below the discretisation error."""
     lin, non, iso = _pair()
-    a = solve_fv(lin, T, Z, cells_per_layer=40)
-    b = solve_fv(non, T, Z, cells_per_layer=40, isotherm=iso)
+    a = solve_fv(lin, T, Z, cells_per_layer=40).concentration
+    b = solve_fv(non, T, Z, cells_per_layer=40, isotherm=iso).concentration
     assert np.max(np.abs(a - b)) < 1e-7
 
 
@@ -63,13 +64,13 @@ def test_freundlich_exponent_one_matches_modal_within_fv_error():
     and 5.8e-5 relative at 80 cells)."""
     lin, non, iso = _pair()
     ref = modal.solve(lin, T, Z)
-    errs = [np.max(np.abs(solve_fv(non, T, Z, cells_per_layer=n, isotherm=iso)
+    errs = [np.max(np.abs(solve_fv(non, T, Z, cells_per_layer=n, isotherm=iso).concentration
                           - ref.concentration)) for n in (20, 40, 80)]
     order = np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
     assert np.all(order > 1.8) and np.all(order < 2.3)
     assert errs[-1] < 2e-4
     # the estimated run reports the 80-cell mesh of the 20/40/80 sequence
-    sol = solve_fv_result(non, T, Z, cells_per_layer=40, isotherm=iso, tolerance=None)
+    sol = solve_fv_result(non, T, Z, cells_per_layer=40, isotherm=iso, refine=False)
     err = np.max(np.abs(sol.concentration - ref.concentration), axis=1)
     assert np.all(err <= sol.error_estimate)
     flux_err = np.max(np.abs(sol.total_flux - ref.total_flux)) / np.max(np.abs(ref.total_flux))
@@ -85,7 +86,7 @@ def test_fv_budget_closes_and_matches_modal_budget():
     multistep methods); the entered and decayed masses match the modal engine's closed
     forms within the FV error (measured 5e-5 relative at 80 cells)."""
     lin, _, _ = _pair()
-    fv = solve_fv_result(lin, T, [0.0], cells_per_layer=40, tolerance=None,
+    fv = solve_fv_result(lin, T, [0.0], cells_per_layer=40, refine=False,
                          initial=InitialState.uniform([0.2, 0.1])).budget
     mo = modal.solve(lin, T, [0.0], initial=InitialState.uniform([0.2, 0.1])).budget
     scale = np.max(np.abs(mo["entered_top"]))
@@ -121,9 +122,9 @@ def test_langmuir_front_sharpens_and_conserves_mass():
     t = np.array([0.4, 0.8]) / speed
     z = np.linspace(0, 1, 4001)
     lang = solve_fv_result(_front_column(), t, z, cells_per_layer=150, grading=1.0,
-                           isotherm=iso, tolerance=None)
+                           isotherm=iso, refine=False)
     lin = solve_fv(_front_column(ret=1 + rho * smax * kl / 0.4), t, z, cells_per_layer=300,
-                   grading=1.0)
+                   grading=1.0).concentration
     (w1, x1), (w2, x2) = (_width(z, c, c0) for c in lang.concentration)
     (v1, _), (v2, _) = (_width(z, c, c0) for c in lin)
     assert abs(w2 / w1 - 1) < 0.05
@@ -145,7 +146,8 @@ def test_freundlich_sublinear_decay_of_total_mass():
     iso = {"kind": "freundlich", "coefficient": kf, "exponent": n, "bulk_density": RHO}
     t = np.array([0.1, 1.0, 5.0]) * YEAR
     sol = solve_fv_result(col, t, [0.1, 0.4], initial=InitialState.uniform([0.05, 0.05]),
-                          cells_per_layer=10, isotherm=iso, rtol=1e-10, tolerance=None)
+                          cells_per_layer=10, isotherm=iso, time_tolerance=1e-10,
+                          refine=False)
     m0 = theta * 0.05 + RHO * kf * 0.05 ** n
     for i, ti in enumerate(t):
         target = m0 * np.exp(-mu * ti)
@@ -291,9 +293,9 @@ def test_tolerance_refines_until_met_and_warns_at_the_cell_cap():
         fine = solve_fv_result(col, t, z, tolerance=1e-5)
     assert np.all(np.max(np.abs(fine.concentration - ref), axis=1) <= 1e-5)
     default = solve_fv_result(col, t, z)
-    assert fine.cells > default.cells
+    assert fine.diagnostics["cells"] > default.diagnostics["cells"]
     with pytest.warns(FVAccuracyWarning, match="estimated error of C"):
-        capped = solve_fv_result(col, t, z, tolerance=1e-9, max_cells=2 * default.cells)
+        capped = solve_fv_result(col, t, z, tolerance=1e-9, max_cells=2 * default.diagnostics["cells"])
     _bounded(capped, ref)
 
 

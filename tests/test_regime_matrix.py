@@ -283,7 +283,8 @@ def test_regime_cell(cell):
     col, times, depths, init = build(cell)
     record_and_check(
         cell.name,
-        lambda: solve_column(col, times, depths, init, engine="auto", tolerance=cell.tol),
+        lambda: solve_column(col, times, depths, initial=init, engine="auto",
+                             tolerance=cell.tol),
         lambda: laplace_reference_full(col, depths, times, init, dps=REF_DPS),
         cell.tol)
 
@@ -455,7 +456,7 @@ def test_staged_cell(kind):
         keys = BUDGET_TERMS + ("removed",) if kind == "excavation" else BUDGET_TERMS
     record_and_check(
         f"staged-{kind}",
-        lambda: _TL.solve_timeline(tl, _ST_TIMES, depths, init, tolerance=tol,
+        lambda: _TL.solve_timeline(tl, _ST_TIMES, depths, initial=init, tolerance=tol,
                                    engine="auto"),
         reference, tol, keys)
 

@@ -265,8 +265,8 @@ def assert_station_equals_column_run(site, result, boring_id, scenario):
     Returns the single-column solution and the mask of grid depths inside the column."""
     k = site.ids.index(boring_id)
     inside = site.depths <= scenario.column.length + 1e-12
-    ref = solve(scenario.column, site.times, site.depths[inside], scenario.initial,
-                site.tolerance)
+    ref = solve(scenario.column, site.times, site.depths[inside], initial=scenario.initial,
+                tolerance=site.tolerance)
     for name in ("concentration", "cumulative_mass"):
         got, want = result.fields[name][k][:, inside], getattr(ref, name)
         assert np.max(np.abs(got - want)) <= 1e-12 * np.max(np.abs(want)), name

@@ -164,7 +164,7 @@ def steady_concentration(series, depth_local: float):
             return None
         final.append(sum(a for k, _, a, _ in sig.atoms if k == "step"))
     z = np.array([float(depth_local)])
-    _, _, c_lift, _ = series._fields(z)
+    _, _, c_lift, _ = series.fields(z)
     return float(c_lift[0] @ np.array(final))
 
 

@@ -2,7 +2,7 @@
 
 The mass per bulk volume of a cell is m(C) = theta R C + rho_b S(C): the linear part
 through the layer's retardation factor, plus an optional Freundlich or Langmuir isotherm
-S(C).  :func:`_isotherm_list` validates the per-layer isotherm input of
+S(C).  :func:`isotherm_list` validates the per-layer isotherm input of
 :func:`transport.solvers.fv.engine.solve_fv`; :class:`Storage` evaluates m(C), dm/dC and the
 inverse C(m) cell by cell.
 
@@ -19,7 +19,7 @@ import numpy as np
 
 from transport.model.column import Column, InputError
 
-__all__ = ["Storage"]
+__all__ = ["Storage", "isotherm_list"]
 
 _ISOTHERM_KEYS = {"freundlich": ("coefficient", "exponent", "bulk_density"),
                   "langmuir": ("capacity", "affinity", "bulk_density")}
@@ -29,8 +29,21 @@ _NEWTON_MAX = 100
 _TINY = 1e-290  # kg m-3: below any meaningful concentration, above the subnormal range
 
 
-def _isotherm_list(column: Column, isotherm) -> tuple:
-    """Per-layer isotherm dicts (None = linear only), validated; see :func:`solve_fv`."""
+def isotherm_list(column: Column, isotherm) -> tuple:
+    """Per-layer isotherm dicts, validated.
+
+    Parameters
+    ----------
+    column : Column
+    isotherm : None, dict or sequence of (dict or None)
+        One isotherm for every layer, or one entry per layer (see
+        :func:`transport.solvers.fv.engine.solve_fv`).
+
+    Returns
+    -------
+    tuple
+        One dict (or None: linear sorption only) per layer.
+    """
     n = len(column.layers)
     if isotherm is None:
         return (None,) * n

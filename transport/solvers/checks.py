@@ -37,6 +37,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from transport.solvers.result import Solution
+from transport.units import YEAR
+
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
            "budget_residual", "QUANTITIES", "quantities", "choose",
            "describe_refusal", "clip_to_bounds"]
@@ -192,7 +195,7 @@ def budget_residual(budget: dict) -> tuple[np.ndarray, np.ndarray]:
 
 
 # ----------------------------------------------------------------- quantities & choice
-def quantities(sol) -> dict:
+def quantities(sol: Solution) -> dict:
     """Every reported quantity of a solution as (nt, m) arrays."""
     nt = np.size(sol.times)
     return {"concentration": np.asarray(sol.concentration, float),
@@ -201,15 +204,15 @@ def quantities(sol) -> dict:
             "budget": budget_terms(sol.budget, nt)}
 
 
-def own_errors(sol) -> dict:
+def own_errors(sol: Solution) -> dict:
     """An engine's own per-time error bounds per quantity (absolute), or NaN where it
     gives none."""
     nt = np.size(sol.times)
-    err = getattr(sol, "error", None)
+    err = sol.error
     out = {}
     for q in QUANTITIES:
         e = None if err is None else err.get(q)
-        if e is None and q == "concentration" and getattr(sol, "error_estimate", None) is not None:
+        if e is None and q == "concentration" and sol.error_estimate is not None:
             e = sol.error_estimate
         out[q] = np.full(nt, np.nan) if e is None else np.asarray(e, float).reshape(nt)
     return out
@@ -398,7 +401,7 @@ def clip_to_bounds(column, bounds: Bounds | None, depths, conc, error):
 
 
 def describe_refusal(times, choice: Choice, tolerance: float, tried: str,
-                     year: float = 365.25 * 86400.0) -> str:
+                     year: float = YEAR) -> str:
     """One paragraph: which output times, which quantities, what was tried, what to do."""
     times = np.asarray(times, float)
     bad = ~choice.reliable

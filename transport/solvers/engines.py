@@ -19,58 +19,30 @@ quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
 
 import numpy as np
 
-from transport.solvers.modal import series as modal
-from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose, clip_to_bounds,
-                     concentration_bounds, describe_refusal, own_errors, quantities)
-from transport.solvers.fv.engine import solve_fv_result
-from transport.solvers.laplace import EngineSolution, solve_laplace
 from transport.model.column import Column, InitialState, InputError
-from transport.solvers.modal.projection import initial_profile
+from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
+                                      clip_to_bounds, concentration_bounds, describe_refusal,
+                                      own_errors, quantities)
+from transport.solvers.fv.engine import DEFAULT_TOLERANCE as FV_TOLERANCE
+from transport.solvers.fv.engine import solve_fv_result
+from transport.solvers.laplace import solve_laplace
+from transport.solvers.modal import series as modal
 from transport.solvers.modal.operator import build_operator
+from transport.solvers.modal.projection import initial_profile
+from transport.solvers.modal.sizing import DEFAULT_TOLERANCE
+from transport.solvers.result import Solution
 
-__all__ = ["solve_column", "ENGINES", "CheckedSolution", "ON_UNRELIABLE", "modal_evaluator",
-           "checked_fields"]
+__all__ = ["solve_column", "ENGINES", "ON_UNRELIABLE", "modal_evaluator", "checked_fields",
+           "DEFAULT_TOLERANCE", "FV_TOLERANCE"]
 
 ENGINES = ("auto", "modal", "laplace", "finite-volume")
 ON_UNRELIABLE = ("raise", "flag")
-#: Default relative tolerance; the finite-volume engine (a second-order scheme, whose
-#: error estimate comes from mesh doubling) defaults to a looser one.
-DEFAULT_TOLERANCE, FV_TOLERANCE = 1e-8, 1e-3
-
-
-@dataclass(frozen=True)
-class CheckedSolution(EngineSolution):
-    """An :class:`EngineSolution` whose every number was checked: ``error`` maps each
-    quantity ("concentration", "total_flux", "cumulative_mass", "budget") to its
-    absolute error bound per output time (nt,); ``reliable`` (nt,) is False where no
-    engine could vouch for a time (its values are then NaN); ``tolerance`` is the
-    relative tolerance asked for and ``scale`` the scale of each quantity it refers to."""
-
-    error: dict = field(default=None, repr=False, compare=False)
-    reliable: np.ndarray = field(default=None, repr=False, compare=False)
-    tolerance: float = None
-    scale: dict = field(default=None, repr=False, compare=False)
-    mass_at: object = field(default=None, repr=False, compare=False)
-
-    def cumulative_mass_at(self, depth: float, t: float):
-        """Vouched cumulative mass (kg m-2) through ``depth`` during (0, t), and its
-        error bound: the modal value where it agrees with the Laplace engine within the
-        tolerance, else the Laplace value with its own bound."""
-        lap_v, lap_e = self.mass_at(float(depth), float(t))
-        if self.series is not None:
-            try:
-                m = float(self.series.cumulative_mass(np.array([float(depth)]),
-                                                      np.array([float(t)]))[0, 0])
-            except (AttributeError, ValueError):
-                m = np.nan
-            diff = abs(m - lap_v) + lap_e
-            if np.isfinite(diff) and diff <= self.tolerance * self.scale["cumulative_mass"]:
-                return m, diff
-        return lap_v, lap_e
+# Default relative tolerances: DEFAULT_TOLERANCE (1e-8) of the modal series, and the
+# looser FV_TOLERANCE (1e-3) of the finite-volume engine (a second-order scheme, whose
+# error estimate comes from mesh doubling).
 
 
 def _weyl_modes(op, t, tolerance):
@@ -85,8 +57,9 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom):
         out = np.empty(t.size)
         pos = t > 0
         if pos.any():
-            out[pos] = solve_laplace(column, t[pos], [depth], initial,
-                                     semi_infinite_bottom).concentration[:, 0]
+            out[pos] = solve_laplace(column, t[pos], [depth], initial=initial,
+                                     semi_infinite_bottom=semi_infinite_bottom
+                                     ).concentration[:, 0]
         if (~pos).any():
             out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
         return out
@@ -122,19 +95,19 @@ def _expand(sol, rows, nt):
     return full_v, full_e, budget
 
 
-def solve_column(column: Column, times, depths, initial: InitialState = None,
-                 engine: str = "auto", tolerance: float = None, max_modes: int = 4000,
+def solve_column(column: Column, times, depths, *, initial: InitialState = None,
+                 tolerance: float = None, engine: str = "auto", max_modes: int = 4000,
                  semi_infinite_bottom: bool = False, cells_per_layer=None,
-                 on_unreliable: str = "raise"):
+                 on_unreliable: str = "raise") -> Solution:
     """Solve a layered column; every returned number is vouched for within ``tolerance``.
 
     Parameters
     ----------
     column, times (s), depths (m), initial : as :func:`transport.solvers.modal.series.solve`
-    engine : "auto" | "modal" | "laplace" | "finite-volume"
     tolerance : relative tolerance of every quantity, relative to the scale of its own
         series over the run (C: the largest concentration the inputs allow); default
         1e-8, and 1e-3 for the finite-volume engine
+    engine : "auto" | "modal" | "laplace" | "finite-volume"
     max_modes : cap of the modal series
     semi_infinite_bottom : last layer extends to infinity (Laplace engine only)
     cells_per_layer : finite-volume mesh (finite-volume engine only; default: planned
@@ -146,7 +119,7 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
 
     Returns
     -------
-    CheckedSolution with ``engine_by_time`` (nt,) strings ("modal", "laplace",
+    Solution with ``engine_by_time`` (nt,) strings ("modal", "laplace",
     "finite-volume", "initial" at t = 0, "" where refused), ``error`` (quantity ->
     (nt,) absolute bounds), ``error_estimate`` (that of C, kg m-3) and ``reliable``.
     ``concentration_at(depth, times)`` serves any times from the engine that was
@@ -168,7 +141,8 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
         raise InputError(f"a semi-infinite bottom layer needs the Laplace engine (or auto), "
                          f"not {engine!r}")
     nt = times.size
-    lap = solve_laplace(column, times, depths, initial, semi_infinite_bottom)
+    lap = solve_laplace(column, times, depths, initial=initial,
+                        semi_infinite_bottom=semi_infinite_bottom)
     everything = np.arange(nt)
     lap_c = _expand(lap, everything, nt)
     laplace_at = _laplace_evaluator(column, initial, semi_infinite_bottom)
@@ -179,8 +153,8 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
     if engine == "laplace" or semi_infinite_bottom:
         cands = [("laplace", lap_c)]
     elif engine == "finite-volume":
-        fv = solve_fv_result(column, times, depths, initial, cells_per_layer=cells_per_layer,
-                             tolerance=tolerance)
+        fv = solve_fv_result(column, times, depths, initial=initial, tolerance=tolerance,
+                             cells_per_layer=cells_per_layer)
         cands = [("finite-volume", _expand(fv, everything, nt)), ("laplace", lap_c)]
         evaluator = fv.evaluator
     else:
@@ -191,7 +165,8 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
                 if engine == "auto":  # the cross-check below settles what they warn of
                     warnings.simplefilter("ignore", modal.ModeCapWarning)
                     warnings.simplefilter("ignore", modal.AccuracyWarning)
-                sol = modal.solve(column, times[rows], depths, initial, tolerance, max_modes)
+                sol = modal.solve(column, times[rows], depths, initial=initial,
+                                  tolerance=tolerance, max_modes=max_modes)
             cands.append(("modal", _expand(sol, rows, nt)))
             series = sol.series
             eig, n_modes = sol.eigenvalues, sol.n_modes
@@ -212,10 +187,10 @@ def solve_column(column: Column, times, depths, initial: InitialState = None,
                                            choice.error["concentration"])
     series, evaluator = modal_evaluator(choice, times, series, evaluator)
     eig, n_modes = (eig, n_modes) if series is not None else (np.empty(0), 0)
-    return CheckedSolution(column=column, times=times, depths=depths, eigenvalues=eig,
-                           n_modes=n_modes, series=series, evaluator=evaluator,
-                           mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
-                           **checked_fields(choice, vals, budget, tolerance))
+    return Solution(column=column, times=times, depths=depths, eigenvalues=eig,
+                    n_modes=n_modes, series=series, evaluator=evaluator,
+                    mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
+                    **checked_fields(choice, vals, budget, tolerance))
 
 
 def modal_evaluator(choice, times, series, fallback):
@@ -231,7 +206,8 @@ def modal_evaluator(choice, times, series, fallback):
 
 
 def checked_fields(choice, vals, budget, tolerance) -> dict:
-    """The fields a :class:`CheckedSolution` takes from a choice between engines."""
+    """The fields a checked :class:`transport.solvers.result.Solution` takes from a choice
+    between engines."""
     names = sorted({e for e in choice.engine if e not in ("", "initial")})
     return dict(concentration=vals["concentration"], total_flux=vals["total_flux"],
                 cumulative_mass=vals["cumulative_mass"], budget=budget,
@@ -244,7 +220,8 @@ def _laplace_mass_at(column, initial, semi_infinite_bottom):
     def at(depth, t):
         if t <= 0:
             return 0.0, 0.0
-        sol = solve_laplace(column, [t], [depth], initial, semi_infinite_bottom)
+        sol = solve_laplace(column, [t], [depth], initial=initial,
+                            semi_infinite_bottom=semi_infinite_bottom)
         err = own_errors(sol)["cumulative_mass"][0]
         return float(sol.cumulative_mass[0, 0]), float(np.nan_to_num(err, nan=np.inf))
     return at

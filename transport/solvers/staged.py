@@ -87,7 +87,7 @@ def _handover(prev_col, prev_init, t_loc, prev_off, stage, local, scale, toleran
         def at(zl, j=j, k_old=k_old, bottom_jump=bottom_jump, factor=carry[i]):
             zo = np.clip(zl + shift, old_faces[j], old_faces[j + 1])
             if t_loc > 0:
-                r = solve_laplace(prev_col, [t_loc], zo, prev_init)
+                r = solve_laplace(prev_col, [t_loc], zo, initial=prev_init)
                 c, f = r.concentration[0].copy(), r.total_flux[0]
             else:
                 c = initial_profile(prev_col, prev_init, zo)
@@ -161,7 +161,7 @@ class StagedLaplace:
             pos = tl > 0
             if pos.any():
                 vals[pos] = solve_laplace(col, tl[pos], [max(zl, 0.0)],
-                                          self.initials[i]).concentration[:, 0]
+                                          initial=self.initials[i]).concentration[:, 0]
             if (~pos).any():
                 vals[~pos] = initial_profile(col, self.initials[i], np.array([max(zl, 0.0)]))[0]
             out[sel] = vals
@@ -184,7 +184,8 @@ def _mass_at(state, depth, t):
         zl = depth - st.offset
         if not -1e-12 <= zl <= col.length * (1 + 1e-12) or end <= 0:
             continue
-        r = solve_laplace(col, [end], [min(max(zl, 0.0), col.length)], state.initials[j])
+        r = solve_laplace(col, [end], [min(max(zl, 0.0), col.length)],
+                          initial=state.initials[j])
         total += float(r.cumulative_mass[0, 0])
         e = own_errors(r)["cumulative_mass"][0]
         err += float(np.nan_to_num(e, nan=np.inf)) + state.mass_errors[j]
@@ -225,13 +226,13 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
             budget_err.append(budget_err[-1] + float(np.nan_to_num(eb["budget"][0], nan=np.inf)))
             cum_err.append(cum_err[-1] + float(np.nan_to_num(eb["cumulative_mass"][0],
                                                              nan=np.inf)))
-            new_mass = float(solve_laplace(cols[i], [0.0], [0.0], inits[i])
+            new_mass = float(solve_laplace(cols[i], [0.0], [0.0], initial=inits[i])
                              .budget["stored"][0])
             totals["removed"] += float(b["stored"][0]) - new_mass
         carried.append(dict(totals))
         if i + 1 < len(stages):
             ends.append(solve_laplace(cols[i], [stages[i + 1].start - st.start],
-                                      np.array([0.0, cols[i].length]), inits[i]))
+                                      np.array([0.0, cols[i].length]), initial=inits[i]))
     vals = {"concentration": np.full((nt, nz), np.nan), "total_flux": np.full((nt, nz), np.nan),
             "cumulative_mass": np.full((nt, nz), np.nan)}
     own = {q: np.zeros(nt) for q in QUANTITIES}
@@ -239,7 +240,8 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
     keys = ("stored", "initial_stored", "entered_top", "left_bottom", "decayed", "produced",
             "removed", "residual")
     budget = {k: np.full(nt, np.nan) for k in keys}
-    init_mass = float(solve_laplace(cols[0], [0.0], [0.0], inits[0]).budget["stored"][0])
+    init_mass = float(solve_laplace(cols[0], [0.0], [0.0], initial=inits[0])
+                      .budget["stored"][0])
     idx = _stage_times(stages, times)
     for i in np.unique(idx):
         st, col = stages[i], cols[i]
@@ -248,7 +250,7 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
         zl = depths - st.offset
         inside = (zl >= -1e-12) & (zl <= col.length * (1 + 1e-12))
         zin = np.clip(zl[inside], 0.0, col.length)
-        sol = solve_laplace(col, tl, zin if zin.size else np.array([0.0]), inits[i])
+        sol = solve_laplace(col, tl, zin if zin.size else np.array([0.0]), initial=inits[i])
         q = quantities(sol)
         e = own_errors(sol)
         before = np.zeros(inside.sum())
@@ -258,7 +260,7 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
             ok = (zj >= -1e-12) & (zj <= cj.length * (1 + 1e-12))
             if ok.any():
                 r = solve_laplace(cj, [stages[j + 1].start - sj.start],
-                                  np.clip(zj[ok], 0.0, cj.length), inits[j])
+                                  np.clip(zj[ok], 0.0, cj.length), initial=inits[j])
                 before[ok] += r.cumulative_mass[0]
         if zin.size:
             vals["concentration"][np.ix_(sel, np.flatnonzero(inside))] = q["concentration"]

@@ -14,15 +14,24 @@ the mass removed with excavated soil.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, replace
+import warnings
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from transport.solvers.engines import CheckedSolution, checked_fields, modal_evaluator
-from transport.solvers.modal.series import ColumnSolution, build_series, earliest_time_after_change
-from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+from transport.model.column import Boundary, Column, InitialState, InputError
+from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError, assemble,
+                                      budget_terms, choose, clip_to_bounds,
+                                      concentration_bounds, describe_refusal, quantities)
+from transport.solvers.engines import checked_fields, modal_evaluator
+from transport.solvers.modal.projection import initial_profile
+from transport.solvers.modal.series import build_series
+from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
+                                            earliest_time_after_change)
+from transport.solvers.result import Solution
+from transport.solvers.staged import solve_staged_laplace
 
-__all__ = ["Stage", "Timeline", "solve_timeline", "remove_source", "excavate", "place_cap",
+__all__ = ["Stage", "Timeline", "solve_timeline", "solve_timeline_modal", "build_timeline", "remove_source", "excavate", "place_cap",
            "amend_layer", "set_flow", "set_boundary"]
 
 
@@ -340,9 +349,16 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
     return TimelineSeries(timeline, tuple(series), tuple(carried))
 
 
-def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e-8,
-                   max_modes=4000, engine: str = "auto", on_unreliable: str = "raise"):
+def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance=None,
+                   engine: str = "auto", max_modes=4000,
+                   on_unreliable: str = "raise") -> Solution:
     """Fields on the (time, depth) grid for a staged run; depths in the original frame.
+
+    ``initial`` is the state at t = 0 (default clean), ``tolerance`` the relative
+    tolerance of every quantity (default 1e-8), ``max_modes`` the cap of each stage's
+    modal series.  Returns a checked :class:`transport.solvers.result.Solution` with
+    ``timeline`` set and, where the modal stages serve a tail of the run, the staged
+    series as ``series``.
 
     ``engine``: "auto" (the modal stages where they agree with the staged Laplace engine
     of :mod:`transport.solvers.staged` within ``tolerance`` for every quantity, else the
@@ -351,9 +367,7 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
     can vouch for raise :class:`transport.solvers.checks.UnreliableResultError`, or with
     ``on_unreliable="flag"`` are NaN and flagged in ``reliable``.
     """
-    from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
-                         concentration_bounds, describe_refusal, quantities)
-    from transport.solvers.staged import solve_staged_laplace
+    tolerance = DEFAULT_TOLERANCE if tolerance is None else tolerance
     if engine not in ("auto", "modal", "laplace"):
         raise InputError(f"a scenario with [[actions]] runs on the auto, modal or laplace "
                          f"engine; {engine!r} does not take stages yet")
@@ -375,19 +389,16 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
     if all(np.all(b.kappa == 1.0) for b in stage_bounds):
         lo = [b.lo for b in stage_bounds]
         hi = [b.hi for b in stage_bounds]
-        from transport.solvers.checks import Bounds
         bounds = Bounds(None if None in lo else min(lo), None if None in hi else max(hi),
                         np.ones(len(timeline.stages[0].column.layers)))
     cands, series, modal_sol = [], None, None
     if engine in ("auto", "modal"):
-        import warnings
         with warnings.catch_warnings():
             if engine == "auto":
-                from transport.solvers.modal.series import AccuracyWarning, ModeCapWarning
                 warnings.simplefilter("ignore", AccuracyWarning)
                 warnings.simplefilter("ignore", ModeCapWarning)
-            modal_sol = _solve_timeline_modal(timeline, times, depths, initial, tolerance,
-                                              max_modes)
+            modal_sol = solve_timeline_modal(timeline, times, depths, initial=initial,
+                                             tolerance=tolerance, max_modes=max_modes)
         nan = {q: np.full(nt, np.nan) for q in QUANTITIES}
         cands.append(("modal", quantities(modal_sol), nan, modal_sol.budget))
         series = modal_sol.series
@@ -399,7 +410,6 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
     lv, lown, lbudget, staged, lwit = solve_staged_laplace(timeline, times, depths, initial,
                                                      tolerance, scale, local_column)
     lq = dict(lv)
-    from transport.solvers.checks import budget_terms
     lq["budget"] = budget_terms(lbudget, nt)
     cands.append(("laplace", lq, lown, lbudget))
     selectable = len(cands) if engine == "auto" else 1
@@ -415,47 +425,34 @@ def solve_timeline(timeline: Timeline, times, depths, initial=None, tolerance=1e
                                     [q for q in QUANTITIES
                                      if np.any(choice.failed[q] & ~choice.reliable)])
     vals, budget = assemble([c[:3] for c in cands], choice, [c[3] for c in cands])
-    from transport.solvers.checks import clip_to_bounds
     vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
     series, evaluator = modal_evaluator(choice, times, series, staged.concentration_at)
     n_modes = modal_sol.n_modes if series is not None else 0
     eig = modal_sol.eigenvalues if n_modes else np.empty(0)
-    return TimelineSolution(column=col0, times=times, depths=depths, eigenvalues=eig,
-                            n_modes=n_modes, series=series, evaluator=evaluator,
-                            timeline=timeline, mass_at=staged.mass_at,
-                            **checked_fields(choice, vals, budget, tolerance))
+    return Solution(column=col0, times=times, depths=depths, eigenvalues=eig,
+                    n_modes=n_modes, series=series, evaluator=evaluator, timeline=timeline,
+                    mass_at=staged.mass_at, **checked_fields(choice, vals, budget, tolerance))
 
 
-def _solve_timeline_modal(timeline: Timeline, times, depths, initial, tolerance,
-                          max_modes):
-    """The modal stages on the output grid (unchecked)."""
+def solve_timeline_modal(timeline: Timeline, times, depths, *, initial=None,
+                         tolerance=None, max_modes=4000) -> Solution:
+    """The modal stages on the output grid, unchecked (``engine="modal"``, the staged
+    series as ``series``); :func:`solve_timeline` checks them against the staged
+    Laplace engine."""
+    tolerance = DEFAULT_TOLERANCE if tolerance is None else tolerance
+    times = np.asarray(times, float).ravel()
+    depths = np.asarray(depths, float).ravel()
+    initial = initial if initial is not None else InitialState.clean()
     ts = build_timeline(timeline, initial, times, tolerance, max_modes)
     conc = ts.concentration(depths, times)
     first = timeline.stages[0]
     zero = times == 0
     if zero.any():
-        from transport.solvers.modal.projection import initial_profile
         conc[zero] = initial_profile(first.column, initial, depths)
-    return ColumnSolution(
+    return Solution(
         column=first.column, times=times, depths=depths, concentration=conc,
         total_flux=ts.total_flux(depths, times),
         cumulative_mass=np.where(zero[:, None], 0.0, ts.cumulative_mass(depths, times)),
-        budget=ts.budget(times), eigenvalues=ts.series[-1].eigenvalues,
-        n_modes=int(max(s.eigenvalues.size for s in ts.series)), series=ts)
-
-
-@dataclass(frozen=True)
-class TimelineSolution(CheckedSolution):
-    timeline: Timeline = field(default=None, repr=False, compare=False)
-
-    def roundoff_bound(self, z, t):
-        out = np.zeros((np.size(t), np.size(z)))
-        ts = self.series
-        idx = ts._stage_of(np.atleast_1d(t))
-        for i in np.unique(idx):
-            st = ts.timeline.stages[i]
-            zl = np.clip(np.atleast_1d(z) - st.offset, 0, st.column.length)
-            sel = idx == i
-            out[sel] = ts.series[i].roundoff_bound(zl, np.atleast_1d(t)[sel] - st.start)
-        return out
+        budget=ts.budget(times), engine="modal", eigenvalues=ts.series[-1].eigenvalues,
+        n_modes=int(max(s.eigenvalues.size for s in ts.series)), series=ts, timeline=timeline)

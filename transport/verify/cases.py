@@ -233,7 +233,8 @@ def _cross(column_fn, times, initial=None):
         t = np.asarray(times, float)
         want = _modal(col, t, z, initial).concentration
         cells = 80 if quick else 160
-        got = solve_fv(col, t, z, initial=initial, cells_per_layer=cells, rtol=1e-10)
+        got = solve_fv(col, t, z, initial=initial, cells_per_layer=cells,
+                       tolerance=1e-10).concentration
         scale = float(np.max(np.abs(want)))
         return _rel(got, want, scale), f"{cells} cells per layer", _profile(z, got, want)
     return run
@@ -250,8 +251,9 @@ def _scenario_case(path):
         z = np.unique(np.concatenate([np.linspace(0, col.length, 81), col.interfaces]))
         want = _modal(col, t, z, sc.initial).concentration
         cells = 160 if quick else 320  # a measured profile with a 2 cm jump needs fine cells
-        # rtol 1e-9: tighter steps round in the implicit solve of the stiff polymer sheet
-        got = solve_fv(col, t, z, initial=sc.initial, cells_per_layer=cells, rtol=1e-9)
+        # tolerance 1e-9: tighter steps round in the implicit solve of the stiff polymer sheet
+        got = solve_fv(col, t, z, initial=sc.initial, cells_per_layer=cells,
+                       tolerance=1e-9).concentration
         scale = float(np.max(np.abs(want)))
         return (_rel(got, want, scale), f"{t.size} times, {cells} cells per layer",
                 _profile(z, got, want))
@@ -319,7 +321,7 @@ def _freundlich_linear(quick):
            {"kind": "freundlich", "coefficient": kf * 0.45 / theta, "exponent": 1.0,
             "bulk_density": rho})
     z, t = np.linspace(0, 1, 41), np.array([0.5, 2, 10]) * YEAR
-    got = solve_fv(non, t, z, cells_per_layer=80, isotherm=iso)
+    got = solve_fv(non, t, z, cells_per_layer=80, isotherm=iso).concentration
     want = _modal(lin, t, z).concentration
     return _rel(got, want, 1.0), "Freundlich exponent 1, 80 cells per layer", _profile(z, got, want)
 
@@ -345,7 +347,7 @@ def _langmuir_front(quick):
     z = np.linspace(0, length, 6001)
     cells = (450, 900)
     widths = [_front_width(z, solve_fv(col, [1.3 / speed], z, cells_per_layer=n, grading=1.0,
-                                       isotherm=iso)[0], c0) for n in cells]
+                                       isotherm=iso).concentration[0], c0) for n in cells]
     extrap = widths[1] + (widths[1] - widths[0]) / 3  # Richardson, second order
     return (abs(extrap / want - 1), f"relative; width {extrap:.5g} m (Richardson from "
             f"{cells[0]}/{cells[1]} cells: {widths[0]:.5g}, {widths[1]:.5g}) vs {want:.5g} m", ())

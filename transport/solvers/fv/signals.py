@@ -1,7 +1,7 @@
 """Boundary values and layer sources that change in time, for the finite-volume engine.
 
 The semi-discrete face fluxes are F = Fmat C + f0, and f0 is linear in each boundary
-value (every closure of :func:`transport.solvers.fv.engine.assemble` is), so a scheduled end
+value (every closure of :func:`transport.solvers.fv.assembly.assemble` is), so a scheduled end
 contributes ``unit_end * value(t)`` with ``unit_end`` the f0 of a unit value at that end
 alone.  A scheduled layer source adds ``sigma_i * value_i(t)`` on the layer's cells.
 The integrator restarts at every change time of the schedules (steps and ramp kinks),
@@ -13,8 +13,11 @@ from __future__ import annotations
 from dataclasses import replace
 
 import numpy as np
+import scipy.sparse as sp
+from scipy.linalg.lapack import dgttrf, dgttrs
+from scipy.sparse.linalg import splu
 
-__all__ = ["Signals"]
+__all__ = ["Signals", "MarchFailure", "march_linear"]
 
 _VALUE_KINDS = ("concentration", "flux", "inlet", "mass-transfer")
 
@@ -143,10 +146,6 @@ def march_linear(jac, pmat, drive, t_a, t_b, y0, q0, t_eval, rtol, atol_y, atol_
     ``drive(t)`` returns (d, e) at t; t_eval (sorted, in (t_a, t_b]) are hit exactly.
     Returns (y, q) arrays (len(t_eval), n) and (len(t_eval), n_q).
     """
-    import scipy.sparse as sp
-    from scipy.linalg.lapack import dgttrf, dgttrs
-    from scipy.sparse.linalg import splu
-
     n = y0.size
     jac = sp.csr_matrix(jac)
     lower, diag, upper = jac.diagonal(-1), jac.diagonal(0), jac.diagonal(1)

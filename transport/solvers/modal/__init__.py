@@ -2,14 +2,15 @@
 
 ``operator`` (coefficients, boundary rows) -> ``spectrum`` (eigenvalues by the Pruefer
 angle) and ``eigenfunctions`` (two-sided shooting) -> ``lifting`` (steady responses) and
-``projection`` (quadrature, Green's-function integrals) -> ``series`` (the solution).
+``projection`` (quadrature, Green's-function integrals) -> ``sizing`` (mode count) ->
+``series`` (the solution).
 """
 from transport.solvers.modal.eigenfunctions import Modes, modes
 from transport.solvers.modal.operator import Operator, SpectrumError, build_operator
-from transport.solvers.modal.series import (AccuracyWarning, ColumnSolution, ModalSeries,
-                                            ModeCapWarning, build_series, solve)
+from transport.solvers.modal.series import ModalSeries, build_series, solve
+from transport.solvers.modal.sizing import AccuracyWarning, ModeCapWarning
 from transport.solvers.modal.spectrum import count_below, eigenvalues
 
 __all__ = ["Modes", "modes", "Operator", "SpectrumError", "build_operator", "count_below",
-           "eigenvalues", "AccuracyWarning", "ColumnSolution", "ModalSeries",
+           "eigenvalues", "AccuracyWarning", "ModalSeries",
            "ModeCapWarning", "build_series", "solve"]

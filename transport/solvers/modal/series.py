@@ -25,41 +25,22 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from transport.solvers.modal.lifting import SteadyResponses, steady_responses
 from transport.model.column import Column, InitialState, InputError, check_output_grid
-from transport.solvers.modal.projection import gauss_nodes, green_flux, initial_profile
 from transport.model.schedules import Schedule, phi
 from transport.solvers.modal.eigenfunctions import Modes, modes
+from transport.solvers.modal.lifting import SteadyResponses, steady_responses
 from transport.solvers.modal.operator import Operator, build_operator
+from transport.solvers.modal.projection import gauss_nodes, green_flux, initial_profile
+from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
+                                            column_signals, earliest_time_after_change,
+                                            mode_count, required_modes)
 from transport.solvers.modal.spectrum import eigenvalues
+from transport.solvers.result import Solution
 
-__all__ = ["solve", "ColumnSolution", "ModalSeries", "ModeCapWarning", "AccuracyWarning",
-           "build_series", "required_modes", "initial_profile", "column_signals"]
-
-
-class ModeCapWarning(UserWarning):
-    """The mode cap stops the series from meeting the tolerance at the earliest times."""
-
-
-class AccuracyWarning(UserWarning):
-    """Rounding error (high Peclet number, early time) exceeds the requested tolerance."""
-
-
-def column_signals(column: Column, op: Operator):
-    """Signals b_k(t) (Schedules) of the top, bottom and per-layer source responses."""
-    def bc_signal(bc, gamma):
-        if gamma == 0.0:
-            return Schedule()
-        sched = bc.schedule if bc.schedule is not None else Schedule.constant(bc.value)
-        return sched.scaled(gamma)
-    sig = [bc_signal(column.top, op.top_u[2]), bc_signal(column.bottom, op.bottom_u[2])]
-    for lay in column.layers:
-        if lay.source_rate == 0.0:
-            sig.append(Schedule())
-        else:
-            sig.append(lay.source_schedule if lay.source_schedule is not None
-                       else Schedule.constant(1.0))
-    return tuple(sig)
+# the sizing names are re-exported: callers find the whole modal engine here
+__all__ = ["solve", "ModalSeries", "ModeCapWarning", "AccuracyWarning", "build_series",
+           "required_modes", "initial_profile", "column_signals", "earliest_time_after_change",
+           "DEFAULT_TOLERANCE"]
 
 
 @dataclass(frozen=True)
@@ -152,9 +133,21 @@ class ModalSeries:
             out += w[:, None] * unit.modal(lam, t, self.eps, True, left=True)
         return out
 
-    def _fields(self, z):
-        """Matrices for C and F at depths z: (z, modes) and lifting (z, K); kept for the
-        last depth grid asked for (the probes and the tail corrections share it)."""
+    def fields(self, z):
+        """Matrices that map coefficients to C and F at depths z.
+
+        Parameters
+        ----------
+        z : array_like (nz,)
+            Depths, m (local to the column).
+
+        Returns
+        -------
+        (c_modes, f_modes, c_lift, f_lift)
+            Read-only arrays: C and F per mode (nz, n) and per lifting (nz, K), so that
+            C = c_modes @ a(t) + c_lift @ b(t) (plus the tail correction).  Kept for the
+            last depth grid asked for (the probes and the tail corrections share it).
+        """
         op = self.op
         z = np.atleast_1d(np.asarray(z, dtype=float))
         key = ("fields", z.tobytes())
@@ -171,22 +164,32 @@ class ModalSeries:
         self._cache["fields"] = (key, out)
         return out
 
-    def _drive(self, t):
-        """eps b_k(t) - b_k'(t): the quasi-static forcing of each lifting, (K, nt), as
-        the left limit at a change time (the modes beyond the truncation have not yet
-        responded to a change at that very instant)."""
+    def drive(self, t):
+        """Quasi-static forcing eps b_k(t) - b_k'(t) of each lifting.
+
+        Parameters
+        ----------
+        t : array_like (nt,)
+            Times, s.
+
+        Returns
+        -------
+        ndarray (K, nt)
+            The left limit at a change time (the modes beyond the truncation have not
+            yet responded to a change at that very instant).
+        """
         t = np.atleast_1d(np.asarray(t, dtype=float))
         return np.array([self.eps * s.value(t, left=True) - s.derivative(t)
                          for s in self.signals])
 
     def concentration(self, z, t):
         """C (kg m-3), shape (t.size, z.size)."""
-        c_modes, _, c_lift, _ = self._fields(z)
+        c_modes, _, c_lift, _ = self.fields(z)
         out = (c_modes @ self.coefficients(t) + c_lift @ self.signal_values(t)).T
-        drive = self._drive(t)
-        if np.any(drive):
-            corr = self._tail_corrections(z)["C"][:, 1:]
-            out = out + (corr @ drive).T
+        forcing = self.drive(t)
+        if np.any(forcing):
+            corr = self.tail_corrections(z)["C"][:, 1:]
+            out = out + (corr @ forcing).T
         return out
 
     def concentration_at(self, depth, times):
@@ -194,12 +197,12 @@ class ModalSeries:
         return self.concentration(np.array([float(depth)]), times)[:, 0]
 
     def total_flux(self, z, t):
-        _, f_modes, _, f_lift = self._fields(z)
+        _, f_modes, _, f_lift = self.fields(z)
         out = (f_modes @ self.coefficients(t) + f_lift @ self.signal_values(t)).T
-        drive = self._drive(t)
-        if np.any(drive):
-            corr = self._tail_corrections(z)["F"][:, 1:]
-            out = out + (corr @ drive).T
+        forcing = self.drive(t)
+        if np.any(forcing):
+            corr = self.tail_corrections(z)["F"][:, 1:]
+            out = out + (corr @ forcing).T
         return out
 
     def roundoff_bound(self, z, t, c_modes=None):
@@ -208,9 +211,9 @@ class ModalSeries:
         The series is summed in the symmetric variable v = e^{-A} u; rounding errors of
         the terms, before they cancel, are multiplied by e^{A(z)} on the way back.  At
         high Peclet numbers and early times this, not the mode count, limits accuracy.
-        ``c_modes``: the concentration rows of :meth:`_fields` at z, if at hand."""
+        ``c_modes``: the concentration rows of :meth:`fields` at z, if at hand."""
         if c_modes is None:
-            c_modes = self._fields(z)[0]
+            c_modes = self.fields(z)[0]
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam[:, None]
         size = np.abs(self.proj0)[:, None] * np.exp(-lam * t[None, :])
@@ -235,8 +238,10 @@ class ModalSeries:
             uq, _ = self.lifting.evaluate(zq)
         return np.column_stack([u0, uq])
 
-    def _tail_corrections(self, z):
-        """Exact minus truncated 1/(lambda + eps) sums, for the initial state (column 0)
+    def tail_corrections(self, z):
+        """Tail corrections of the truncated series at depths z (dict of arrays).
+
+        Exact minus truncated 1/(lambda + eps) sums, for the initial state (column 0)
         and each lifting (columns 1..K): "C" values (nz, 1+K) and "F" fluxes at z, and
         "D" for the decayed mass (1+K,).  Modes beyond the truncation respond
         quasi-statically, a_n ~ c_kn (eps b_k - b_k') / (lambda_n + eps); these sums
@@ -261,7 +266,7 @@ class ModalSeries:
         coef = np.vstack([self.proj0, self.lift_coef]) / lam_e[None, :]  # (1+K, n)
         stored_w = coef @ self.mass_modes.sum(axis=0)  # int a W, converges fast
         QD = Fe[0] - Fe[1] + integ - self.eps * stored_w
-        c_modes, f_modes, _, _ = self._fields(z)
+        c_modes, f_modes, _, _ = self.fields(z)
         D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
         lay = self.modes.layer_of(z)
         out = {"C": op.kappa[lay][:, None] * U[:z.size] - c_modes @ coef.T,
@@ -271,10 +276,23 @@ class ModalSeries:
         cache[key] = out
         return out
 
-    def _integrated_correction(self, corr, t):
-        """corr_0 H(t) + sum_k (eps int_0^t b_k - b_k(t)) corr_k  (corr: (..., 1+K))."""
+    def integrated_correction(self, corr, t):
+        """Time integral of the tail correction: corr_0 H(t) + sum_k (eps int_0^t b_k -
+        b_k(t)) corr_k.
+
+        Parameters
+        ----------
+        corr : array_like (m, 1 + K)
+            Corrections of :meth:`tail_corrections` (initial state, then each lifting).
+        t : array_like (nt,)
+            Times, s.
+
+        Returns
+        -------
+        ndarray (nt, m)
+        """
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        # left limits at a change time, as in _drive: (K, nt)
+        # left limits at a change time, as in :meth:`drive`: (K, nt)
         weight = self.eps * self.signal_integrals(t) - self.signal_values(t)
         corr = np.atleast_2d(corr)
         return (np.outer((t > 0).astype(float), corr[:, 0])
@@ -283,9 +301,9 @@ class ModalSeries:
     def cumulative_mass(self, z, t):
         """Mass per area that crossed depth z downward during (0, t) (kg m-2)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        _, f_modes, _, f_lift = self._fields(z)
+        _, f_modes, _, f_lift = self.fields(z)
         out = (f_modes @ self.integrated_coefficients(t) + f_lift @ self.signal_integrals(t)).T
-        out = out + self._integrated_correction(self._tail_corrections(z)["F"], t)
+        out = out + self.integrated_correction(self.tail_corrections(z)["F"], t)
         return np.where(t[:, None] == 0, 0.0, out)
 
     def budget(self, t):
@@ -300,8 +318,8 @@ class ModalSeries:
         stored = self.mass_modes.sum(axis=0) @ coef + self.mass_lift.sum(axis=0) @ b
         D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
         decayed = D @ icoef + (op.decay @ self.mass_lift) @ ib
-        corr_d = self._tail_corrections(np.array([0.0]))["D"]
-        decayed = decayed + self._integrated_correction(corr_d[None, :], t)[:, 0]
+        corr_d = self.tail_corrections(np.array([0.0]))["D"]
+        decayed = decayed + self.integrated_correction(corr_d[None, :], t)[:, 0]
         decayed = np.where(t == 0, 0.0, decayed)
         produced = (op.source * op.thickness) @ ib[2:]
         cum = self.cumulative_mass(np.array([0.0, op.z[-1]]), t)
@@ -311,39 +329,6 @@ class ModalSeries:
         return {"stored": stored, "initial_stored": np.full(t.size, self.initial_mass),
                 "entered_top": entered, "left_bottom": left, "decayed": decayed,
                 "produced": produced, "residual": residual}
-
-
-def required_modes(op: Operator, t_min: float, tolerance: float, n_max: int) -> int:
-    """Mode count with lambda_N t_min >= ln(1/tol) + ln N + 2 (tail bound), Weyl estimate."""
-    weyl = float(np.sum(op.thickness * np.sqrt(op.a / op.k)))
-    shift = float(np.min(op.s / op.a))
-    n = 8
-    for _ in range(60):
-        target = (math.log(1 / tolerance) + math.log(n) + 2) / t_min
-        n_new = int(math.ceil(weyl / math.pi * math.sqrt(max(target - shift, 0.0)))) + 4
-        if n_new <= n:
-            break
-        n = min(n_new, n_max)
-        if n == n_max:
-            break
-    return max(n, 8)
-
-
-def _mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
-    n_modes = required_modes(op, t_min, tolerance, max_modes)
-    lam = eigenvalues(op, n_modes)
-    target = max((math.log(1 / tolerance) + math.log(n_modes) + 2) / t_min, lam_floor)
-    while lam[-1] < target and n_modes < max_modes:
-        n_modes = min(max_modes, int(n_modes * 1.5) + 8)
-        lam = eigenvalues(op, n_modes)
-    if lam[-1] < target:
-        t_ok = (math.log(1 / tolerance) + math.log(n_modes) + 2) / lam[-1]
-        warnings.warn(
-            f"{n_modes} modes (the cap) do not meet the tolerance {tolerance:g} at the "
-            f"earliest time {t_min:.4g} s after a change; results are accurate from about "
-            f"{t_ok:.4g} s after it. Raise max_modes or use later output times.",
-            ModeCapWarning, stacklevel=4)
-    return lam
 
 
 def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
@@ -367,7 +352,7 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
         rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
                  if kind == "decay"]
         floor = max(rates, default=0.0) / math.sqrt(tolerance)
-        lam = _mode_count(op, t_min, tolerance, max_modes, floor)
+        lam = mode_count(op, t_min, tolerance, max_modes, floor)
     else:
         lam = eigenvalues(op, n_modes)
     md = modes(op, lam)
@@ -420,61 +405,42 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
                        breaks=tuple(breaks), extra_rate=extra_rate)
 
 
-@dataclass(frozen=True)
-class ColumnSolution:
-    """Fields of one column on a (time, depth) grid, SI units (see API notes)."""
+def solve(column: Column, times, depths, *, initial=None, tolerance: float = None,
+          max_modes: int = 4000, n_modes: int = None) -> Solution:
+    """Solve the layered column at ``times`` (s) and ``depths`` (m) by the modal series.
 
-    column: Column
-    times: np.ndarray
-    depths: np.ndarray
-    concentration: np.ndarray
-    total_flux: np.ndarray
-    cumulative_mass: np.ndarray
-    budget: dict
-    eigenvalues: np.ndarray
-    n_modes: int
-    engine: str = "modal"
-    series: ModalSeries = field(default=None, repr=False, compare=False)
+    Parameters
+    ----------
+    column : Column
+    times : array_like (nt,)
+        Output times, s, >= 0; at t = 0 the initial profile itself is returned (the
+        series is not used there).
+    depths : array_like (nz,)
+        Output depths, m, in [0, L].
+    initial : InitialState, optional
+        Default clean.
+    tolerance : float, optional
+        Relative tolerance of the tail bound that sizes the series (default 1e-8).
+    max_modes : int
+        Cap of the mode count.
+    n_modes : int, optional
+        Mode count; default from the earliest positive time after a change of a
+        boundary or source signal and the tolerance.
 
-    def roundoff_bound(self, z, t):
-        """Estimated rounding error of C (kg m-3), shape (t.size, z.size)."""
-        return self.series.roundoff_bound(z, t)
+    Returns
+    -------
+    Solution
+        ``engine="modal"``, the series as ``series``, ``n_modes`` and ``eigenvalues``;
+        no error bounds (:func:`transport.solvers.engines.solve_column` checks it).
 
-    def concentration_at(self, depth, times):
-        return self.series.concentration_at(depth, times)
-
-    def to_dataset(self, title: str = "stratiflux column"):
-        """The fields as an xarray.Dataset (CF layout, units in the attributes)."""
-        from transport.io.netcdf import column_dataset
-        return column_dataset(self, title=title)
-
-
-def earliest_time_after_change(column: Column, times) -> float | None:
-    """Smallest positive (t - t_change) over output times and signal switch-on times."""
-    times = np.asarray(times, dtype=float)
-    changes = {0.0}
-    for sched in (column.top.schedule, column.bottom.schedule,
-                  *(lay.source_schedule for lay in column.layers)):
-        if sched is not None:
-            changes.update(sched.change_times)
-    gaps = [t - c for t in times for c in changes if t - c > 0]
-    if not gaps:
-        return None
-    # resolve every change as finely as the run's start, so that continuous-time
-    # metrics are accurate after each change, not only at the output times
-    return min(min(gaps), float(times[times > 0].min()))
-
-
-def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,
-          max_modes: int = 4000, n_modes: int = None):
-    """Solve the layered column at ``times`` (s) and ``depths`` (m).
-
-    Returns a :class:`ColumnSolution`.  At t = 0 the initial profile itself is returned
-    (the series is not used there).  Mode count: from the earliest positive time after a
-    change of a boundary or source signal and the tolerance, unless ``n_modes`` is
-    given; :class:`ModeCapWarning` if the cap prevents meeting the tolerance,
-    :class:`AccuracyWarning` if rounding (high Peclet, early time) exceeds it.
+    Warns
+    -----
+    ModeCapWarning
+        If the cap prevents meeting the tolerance.
+    AccuracyWarning
+        If rounding (high Peclet number, early time) exceeds it.
     """
+    tolerance = DEFAULT_TOLERANCE if tolerance is None else tolerance
     initial = initial if initial is not None else InitialState.clean()
     times, depths = check_output_grid(column, times, depths)
     t_min = earliest_time_after_change(column, times)
@@ -499,7 +465,7 @@ def solve(column: Column, times, depths, initial=None, tolerance: float = 1e-8,
     zero = times == 0
     if zero.any():
         conc[zero] = initial_profile(column, initial, depths)
-    return ColumnSolution(column=column, times=times, depths=depths, concentration=conc,
-                          total_flux=flux, cumulative_mass=cum, budget=series.budget(times),
-                          eigenvalues=series.eigenvalues, n_modes=series.eigenvalues.size,
-                          series=series)
+    return Solution(column=column, times=times, depths=depths, concentration=conc,
+                    total_flux=flux, cumulative_mass=cum, budget=series.budget(times),
+                    engine="modal", eigenvalues=series.eigenvalues,
+                    n_modes=series.eigenvalues.size, series=series)
