@@ -18,12 +18,12 @@ from __future__ import annotations
 
 import datetime as _dt
 import os
+import sys
 from importlib.metadata import PackageNotFoundError, version
 
 import numpy as np
 import xarray as xr
 
-from transport import __version__
 from transport.caution import CAUTION
 from transport.io.atomic import stage_or_write
 from transport.units import DAY
@@ -73,7 +73,9 @@ def package_version() -> str:
     try:
         return version("stratiflux")
     except PackageNotFoundError:
-        return str(__version__)
+        # the package is loaded (this module is part of it); reading its attribute
+        # instead of importing it keeps the package's lazy namespace out of the graph
+        return str(sys.modules["transport"].__version__)
 
 
 def utc_now() -> str:
