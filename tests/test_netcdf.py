@@ -7,8 +7,8 @@ External references used here:
 * UDUNITS-2 unit grammar, checked with cf-units (the UDUNITS-2 C library binding);
 * netCDF4-python reading the file independently of xarray.
 
-The solution written is a stand-in object with the attributes of
-``transport.solvers.modal.series.ColumnSolution``; its fields are the semi-infinite fixed-surface
+The solution written is a :class:`transport.solvers.result.Solution` (the type every
+engine returns) filled by hand; its fields are the semi-infinite fixed-surface
 diffusion solution C = C0 erfc(z / (2 sqrt(D t / R))) (Crank 1975, *The Mathematics of
 Diffusion*, 2nd ed., eq. 2.45 with a retarded time) so the file holds realistic data.
 The checks below are on the file, not on the physics.
@@ -19,8 +19,7 @@ import contextlib
 import io
 import json
 import os
-from dataclasses import dataclass, field
-from types import SimpleNamespace
+from dataclasses import replace
 
 import netCDF4
 import numpy as np
@@ -36,38 +35,21 @@ from transport.io.netcdf import (
     write_column_netcdf,
 )
 from transport.model.column import Boundary, Column, Layer
+from transport.solvers.result import Solution
 
 YEAR = 365.25 * 86400.0
 BUDGET_KEYS = ("stored", "initial_stored", "entered_top", "left_bottom", "decayed",
                "produced", "residual")
 
 
-@dataclass(frozen=True)
-class FakeSolution:
-    """Stand-in with the attribute names of transport.solvers.modal.series.ColumnSolution."""
-
-    column: Column
-    times: np.ndarray
-    depths: np.ndarray
-    concentration: np.ndarray
-    total_flux: np.ndarray
-    cumulative_mass: np.ndarray
-    budget: dict
-    eigenvalues: np.ndarray = field(default_factory=lambda: np.array([1e-9]))
-    n_modes: int = 1
-    engine: str = "modal"
-    c0: float = 0.12
-    diffusivity: float = 1e-9
-    retardation: float = 2.0
-
-    def concentration_at(self, depth, times):
-        """Crank (1975) eq. 2.45, continuous in time (0 at t = 0 below the surface)."""
-        t = np.asarray(times, dtype=float)
-        scale = np.sqrt(4.0 * self.diffusivity * np.maximum(t, 1e-300) / self.retardation)
-        return np.where(t > 0, self.c0 * erfc(depth / scale), 0.0 if depth > 0 else self.c0)
+def crank_surface(depth, times, c0=0.12, diffusivity=1e-9, retardation=2.0):
+    """Crank (1975) eq. 2.45, continuous in time (0 at t = 0 below the surface)."""
+    t = np.asarray(times, dtype=float)
+    scale = np.sqrt(4.0 * diffusivity * np.maximum(t, 1e-300) / retardation)
+    return np.where(t > 0, c0 * erfc(depth / scale), 0.0 if depth > 0 else c0)
 
 
-def fake_solution(times_yr=(0.0, 1.0, 5.0, 10.0, 50.0), nz=41) -> FakeSolution:
+def fake_solution(times_yr=(0.0, 1.0, 5.0, 10.0, 50.0), nz=41) -> Solution:
     """A two-layer column (invented demo values) with erfc fields."""
     layers = (Layer(0.8, 0.35, 1e-9, 2.0, name="fill"),
               Layer(1.2, 0.45, 4e-10, 6.0, decay_rate=1e-9, name="silty clay"))
@@ -75,8 +57,7 @@ def fake_solution(times_yr=(0.0, 1.0, 5.0, 10.0, 50.0), nz=41) -> FakeSolution:
                     darcy_flux=1e-9)
     times = np.asarray(times_yr, dtype=float) * YEAR
     depths = np.linspace(0.0, column.length, nz)
-    base = FakeSolution(column, times, depths, None, None, None, {})
-    conc = np.array([base.concentration_at(z, times) for z in depths]).T
+    conc = np.array([crank_surface(z, times) for z in depths]).T
     theta_d = 0.35 * 1e-9
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         t = np.maximum(times[:, None], 1e-300)
@@ -86,8 +67,10 @@ def fake_solution(times_yr=(0.0, 1.0, 5.0, 10.0, 50.0), nz=41) -> FakeSolution:
                                       np.diff(times)[:, None] * flux[1:]]), axis=0)
     budget = {key: np.linspace(0.0, 0.01 * (i + 1), times.size)
               for i, key in enumerate(BUDGET_KEYS)}
-    return FakeSolution(column, times, depths, conc, flux, cumulative, budget,
-                        eigenvalues=np.array([1e-10, 4e-10, 9e-10]), n_modes=3)
+    return Solution(column=column, times=times, depths=depths, concentration=conc,
+                    total_flux=flux, cumulative_mass=cumulative, budget=budget,
+                    engine="modal", eigenvalues=np.array([1e-10, 4e-10, 9e-10]), n_modes=3,
+                    evaluator=crank_surface)
 
 
 def write_example(path, **kwargs):
@@ -267,8 +250,8 @@ def test_round_trip_property(tmp_path_factory):
     @hypothesis.settings(max_examples=15, deadline=None)
     @hypothesis.given(arrays(np.float64, base.concentration.shape, elements=finite))
     def check(values):
-        solution = FakeSolution(base.column, base.times, base.depths, values, values,
-                                values, base.budget)
+        solution = replace(base, concentration=values, total_flux=values,
+                           cumulative_mass=values)
         path = directory / "p.nc"
         write_column_netcdf(solution, path, title="property")
         np.testing.assert_array_equal(read_column_netcdf(path)["concentration"].values,
@@ -280,8 +263,7 @@ def test_round_trip_property(tmp_path_factory):
 def test_rejects_mismatched_shapes():
     """A field whose shape is not (times, depths) is refused before any file is made."""
     good = fake_solution(nz=5)
-    bad = FakeSolution(good.column, good.times, good.depths, good.concentration[:, :-1],
-                       good.total_flux, good.cumulative_mass, good.budget)
+    bad = replace(good, concentration=good.concentration[:, :-1])
     with pytest.raises(ValueError, match="concentration"):
         column_dataset(bad, title="bad")
 
@@ -369,9 +351,8 @@ def test_source_counts_the_output_times_of_each_engine_of_a_mixed_run():
     mode count where the run kept no modal series (n_modes = 0)."""
     base = fake_solution(times_yr=(0.0, 0.01, 1.0, 5.0, 10.0))
     by_time = np.array(["initial", "laplace", "modal", "modal", "modal"], dtype=object)
-    solution = SimpleNamespace(**{f: getattr(base, f) for f in base.__dataclass_fields__},
-                               engine_by_time=by_time, tolerance=1e-8)
-    solution.engine, solution.n_modes = "laplace+modal", 0
+    solution = replace(base, engine_by_time=by_time, tolerance=1e-8, engine="laplace+modal",
+                       n_modes=0)
     source = column_dataset(solution, title="mixed").attrs["source"]
     assert "engine laplace+modal:" in source
     assert "Talbot contour (at 1 of 4 output times)" in source

@@ -220,9 +220,10 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
 
     Parameters
     ----------
-    solution : ColumnSolution
-        Result of ``transport.solvers.modal.series.solve`` (or any object with the same attributes:
-        ``column, times, depths, concentration, total_flux, cumulative_mass, budget,
+    solution : Solution
+        What an engine returns (:class:`transport.solvers.result.Solution`), or any
+        object with the same attributes
+        (``column, times, depths, concentration, total_flux, cumulative_mass, budget,
         n_modes, engine``), SI units.
     title : str
         Short title of the run (the scenario title).
