@@ -1,1 +1,3 @@
-"""verify."""
+"""Verification: published closed forms (``closed_forms``), the cases (``cases``) and
+the report of ``stratiflux verify`` (``report``).
+"""
