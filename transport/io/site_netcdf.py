@@ -151,8 +151,10 @@ class SiteNetCDFWriter:
                         "boring), with per-boring breakthrough, peak and mass metrics at the "
                         "receptor" + (" and Monte Carlo exceedance probabilities" if mc
                                       else "") + "."),
-            "source": f"stratiflux {package_version()}; engine modal: eigenfunction "
-                      "expansion on the exact layered spectrum, one column per boring",
+            "source": f"stratiflux {package_version()}; one column per boring, each "
+                      "solved by eigenfunction expansion on the exact layered spectrum and "
+                      "checked by numerical Laplace inversion; where the two disagree at an "
+                      "output time the Laplace value (within its own error bound) is written",
             "history": f"{created} {self.history}",
             "references": "CF Conventions 1.11 (https://cfconventions.org), section 9 and "
                           "Appendix H.5.1; Carr and Turner 2016, Appl. Math. Model. 40:7034",
