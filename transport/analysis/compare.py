@@ -11,7 +11,7 @@ from __future__ import annotations
 import csv
 import io
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import xarray as xr
@@ -79,24 +79,18 @@ def _top(sc):
     return min(st.offset for st in tl.stages) if tl is not None else 0.0
 
 
-class _Padded:
-    """A solution seen on a larger depth grid (NaN where the column is absent)."""
-
-    def __init__(self, sol, depths, inside):
-        self._sol = sol
-        idx = np.searchsorted(depths, inside)
-        self.depths = depths
-        for name in ("concentration", "total_flux", "cumulative_mass"):
-            full = np.full((sol.times.size, depths.size), np.nan)
-            full[:, idx] = getattr(sol, name)
-            setattr(self, name, full)
-
-    def __getattr__(self, name):
-        return getattr(self._sol, name)
-
-
 def _on_grid(sol, depths, inside):
-    return sol if inside.size == depths.size else _Padded(sol, depths, inside)
+    """The solution seen on the common depth grid: NaN where this alternative's column
+    is absent (another alternative's cap above it)."""
+    if inside.size == depths.size:
+        return sol
+    idx = np.searchsorted(depths, inside)
+    padded = {}
+    for name in ("concentration", "total_flux", "cumulative_mass"):
+        full = np.full((sol.times.size, depths.size), np.nan)
+        full[:, idx] = getattr(sol, name)
+        padded[name] = full
+    return replace(sol, depths=depths, **padded)
 
 
 def comparison_table(alts):

@@ -41,7 +41,7 @@ class _Memo:
 def unresolved_windows(solution, tolerance: float = 1e-8):
     """Intervals (c, c + tau) just after each signal change or stage start where the
     truncated modal series does not meet the tolerance; metrics never sample inside."""
-    series = getattr(solution, "series", None)
+    series = solution.series
     out = []
     if series is None:
         return out
@@ -189,7 +189,7 @@ class ReceptorMetrics:
 
 
 def _change_times(solution):
-    ts = getattr(solution, "timeline", None)
+    ts = solution.timeline
     out = set()
     if ts is not None:
         out.update(s.start for s in ts.stages[1:])
@@ -213,7 +213,7 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     win = unresolved_windows(solution)
     # a curve served by Laplace inversion costs a few hundred solves per sample: it is
     # scanned more coarsely (its crossings and peak are still polished by Brent)
-    n = N_SCAN if getattr(solution, "series", None) is not None else N_SCAN_INVERTED
+    n = N_SCAN if solution.series is not None else N_SCAN_INVERTED
     first = above = None
     if screening_level is not None:
         curve = _Memo(conc_at)
@@ -223,9 +223,9 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
                            win, n)
         conc_at = curve
     pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win, n)
-    series = getattr(solution, "series", None)
+    series = solution.series
     cum = c_ss = None
-    if getattr(solution, "mass_at", None) is not None:  # vouched by two engines
+    if solution.mass_at is not None:  # vouched by two engines
         cum = float(solution.cumulative_mass_at(receptor_depth, horizon)[0])
     elif series is not None:
         cum = float(series.cumulative_mass(np.array([receptor_depth]),

@@ -153,7 +153,7 @@ def error_at(solution, t: float):
     float or None
         The larger bound of the two output times that bracket ``t``.
     """
-    err = getattr(solution, "error_estimate", None)
+    err = solution.error_estimate
     if err is None:
         return None
     times = np.asarray(solution.times, float)
@@ -177,7 +177,7 @@ def reliability_note(solution, t: float, level: float) -> str:
 def refused_lines(solution) -> list:
     """What a run with refused output times could not vouch for (one sentence), or
     ``[]`` when every time is vouched for."""
-    reliable = getattr(solution, "reliable", None)
+    reliable = solution.reliable
     if reliable is None or np.all(reliable):
         return []
     bad = np.asarray(solution.times, float)[~np.asarray(reliable)]
@@ -253,7 +253,7 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
 
 def final_budget(solution) -> dict:
     """Every term of the solution's mass budget at its last output time (kg m-2)."""
-    budget = getattr(solution, "budget", None) or {}
+    budget = solution.budget or {}
     return {k: float(np.asarray(v)[-1]) for k, v in budget.items()}
 
 
@@ -278,8 +278,8 @@ def budget_line(solution) -> list:
 def check_line(solution) -> list:
     """The largest error bound of each checked quantity relative to its scale (one
     sentence), or ``[]`` for a run without error bounds."""
-    err = getattr(solution, "error", None)
-    if err is None or not getattr(solution, "scale", None):
+    err = solution.error
+    if err is None or not solution.scale:
         return []
     worst = ", ".join(
         f"{_QUANTITY_NAMES[q]} {np.nanmax(np.asarray(err[q], float)) / solution.scale[q]:.1g}"

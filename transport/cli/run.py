@@ -66,7 +66,7 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                        f"{len(sc.times)} time(s) x {len(sc.depths)} depth(s)")
     solution = solve(sc, engine=engine, tolerance=tolerance,
                      allow_unreliable=allow_unreliable)
-    by_time = getattr(solution, "engine_by_time", None)
+    by_time = solution.engine_by_time
     used = sorted(set([solution.engine] if by_time is None else list(by_time))
                   - {"initial", ""})
     click.echo(f"      engine(s): {', '.join(used) or 'none'}; {solution.n_modes} modes; "

@@ -154,14 +154,14 @@ def source_text(solution) -> str:
     >>> source_text(solution)                                      # doctest: +SKIP
     'stratiflux 0.1.0; engine finite-volume: finite-volume method of lines, confirmed ...'
     """
-    engine = str(getattr(solution, "engine", "unknown"))
+    engine = str(solution.engine)
     names = engine.split("+")
-    by_time = getattr(solution, "engine_by_time", None)
+    by_time = solution.engine_by_time
     served = None
     if by_time is not None:
         served = [str(e) for e in np.asarray(by_time, dtype=object).ravel()
                   if e and str(e) != "initial"]
-    n_modes = int(getattr(solution, "n_modes", 0) or 0)
+    n_modes = int(solution.n_modes or 0)
     parts = []
     for name in names:
         text = _ENGINE_METHODS.get(name, name)
@@ -172,7 +172,7 @@ def source_text(solution) -> str:
         if served is not None and len(names) > 1:
             text += f" (at {served.count(name)} of {len(served)} output times)"
         parts.append(text)
-    tol = getattr(solution, "tolerance", None)
+    tol = solution.tolerance
     text = f"stratiflux {package_version()}; engine {engine}: " + "; ".join(parts)
     if tol is not None:
         text += f"; every value within {tol:g} of the scale of its quantity " \
@@ -184,7 +184,7 @@ def _check_variables(solution, nt: int, caution: str) -> dict:
     """Per output time: the engine that served it, whether it was vouched for, and the
     error bound of every quantity (largest over depths / budget terms)."""
     out = {}
-    by_time = getattr(solution, "engine_by_time", None)
+    by_time = solution.engine_by_time
     if by_time is not None:
         names = np.array([str(e) if e else "none" for e in by_time], dtype=object)
         out["engine"] = (("time",), names, {
@@ -192,13 +192,13 @@ def _check_variables(solution, nt: int, caution: str) -> dict:
             "comment": "modal: eigenfunction expansion confirmed by the Laplace engine; "
                        "laplace: numerical Laplace inversion; finite-volume: method of "
                        "lines; initial: the initial state; none: refused"})
-    reliable = getattr(solution, "reliable", None)
+    reliable = solution.reliable
     if reliable is not None:
         out["reliable"] = (("time",), np.asarray(reliable, dtype=np.int8), {
             "long_name": "whether every value at this output time is within the stated "
                          "tolerance", "flag_values": np.array([0, 1], dtype=np.int8),
             "flag_meanings": "refused_values_missing vouched_within_tolerance"})
-    error = getattr(solution, "error", None)
+    error = solution.error
     for key, name, units in _ERROR_VARS:
         if error is None or error.get(key) is None:
             continue
@@ -282,7 +282,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
             "cumulative contaminant mass per unit area that crossed the depth downward "
             "since time 0"),
     }
-    budget = getattr(solution, "budget", {}) or {}
+    budget = solution.budget or {}
     for key, name, long_name in _BUDGET_TERMS:
         if key in budget:
             values = np.asarray(budget[key], dtype=float)
@@ -386,7 +386,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     }
     if scenario_text is not None:
         attrs["scenario_text"] = str(scenario_text)
-    timeline = getattr(solution, "timeline", None)
+    timeline = solution.timeline
     if timeline is not None and len(timeline.stages) > 1:
         attrs["stages"] = "; ".join(
             f"from {st.start / DAY:.6g} days: {st.label or 'initial column'} "
