@@ -190,3 +190,130 @@ def test_interrupted_run_resumes_without_recomputing(tmp_path):
             np.testing.assert_array_equal(a[name][:].filled(np.nan), b[name][:].filled(np.nan))
     leftovers = [p.name for p in out.iterdir() if ".part" in p.name or p.name.startswith(".")]
     assert leftovers == []
+
+
+# ------------------------------------------------------------ WGS 84 geographic fields
+#: Ordnance Survey (2020), A guide to coordinate systems in Great Britain, Annexe A
+#: (Airy 1830 ellipsoid of OSGB36) and sec. 6.6, Table 6 (the 7-parameter Helmert
+#: transformation between WGS 84 and OSGB36, "accurate to about 5 m"), here inverted
+#: (OSGB36 -> WGS 84, signs changed): tx, ty, tz (m), scale (ppm), rx, ry, rz (arc-s).
+AIRY_1830 = (6377563.396, 6356256.909)
+WGS84_ELLIPSOID = (6378137.0, 6356752.314245)
+OSGB36_TO_WGS84 = (446.448, -125.157, 542.060, -20.4894, 0.1502, 0.2470, 0.8421)
+#: Invented positions on the British National Grid (EPSG:27700), m.
+BNG_BORINGS = """\
+id,x [m],y [m],ground_elevation [m]
+T-1,451210.0,206340.0,20.0
+T-2,451240.5,206350.25,20.4
+T-3,451271.0,206360.5,20.9
+T-4,451301.5,206370.75,21.1
+T-5,451332.0,206381.0,21.6
+"""
+
+
+def _geocentric(lon, lat, ellipsoid):
+    """Geodetic (deg, on the ellipsoid surface) -> Earth-centred X, Y, Z (m)
+    (Ordnance Survey 2020, Annexe B, eq. B1-B3)."""
+    a, b = ellipsoid
+    e2 = 1 - b * b / (a * a)
+    phi, lam = np.radians(lat), np.radians(lon)
+    nu = a / np.sqrt(1 - e2 * np.sin(phi) ** 2)
+    return (nu * np.cos(phi) * np.cos(lam), nu * np.cos(phi) * np.sin(lam),
+            (1 - e2) * nu * np.sin(phi))
+
+
+def _geodetic(x, y, z, ellipsoid):
+    """Earth-centred X, Y, Z -> geodetic lon, lat (deg), by the iteration of Ordnance
+    Survey (2020), Annexe B, eq. B5-B7 (converged to far below a millimetre)."""
+    a, b = ellipsoid
+    e2 = 1 - b * b / (a * a)
+    p = np.hypot(x, y)
+    phi = np.arctan2(z, p * (1 - e2))
+    for _ in range(10):
+        nu = a / np.sqrt(1 - e2 * np.sin(phi) ** 2)
+        phi = np.arctan2(z + e2 * nu * np.sin(phi), p)
+    return np.degrees(np.arctan2(y, x)), np.degrees(phi)
+
+
+def _helmert_osgb36_to_wgs84(lon, lat):
+    tx, ty, tz, s, rx, ry, rz = OSGB36_TO_WGS84
+    x, y, z = _geocentric(lon, lat, AIRY_1830)
+    rx, ry, rz = np.radians(np.array([rx, ry, rz]) / 3600.0)
+    k = 1 + s * 1e-6
+    return _geodetic(tx + k * (x - rz * y + ry * z), ty + k * (rz * x + y - rx * z),
+                     tz + k * (-ry * x + rx * y + z), WGS84_ELLIPSOID)
+
+
+def _metres(dlon, dlat, lat):
+    """Ground distance of a small lon/lat difference (m, mean Earth radius 6371 km)."""
+    r = 6371000.0
+    return np.hypot(np.radians(dlon) * r * np.cos(np.radians(lat)), np.radians(dlat) * r)
+
+
+@pytest.fixture(scope="module", params=["EPSG:27700", "EPSG:32631"])
+def geo_run(request, tmp_path_factory):
+    from test_site import BORINGS, SITE_TOML
+
+    crs = request.param
+    folder = tmp_path_factory.mktemp("site-geo")
+    toml = SITE_TOML.replace('crs = "EPSG:32631"', f'crs = "{crs}"')
+    borings = BNG_BORINGS if crs == "EPSG:27700" else BORINGS
+    site = load_site(write_small_site(folder, borings=borings, toml=toml))
+    return crs, site, run_site(site, folder / "out", workers=1, chunk_size=8)
+
+
+def test_geographic_fields_are_wgs84(geo_run):
+    """lon_deg/lat_deg in the CSV, GeoPackage and GeoJSON properties equal an
+    independent pyproj transform site CRS -> EPSG:4326 (always_xy) to 1e-9 degree, and
+    the CSV header says they are WGS 84. For the British grid they differ from the
+    OSGB36 (base geographic CRS) values of the NetCDF file by the datum shift of the
+    Ordnance Survey Helmert transformation (OS 2020, Table 6) within its stated 5 m,
+    a shift of 50 to 150 m; for a UTM zone on WGS 84 the two agree (no datum shift)."""
+    import geopandas as gpd
+    import pandas as pd
+    import pyproj
+
+    crs, site, files = geo_run
+    x = np.array([b.x for b in site.borings])
+    y = np.array([b.y for b in site.borings])
+    lon, lat = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True).transform(x, y)
+    csv = pd.read_csv(files.csv, comment="#")
+    gpkg = gpd.read_file(files.geopackage, engine="pyogrio")
+    with open(files.geojson, encoding="utf-8") as fh:
+        doc = json.load(fh)
+    props = pd.DataFrame([f["properties"] for f in doc["features"]])
+    for table in (csv, gpkg, props):
+        assert list(table["station_id"]) == [b.id for b in site.borings]
+        np.testing.assert_allclose(table["lon_deg"], lon, rtol=0, atol=1e-9)
+        np.testing.assert_allclose(table["lat_deg"], lat, rtol=0, atol=1e-9)
+    with open(files.csv, encoding="utf-8") as fh:
+        head = fh.read(3000)
+    assert "lon_deg, lat_deg: WGS 84 (EPSG:4326)" in head
+    assert "WGS 84 (EPSG:4326)" in doc["description"]
+    with netCDF4.Dataset(files.netcdf) as nc:
+        base_lon, base_lat = nc["lon"][:].filled(np.nan), nc["lat"][:].filled(np.nan)
+    shift = _metres(csv["lon_deg"] - base_lon, csv["lat_deg"] - base_lat, base_lat)
+    if crs == "EPSG:27700":
+        want_lon, want_lat = _helmert_osgb36_to_wgs84(base_lon, base_lat)
+        assert np.all(_metres(csv["lon_deg"] - want_lon, csv["lat_deg"] - want_lat,
+                              want_lat) < 5.0)
+        assert np.all((shift > 50.0) & (shift < 150.0))
+    else:
+        assert shift.max() < 1e-3
+
+
+def test_typed_lon_lat_are_wgs84_on_the_british_grid(tmp_path):
+    """Borings typed as lon/lat are WGS 84: on EPSG:27700 they land at pyproj's
+    EPSG:4326 -> EPSG:27700 x/y (1 mm), not at the OSGB36 reading (about 100 m away)."""
+    import pyproj
+    from test_site import SITE_TOML
+
+    lon, lat = [-1.26001, -1.25957], [51.75015, 51.75024]
+    rows = "id,lon [deg],lat [deg],ground_elevation [m]\n" + "".join(
+        f"T-{i + 1},{a},{b},20\n" for i, (a, b) in enumerate(zip(lon, lat)))
+    log = "id,top [m],bottom [m],material\nT-1,0,2.5,sand\nT-2,0,2.5,sand\n"
+    toml = SITE_TOML.replace('crs = "EPSG:32631"', 'crs = "EPSG:27700"')
+    site = load_site(write_small_site(tmp_path, borings=rows, log=log, toml=toml))
+    x, y = pyproj.Transformer.from_crs(4326, 27700, always_xy=True).transform(lon, lat)
+    np.testing.assert_allclose([b.x for b in site.borings], x, rtol=0, atol=1e-3)
+    np.testing.assert_allclose([b.y for b in site.borings], y, rtol=0, atol=1e-3)

@@ -5,7 +5,9 @@ ship beside it. Field names carry their unit (``peak_conc_mg_L``); times are in 
 (Julian year, 365.25 d, stated in the metadata) from the start of the run; a
 breakthrough that does not happen within the design life is empty (NULL), with
 ``exceeds_in_design_life`` = 0. GeoJSON follows RFC 7946 (WGS 84 lon/lat, written by
-GDAL's GeoJSON driver with ``RFC7946=YES``); the GeoPackage keeps the site CRS.
+GDAL's GeoJSON driver with ``RFC7946=YES``); the GeoPackage keeps the site CRS. The
+``lon_deg``/``lat_deg`` fields are WGS 84 (EPSG:4326) in every export, transformed from
+the site CRS with PROJ, whatever the datum of the site CRS (:func:`wgs84_lon_lat`).
 Every file is written under a temporary name and renamed when complete (with the other
 outputs of the run when a ``stage`` is given: :mod:`transport.io.atomic`); the caution
 travels in the layer metadata (GeoPackage), the ``description`` member (GeoJSON) and
@@ -19,13 +21,14 @@ import textwrap
 import netCDF4
 import numpy as np
 import pandas as pd
+import pyproj
 
 from transport.caution import CAUTION, CAUTION_SHORT
 from transport.io.atomic import stage_or_write
 from transport.units import DAY, MG_PER_L, YEAR
 
 __all__ = ["station_table", "write_geopackage", "write_geojson", "write_metrics_csv",
-           "plot_site_map"]
+           "plot_site_map", "wgs84_lon_lat", "LON_LAT_DECIMALS", "LON_LAT_NOTE"]
 
 #: mg/L per kg m-3: the reciprocal of MG_PER_L is exactly 1000, so a product rounds once
 #: (a division by 0.001 would differ in the last bit of some values).
@@ -33,6 +36,11 @@ _MG_L_PER_SI = 1.0 / MG_PER_L
 #: GeoJSON decimals: 1e-10 degree is about 0.01 mm on the ground (GDAL's default, 7
 #: decimals, is about 1 cm: too coarse to round-trip survey coordinates to 1 mm).
 GEOJSON_DECIMALS = 10
+#: Decimals of ``lon_deg``/``lat_deg`` in the CSV (1e-10 degree, as the GeoJSON).
+LON_LAT_DECIMALS = 10
+#: What the geographic fields hold, as every export states it.
+LON_LAT_NOTE = ("lon_deg, lat_deg: WGS 84 (EPSG:4326) longitude and latitude in degrees, "
+                "transformed from x_m, y_m in the site CRS with PROJ (pyproj)")
 _TIME = ("breakthrough_time", "peak_time", "breakthrough_time_p5", "breakthrough_time_p50",
          "breakthrough_time_p95")
 _CONC = ("peak_concentration", "peak_concentration_p5", "peak_concentration_p50",
@@ -62,7 +70,7 @@ def station_table(path):
     with netCDF4.Dataset(path) as nc:
         cols = {"station_id": list(nc["station_id"][:]),
                 "x_m": nc["x"][:].filled(np.nan), "y_m": nc["y"][:].filled(np.nan),
-                "lon_deg": nc["lon"][:].filled(np.nan), "lat_deg": nc["lat"][:].filled(np.nan),
+                "lon_deg": np.nan, "lat_deg": np.nan,
                 "ground_elevation_m": nc["ground_elevation"][:].filled(np.nan)}
         for name in ("initial_samples", "receptor_depth", "boring_depth",
                      "breakthrough_time", "peak_time",
@@ -92,9 +100,45 @@ def station_table(path):
                 * _MG_L_PER_SI, "design_life_yr": float(nc["design_life"][...]) * DAY
                 / YEAR, "crs_wkt": nc["crs"].crs_wkt,
                 "realizations": int(getattr(nc, "monte_carlo_realizations", 0))}
+    # the file's lon/lat are in the base geographic CRS of the site CRS (CF grid
+    # mapping); a GIS reader takes geographic fields as WGS 84, so they are made so
+    cols["lon_deg"], cols["lat_deg"] = wgs84_lon_lat(cols["x_m"], cols["y_m"],
+                                                     meta["crs_wkt"])
     table = pd.DataFrame(cols)
     table.attrs.update(meta)
     return table
+
+
+def wgs84_lon_lat(x, y, crs):
+    """WGS 84 longitude and latitude (EPSG:4326, degrees) of site-CRS positions.
+
+    The base geographic CRS of a projected CRS need not be WGS 84: for the British
+    National Grid (EPSG:27700, on OSGB36) its longitude and latitude lie about 100 m
+    from WGS 84 ones. PROJ chooses the transformation (pyproj ``Transformer``,
+    ``always_xy``: longitude first).
+
+    Parameters
+    ----------
+    x, y : array_like
+        Positions in ``crs`` (metres for a projected CRS).
+    crs : pyproj.CRS, str or int
+        The site CRS (anything :meth:`pyproj.CRS.from_user_input` takes: WKT, EPSG code).
+
+    Returns
+    -------
+    (numpy.ndarray, numpy.ndarray)
+        Longitude and latitude, degrees (WGS 84).
+
+    Examples
+    --------
+    >>> lon, lat = wgs84_lon_lat([500000.0], [0.0], 32631)
+    >>> float(lon[0]), float(lat[0])
+    (3.0, 0.0)
+    """
+    transformer = pyproj.Transformer.from_crs(pyproj.CRS.from_user_input(crs), "EPSG:4326",
+                                              always_xy=True)
+    lon, lat = transformer.transform(np.asarray(x, float), np.asarray(y, float))
+    return np.asarray(lon, float), np.asarray(lat, float)
 
 
 def _frame(table):
@@ -125,7 +169,8 @@ def _description(table) -> str:
     return (f"{a['title']}. Per-boring results at the receptor against the screening level "
             f"{a['screening_level_mg_L']:.4g} mg/L over a design life of "
             f"{a['design_life_yr']:.4g} yr; times in years (365.25 d) from the start of the "
-            f"run; empty breakthrough: not reached within the design life. {CAUTION}")
+            f"run; empty breakthrough: not reached within the design life; "
+            f"{LON_LAT_NOTE}. {CAUTION}")
 
 
 def write_geopackage(table, path, *, stage=None):
@@ -154,12 +199,17 @@ def write_metrics_csv(table, path, epsg=None, *, stage=None):
     head = [f"# {line}" for line in textwrap.wrap(_description(table), 100)]
     head.append(f"# x_m, y_m: site CRS EPSG:{epsg}" if epsg else
                 "# x_m, y_m: site CRS (WKT in the NetCDF crs variable)")
-    head.append("# lon_deg, lat_deg: base geographic CRS of the site CRS")
+    head.append(f"# {LON_LAT_NOTE}")
+    shown = table.copy()
+    for name in ("lon_deg", "lat_deg"):  # fixed decimals: 1e-10 degree at any longitude
+        if name in shown:
+            shown[name] = [f"{v:.{LON_LAT_DECIMALS}f}" if np.isfinite(v) else ""
+                           for v in shown[name].to_numpy(float)]
 
     def write(tmp):
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write("\n".join(head) + "\n")
-            table.to_csv(fh, index=False, float_format="%.10g")
+            shown.to_csv(fh, index=False, float_format="%.10g")
     return _atomic(path, write, stage)
 
 

@@ -193,11 +193,11 @@ def read_borings(r, data, crs):
     b = np.array([borings[i][2] for i in ids])
     geo = crs.geodetic_crs
     if has_xy:
-        lon, lat = pyproj.Transformer.from_crs(crs, geo, always_xy=True).transform(a, b)
         x, y = a, b
-    else:
-        lon, lat = a, b
-        x, y = pyproj.Transformer.from_crs(geo, crs, always_xy=True).transform(a, b)
+    else:  # typed lon/lat are WGS 84 (GPS, web maps), whatever the site CRS's datum
+        x, y = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True).transform(a, b)
+    # kept in the base geographic CRS of the site CRS (the CF grid mapping's datum)
+    lon, lat = pyproj.Transformer.from_crs(crs, geo, always_xy=True).transform(x, y)
     _check_area(path, crs, ids, a, b, np.asarray(lon, float), np.asarray(lat, float), has_xy,
                 {i: borings[i][0] for i in ids})
     return path, text, {i: (borings[i][0], float(x[k]), float(y[k]), float(lon[k]),
