@@ -18,6 +18,7 @@ from transport.cli.compare import compare
 from transport.cli.modes import modes
 from transport.cli.new import new
 from transport.cli.plot import plot
+from transport.cli.report import report
 from transport.cli.run import run
 from transport.cli.site import site
 from transport.cli.verify import verify
@@ -55,7 +56,7 @@ def main():
     """
 
 
-for _command in (run, check, modes, plot, new, compare, site, verify):
+for _command in (run, check, modes, plot, new, compare, site, verify, report):
     main.add_command(_command)
 
 if __name__ == "__main__":  # pragma: no cover
