@@ -11,6 +11,10 @@ import cf_units
 import matplotlib.image
 import numpy as np
 import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import to_rgb
+from matplotlib.legend import Legend
+from matplotlib.text import Text
 
 from test_netcdf import fake_solution, write_example
 from transport.caution import CAUTION_SHORT
@@ -22,6 +26,7 @@ from transport.plot.column import (
     plot_profiles,
     profile_figure,
 )
+from transport.plot.style import CURVE_COLOURS, LEVEL_COLOUR, curve_style
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C / ISO 15948), section 5.2
 KG_M3 = cf_units.Unit("kg m-3")
@@ -39,7 +44,94 @@ def years(t_s):
 
 
 def footer_texts(fig):
-    return " ".join(t.get_text().replace("\n", " ") for t in fig.texts)
+    texts = list(fig.texts) + [t for sub in fig.subfigs for t in sub.texts]
+    return " ".join(t.get_text().replace("\n", " ") for t in texts)
+
+
+def drawn(fig):
+    """Draw ``fig`` on an Agg canvas and return the renderer."""
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    return canvas.get_renderer()
+
+
+def texts_outside(fig, tolerance_px=1.0):
+    """Visible, non-empty text artists whose drawn extent leaves the figure (common
+    practice: a label cut at the page edge cannot be read)."""
+    renderer = drawn(fig)
+    box = fig.bbox
+    undrawn = set()  # tick labels outside the view limits exist but are not drawn
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            low, high = sorted(axis.get_view_interval())
+            span = (high - low) * 1e-9
+            for tick in axis.get_major_ticks() + axis.get_minor_ticks():
+                if not low - span <= tick.get_loc() <= high + span:
+                    undrawn.update((id(tick.label1), id(tick.label2)))
+    bad = []
+    for text in fig.findobj(Text):
+        if (id(text) in undrawn or not text.get_visible()
+                or not text.get_text().strip()):
+            continue
+        ext = text.get_window_extent(renderer)
+        if (ext.x0 < box.x0 - tolerance_px or ext.y0 < box.y0 - tolerance_px
+                or ext.x1 > box.x1 + tolerance_px or ext.y1 > box.y1 + tolerance_px):
+            bad.append((text.get_text()[:40], tuple(np.round(ext.extents))))
+    return bad
+
+
+def legend_covered_fraction(fig):
+    """Largest fraction of any curve's drawn points that falls inside a legend box."""
+    renderer = drawn(fig)
+    worst = 0.0
+    for legend in fig.findobj(Legend):
+        box = legend.get_window_extent(renderer)
+        for ax in fig.axes:
+            for line in ax.lines:
+                x, y = (np.asarray(v, dtype=float) for v in line.get_data())
+                if x.size < 3:
+                    continue
+                ok = np.isfinite(x) & np.isfinite(y)
+                pts = line.get_transform().transform(np.column_stack([x[ok], y[ok]]))
+                inside = ((pts[:, 0] > box.x0) & (pts[:, 0] < box.x1)
+                          & (pts[:, 1] > box.y0) & (pts[:, 1] < box.y1))
+                worst = max(worst, float(inside.mean()) if inside.size else 0.0)
+    return worst
+
+
+def level_visible(fig, level_mg_l):
+    """True when a line labelled "screening level" lies at ``level_mg_l`` inside the
+    visible range of its axes (x for a vertical line, y for a horizontal one)."""
+    for ax in fig.axes:
+        for line in ax.lines:
+            if not line.get_label().startswith("screening level"):
+                continue
+            x, y = line.get_xdata(), line.get_ydata()
+            if np.ptp(np.asarray(x, dtype=float)) == 0:  # vertical
+                low, high = sorted(ax.get_xlim())
+                value, scale = float(x[0]), ax.get_xscale()
+            else:
+                low, high = sorted(ax.get_ylim())
+                value, scale = float(y[0]), ax.get_yscale()
+            if value != pytest.approx(level_mg_l, rel=1e-12):
+                continue
+            # visible: inside the limits and, on a linear axis, more than 1 % of the
+            # axis width away from the edge it would otherwise merge with
+            if scale == "log" and low < value < high:
+                return True
+            if scale == "linear" and low + 0.01 * (high - low) < value < high:
+                return True
+    return False
+
+
+def assert_readable(fig):
+    """Checks every report figure passes: nothing cut, legends off the curves, caution
+    in the footer, axis labels with units in parentheses."""
+    assert texts_outside(fig) == []
+    assert legend_covered_fraction(fig) <= 0.02
+    assert CAUTION_SHORT in footer_texts(fig)
+    labelled = [ax for ax in fig.axes if ax.get_xlabel() or ax.get_ylabel()]
+    assert labelled and all("(" in ax.get_xlabel() + ax.get_ylabel() for ax in labelled)
 
 
 @pytest.fixture(scope="module")
@@ -49,12 +141,13 @@ def dataset(tmp_path_factory):
     return read_column_netcdf(path)
 
 
-def _assert_png(path, min_bytes=10_000):
+def assert_png(path, width_in=None, min_bytes=10_000):
     data = path.read_bytes()
     assert data[:8] == PNG_SIGNATURE
     assert len(data) > min_bytes
     image = matplotlib.image.imread(path)
-    assert image.shape[1] == round(6.5 * DPI)  # report width at dpi 150
+    if width_in is not None:
+        assert image.shape[1] == round(width_in * DPI)  # report width at dpi 150
     assert image[..., :3].std() > 0.05  # not a blank canvas
 
 
@@ -62,7 +155,7 @@ def test_profile_png_from_solution_and_from_file(tmp_path, dataset):
     """A PNG is written from a solution object and from a NetCDF dataset."""
     for source, name in ((fake_solution(), "sol.png"), (dataset, "file.png")):
         path = plot_profiles(source, tmp_path / name, screening_level=5e-6)
-        _assert_png(tmp_path / name)
+        assert_png(tmp_path / name, 7.0)
         assert str(path).endswith(name)
 
 
@@ -71,8 +164,8 @@ def test_breakthrough_png_from_solution_and_from_file(tmp_path, dataset):
     plot_breakthrough(fake_solution(), tmp_path / "sol.png", receptor_depth=0.5,
                       screening_level=1e-3)
     plot_breakthrough(dataset, tmp_path / "file.png")
-    _assert_png(tmp_path / "sol.png")
-    _assert_png(tmp_path / "file.png")
+    assert_png(tmp_path / "sol.png", 6.5)
+    assert_png(tmp_path / "file.png", 6.5)
 
 
 def test_profile_axes_carry_units_depth_down_layers_named(dataset):
@@ -83,7 +176,7 @@ def test_profile_axes_carry_units_depth_down_layers_named(dataset):
     assert "depth" in ax.get_ylabel() and "(m)" in ax.get_ylabel()
     top, bottom = ax.get_ylim()[1], ax.get_ylim()[0]
     assert bottom > top and top == 0.0 and bottom == pytest.approx(2.0)
-    labels = {t.get_text() for t in ax.texts}
+    labels = {t.get_text().replace("\n", " ") for a in fig.axes for t in a.texts}
     assert {"fill", "silty clay"} <= labels
     assert CAUTION_SHORT in footer_texts(fig)
 
@@ -145,3 +238,58 @@ def test_breakthrough_log_axis_when_level_is_far_below_peak():
     assert low < mg_per_l(peak_value / 1e3) < high
     linear = breakthrough_figure(solution, receptor_depth=0.5, screening_level=peak_value / 2)
     assert linear.axes[0].get_yscale() == "linear" and linear.axes[0].get_ylim()[0] == 0.0
+
+
+def test_profile_shows_a_level_far_below_the_peak(dataset):
+    """5 ug/L against 120 mg/L: a log panel where the level lies inside the visible
+    range; the figure stays readable."""
+    fig = profile_figure(dataset)
+    assert level_visible(fig, mg_per_l(5e-6))
+    assert any(ax.get_xscale() == "log" for ax in fig.axes)
+    assert_readable(fig)
+
+
+def test_profile_log_option_notes_values_it_cannot_show(dataset):
+    """On a log axis, values <= 0 are named in the footer, never dropped silently."""
+    fig = profile_figure(dataset, log_scale=True)
+    assert fig.axes[0].get_xscale() == "log"
+    rows = dataset["concentration"].values
+    assert (rows <= 0).any()  # the t = 0 profile of the stored example is zero below 0
+    assert "zero or negative" in footer_texts(fig)
+    assert_readable(fig)
+
+
+def test_breakthrough_marks_the_design_life():
+    """A vertical line labelled "design life" at 30 yr on the years axis."""
+    fig = breakthrough_figure(fake_solution(), receptor_depth=0.5, screening_level=2e-3,
+                              design_life=30 * 365.25 * 86400.0)
+    ax = fig.axes[0]
+    life = [ln for ln in ax.lines if ln.get_label().startswith("design life")]
+    assert len(life) == 1
+    np.testing.assert_allclose(life[0].get_xdata(), years(30 * 365.25 * 86400.0),
+                               rtol=1e-12)
+    assert ax.get_xlim()[0] <= life[0].get_xdata()[0] <= ax.get_xlim()[1]
+    assert level_visible(fig, mg_per_l(2e-3))
+    assert_readable(fig)
+
+
+def test_long_title_and_layer_names_are_not_cut():
+    """A 200-character title and long layer names stay inside the figure."""
+    title = "Invented site with a very long name " * 6
+    layers = [("made ground with brick rubble and ash, loose", 0.0, 0.8),
+              ("silty clay, firm, with rootlets and occasional gravel", 0.8, 2.0)]
+    for fig in (profile_figure(fake_solution(), title=title, layers=layers,
+                               screening_level=5e-6),
+                breakthrough_figure(fake_solution(), receptor_depth=0.5, title=title,
+                                    screening_level=5e-6, design_life=20 * 365.25 * 86400)):
+        assert_readable(fig)
+
+
+def test_curve_colours_never_take_the_screening_level_colour():
+    """The palette (Okabe and Ito 2008, colour-universal design) keeps vermillion for
+    the screening level alone; the first twenty comparison curves differ from it."""
+    level = np.array(to_rgb(LEVEL_COLOUR))
+    for i in range(20):
+        rgb = np.array(to_rgb(curve_style(i)["color"]))
+        assert np.abs(rgb - level).max() > 0.2
+    assert LEVEL_COLOUR not in CURVE_COLOURS

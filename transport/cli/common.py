@@ -118,7 +118,7 @@ def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable
 
 
 def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title,
-                stage=None) -> list:
+                stage=None, design_life=None) -> list:
     """The figures of a run: ``<stem>_profiles.png`` and, with a receptor,
     ``<stem>_breakthrough.png`` in ``out_dir`` (created if needed).
 
@@ -134,6 +134,8 @@ def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title
     stage : transport.io.atomic.OutputSet, optional
         With a set the figures are renamed into place with the other outputs of the
         run; without one both appear together once both are drawn.
+    design_life : float, optional
+        s; marked on the breakthrough figure.
 
     Returns
     -------
@@ -146,7 +148,8 @@ def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title
     if stage is None:
         with OutputSet() as own:
             return write_plots(source, out_dir, stem, receptor_depth=receptor_depth,
-                               screening_level=screening_level, title=title, stage=own)
+                               screening_level=screening_level, title=title, stage=own,
+                               design_life=design_life)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     written = [plot_profiles(source, out_dir / f"{stem}_profiles.png",
@@ -155,5 +158,5 @@ def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title
         written.append(plot_breakthrough(source, out_dir / f"{stem}_breakthrough.png",
                                          receptor_depth=receptor_depth,
                                          screening_level=screening_level, title=title,
-                                         stage=stage))
+                                         design_life=design_life, stage=stage))
     return written

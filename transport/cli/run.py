@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from transport.analysis.summary import summary_lines
+from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
 from transport.cli.common import (UserError, echo_wrapped, progress, setting, solve,
                                   write_plots)
@@ -71,10 +71,14 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                   - {"initial", ""})
     click.echo(f"      engine(s): {', '.join(used) or 'none'}; {solution.n_modes} modes; "
                f"tolerance {solution.tolerance:g}", err=True)
+    if solution.diagnostics.get("engine_choice"):  # auto's choice where cost decided it
+        click.echo(f"      {solution.diagnostics['engine_choice']}", err=True)
     receptor, level = setting(sc, "receptor_depth"), setting(sc, "screening_level")
     # the reading of the run comes first: a failure there must not cost an old file
+    design_life = setting(sc, "design_life")
+    views = run_views(solution, receptor, level, design_life)  # printed and written
     lines = summary_lines(solution, title=sc.title, receptor_depth=receptor,
-                          screening_level=level, design_life=setting(sc, "design_life"))
+                          screening_level=level, design_life=design_life, views=views)
     progress(3, total, f"writing {output}")
     command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
     if tolerance is not None:
@@ -90,12 +94,13 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                             scenario_text=getattr(sc, "source_text", None),
                             screening_level=level, receptor_depth=receptor,
                             history=shlex.join(command), stage=stage,
-                            porosity=_total_porosity(sc, solution))
+                            porosity=_total_porosity(sc, solution), metrics=views)
         if plots_dir:
             progress(4, total, f"drawing figures in {plots_dir}")
             figures = write_plots(solution, plots_dir, Path(output).stem,
                                   receptor_depth=receptor, screening_level=level,
-                                  title=sc.title, stage=stage)
+                                  title=sc.title, stage=stage,
+                                  design_life=setting(sc, "design_life"))
     if plots_dir:
         for path in figures:
             click.echo(f"      {path}", err=True)

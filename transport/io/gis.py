@@ -1,10 +1,13 @@
-"""Per-boring results for GIS: GeoPackage, GeoJSON (RFC 7946), CSV and a map figure.
+"""Per-boring results for GIS: GeoPackage, GeoJSON (RFC 7946) and CSV (the map figure
+is drawn by :mod:`transport.plot.site_map`).
 
 A site DSG NetCDF file is not usable as a GIS layer through GDAL, so point exports
 ship beside it. Field names carry their unit (``peak_conc_mg_L``); times are in years
 (Julian year, 365.25 d, stated in the metadata) from the start of the run; a
 breakthrough that does not happen within the design life is empty (NULL), with
-``exceeds_in_design_life`` = 0. GeoJSON follows RFC 7946 (WGS 84 lon/lat, written by
+``exceeds_in_design_life`` = 0. The same metrics over the whole run carry a ``run_``
+prefix, and ``peak_after_design_life`` / ``peak_after_run_end`` (1/0) say whether a
+peak lies beyond its window (:data:`WINDOW_NOTE`). GeoJSON follows RFC 7946 (WGS 84 lon/lat, written by
 GDAL's GeoJSON driver with ``RFC7946=YES``); the GeoPackage keeps the site CRS. The
 ``lon_deg``/``lat_deg`` fields are WGS 84 (EPSG:4326) in every export, transformed from
 the site CRS with PROJ, whatever the datum of the site CRS (:func:`wgs84_lon_lat`).
@@ -23,12 +26,12 @@ import numpy as np
 import pandas as pd
 import pyproj
 
-from transport.caution import CAUTION, CAUTION_SHORT
+from transport.caution import CAUTION
 from transport.io.atomic import stage_or_write
 from transport.units import DAY, MG_PER_L, YEAR
 
 __all__ = ["station_table", "write_geopackage", "write_geojson", "write_metrics_csv",
-           "plot_site_map", "wgs84_lon_lat", "LON_LAT_DECIMALS", "LON_LAT_NOTE"]
+           "wgs84_lon_lat", "LON_LAT_DECIMALS", "LON_LAT_NOTE", "WINDOW_NOTE"]
 
 #: mg/L per kg m-3: the reciprocal of MG_PER_L is exactly 1000, so a product rounds once
 #: (a division by 0.001 would differ in the last bit of some values).
@@ -41,15 +44,34 @@ LON_LAT_DECIMALS = 10
 #: What the geographic fields hold, as every export states it.
 LON_LAT_NOTE = ("lon_deg, lat_deg: WGS 84 (EPSG:4326) longitude and latitude in degrees, "
                 "transformed from x_m, y_m in the site CRS with PROJ (pyproj)")
+#: What the design-life and whole-run fields hold, as every export states it.
+WINDOW_NOTE = ("breakthrough, peak, mass and time_above_level fields cover the design "
+               "life; run_* fields cover the whole run (to run_end_yr); "
+               "peak_after_design_life = 1: the peak lies after the design life (still "
+               "rising at its end, or higher later in the run), so the design-life peak is "
+               "not the peak; peak_after_run_end = 1: still rising at the end of the run")
 _TIME = ("breakthrough_time", "peak_time", "breakthrough_time_p5", "breakthrough_time_p50",
-         "breakthrough_time_p95")
+         "breakthrough_time_p95", "time_above_level", "run_breakthrough_time",
+         "run_time_above_level", "run_peak_time", "run_end")
 _CONC = ("peak_concentration", "peak_concentration_p5", "peak_concentration_p50",
-         "peak_concentration_p95")
+         "peak_concentration_p95", "run_peak_concentration")
 _NAMES = {"breakthrough_time": "breakthrough_yr", "peak_time": "peak_time_yr",
           "peak_concentration": "peak_conc_mg_L", "receptor_mass": "mass_to_receptor_kg_m2",
           "receptor_depth": "receptor_depth_m", "boring_depth": "boring_depth_m",
           "exceedance_probability": "exceedance_probability",
-          "initial_samples": "initial_samples"}
+          "initial_samples": "initial_samples",
+          "time_above_level": "time_above_level_yr",
+          "peak_after_design_life": "peak_after_design_life",
+          "run_breakthrough_time": "run_breakthrough_yr",
+          "run_time_above_level": "run_time_above_level_yr",
+          "run_peak_time": "run_peak_time_yr", "run_peak_concentration": "run_peak_conc_mg_L",
+          "run_receptor_mass": "run_mass_to_receptor_kg_m2",
+          "peak_after_run_end": "peak_after_run_end", "run_end": "run_end_yr"}
+#: Fields of the whole-run view and the flags saying whether a peak lies beyond its
+#: window (design life or end of the run), in table order after ``mass_to_receptor``.
+_WINDOW_FIELDS = ("time_above_level", "peak_after_design_life", "run_end",
+                  "run_breakthrough_time", "run_time_above_level", "run_peak_time",
+                  "run_peak_concentration", "run_receptor_mass", "peak_after_run_end")
 
 
 def station_table(path):
@@ -74,14 +96,15 @@ def station_table(path):
                 "ground_elevation_m": nc["ground_elevation"][:].filled(np.nan)}
         for name in ("initial_samples", "receptor_depth", "boring_depth",
                      "breakthrough_time", "peak_time",
-                     "peak_concentration", "receptor_mass", "exceedance_probability",
+                     "peak_concentration", "receptor_mass", *_WINDOW_FIELDS,
+                     "exceedance_probability",
                      "breakthrough_time_p5", "breakthrough_time_p50", "breakthrough_time_p95",
                      "peak_concentration_p5", "peak_concentration_p50",
                      "peak_concentration_p95"):
             if name not in nc.variables:
                 continue
             values = np.ma.filled(nc[name][:].astype(float), np.nan)
-            if name == "initial_samples":
+            if name in ("initial_samples", "peak_after_design_life", "peak_after_run_end"):
                 values = values.astype(int)
             if name in _TIME:
                 values = values * DAY / YEAR
@@ -96,6 +119,8 @@ def station_table(path):
             cols[label] = values
             if name == "breakthrough_time":
                 cols["exceeds_in_design_life"] = (~np.isnan(values)).astype(int)
+            elif name == "run_breakthrough_time":
+                cols["exceeds_in_run"] = (~np.isnan(values)).astype(int)
         meta = {"title": nc.title, "screening_level_mg_L": float(nc["screening_level"][...])
                 * _MG_L_PER_SI, "design_life_yr": float(nc["design_life"][...]) * DAY
                 / YEAR, "crs_wkt": nc["crs"].crs_wkt,
@@ -170,7 +195,7 @@ def _description(table) -> str:
             f"{a['screening_level_mg_L']:.4g} mg/L over a design life of "
             f"{a['design_life_yr']:.4g} yr; times in years (365.25 d) from the start of the "
             f"run; empty breakthrough: not reached within the design life; "
-            f"{LON_LAT_NOTE}. {CAUTION}")
+            f"{WINDOW_NOTE}; {LON_LAT_NOTE}. {CAUTION}")
 
 
 def write_geopackage(table, path, *, stage=None):
@@ -211,46 +236,3 @@ def write_metrics_csv(table, path, epsg=None, *, stage=None):
             fh.write("\n".join(head) + "\n")
             shown.to_csv(fh, index=False, float_format="%.10g")
     return _atomic(path, write, stage)
-
-
-def plot_site_map(table, path, *, dpi=150, stage=None):
-    """Map of breakthrough time per boring (and exceedance probability after Monte
-    Carlo), screening level in the title, caution in the footer. Returns the path."""
-    from matplotlib.figure import Figure
-
-    mc = "exceedance_probability" in table and table.attrs.get("realizations", 0) > 0
-    fig = Figure(figsize=(12 if mc else 7, 6.2), layout="constrained")
-    axes = fig.subplots(1, 2 if mc else 1, squeeze=False)[0]
-    x, y = table["x_m"].to_numpy(), table["y_m"].to_numpy()
-    bt = table["breakthrough_yr"].to_numpy()
-    never = np.isnan(bt)
-    ax = axes[0]
-    if (~never).any():
-        sc = ax.scatter(x[~never], y[~never], c=bt[~never], cmap="viridis_r", s=60,
-                        edgecolors="k", linewidths=0.4)
-        fig.colorbar(sc, ax=ax, label="breakthrough time (years)")
-    if never.any():
-        ax.scatter(x[never], y[never], facecolors="none", edgecolors="k", s=60,
-                   label="not reached within the design life")
-        ax.legend(loc="lower left", fontsize=8)
-    ax.set_title("Breakthrough at the receptor", fontsize=10)
-    if mc:
-        p = table["exceedance_probability"].to_numpy()
-        sc2 = axes[1].scatter(x, y, c=p, cmap="magma_r", vmin=0, vmax=1, s=60,
-                              edgecolors="k", linewidths=0.4)
-        fig.colorbar(sc2, ax=axes[1], label="probability of exceeding within design life")
-        axes[1].set_title(f"Exceedance probability ({table.attrs['realizations']} "
-                          "realizations)", fontsize=10)
-    for a in axes:
-        a.set_aspect("equal", adjustable="datalim")
-        a.set_xlabel("easting (m)")
-        a.set_ylabel("northing (m)")
-        a.ticklabel_format(useOffset=False, style="plain")
-        a.tick_params(labelsize=7)
-    at = table.attrs
-    fig.suptitle(f"{at['title']}\nscreening level {at['screening_level_mg_L']:.4g} mg/L, "
-                 f"design life {at['design_life_yr']:.4g} yr", fontsize=11)
-    fig.get_layout_engine().set(rect=(0, 0.07, 1, 0.93))
-    fig.text(0.01, 0.01, "\n".join(textwrap.wrap(CAUTION_SHORT, 150)), fontsize=7,
-             va="bottom", ha="left")
-    return _atomic(path, lambda tmp: fig.savefig(tmp, dpi=dpi, format="png"), stage)

@@ -27,8 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from transport.io.atomic import STARTED, OutputSet, atomic_write, clean_stale, process_alive
-from transport.io.gis import (plot_site_map, station_table, write_geojson, write_geopackage,
-                              write_metrics_csv)
+from transport.io.gis import station_table, write_geojson, write_geopackage, write_metrics_csv
 from transport.io.netcdf import package_version
 from transport.io.site_netcdf import SiteNetCDFWriter
 from transport.site.batch import DEFAULT_CHUNK, iter_chunks, plan_chunks
@@ -261,6 +260,9 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
         write_geopackage(table, paths["geopackage"], stage=stage)
         write_geojson(table, paths["geojson"], stage=stage)
         write_metrics_csv(table, paths["csv"], site.epsg, stage=stage)
+        # matplotlib is imported lazily: a site run starts without it
+        from transport.plot.site_map import plot_site_map
+
         plot_site_map(table, paths["map"], stage=stage)
     notes = [w for index in sorted(notes) for w in notes[index]]
     files = SiteRunFiles(
