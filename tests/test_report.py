@@ -232,3 +232,13 @@ def test_derived_table_and_sources(run, tmp_path):
     body = "".join(page.text)
     for d in derived:
         assert d["sorption_source"] in body and d["diffusion_source"] in body
+
+
+def test_report_without_verification_says_so(run, tmp_path):
+    """A report built without the suite says that it was not run and how to run it
+    (no pass/fail table that could be mistaken for a check of this installation)."""
+    _, _, report = run
+    assert report.verification is None
+    text = Path(write_report_html(report, tmp_path / "r.html")).read_text(encoding="utf-8")
+    body = "".join(parse(text).text)
+    assert "verification suite was not run" in body and "stratiflux verify" in body

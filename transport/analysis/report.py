@@ -187,7 +187,15 @@ def job_paragraph(scenario) -> str:
     text += (f" {times.size} output time(s) from {format_time(times.min())} to "
              f"{format_time(times.max())}.")
     if scenario.timeline is not None:
-        text += f" Remediation actions: {len(scenario.timeline.stages) - 1} stage change(s)."
+        changes = "; ".join(f"at {format_time(st.start)}: {st.label or 'change'}"
+                            for st in scenario.timeline.stages[1:])
+        text += (f" Remediation actions ({changes}); the derived properties below are "
+                 "those of the column before the first action.")
+    data = tomllib.loads(scenario.source_text)
+    if data.get("alternatives"):
+        text += (f" The file also lists {len(data['alternatives'])} alternative(s); this "
+                 "report covers the scenario itself (compare the alternatives with "
+                 "stratiflux compare).")
     return text
 
 
@@ -220,7 +228,8 @@ def figure_uris(solution, scenario) -> list:
         figures.append((f"Concentration at the receptor ({out.receptor_depth:g} m) "
                         "against time", breakthrough_figure(
                             solution, receptor_depth=out.receptor_depth,
-                            screening_level=out.screening_level, title=scenario.title)))
+                            screening_level=out.screening_level, title=scenario.title,
+                            design_life=out.design_life)))
     uris = []
     for caption, fig in figures:
         buffer = io.BytesIO()
