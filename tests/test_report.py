@@ -142,8 +142,7 @@ def test_report_carries_the_caution_head_and_foot(cli_report):
     ids = {a.get("id") for t, a in page.tags}
     assert {"caution-head", "caution-foot"} <= ids
     text = "".join(page.text)
-    assert text.count(CAUTION) >= 3
-    assert "regulator, local codes and licensed professionals" in CAUTION
+    assert text.count(CAUTION) >= 3  # top of the page, assumptions, footer
 
 
 def test_input_hash_is_sha256_of_the_scenario(cli_report):
