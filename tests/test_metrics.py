@@ -92,3 +92,76 @@ def test_time_to_95_percent_of_steady_state():
     later = sol.concentration_at(1.5, np.linspace(m.time_to_95_percent_steady * 1.001,
                                                   600 * YEAR, 500))
     assert np.all(np.abs(later - m.steady_concentration) < 0.05 * m.steady_concentration)
+
+
+# ------------------------------------------------- design life and whole run (Ogata-Banks)
+def _ogata_banks_case():
+    """A homogeneous 10 m column, C0 = 1 held at the top (invented values): pore velocity
+    0.125 m/yr, dispersion 0.0125 m2/yr; the front reaches the 1 m receptor around 8 yr,
+    so over a 5 yr design life and a 20 yr run the concentration is still rising at the
+    end of both windows. The bottom 10 m down is more than ten spreads below the front
+    at 20 yr, so the semi-infinite solution holds to well below the tolerance."""
+    from transport.verify.closed_forms import first_type_inlet
+
+    v, d, theta = 0.125 / YEAR, 0.0125 / YEAR, 0.4
+    col = Column(layers=(Layer(10.0, theta, d, 1.0),), top=Boundary("concentration", 1.0),
+                 bottom=Boundary("free-outflow"), darcy_flux=v * theta)
+    sol = solve(col, np.array([0.25, 20.0]) * YEAR, [1.0])
+
+    def exact(t):
+        return float(first_type_inlet([1.0], [t], v, d)[0, 0])
+    return sol, exact, v, d, theta
+
+
+def test_whole_run_metrics_match_ogata_banks_with_peak_after_design_life():
+    """Ogata & Banks (1961), USGS Prof. Paper 411-A, eq. 20 (first-type inlet, clean
+    semi-infinite column; transport.verify.closed_forms.first_type_inlet):
+
+    * both windows end while C still rises, so each peak is C at the window's end and
+      the design-life view flags the peak as lying after the design life;
+    * first exceedance: the root of the closed form minus the level (brentq);
+    * time above the level: end of the run minus that root (C rises monotonically);
+    * cumulative mass through the receptor: the mass below it at the end of the run,
+      theta * integral of the closed form from 1 m down (scipy quad; a clean column
+      gains below z only what crosses z)."""
+    from scipy.integrate import quad
+    from scipy.optimize import brentq
+
+    from transport.analysis.metrics import receptor_views
+    from transport.verify.closed_forms import first_type_inlet
+
+    sol, exact, v, d, theta = _ogata_banks_case()
+    level, life, end = 0.05, 5 * YEAR, 20 * YEAR
+    views = receptor_views(sol, 1.0, level, design_life=life)
+    design, run = views.design_life, views.whole_run
+    assert run.horizon == end and design.horizon == life
+    t_first = brentq(lambda t: exact(t) - level, 0.5 * YEAR, life, xtol=1e-6, rtol=1e-13)
+    for m in (design, run):
+        assert m.peak_time == pytest.approx(m.horizon, rel=1e-9)
+        assert m.peak_concentration == pytest.approx(exact(m.horizon), rel=1e-6)
+        assert m.first_exceedance == pytest.approx(t_first, rel=1e-7)
+        assert m.time_above_level == pytest.approx(m.horizon - t_first, rel=1e-7)
+        assert m.trend_at_end == "rising" and m.peak_beyond_horizon
+    assert views.peak_after_design_life
+    assert run.peak_concentration > 5 * design.peak_concentration
+    below, _ = quad(lambda z: float(first_type_inlet([z], [end], v, d)[0, 0]), 1.0, 10.0,
+                    epsabs=1e-13, limit=200)
+    assert run.cumulative_mass == pytest.approx(theta * below, rel=1e-6)
+
+
+def test_peak_inside_the_window_is_not_flagged():
+    """Source removed at 5 yr (the pulse of test_pulse_time_above_and_peak_match_dense_
+    sampling): over 100 yr the peak lies inside the window and C falls at its end, so
+    neither view flags a peak beyond it; a window ending on the rising limb does.
+    Criterion: the sign of C(t_end) - C(t_end - step) against brute-force sampling."""
+    from transport.analysis.metrics import receptor_views
+
+    tl = Timeline.single(_column()).then(5 * YEAR, remove_source())
+    sol = solve_timeline(tl, np.array([0.5, 100.0]) * YEAR, [1.5])
+    t = np.linspace(0.5, 100.0, 4001) * YEAR
+    c = sol.concentration_at(1.5, t)
+    t_peak = t[int(np.argmax(c))]
+    views = receptor_views(sol, 1.5, 0.01, design_life=0.5 * t_peak, run_end=100 * YEAR)
+    assert views.whole_run.trend_at_end == "falling"
+    assert not views.whole_run.peak_beyond_horizon
+    assert views.design_life.trend_at_end == "rising" and views.peak_after_design_life

@@ -19,7 +19,9 @@ import contextlib
 import io
 import json
 import os
+import re
 from dataclasses import replace
+from pathlib import Path
 
 import netCDF4
 import numpy as np
@@ -359,3 +361,84 @@ def test_source_counts_the_output_times_of_each_engine_of_a_mixed_run():
     assert ("eigenfunction expansion on the exact layered spectrum, confirmed by numerical "
             "Laplace inversion (at 3 of 4 output times)") in source
     assert "0 modes" not in source
+
+
+# ------------------------------------------------------------- receptor metrics variables
+SPILL = Path(__file__).resolve().parent.parent / "scenarios" / "spill-layered-column.toml"
+
+
+@pytest.fixture(scope="module")
+def run_with_metrics(tmp_path_factory):
+    from click.testing import CliRunner
+
+    from transport.cli.main import main
+
+    path = tmp_path_factory.mktemp("metrics") / "spill.nc"
+    result = CliRunner().invoke(main, ["run", str(SPILL), "-o", str(path)])
+    assert result.exit_code == 0, result.output
+    return path, " ".join(result.output.split())
+
+
+def _printed(text, pattern):
+    found = re.search(pattern, text)
+    assert found, pattern
+    return found.groups()
+
+
+def test_metrics_variables_equal_the_printed_ones(run_with_metrics):
+    """The receptor metrics written as scalar variables are the numbers ``run`` prints
+    (to the 4 significant digits printed), for the design life and the whole run, and
+    the flags say what the printed text says. Reference: the printed reading."""
+    path, text = run_with_metrics
+    with netCDF4.Dataset(path) as nc:
+        var = {name: float(nc[name][...]) for name in nc.variables
+               if name.endswith(("_design_life", "_whole_run")) or name.startswith("peak_after")}
+        units = {name: nc[name].units for name in var if "units" in nc[name].ncattrs()}
+        assert all(CAUTION in nc[name].comment for name in var)
+    yr = 365.25  # the variables hold days
+    life_peak, life_peak_t, life_first, life_above, life_mass, life_flag = _printed(
+        text, r"within the [\d.]+ yr design life: peak ([\d.e+-]+) mg/L at ([\d.e+-]+) yr; "
+              r"screening level [\d.]+ ug/L first reached at ([\d.e+-]+) yr, above it for "
+              r"([\d.e+-]+) yr; ([\d.e+-]+) mg/m2 passed downward; peak after the design "
+              r"life: (\w+)")
+    run_first, run_above = _printed(text, r"first reached at ([\d.e+-]+) yr, within the "
+                                          r"[\d.]+ yr design life; above it for "
+                                          r"([\d.e+-]+) yr up to")
+    run_peak, = _printed(text, r"highest concentration ([\d.e+-]+) mg/L at the end")
+    run_mass, = _printed(text, r"([\d.e+-]+) mg/m2 passed downward up to")
+    run_flag, = _printed(text, r"peak after the end of the run: (\w+)")
+    digits = 5e-4  # 4 significant digits
+    checks = {"peak_concentration_design_life": float(life_peak) * 1e-3,
+              "peak_time_design_life": float(life_peak_t) * yr,
+              "first_exceedance_time_design_life": float(life_first) * yr,
+              "time_above_level_design_life": float(life_above) * yr,
+              "receptor_cumulative_mass_design_life": float(life_mass) * 1e-6,
+              "first_exceedance_time_whole_run": float(run_first) * yr,
+              "time_above_level_whole_run": float(run_above) * yr,
+              "peak_concentration_whole_run": float(run_peak) * 1e-3,
+              "receptor_cumulative_mass_whole_run": float(run_mass) * 1e-6}
+    for name, printed in checks.items():
+        assert var[name] == pytest.approx(printed, rel=digits), name
+    assert var["peak_after_design_life"] == (life_flag == "yes")
+    assert var["peak_after_run_end"] == (run_flag == "yes")
+    assert units["peak_concentration_whole_run"] == "kg m-3"
+    assert units["receptor_cumulative_mass_design_life"] == "kg m-2"
+    assert units["peak_time_whole_run"] == "d"
+
+
+def test_metrics_variables_pass_cf_checker(run_with_metrics):
+    """CF-1.11 (IOOS compliance-checker, cf:1.11) with the metrics variables: zero failed
+    HIGH and MEDIUM; every units attribute parses with UDUNITS-2 (cf-units)."""
+    import cf_units
+
+    path, _ = run_with_metrics
+    report = run_cf_checker(path)
+    assert failed_items(report, "high") == [] and failed_items(report, "medium") == []
+    with netCDF4.Dataset(path) as nc:
+        names = [n for n in nc.variables if n.endswith(("_design_life", "_whole_run"))]
+        assert len(names) == 2 * 6 + 1  # six metrics per window, peak_after_design_life
+        assert nc["peak_after_run_end"].flag_meanings == "no yes"
+        for name in names:
+            assert nc[name].long_name
+            if not name.startswith("peak_after"):  # flags: flag_values, no units
+                assert not cf_units.Unit(nc[name].units).is_unknown(), name

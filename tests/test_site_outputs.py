@@ -317,3 +317,63 @@ def test_typed_lon_lat_are_wgs84_on_the_british_grid(tmp_path):
     x, y = pyproj.Transformer.from_crs(4326, 27700, always_xy=True).transform(lon, lat)
     np.testing.assert_allclose([b.x for b in site.borings], x, rtol=0, atol=1e-3)
     np.testing.assert_allclose([b.y for b in site.borings], y, rtol=0, atol=1e-3)
+
+
+@pytest.fixture(scope="module")
+def short_life(tmp_path_factory):
+    """The test yard read over an 8 yr design life and a 60 yr run: the plume is still
+    arriving at the receptor when the design life ends."""
+    from test_site import SITE_TOML
+
+    folder = tmp_path_factory.mktemp("site-windows")
+    toml = (SITE_TOML.replace('times = ["1 yr", "5 yr", "20 yr"]',
+                              'times = ["1 yr", "5 yr", "20 yr", "60 yr"]')
+            .replace('design_life = "30 yr"', 'design_life = "8 yr"'))
+    site = load_site(write_small_site(folder, toml=toml))
+    return site, run_site(site, folder / "out", workers=1, chunk_size=2)
+
+
+def test_design_life_and_whole_run_fields_match_single_column_runs(short_life):
+    """Per boring, the GIS fields of both windows (design life and whole run) and the
+    flags saying whether a peak lies beyond its window equal the receptor metrics of the
+    same column solved alone (transport.solvers.engines.solve_column, checked by two
+    engines, read by transport.analysis.metrics.receptor_views on 800 samples per
+    window against the site's 128): times and peaks to 1e-6 relative."""
+    import pandas as pd
+
+    from transport.analysis.metrics import receptor_views
+    from transport.site.columns import boring_column, material_layers
+    from transport.solvers.engines import solve_column
+
+    site, files = short_life
+    table = pd.read_csv(files.csv, comment="#")
+    yr = 365.25 * 86400.0
+    layers, q = material_layers(site)
+    times = np.asarray(site.times, float)
+    assert table["peak_after_design_life"].sum() >= 1  # the flag is exercised
+    for boring in site.borings:
+        row = table.set_index("station_id").loc[boring.id]
+        col = boring_column(site, boring, layers, q)
+        sol = solve_column(col, times, [boring.receptor_depth],
+                           initial=boring.initial_state, tolerance=site.tolerance)
+        views = receptor_views(sol, boring.receptor_depth, site.screening_level,
+                               site.design_life)
+        d, w = views.design_life, views.whole_run
+        assert row["run_end_yr"] == pytest.approx(w.horizon / yr, rel=1e-12)
+        assert row["peak_conc_mg_L"] == pytest.approx(d.peak_concentration * 1e3, rel=1e-6)
+        assert row["run_peak_conc_mg_L"] == pytest.approx(w.peak_concentration * 1e3,
+                                                          rel=1e-6)
+        assert row["run_peak_conc_mg_L"] >= row["peak_conc_mg_L"] * (1 - 1e-8)
+        assert row["time_above_level_yr"] == pytest.approx(d.time_above_level / yr,
+                                                           rel=1e-6)
+        assert row["run_time_above_level_yr"] == pytest.approx(w.time_above_level / yr,
+                                                               rel=1e-6)
+        assert row["run_breakthrough_yr"] == pytest.approx(w.first_exceedance / yr,
+                                                           rel=1e-6)
+        assert row["run_mass_to_receptor_kg_m2"] == pytest.approx(w.cumulative_mass,
+                                                                  rel=1e-6)
+        assert row["peak_after_design_life"] == int(views.peak_after_design_life)
+        assert row["peak_after_run_end"] == int(w.peak_beyond_horizon)
+    with open(files.csv, encoding="utf-8") as fh:
+        head = " ".join(line[2:].strip() for line in fh if line.startswith("#"))
+    assert "peak_after_design_life = 1: the peak lies after the design life" in head

@@ -16,11 +16,12 @@ from dataclasses import dataclass, replace
 import numpy as np
 import xarray as xr
 
-from transport.analysis.metrics import ReceptorMetrics, receptor_metrics
-from transport.analysis.summary import final_budget, verdict_line
+from transport.analysis.metrics import ReceptorMetrics, ReceptorViews, receptor_metrics
+from transport.analysis.summary import (design_life_flag, final_budget, peak_beyond_flag,
+                                        run_horizon, verdict_line)
 from transport.api import solve_scenario
 from transport.caution import CAUTION
-from transport.io.atomic import OutputSet, terminate_as_exit, write_text
+from transport.io.atomic import OutputSet, clean_stale_stem, terminate_as_exit, write_text
 from transport.io.netcdf import column_dataset, write_dataset_atomic
 from transport.solvers.checks import UnreliableResultError
 from transport.units import MG_PER_L, MG_PER_M2, YEAR
@@ -37,13 +38,21 @@ _MG_M2_PER_SI = 1.0 / MG_PER_M2
 @dataclass(frozen=True)
 class Alternative:
     """One solved alternative: its label, scenario, solution (on the common grid),
-    receptor metrics over its horizon and the warnings of its solve."""
+    receptor metrics over its horizon (the design life, else the whole run), the
+    warnings of its solve and the metrics over the whole run."""
 
     label: str
     scenario: object
     solution: object
     metrics: ReceptorMetrics
     warnings: tuple = ()
+    whole_run: ReceptorMetrics = None
+
+    @property
+    def views(self) -> ReceptorViews:
+        """The design-life and whole-run views (the same window without a design life
+        or when the run ends with it)."""
+        return ReceptorViews(self.metrics, self.whole_run or self.metrics)
 
 
 def compare_alternatives(scenarios, labels=None, engine="auto", progress=None,
@@ -70,7 +79,10 @@ def compare_alternatives(scenarios, labels=None, engine="auto", progress=None,
         horizon = sc.output.design_life or float(times.max())
         m = receptor_metrics(sol, sc.output.receptor_depth, sc.output.screening_level,
                              horizon)
-        out.append(Alternative(label, sc, sol, m, tuple(caught)))
+        run_end = run_horizon(times, sc.output.design_life)
+        whole = m if run_end == horizon else receptor_metrics(
+            sol, sc.output.receptor_depth, sc.output.screening_level, run_end)
+        out.append(Alternative(label, sc, sol, m, tuple(caught), whole))
     return out
 
 
@@ -93,11 +105,23 @@ def _on_grid(sol, depths, inside):
     return replace(sol, depths=depths, **padded)
 
 
+def _yr(t):
+    return None if t is None else t / YEAR
+
+
 def comparison_table(alts):
-    """Rows (list of dicts) of the metrics that decide between alternatives."""
+    """Rows (list of dicts) of the metrics that decide between alternatives.
+
+    The metrics over the design life (``horizon_yr``; the whole run without a design
+    life) come first, with ``peak_after_design_life`` saying whether the peak lies
+    beyond it (:func:`transport.analysis.summary.design_life_flag`); then the same
+    metrics over the whole run (``run_*``, up to ``run_end_yr``) with
+    ``peak_after_run_end``; then the time to steady state and the mass budget.
+    """
     rows = []
     for a in alts:
         m = a.metrics
+        w = a.whole_run or m
         b = final_budget(a.solution)
         rows.append({
             "alternative": a.label,
@@ -113,8 +137,19 @@ def comparison_table(alts):
             else m.time_above_level / YEAR,
             "peak_mg_L": m.peak_concentration * _MG_L_PER_SI,
             "peak_time_yr": m.peak_time / YEAR,
+            "peak_after_design_life": design_life_flag(a.views),
             "mass_to_receptor_mg_m2": None if m.cumulative_mass is None
             else m.cumulative_mass * _MG_M2_PER_SI,
+            "run_end_yr": w.horizon / YEAR,
+            "run_stays_below_level": None if w.stays_below_level is None
+            else ("yes" if w.stays_below_level else "no"),
+            "run_first_exceedance_yr": _yr(w.first_exceedance),
+            "run_time_above_level_yr": _yr(w.time_above_level),
+            "run_peak_mg_L": w.peak_concentration * _MG_L_PER_SI,
+            "run_peak_time_yr": w.peak_time / YEAR,
+            "peak_after_run_end": peak_beyond_flag(w),
+            "run_mass_to_receptor_mg_m2": None if w.cumulative_mass is None
+            else w.cumulative_mass * _MG_M2_PER_SI,
             "time_to_95pct_steady_yr": None if m.time_to_95_percent_steady is None
             else m.time_to_95_percent_steady / YEAR,
             "stored_end_mg_m2": b.get("stored", np.nan) * _MG_M2_PER_SI,
@@ -142,12 +177,11 @@ def table_text(rows, markdown=False):
         return "\n".join([head, sep] + ["| " + " | ".join(c) + " |" for c in cells])
     # transposed for the terminal: one line per metric, one column per alternative
     width = max(len(k) for k in keys)
-    colw = [max(12, max(len(c[i]) for c in cells + [[r["alternative"] for r in rows]]))
-            for i in range(1)]
+    colw = max(12, max(len(v) for c in cells for v in c))
     lines = []
     for j, k in enumerate(keys):
         vals = [c[j] for c in cells]
-        lines.append(k.ljust(width) + "  " + "  ".join(v.rjust(colw[0]) for v in vals))
+        lines.append(k.ljust(width) + "  " + "  ".join(v.rjust(colw) for v in vals))
     return "\n".join(lines)
 
 
@@ -163,7 +197,7 @@ def table_csv(rows):
 def verdict_lines(alts):
     """Plain statements: which alternatives keep the receptor below the level
     (:func:`transport.analysis.summary.verdict_line` each), then the caveat."""
-    lines = [verdict_line(a.label, a.metrics) for a in alts]
+    lines = [verdict_line(a.label, a.metrics, a.views) for a in alts]
     lines.append("This comparison is a screening tool; the choice of a remedy rests with "
                  "the regulator and licensed professionals under local rules.")
     return lines
@@ -190,14 +224,35 @@ def comparison_dataset(alts, title="stratiflux comparison", history=None):
             ("peak", "peak_concentration", "kg m-3", "peak concentration at the receptor "
              "per alternative"),
             ("mass_to_receptor", "cumulative_mass", "kg m-2", "mass per area through the "
-             "receptor depth over the horizon per alternative")):
-        values = [getattr(a.metrics, field) for a in alts]
-        vals = np.array([np.nan if v is None else float(v) for v in values])
-        ds[name] = (("scenario",), vals, {"long_name": long, "units": units,
-                                         "comment": CAUTION})
+             "receptor depth over the horizon per alternative"),
+            ("peak_time", "peak_time", "s", "elapsed time of the peak concentration at "
+             "the receptor per alternative"),
+            ("time_above_level", "time_above_level", "s", "time the receptor spends at or "
+             "above the screening level per alternative")):
+        # the design-life view (the whole run without a design life), then the whole run
+        for view, prefix, text in (
+                ("metrics", "", f"{long} (design life: see horizon)"),
+                ("whole_run", "run_", f"{long.replace('over the horizon ', '')} over the "
+                                      "whole run (see run_end)")):
+            values = [getattr(getattr(a, view) or a.metrics, field) for a in alts]
+            vals = np.array([np.nan if v is None else float(v) for v in values])
+            ds[prefix + name] = (("scenario",), vals, {"long_name": text, "units": units,
+                                                       "comment": CAUTION})
+    ds["peak_after_design_life"] = (("scenario",), np.array(
+        [a.views.peak_after_design_life for a in alts], dtype=np.int8), {
+        "long_name": "whether the peak at the receptor lies after the design life (still "
+                     "rising at its end, or higher later in the run), per alternative",
+        "flag_values": np.array([0, 1], dtype=np.int8), "flag_meanings": "no yes",
+        "comment": CAUTION})
+    ds["horizon"] = (("scenario",), np.array([a.metrics.horizon for a in alts]), {
+        "long_name": "design life: end of the window of the design-life metrics",
+        "units": "s"})
+    ds["run_end"] = (("scenario",), np.array([(a.whole_run or a.metrics).horizon
+                                              for a in alts]), {
+        "long_name": "end of the window of the whole-run metrics", "units": "s"})
     for name in ds.data_vars:
         var = ds[name]
-        if name in ("depth_bnds", "engine", "reliable"):
+        if name in ("depth_bnds", "engine", "reliable", "peak_after_design_life"):
             var.encoding = {"_FillValue": None}
         elif var.dims[-2:] == ("time", "depth"):
             # double precision: single precision (1e-7) would break the stated tolerance
@@ -229,6 +284,8 @@ def write_outputs(alts, out_dir, stem="comparison", history=None, title=None):
     from transport.plot.compare import plot_comparison
 
     os.makedirs(out_dir, exist_ok=True)
+    # temporaries of a killed earlier comparison, also of files this one will not write
+    clean_stale_stem(out_dir, stem)
     rows = comparison_table(alts)
     texts = (("csv", table_csv(rows)),
              ("md", f"# {title or 'Comparison of alternatives'}\n\n"

@@ -5,6 +5,12 @@ plus logarithmic times, plus every change time of a schedule or stage) and polis
 Brent's method (scipy.optimize.brentq; Brent 1973, Algorithms for Minimization without
 Derivatives, ch. 4).  Peaks are refined with bounded Brent minimisation.  Cumulative
 mass through the receptor depth comes from the closed-form time integral of the series.
+
+A run is read over two windows (:func:`receptor_views`): the design life and the whole
+run.  Whether a window's peak lies beyond its end is read from the curve itself: the
+peak is at the end (within :data:`PLATEAU_RTOL`) and C still rises over the last scan
+step by more than twice the error bound of C (:func:`end_trend`), or a later window
+shows a higher peak.
 """
 from __future__ import annotations
 
@@ -13,14 +19,22 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
-__all__ = ["ReceptorMetrics", "receptor_metrics", "crossings", "first_exceedance", "peak",
-           "scan_times", "steady_concentration"]
+__all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_views",
+           "crossings", "first_exceedance", "peak", "time_above", "scan_times",
+           "steady_concentration", "end_trend", "error_at", "concentration_bound",
+           "PLATEAU_RTOL", "DEFAULT_TOLERANCE"]
 
 TIME_RTOL = 1e-10  # relative time tolerance of the root polish
 N_SCAN = 800
 #: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
 #: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
 N_SCAN_INVERTED = 160
+#: A maximum within this relative distance of the end value is a plateau, not a peak
+#: (the series is accurate to the solver tolerance, 1e-8 by default).
+PLATEAU_RTOL = 1e-6
+#: Relative tolerance assumed for a solution that does not carry its own (the default
+#: of ``[output] tolerance``).
+DEFAULT_TOLERANCE = 1e-8
 
 
 class _Memo:
@@ -152,6 +166,92 @@ def peak(conc_at, depth, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
     return best_t, best_c
 
 
+def error_at(solution, t: float):
+    """The error bound of C (kg m-3) the run reports at the output times around ``t``.
+
+    Parameters
+    ----------
+    solution : Solution
+        A checked run (``error_estimate`` per output time); None is returned otherwise.
+    t : float
+        Elapsed time, s.
+
+    Returns
+    -------
+    float or None
+        The larger bound of the two output times that bracket ``t``.
+    """
+    err = solution.error_estimate
+    if err is None:
+        return None
+    times = np.asarray(solution.times, float)
+    err = np.asarray(err, float)
+    i = int(np.searchsorted(times, t))
+    near = err[max(i - 1, 0):i + 1]
+    return float(np.max(near)) if near.size else None
+
+
+def concentration_bound(solution, t: float, scale: float) -> float:
+    """Absolute error bound of C near ``t`` (kg m-3): the run's tolerance times the
+    scale of C (the run's own scale when it is checked, else ``scale``), or the engines'
+    bound at the output times around ``t`` (:func:`error_at`) when that is larger."""
+    tol = solution.tolerance or DEFAULT_TOLERANCE
+    own = (solution.scale or {}).get("concentration")
+    bound = tol * abs(own if own else scale)
+    engines = error_at(solution, t)
+    if engines is not None and np.isfinite(engines):
+        bound = max(bound, engines)
+    return float(bound)
+
+
+def end_trend(conc_at, depth: float, t_start: float, t_end: float, bound: float,
+              n: int = N_SCAN, extra=(), windows=()):
+    """Whether C(depth, t) still rises at ``t_end``: ``"rising"``, ``"falling"`` or
+    ``"flat"`` (within the error bound), or None when the end cannot be probed.
+
+    C at ``t_end`` is compared with C one uniform scan step earlier (the spacing of
+    :func:`scan_times`, (t_end - t_start) / (n - 1)), moved after the last change
+    time and unresolved window before ``t_end``; a change larger than twice ``bound``
+    (both values carry the error ``bound``) is a rise or a fall, else the curve is flat
+    within the tolerance there.
+
+    Parameters
+    ----------
+    conc_at : callable
+        ``conc_at(depth, times) -> array`` (kg m-3).
+    depth : float
+        Depth, m.
+    t_start, t_end : float
+        The window, s.
+    bound : float
+        Absolute error bound of C, kg m-3.
+    n : int
+        Uniform scan samples of the window.
+    extra, windows
+        Change times and unresolved windows (s), as in :func:`scan_times`.
+
+    Returns
+    -------
+    str or None
+    """
+    step = (t_end - t_start) / max(n - 1, 1)
+    after = max([c for c in extra if c < t_end]
+                + [b for a, b in windows if a < t_end], default=-np.inf)
+    if t_end - step <= after:
+        step = (t_end - after) / 2
+    if not step > 0:
+        return None
+    c = np.asarray(conc_at(depth, np.array([t_end - step, t_end])), float)
+    change = float(c[1] - c[0])
+    if not np.isfinite(change):
+        return None
+    if change > 2 * bound:
+        return "rising"
+    if change < -2 * bound:
+        return "falling"
+    return "flat"
+
+
 def steady_concentration(series, depth_local: float):
     """C at ``depth_local`` once every signal has settled, or None if there is no steady
     state (no decay and fluxes fixed at both ends, or a ramp that never stops)."""
@@ -183,9 +283,50 @@ class ReceptorMetrics:
     steady_concentration: float | None  # kg m-3
     time_to_95_percent_steady: float | None  # s
     stays_below_level: bool | None
+    end_concentration: float | None = None  # kg m-3 at the horizon
+    trend_at_end: str | None = None  # "rising", "falling", "flat" (end_trend) or None
+    concentration_bound: float | None = None  # kg m-3, error bound of C at the horizon
 
     def as_dict(self):
         return asdict(self)
+
+    @property
+    def peak_at_end(self) -> bool:
+        """The highest value of the window is its end value (within PLATEAU_RTOL)."""
+        if self.end_concentration is None:
+            return False
+        c_peak = self.peak_concentration
+        return c_peak - self.end_concentration <= PLATEAU_RTOL * max(abs(c_peak), 1e-300)
+
+    @property
+    def peak_beyond_horizon(self) -> bool:
+        """The peak lies after the horizon: highest at the end and still rising there."""
+        return self.peak_at_end and self.trend_at_end == "rising"
+
+
+@dataclass(frozen=True)
+class ReceptorViews:
+    """The receptor read over the design life and over the whole run.
+
+    ``design_life`` covers [0, design life] (the whole run when no design life is
+    given); ``whole_run`` covers [0, end of the run], the end being the last output time
+    or the design life if later (:func:`transport.analysis.summary.run_horizon`).
+    """
+
+    design_life: ReceptorMetrics
+    whole_run: ReceptorMetrics
+
+    @property
+    def peak_after_design_life(self) -> bool:
+        """The design-life peak is not the peak: C still rises at the end of the design
+        life, or the whole run shows a higher peak later (by more than twice the error
+        bound of C)."""
+        d, w = self.design_life, self.whole_run
+        if d.peak_beyond_horizon:
+            return True
+        bound = max(d.concentration_bound or 0.0, w.concentration_bound or 0.0)
+        return (w.peak_time > d.horizon
+                and w.peak_concentration - d.peak_concentration > 2 * bound)
 
 
 def _change_times(solution):
@@ -249,5 +390,48 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
         downs = [t for t, d in cr if d < 0]
         t95 = downs[-1] if downs else (t_start if not outside0 else None)
     stays = None if screening_level is None else first is None
+    c_end = float(np.asarray(solution.concentration_at(receptor_depth,
+                                                       np.array([horizon])))[0])
+    bound = concentration_bound(solution, horizon, max(abs(pk_c), abs(c_end), 1e-300))
+    trend = end_trend(solution.concentration_at, receptor_depth, t_start, horizon, bound,
+                      n, extra, win)
     return ReceptorMetrics(float(receptor_depth), screening_level, horizon, first, above,
-                           pk_t, pk_c, cum, c_ss, t95, stays)
+                           pk_t, pk_c, cum, c_ss, t95, stays, c_end, trend, bound)
+
+
+def receptor_views(solution, receptor_depth: float, screening_level=None,
+                   design_life=None, run_end=None) -> ReceptorViews:
+    """Receptor metrics over the design life and over the whole run.
+
+    Parameters
+    ----------
+    solution : Solution
+    receptor_depth : float
+        Depth of the receptor, m.
+    screening_level : float, optional
+        Screening level, kg m-3.
+    design_life : float, optional
+        Design life, s; without it both views are the whole run.
+    run_end : float, optional
+        End of the whole-run view, s (default: the last output time, or the design life
+        if later).
+
+    Returns
+    -------
+    ReceptorViews
+
+    Examples
+    --------
+    >>> views = receptor_views(solution, 4.0, 5e-6, design_life=50 * YEAR)  # doctest: +SKIP
+    >>> views.peak_after_design_life                                        # doctest: +SKIP
+    True
+    """
+    if run_end is None:
+        run_end = float(np.max(solution.times))
+        if design_life:
+            run_end = max(run_end, float(design_life))
+    whole = receptor_metrics(solution, receptor_depth, screening_level, run_end)
+    if not design_life or float(design_life) == float(run_end):
+        return ReceptorViews(whole, whole)
+    design = receptor_metrics(solution, receptor_depth, screening_level, design_life)
+    return ReceptorViews(design, whole)

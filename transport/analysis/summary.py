@@ -23,18 +23,17 @@ import math
 
 import numpy as np
 
-from transport.analysis.metrics import receptor_metrics
+from transport.analysis.metrics import (PLATEAU_RTOL, ReceptorViews, error_at,
+                                        receptor_metrics, receptor_views)
 from transport.solvers.checks import QUANTITIES
 from transport.units import DAY, MG_PER_L, MG_PER_M2, UG_PER_L, YEAR
 
 __all__ = ["PLATEAU_RTOL", "RELIABLE_FRACTION", "format_concentration", "format_time",
            "earliest_resolved_time", "run_horizon", "error_at", "reliability_note",
            "refused_lines", "receptor_lines", "final_budget", "budget_line", "check_line",
-           "summary_lines", "verdict_line"]
+           "summary_lines", "verdict_line", "trend_phrase", "peak_beyond_flag",
+           "design_life_flag", "run_views", "run_reading", "view_lines"]
 
-#: A maximum within this relative distance of the end value is a plateau, not a peak
-#: (the series is accurate to the solver tolerance, 1e-8 by default).
-PLATEAU_RTOL = 1e-6
 #: A breakthrough time is flagged as unreliable when the solver's error estimate at that
 #: point exceeds this fraction of the screening level.
 RELIABLE_FRACTION = 0.1
@@ -138,31 +137,6 @@ def run_horizon(times, design_life=None) -> float:
     return max(t_end, float(design_life)) if design_life else t_end
 
 
-def error_at(solution, t: float):
-    """The error bound of C (kg m-3) the run reports at the output times around ``t``.
-
-    Parameters
-    ----------
-    solution : Solution
-        A checked run (``error_estimate`` per output time); None is returned otherwise.
-    t : float
-        Elapsed time, s.
-
-    Returns
-    -------
-    float or None
-        The larger bound of the two output times that bracket ``t``.
-    """
-    err = solution.error_estimate
-    if err is None:
-        return None
-    times = np.asarray(solution.times, float)
-    err = np.asarray(err, float)
-    i = int(np.searchsorted(times, t))
-    near = err[max(i - 1, 0):i + 1]
-    return float(np.max(near)) if near.size else None
-
-
 def reliability_note(solution, t: float, level: float) -> str:
     """A warning sentence (with a leading space) when the solver's error estimate at
     ``t`` is not small against the screening ``level`` (kg m-3); else ``""``."""
@@ -233,7 +207,9 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
                          f"{format_time(t_end)}."
                          + reliability_note(solution, t_cross, level))
     t_peak, c_peak = metrics.peak_time, metrics.peak_concentration
-    c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
+    c_end = metrics.end_concentration
+    if c_end is None or metrics.horizon != t_end:
+        c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
     if c_peak - c_end <= PLATEAU_RTOL * max(abs(c_peak), 1e-300):
         lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
                      f"the end of the run ({format_time(t_end)}); it is still rising or "
@@ -289,8 +265,98 @@ def check_line(solution) -> list:
             "the mass budget hold at every output time."]
 
 
+# ------------------------------------------------------------- design life and whole run
+def trend_phrase(metrics) -> str:
+    """How C ends a window, in words (from ``metrics.trend_at_end``).
+
+    Examples
+    --------
+    >>> trend_phrase(metrics)                                # doctest: +SKIP
+    'still rising at 50 yr'
+    """
+    at = format_time(metrics.horizon)
+    return {"rising": f"still rising at {at}", "falling": f"falling at {at}",
+            "flat": f"flat within the tolerance at {at}"}.get(
+                metrics.trend_at_end, f"not resolved at {at}")
+
+
+def peak_beyond_flag(metrics) -> str:
+    """Whether the peak of a window lies after its end, for a table cell: ``"yes
+    (still rising at 100 yr)"``, ``"no (falling at 100 yr)"``, ``"no (flat within the
+    tolerance at 100 yr)"``, ``"possibly (rising again at ..., below the peak at ...)"``
+    or ``"unknown (...)"``."""
+    m = metrics
+    if m.peak_beyond_horizon:
+        return f"yes ({trend_phrase(m)})"
+    if m.trend_at_end == "rising":
+        return (f"possibly (rising again at {format_time(m.horizon)}, below the peak at "
+                f"{format_time(m.peak_time)})")
+    if m.trend_at_end is None:
+        return f"unknown ({trend_phrase(m)})"
+    return f"no ({trend_phrase(m)})"
+
+
+def design_life_flag(views) -> str:
+    """Whether the peak lies after the design life, for a table cell: still rising at
+    its end, or a higher peak later in the run (:attr:`ReceptorViews.peak_after_design_life`);
+    else :func:`peak_beyond_flag` of the design-life view."""
+    d, w = views.design_life, views.whole_run
+    if d.peak_beyond_horizon:
+        return f"yes ({trend_phrase(d)})"
+    if views.peak_after_design_life:
+        rise = (w.peak_concentration - d.peak_concentration) / max(
+            abs(d.peak_concentration), 1e-300)
+        return (f"yes (higher later: {format_concentration(w.peak_concentration)} at "
+                f"{format_time(w.peak_time)}, {100 * rise:.2g} % above)")
+    return peak_beyond_flag(d)
+
+
+def _window_text(m) -> str:
+    """Peak, screening level and mass of one window, for a sentence."""
+    parts = [f"peak {format_concentration(m.peak_concentration)} at "
+             f"{format_time(m.peak_time)}"]
+    level = m.screening_level
+    if level is not None:
+        if m.first_exceedance is None:
+            parts.append(f"screening level {format_concentration(level)} not reached")
+        else:
+            parts.append(f"screening level {format_concentration(level)} first reached at "
+                         f"{format_time(m.first_exceedance)}, above it for "
+                         f"{format_time(m.time_above_level)}")
+    if m.cumulative_mass is not None:
+        parts.append(f"{m.cumulative_mass / MG_PER_M2:.4g} mg/m2 passed downward")
+    return "; ".join(parts)
+
+
+def view_lines(views) -> list:
+    """Sentences on the two windows of a run: the design-life view (when the design life
+    ends before the run) with whether its peak lies after it, then whether the peak lies
+    beyond the end of the run (:func:`peak_beyond_flag`)."""
+    d, w = views.design_life, views.whole_run
+    where = f"Receptor at {w.receptor_depth:g} m"
+    lines = []
+    if d is not w and d.horizon < w.horizon:
+        lines.append(f"{where} within the {format_time(d.horizon)} design life: "
+                     f"{_window_text(d)}; peak after the design life: "
+                     f"{design_life_flag(views)}.")
+    lines.append(f"{where} over the whole run (to {format_time(w.horizon)}): peak after the "
+                 f"end of the run: {peak_beyond_flag(w)}.")
+    return lines
+
+
+def run_views(solution, receptor_depth=None, screening_level=None, design_life=None):
+    """Receptor metrics of a run over its design life and over the whole run
+    (:func:`transport.analysis.metrics.receptor_views`, the run read up to
+    :func:`run_horizon`), or None without a receptor or when output times were refused
+    (no metrics are reported then)."""
+    if receptor_depth is None or refused_lines(solution):
+        return None
+    return receptor_views(solution, receptor_depth, screening_level, design_life,
+                          run_horizon(solution.times, design_life))
+
+
 def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
-                  screening_level=None, design_life=None) -> list:
+                  screening_level=None, design_life=None, views=None) -> list:
     """The reading of one run, as printed by ``stratiflux run`` (one sentence a line).
 
     Parameters
@@ -308,12 +374,16 @@ def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
         Screening level, kg m-3.
     design_life : float, optional
         Design life, s; the run is read up to it when it ends later than the run.
+    views : ReceptorViews, optional
+        Metrics over the design life and the whole run (:func:`run_views`); computed
+        when omitted (its ``whole_run`` takes the place of ``metrics``).
 
     Returns
     -------
     list of str
         The title line; then, for a run with refused output times, only what it could
-        not vouch for; else the receptor sentences (:func:`receptor_lines`), the mass
+        not vouch for; else the receptor sentences (:func:`receptor_lines`, then
+        :func:`view_lines`), the mass
         budget (:func:`budget_line`) and the error bounds (:func:`check_line`).
 
     Raises
@@ -328,22 +398,33 @@ def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
     t_end = run_horizon(solution.times, design_life)
     t_start = earliest_resolved_time(solution.times)
     if receptor_depth is not None:
-        if metrics is None:
-            metrics = receptor_metrics(solution, receptor_depth, screening_level, t_end)
-        lines += receptor_lines(solution, metrics, design_life=design_life,
+        if views is None and metrics is None:
+            views = run_views(solution, receptor_depth, screening_level, design_life)
+        elif views is None:
+            design = metrics
+            if design_life and design_life < t_end:
+                design = receptor_metrics(solution, receptor_depth, screening_level,
+                                          design_life)
+            views = ReceptorViews(design, metrics)
+        lines += receptor_lines(solution, views.whole_run, design_life=design_life,
                                 t_start=t_start, t_end=t_end)
+        lines += view_lines(views)
     return lines + budget_line(solution) + check_line(solution)
 
 
-def verdict_line(label: str, metrics) -> str:
+def verdict_line(label: str, metrics, views=None) -> str:
     """One alternative of a comparison in one sentence: below the screening level over
-    the horizon (with its peak), or from when and for how long above it.
+    the horizon (with its peak), or from when and for how long above it; with ``views``
+    followed by whether the peak lies after the design life and the whole run's reading.
 
     Parameters
     ----------
     label : str
         Name of the alternative.
     metrics : ReceptorMetrics
+        The design-life view.
+    views : ReceptorViews, optional
+        Both views (:func:`transport.analysis.metrics.receptor_views`).
 
     Returns
     -------
@@ -351,12 +432,23 @@ def verdict_line(label: str, metrics) -> str:
     """
     m = metrics
     if m.screening_level is None:
-        return f"{label}: no screening level given; see the peak and mass."
-    if m.stays_below_level:
-        return (f"{label}: stays below {m.screening_level / MG_PER_L:.4g} mg/L at "
+        line = f"{label}: no screening level given; see the peak and mass."
+    elif m.stays_below_level:
+        line = (f"{label}: stays below {m.screening_level / MG_PER_L:.4g} mg/L at "
                 f"{m.receptor_depth:g} m over {m.horizon / YEAR:.4g} yr "
                 f"(peak {m.peak_concentration / MG_PER_L:.3g} mg/L).")
-    return (f"{label}: exceeds {m.screening_level / MG_PER_L:.4g} mg/L at "
-            f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
-            f"for {m.time_above_level / YEAR:.4g} yr within "
-            f"{m.horizon / YEAR:.4g} yr.")
+    else:
+        line = (f"{label}: exceeds {m.screening_level / MG_PER_L:.4g} mg/L at "
+                f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
+                f"for {m.time_above_level / YEAR:.4g} yr within "
+                f"{m.horizon / YEAR:.4g} yr.")
+    if views is None:
+        return line
+    w = views.whole_run
+    if views.design_life is w:  # no design life: the one window is the whole run
+        return line + f" Peak after the end of the run: {peak_beyond_flag(w)}."
+    line += f" Peak after the design life: {design_life_flag(views)}."
+    if w.horizon > m.horizon:
+        line += (f" Over the whole run (to {format_time(w.horizon)}): {_window_text(w)}; "
+                 f"peak after the end of the run: {peak_beyond_flag(w)}.")
+    return line

@@ -31,8 +31,9 @@ def compare(scenarios, out_dir, engine, tolerance):
     with [[alternatives]] tables (each a name and its own actions).
 
     Every alternative is solved on a common time and depth grid; the table reports
-    breakthrough at the receptor, time above the screening level, peak, mass to the
-    receptor over the design life, time to steady state and the mass budget.
+    breakthrough at the receptor, time above the screening level, peak and mass to the
+    receptor over the design life and over the whole run, whether the peak lies after
+    the design life (still rising at its end), time to steady state and the mass budget.
 
     \b
     Example:

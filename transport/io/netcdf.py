@@ -26,6 +26,7 @@ import xarray as xr
 
 from transport.caution import CAUTION
 from transport.io.atomic import stage_or_write
+from transport.io.netcdf_metrics import metric_variables
 from transport.units import DAY
 
 __all__ = [
@@ -215,7 +216,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                    screening_level: float | None = None,
                    receptor_depth: float | None = None,
                    history: str | None = None, station_id: str = "column",
-                   porosity=None) -> xr.Dataset:
+                   porosity=None, metrics=None) -> xr.Dataset:
     """Build the CF dataset of one column run (no file is written).
 
     Parameters
@@ -241,6 +242,8 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     porosity : sequence of float, optional
         Total porosity n of each layer, written as ``porosity`` beside the water-filled
         ``water_content`` theta that the engines use (they differ above the water table).
+    metrics : ReceptorViews, optional
+        Receptor metrics, written as scalar variables (:mod:`transport.io.netcdf_metrics`).
 
     Returns
     -------
@@ -410,7 +413,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
         else:
             var.encoding = {"_FillValue": None}
     ds["time"].encoding["dtype"] = "float64"
-    return ds
+    return ds.assign(metric_variables(metrics))
 
 
 def write_dataset_atomic(ds: xr.Dataset, path, *, stage=None) -> str:
@@ -434,7 +437,8 @@ def write_dataset_atomic(ds: xr.Dataset, path, *, stage=None) -> str:
 def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None = None,
                         screening_level: float | None = None,
                         receptor_depth: float | None = None,
-                        history: str | None = None, stage=None, porosity=None) -> str:
+                        history: str | None = None, stage=None, porosity=None,
+                        metrics=None) -> str:
     """Write one column run to a CF-1.11 NetCDF file, atomically (``stage``: see
     :func:`write_dataset_atomic`).
 
@@ -446,7 +450,7 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
     """
     ds = column_dataset(solution, title=title, scenario_text=scenario_text,
                         screening_level=screening_level, receptor_depth=receptor_depth,
-                        history=history, porosity=porosity)
+                        history=history, porosity=porosity, metrics=metrics)
     return write_dataset_atomic(ds, path, stage=stage)
 
 

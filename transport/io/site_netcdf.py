@@ -44,6 +44,24 @@ STATION_METRICS = (
      "receptor depth at the end of the design life"),
     ("receptor_depth", "m", "depth of the receptor below ground at the station"),
     ("boring_depth", "m", "depth of the bottom of the station's log below ground"),
+    ("time_above_level", "d", "total time at or above the screening level at the receptor "
+     "depth within the design life"),
+    ("peak_after_design_life", "1", "whether the peak at the receptor depth lies after "
+     "the design life, still rising at its end or higher later in the run (1: yes, 0: no)"),
+    ("run_breakthrough_time", "d", "elapsed time to the first crossing of the screening "
+     "level at the receptor depth over the whole run (fill: not reached)"),
+    ("run_time_above_level", "d", "total time at or above the screening level at the "
+     "receptor depth over the whole run"),
+    ("run_peak_time", "d", "elapsed time of the highest pore-water concentration at the "
+     "receptor depth over the whole run"),
+    ("run_peak_concentration", "kg m-3", "highest pore-water concentration at the "
+     "receptor depth over the whole run"),
+    ("run_receptor_mass", "kg m-2", "cumulative contaminant mass per unit area through the "
+     "receptor depth at the end of the run"),
+    ("peak_after_run_end", "1", "whether the peak at the receptor depth lies after the "
+     "end of the run, still rising there (1: yes, 0: no)"),
+    ("run_end", "d", "end of the whole run: the last output time, or the design life if "
+     "later"),
 )
 MC_METRICS = (
     ("exceedance_probability", "1", "Monte Carlo fraction of realizations in which the "

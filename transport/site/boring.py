@@ -22,6 +22,8 @@ import warnings
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
+from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_trend,
+                                        time_above)
 from transport.model.column import InitialState
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       concentration_bounds, describe_refusal, own_errors,
@@ -32,8 +34,8 @@ from transport.solvers.modal.series import (AccuracyWarning, build_series,
                                             earliest_time_after_change)
 
 __all__ = ["SCAN_SAMPLES", "MAX_MODES", "TIME_RTOL", "site_series", "receptor_metrics",
-           "curve_metrics", "solve_boring", "checked_fields", "verified_metrics",
-           "realization_metrics"]
+           "curve_metrics", "solve_boring", "window_views", "views_metrics", "checked_fields",
+           "verified_metrics", "realization_metrics"]
 
 #: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
 #: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
@@ -224,10 +226,75 @@ def solve_boring(site, col, depth, times, grid, initial=None):
     conc, cum, conc_at = checked_fields(site, col, initial, times, np.append(z, depth), t_end,
                                   conc, cum, lambda t: receptor.concentration(t)[:, 0])
     t_start = float(times[positive].min())
+    conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
     m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
-    return (keep, conc[:, :-1], cum[:-1, :-1], metrics,
+    views = window_views(site, col, initial, depth, times, conc_at, m, cum)
+    return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
             tuple(str(w.message) for w in caught))
+
+
+class _Remember:
+    """A curve C(t) that remembers the sample arrays it was asked for (the windows'
+    scans share their samples)."""
+
+    def __init__(self, conc):
+        self.conc, self.seen = conc, {}
+
+    def __call__(self, t):
+        t = np.atleast_1d(np.asarray(t, float))
+        key = t.tobytes()
+        if key not in self.seen:
+            self.seen[key] = np.asarray(self.conc(t), float)
+        return self.seen[key]
+
+
+def window_views(site, col, initial, depth, times, conc_at, design, cum):
+    """The receptor read over the design life and over the whole run (to the last output
+    time, or the design life if later) as
+    :class:`transport.analysis.metrics.ReceptorViews`: the design-life breakthrough and
+    peak ``design`` (from :func:`curve_metrics`), the time above the level
+    (:func:`transport.analysis.metrics.time_above`), the whole run's metrics, and
+    whether C still rises at each window's end
+    (:func:`transport.analysis.metrics.end_trend`, against twice the tolerance times the
+    scale of C). ``cum`` holds the cumulative mass at the output times and the design
+    life (last row), the receptor in the last column."""
+    curve = _Remember(conc_at)
+    level, tol = site.screening_level, site.tolerance
+    t_start = float(times[times > 0].min())
+    t_life = site.design_life
+    t_run = max(float(times.max()), t_life)
+    run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES)
+    mass_life = float(cum[-1, -1])
+    mass_run = mass_life if t_run == t_life else float(cum[times.size - 1, -1])
+    scale = concentration_bounds(col, initial, t_run).scale or max(abs(run[2]), 1e-300)
+    bound = tol * scale
+    out = []
+
+    def at(d, t):  # the receptor curve in the (depth, times) form of analysis.metrics
+        return curve(t)
+    for (bt, pk_t, pk), t_end, mass in ((design, t_life, mass_life),
+                                        (run, t_run, mass_run)):
+        above = time_above(at, depth, level, t_start, t_end, n=SCAN_SAMPLES)
+        trend = end_trend(at, depth, t_start, t_end, bound, SCAN_SAMPLES)
+        c_end = float(curve(np.array([t_end]))[0])
+        first = None if np.isnan(bt) else bt
+        out.append(ReceptorMetrics(depth, level, t_end, first, above, pk_t, pk, mass, None,
+                                   None, first is None, c_end, trend, bound))
+    return ReceptorViews(out[0], out[1])
+
+
+def views_metrics(views):
+    """The site metrics of :data:`transport.site.chunks.METRIC_KEYS` after the first
+    seven, from :func:`window_views`: time above the level over the design life, whether
+    the peak lies after it (1/0), the whole run's breakthrough (NaN: not reached), time
+    above, peak time and concentration, mass, whether its peak lies after its end (1/0),
+    and the end of the run (s)."""
+    d, w = views.design_life, views.whole_run
+    return (d.time_above_level, float(views.peak_after_design_life),
+            math.nan if w.first_exceedance is None else w.first_exceedance,
+            w.time_above_level, w.peak_time, w.peak_concentration, w.cumulative_mass,
+            float(w.peak_beyond_horizon), w.horizon)
 
 
 def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):

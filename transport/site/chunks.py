@@ -32,7 +32,11 @@ FIELD_CACHE_SIZE = 128  # columns whose fields are kept (each nt x nz x 2 floats
 METRIC_CACHE_SIZE = 100_000  # Monte Carlo columns whose two metrics are kept
 QUANTILES = (0.05, 0.5, 0.95)
 METRIC_KEYS = ("breakthrough_time", "peak_time", "peak_concentration", "receptor_mass",
-               "receptor_depth", "n_modes", "boring_depth")
+               "receptor_depth", "n_modes", "boring_depth",
+               # the design life and the whole run (transport.site.boring.views_metrics)
+               "time_above_level", "peak_after_design_life", "run_breakthrough_time",
+               "run_time_above_level", "run_peak_time", "run_peak_concentration",
+               "run_receptor_mass", "peak_after_run_end", "run_end")
 MC_KEYS = ("exceedance_probability", "breakthrough_time_p5", "breakthrough_time_p50",
            "breakthrough_time_p95", "peak_concentration_p5", "peak_concentration_p50",
            "peak_concentration_p95")
