@@ -32,7 +32,7 @@ __all__ = ["PLATEAU_RTOL", "RELIABLE_FRACTION", "format_concentration", "format_
            "earliest_resolved_time", "run_horizon", "error_at", "reliability_note",
            "refused_lines", "receptor_lines", "final_budget", "budget_line", "check_line",
            "summary_lines", "verdict_line", "trend_phrase", "peak_beyond_flag",
-           "design_life_flag", "run_views", "run_reading", "view_lines"]
+           "design_life_flag", "run_views", "view_lines"]
 
 #: A breakthrough time is flagged as unreliable when the solver's error estimate at that
 #: point exceeds this fraction of the screening level.
