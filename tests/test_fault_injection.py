@@ -378,7 +378,7 @@ SITE_FAULTS = {
     "geopackage": ("transport.site.run.write_geopackage", raiser),
     "geojson": ("transport.site.run.write_geojson", raiser),
     "csv": ("transport.site.run.write_metrics_csv", raiser),
-    "map": ("transport.site.run.plot_site_map", raiser),
+    "map": ("transport.plot.site_map.plot_site_map", raiser),
     "savefig": (Figure, "savefig", lambda: partial_savefig(1)),
     "last rename": (os, "replace", lambda: replace_failing_for("site_map.png")),
 }
@@ -464,15 +464,15 @@ def site_reference(tmp_path_factory):
     site = load_site(write_small_site(base))
     files = run_site(site, base / "ref", realizations=0, workers=1, chunk_size=2)
     interrupted = base / "interrupted"
-    import transport.site.run as site_run
+    import transport.plot.site_map as site_map
 
-    real = site_run.plot_site_map
-    site_run.plot_site_map = raiser
+    real = site_map.plot_site_map
+    site_map.plot_site_map = raiser
     try:
         with pytest.raises(Injected):
             run_site(site, interrupted, realizations=0, workers=1, chunk_size=2)
     finally:
-        site_run.plot_site_map = real
+        site_map.plot_site_map = real
     state = json.loads((interrupted / "site.nc.progress.json").read_text())
     assert state["done"] == [0, 1, 2] and len(state["sha256"]) == 3
     return site, files, interrupted
@@ -711,3 +711,63 @@ def test_clean_stale_spares_young_files_and_live_processes(tmp_path):
         os.utime(path, (old, old))
     assert clean_stale([target]) == [str(stale)]
     assert not stale.exists() and young.exists() and live.exists() and other.exists()
+
+
+# ------------------------------------------------------------- a killed comparison
+_KILLED_COMPARE = """
+import sys, time
+from pathlib import Path
+import transport.plot.compare as figures
+
+def stuck(alts, out_dir, stem="comparison", title=None, *, stage=None):
+    # a figure half written (a name the next run will not write), then the kill
+    Path(stage.reserve(Path(out_dir) / f"{stem}_extra.png")).write_bytes(b"half")
+    Path(out_dir, "writing").write_text("now")
+    time.sleep(120)
+
+figures.plot_comparison = stuck
+sys.argv = ["stratiflux", "compare", sys.argv[1], "-o", sys.argv[2]]
+from transport.cli.main import main
+main()
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="uses SIGKILL")
+def test_sigkill_of_compare_then_the_next_run_leaves_no_debris(tmp_path):
+    """A comparison killed (SIGKILL) while writing leaves temporaries; the next
+    comparison into the same folder removes them, also that of a file it does not
+    write, and keeps the files of a live run (common practice for atomic output sets:
+    write, check, rename)."""
+    scenario = Path(__file__).resolve().parent.parent / "scenarios" / "depot-alternatives.toml"
+    out = tmp_path / "cmp"
+    out.mkdir()
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(
+        [str(Path(__file__).resolve().parent.parent)] + sys.path))
+    proc = subprocess.Popen([sys.executable, "-c", _KILLED_COMPARE, str(scenario), str(out)],
+                            env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 240
+        while not (out / "writing").exists() and proc.poll() is None \
+                and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert proc.poll() is None, "the comparison ended before it could be killed"
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    (out / "writing").unlink()
+    debris = temporaries(out)
+    assert len(debris) >= 3  # csv, md, nc and the half figure were staged
+    live = out / f".comparison_other.png.{os.getpid()}-abcdef.part.png"  # a live run's
+    live.write_bytes(b"live")
+    os.utime(live, (time.time() - 3600,) * 2)
+    time.sleep(1.1)  # the next run starts after the debris was last written
+    again = subprocess.run([sys.executable, "-c", "import sys; sys.argv[0] = 'stratiflux'; "
+                            "from transport.cli.main import main; main()", "compare",
+                            str(scenario), "-o", str(out)], env=env, capture_output=True,
+                           timeout=300)
+    assert again.returncode == 0, again.stderr.decode(errors="replace")[-3000:]
+    assert temporaries(out) == [str(live)]
+    assert (out / "comparison.nc").exists() and not (out / "comparison_extra.png").exists()
