@@ -2,6 +2,8 @@
 one process against the high-precision mpmath reference (tests/reference.py).
 
 Run:  python benchmarks/bench_engines.py
+      python benchmarks/bench_engines.py thin   (1,000 invented layers of 1 mm: the auto
+      engine's cost estimate, the modal path as before against the Laplace choice)
 """
 import os
 import platform
@@ -14,7 +16,8 @@ import numpy as np
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "tests"))
 
 from reference import laplace_reference  # noqa: E402
-from transport.solvers.engines import solve_column  # noqa: E402
+from transport.solvers import engines  # noqa: E402
+from transport.solvers.engines import estimate_costs, solve_column  # noqa: E402
 from transport.solvers.fv.engine import solve_fv  # noqa: E402
 from transport.solvers.laplace import solve_laplace  # noqa: E402
 from transport.solvers.modal.series import solve  # noqa: E402
@@ -122,5 +125,38 @@ def main():
               f"{w:6.3f} s, engine {sol.engine_by_time[0]}, estimated error "
               f"{sol.error_estimate[0]:.1e}")
 
+def thin(n_layers=1000, seed=7):
+    """auto on ``n_layers`` invented layers of 1 mm (clay to sand, 6 output times, 21
+    depths): the modal path as before (cost rule off) against the cost-based choice."""
+    rng = np.random.default_rng(seed)
+    layers = tuple(Layer(1e-3, rng.uniform(0.2, 0.45), 10 ** rng.uniform(-12, -9),
+                         rng.uniform(1, 50)) for _ in range(n_layers))
+    col = Column(layers=layers, top=Boundary("concentration", 1.0),
+                 bottom=Boundary("free-outflow"), darcy_flux=0.01 / YEAR)
+    times = np.array([0.5, 1, 2, 5, 10, 20]) * YEAR
+    depths = np.linspace(0.0, col.length, 21)
+    cost = estimate_costs(col, times, 1e-8, n_depths=depths.size, reads=0)
+    print(f"{n_layers} layers of 1 mm, {times.size} times x {depths.size} depths: estimated "
+          f"modal {cost.modal:.2f} s ({cost.modes} modes), Laplace {cost.laplace:.2f} s")
+    keep = engines.COSTLIER_BY
+    engines.COSTLIER_BY = float("inf")  # the path before the estimate: both engines
+    try:
+        w_old, old = timed(lambda: solve_column(col, times, depths, reads=0), repeat=1)
+    finally:
+        engines.COSTLIER_BY = keep
+    w_new, new = timed(lambda: solve_column(col, times, depths, reads=0), repeat=1)
+    for name, w, sol in (("before (modal path + Laplace witness)", w_old, old),
+                         ("after (cost estimate)", w_new, new)):
+        print(f"  {name}: {w:7.2f} s, engines {', '.join(sorted(set(sol.engine_by_time)))}, "
+              f"largest error bound {np.max(sol.error_estimate):.1e}")
+    print(f"  ratio before/after: {w_old / w_new:.1f}x; "
+          f"{new.diagnostics.get('engine_choice', 'no choice by cost')}")
+    print(f"  largest difference between the two: "
+          f"{np.max(np.abs(old.concentration - new.concentration)):.1e}")
+
+
 if __name__ == "__main__":
-    main()
+    if sys.argv[1:2] == ["thin"]:
+        thin()
+    else:
+        main()

@@ -40,7 +40,7 @@ import signal
 import threading
 import time
 
-__all__ = ["OutputSet", "atomic_write", "clean_stale", "temporary_name", "TEMP_PATTERN",
+__all__ = ["OutputSet", "atomic_write", "clean_stale", "clean_stale_stem", "temporary_name", "TEMP_PATTERN",
            "LEGACY_PATTERN", "new_file_mode", "fsync_file", "stage_or_write",
            "terminate_as_exit", "write_text", "STARTED", "process_alive"]
 
@@ -105,27 +105,45 @@ def clean_stale(paths) -> list:
         wanted.setdefault(directory, set()).add(name)
     removed = []
     for directory, names in wanted.items():
+        removed += _clean_dead(directory, names.__contains__)
+    return removed
+
+
+def clean_stale_stem(directory, stem: str) -> list:
+    """As :func:`clean_stale`, for every output named ``<stem>.<ext>`` or
+    ``<stem>_<anything>`` in ``directory`` (a command whose set of files depends on its
+    input, e.g. ``compare``'s figures: the temporaries of a killed run that wrote a
+    file this run will not write are removed too). Returns the removed paths."""
+    def ours(name):
+        return name.startswith(stem + ".") or name.startswith(stem + "_")
+    return _clean_dead(os.path.abspath(os.fspath(directory)), ours)
+
+
+def _clean_dead(directory, wanted) -> list:
+    """Remove the temporaries in ``directory`` of the outputs ``wanted(name)`` accepts,
+    left by processes that are gone (rules of :func:`clean_stale`)."""
+    removed = []
+    try:
+        entries = list(os.scandir(directory))
+    except OSError:
+        return removed
+    for entry in entries:
+        match = TEMP_PATTERN.match(entry.name) or LEGACY_PATTERN.match(entry.name)
+        if not match or not wanted(match["name"]):
+            continue
         try:
-            entries = list(os.scandir(directory))
+            if not entry.is_file(follow_symlinks=False):
+                continue
+            if entry.stat(follow_symlinks=False).st_mtime >= STARTED:
+                continue
         except OSError:
             continue
-        for entry in entries:
-            match = TEMP_PATTERN.match(entry.name) or LEGACY_PATTERN.match(entry.name)
-            if not match or match["name"] not in names:
-                continue
-            try:
-                if not entry.is_file(follow_symlinks=False):
-                    continue
-                if entry.stat(follow_symlinks=False).st_mtime >= STARTED:
-                    continue
-            except OSError:
-                continue
-            pid = match.groupdict().get("pid")
-            if pid is not None and process_alive(int(pid)):
-                continue
-            with contextlib.suppress(OSError):
-                os.remove(entry.path)
-                removed.append(entry.path)
+        pid = match.groupdict().get("pid")
+        if pid is not None and process_alive(int(pid)):
+            continue
+        with contextlib.suppress(OSError):
+            os.remove(entry.path)
+            removed.append(entry.path)
     return removed
 
 

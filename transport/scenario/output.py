@@ -12,11 +12,12 @@ import numpy as np
 
 from transport.model.column import Column, InitialState
 from transport.scenario.reader import Reader
+from transport.solvers.staged import MAX_SAMPLES
 from transport.units import YEAR
 
 __all__ = ["OutputSpec", "read_output", "read_times", "read_samples", "read_samples_file",
            "depth_grid", "with_cap_depths", "check_run_size", "check_advection",
-           "run_memory_bytes", "MEMORY_BUDGET", "MAX_CONTOUR_NODES", "MAX_TIMES", "MAX_DEPTHS",
+           "run_memory_bytes", "handover_bytes", "MEMORY_BUDGET", "MAX_CONTOUR_NODES", "MAX_TIMES", "MAX_DEPTHS",
            "DEFAULT_DEPTH_INTERVALS", "DEFAULT_TOLERANCE"]
 
 MAX_TIMES = 10_000  # output times; more is a typo, not a use case
@@ -287,7 +288,13 @@ def with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
     if top >= 0:
         return output
     d = np.asarray(output.depths)
-    step = float(np.min(np.diff(d))) if d.size > 1 else -top / 20
+    step = -top / 20
+    if d.size > 1:
+        diffs = np.diff(d)
+        step = float(np.min(diffs))
+        # a layer face or the receptor close to a grid depth makes the smallest gap much
+        # finer than the grid spacing; the cap is sampled at the spacing itself
+        step = max(step, float(np.median(diffs)) if step < 0.5 * np.median(diffs) else step)
     faces = [f + st.offset for st in timeline.stages for f in st.column.interfaces]
     extra = np.concatenate([np.arange(top, 0.0, step), faces])
     depths = np.unique(np.concatenate([d, extra[extra < d.max()]]))
@@ -300,15 +307,36 @@ def with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
 MEMORY_BUDGET = 4 * 1024 ** 3
 
 
-def run_memory_bytes(n_times: int, n_depths: int, n_segments: int) -> float:
+#: Bytes a staged run's hand-over keeps per sample and layer (depth, C, dC/dz, length
+#: and four cubic coefficients, float64) ...
+HANDOVER_BYTES_PER_SAMPLE = 64
+#: ... and works with per sample while sampling (one Laplace inversion per sample
+#: depth: ~100 contour nodes x 3 quantities, complex128).
+HANDOVER_WORK_PER_SAMPLE = 4800
+
+
+def handover_bytes(n_layers: int, stage_changes: int) -> float:
+    """Most memory the staged Laplace engine's cubic Hermite hand-over can take (bytes):
+    up to ``MAX_SAMPLES`` samples per layer (transport.solvers.staged) kept for every
+    stage change, plus the working arrays of one sampling pass."""
+    if stage_changes <= 0:
+        return 0.0
+    return MAX_SAMPLES * (float(stage_changes) * n_layers * HANDOVER_BYTES_PER_SAMPLE
+                          + HANDOVER_WORK_PER_SAMPLE)
+
+
+def run_memory_bytes(n_times: int, n_depths: int, n_segments: int,
+                     stage_changes: int = 0) -> float:
     """Estimated peak memory of a run (bytes): about 6 kB per output point plus 50 B per
     point and segment of the column (layers and profile pieces) for the engines' working
     arrays, and a fixed 150 MB.  Measured with the two-layer starter column (5.5-5.8 kB
     per point at 4e3 to 4e5 points) and with 300 and 1000 equal layers (17 and 54 kB
     per point).  A staged run solves its stages one after another: the largest stage
-    counts."""
+    counts, plus the state handed over at each of its ``stage_changes``
+    (:func:`handover_bytes`, with ``n_segments`` layers)."""
     points = float(n_times) * float(n_depths)
-    return 150e6 + points * (6e3 + 50.0 * n_segments)
+    return (150e6 + points * (6e3 + 50.0 * n_segments)
+            + handover_bytes(n_segments, stage_changes))
 
 
 #: Most nodes per output time of the Laplace engine's parabolic contour (its count is
@@ -348,7 +376,7 @@ def check_run_size(r: Reader, output: OutputSpec, column: Column, initial, timel
     if timeline is not None:
         stages = len(timeline.stages)
         nseg = max([nseg] + [len(st.column.layers) for st in timeline.stages])
-    need = run_memory_bytes(output.times.size, output.depths.size, nseg)
+    need = run_memory_bytes(output.times.size, output.depths.size, nseg, stages - 1)
     if need > MEMORY_BUDGET:
         raise r.error("output", problem=f"the run would need about {need / 1e9:.3g} GB of "
                       f"memory ({output.times.size} output times x {output.depths.size} "

@@ -19,6 +19,7 @@ quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -29,20 +30,147 @@ from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assembl
 from transport.solvers.fv.engine import DEFAULT_TOLERANCE as FV_TOLERANCE
 from transport.solvers.fv.engine import solve_fv_result
 from transport.solvers.laplace import solve_laplace
+from transport.solvers.laplace.contour import companion_nodes, default_nodes
 from transport.solvers.modal import series as modal
 from transport.solvers.modal.operator import build_operator
 from transport.solvers.modal.projection import initial_profile
-from transport.solvers.modal.sizing import DEFAULT_TOLERANCE
+from transport.solvers.modal.sizing import DEFAULT_TOLERANCE, earliest_time_after_change
 from transport.solvers.result import Solution
 
 __all__ = ["solve_column", "ENGINES", "ON_UNRELIABLE", "modal_evaluator", "checked_fields",
-           "DEFAULT_TOLERANCE", "FV_TOLERANCE"]
+           "DEFAULT_TOLERANCE", "FV_TOLERANCE", "CostEstimate", "estimate_costs",
+           "COSTLIER_BY", "COST_FLOOR", "laplace_cost", "modal_cost", "READS"]
 
 ENGINES = ("auto", "modal", "laplace", "finite-volume")
 ON_UNRELIABLE = ("raise", "flag")
 # Default relative tolerances: DEFAULT_TOLERANCE (1e-8) of the modal series, and the
 # looser FV_TOLERANCE (1e-3) of the finite-volume engine (a second-order scheme, whose
 # error estimate comes from mesh doubling).
+
+
+#: ``auto`` serves from the Laplace engine alone when the modal path is estimated this
+#: many times costlier than the Laplace engine ...
+COSTLIER_BY = 5.0
+#: ... and at least this long (s): a small column is always solved as before (both
+#: engines, the modal value where the Laplace engine confirms it).
+COST_FLOOR = 1.0
+# Work units in seconds, measured on a 2-core x86-64 machine with
+# benchmarks/bench_engines.py (columns of 5 to 1,000 layers); only their ratio and the
+# floor above decide anything, and an estimate off by a factor of 2 changes no choice
+# the ratio of 5 makes.
+_S_PER_MODE_LAYER = 1e-5  # root search: ~30 Pruefer passes of ~3e-7 s per mode x layer
+_NODES_PER_PANEL = 16  # Gauss-Legendre nodes of the projections (8 to 32 per panel)
+_S_PER_NODE_RESPONSE = 2e-7  # one steady response or mode at one quadrature node
+_S_PER_LAPLACE_SOLVE = 4e-6  # one time x contour node x (segment + 20 of overhead)
+#: Later C(depth, t) evaluations assumed by default: a receptor reading scans a curve
+#: served by Laplace inversion at about 240 times (160 uniform + 80 logarithmic), each
+#: one more inversion, where the modal series evaluates them almost for free.  A caller
+#: that reads no curve passes ``reads=0``.
+READS = 240
+#: Times x segments the Laplace evaluator inverts at once (bounds its memory: a column
+#: of 1,000 layers read at 240 times at once held 4 GB); smaller reads go in one call.
+READ_BLOCK = 20000
+
+
+@dataclass(frozen=True)
+class CostEstimate:
+    """Work of the two engines of ``auto``, estimated before solving (seconds on the
+    machine the constants were measured on: an order of magnitude, not a promise).
+
+    Attributes
+    ----------
+    modal : float
+        Modal path: eigenvalues (modes x layers x Pruefer passes) and the projections
+        of its N + 2 steady responses and its modes at ~16 Gauss nodes per panel (the
+        panels break at every layer face and output depth).
+    laplace : float
+        Laplace engine: (output times + later reads) x switch-on times x contour
+        nodes (its two node counts) x segments of the banded system.
+    modes : int
+        Modes the modal path needs (Weyl estimate of the tail bound).
+    laplace_only : bool
+        Whether ``auto`` serves from the Laplace engine alone (modal estimated
+        ``COSTLIER_BY`` times costlier and above ``COST_FLOOR``).
+    """
+
+    modal: float
+    laplace: float
+    modes: int
+    laplace_only: bool
+
+    @property
+    def ratio(self) -> float:
+        """Modal estimate over the Laplace estimate."""
+        return self.modal / max(self.laplace, 1e-300)
+
+    def describe(self) -> str:
+        """One line for the command line: the choice and its reason."""
+        return (f"auto: Laplace chosen, modal path estimated {self.ratio:.0f}x costlier "
+                f"(~{self.modal:.2g} s for {self.modes} modes against ~{self.laplace:.2g} s)")
+
+
+def _switch_on_times(column) -> int:
+    """Distinct switch-on times of the signals (each is one Laplace inversion)."""
+    changes = {0.0}
+    for sched in (column.top.schedule, column.bottom.schedule,
+                  *(lay.source_schedule for lay in column.layers)):
+        if sched is not None:
+            changes.update(float(t) for t in sched.change_times)
+    return len(changes)
+
+
+def laplace_cost(column, times, initial=None, reads: int = 0) -> float:
+    """Estimated seconds of :func:`transport.solvers.laplace.solve_laplace` on ``times``
+    and of ``reads`` later single-time evaluations (contour nodes of both node counts x
+    segments x times x switch-on times)."""
+    n = default_nodes(column)
+    solves = (n + companion_nodes(n)) / 2
+    segments = len(column.layers) + (len(initial.depths) if initial is not None
+                                     and getattr(initial, "kind", "") == "profile" else 0)
+    positive = int(np.count_nonzero(np.asarray(times, float) > 0)) + int(reads)
+    return _S_PER_LAPLACE_SOLVE * positive * _switch_on_times(column) * solves * (segments + 20)
+
+
+def modal_cost(column, modes: int, n_depths: int = 0) -> float:
+    """Estimated seconds of the modal path with ``modes`` modes and ``n_depths`` output
+    depths: root search over the layers, then N + 2 steady responses and the modes at
+    ~16 Gauss nodes per panel (panels break at layer faces and output depths)."""
+    n = len(column.layers)
+    nodes = _NODES_PER_PANEL * (n + n_depths)
+    return _S_PER_MODE_LAYER * modes * n + _S_PER_NODE_RESPONSE * nodes * (n + 2 + modes)
+
+
+def estimate_costs(column, times, tolerance, max_modes=4000, initial=None,
+                   rows=None, n_depths=0, reads: int = READS) -> CostEstimate:
+    """Cost of the modal path and of the Laplace engine for ``column`` at ``times``,
+    estimated before solving either (see :class:`CostEstimate`).
+
+    Parameters
+    ----------
+    column : Column
+    times : (nt,) s
+    tolerance : relative tolerance (sizes the modal series)
+    max_modes : cap of the modal series
+    initial : InitialState, optional (a profile adds Laplace segments)
+    rows : indices of the times the modal path would be asked for (default: every
+        positive time)
+    n_depths : number of output depths
+    reads : later C(depth, t) evaluations of the result (:data:`READS` by default)
+
+    Returns
+    -------
+    CostEstimate
+    """
+    times = np.asarray(times, float).ravel()
+    rows = np.flatnonzero(times > 0) if rows is None else np.asarray(rows, int)
+    lap = laplace_cost(column, times, initial, reads)
+    if rows.size == 0:
+        return CostEstimate(0.0, lap, 0, False)
+    t_min = earliest_time_after_change(column, times[rows])
+    modes = 8 if t_min is None else modal.required_modes(build_operator(column), t_min,
+                                                         tolerance, max_modes)
+    cost = modal_cost(column, modes, n_depths)
+    return CostEstimate(cost, lap, modes, cost > COST_FLOOR and cost > COSTLIER_BY * lap)
 
 
 def _weyl_modes(op, t, tolerance):
@@ -56,8 +184,11 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom):
         t = np.atleast_1d(np.asarray(t, dtype=float))
         out = np.empty(t.size)
         pos = t > 0
-        if pos.any():
-            out[pos] = solve_laplace(column, t[pos], [depth], initial=initial,
+        idx = np.flatnonzero(pos)
+        step = max(1, READ_BLOCK // len(column.layers))
+        for start in range(0, idx.size, step):
+            sel = idx[start:start + step]
+            out[sel] = solve_laplace(column, t[sel], [depth], initial=initial,
                                      semi_infinite_bottom=semi_infinite_bottom
                                      ).concentration[:, 0]
         if (~pos).any():
@@ -98,7 +229,7 @@ def _expand(sol, rows, nt):
 def solve_column(column: Column, times, depths, *, initial: InitialState = None,
                  tolerance: float = None, engine: str = "auto", max_modes: int = 4000,
                  semi_infinite_bottom: bool = False, cells_per_layer=None,
-                 on_unreliable: str = "raise") -> Solution:
+                 on_unreliable: str = "raise", reads: int = READS) -> Solution:
     """Solve a layered column; every returned number is vouched for within ``tolerance``.
 
     Parameters
@@ -116,6 +247,13 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
     on_unreliable : "raise" (default): :class:`transport.solvers.checks.UnreliableResultError`
         when an output time cannot be vouched for; "flag": its values are NaN and
         ``reliable`` is False there
+    reads : C(depth, t) evaluations the caller expects to make of the result (through
+        ``concentration_at``) besides the output grid; with ``engine="auto"`` they count
+        in the Laplace engine's estimated cost (:func:`estimate_costs`), so the modal
+        path, whose series serves them almost for free, is skipped only when it is
+        estimated far costlier even so (default :data:`READS`, a receptor reading; 0
+        for the output grid alone).  The choice, when the estimate made it, is in
+        ``diagnostics["engine_choice"]``.
 
     Returns
     -------
@@ -150,6 +288,7 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
         column, initial, float(times.max()) if nt else 0.0)
     series, evaluator = None, laplace_at
     eig, n_modes = np.empty(0), 0
+    note = ""
     if engine == "laplace" or semi_infinite_bottom:
         cands = [("laplace", lap_c)]
     elif engine == "finite-volume":
@@ -159,6 +298,9 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
         evaluator = fv.evaluator
     else:
         rows = _modal_rows(column, times, tolerance, max_modes, forced=engine == "modal")
+        if engine == "auto" and rows.size:
+            rows, note = _cheaper_plan(column, times, depths, rows, tolerance, max_modes,
+                                       initial, bounds, lap_c, reads)
         cands = []
         if rows.size:
             with warnings.catch_warnings():
@@ -190,7 +332,29 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
     return Solution(column=column, times=times, depths=depths, eigenvalues=eig,
                     n_modes=n_modes, series=series, evaluator=evaluator,
                     mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
+                    diagnostics={"engine_choice": note} if note else {},
                     **checked_fields(choice, vals, budget, tolerance))
+
+
+def _cheaper_plan(column, times, depths, rows, tolerance, max_modes, initial, bounds,
+                  lap_c, reads):
+    """(rows for the modal path, note): no rows when the modal path is estimated far
+    costlier than the Laplace engine (:func:`estimate_costs`) and the Laplace engine
+    alone vouches for every output time by its own bound (two node counts), the physical
+    bounds and its budget, as :func:`transport.solvers.checks.choose` rules; else the
+    rows unchanged (both engines, as for any column).  The note says what was chosen
+    and why ("" when the estimate changed nothing)."""
+    cost = estimate_costs(column, times, tolerance, max_modes, initial, rows, depths.size,
+                          reads)
+    if not cost.laplace_only:
+        return rows, ""
+    alone = choose(times, [("laplace", lap_c[0], lap_c[1])], tolerance, bounds, column,
+                   depths, budgets=[lap_c[2]], selectable=1)
+    if alone.reliable.all():
+        return rows[:0], cost.describe()
+    return rows, (f"auto: modal path estimated {cost.ratio:.0f}x costlier than the "
+                  "Laplace engine, run as well: the Laplace engine alone could not vouch "
+                  "for every output time")
 
 
 def modal_evaluator(choice, times, series, fallback):
