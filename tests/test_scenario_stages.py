@@ -24,8 +24,12 @@ def _with(text_extra, base=BASE):
 def test_actions_build_a_timeline_with_depths_above_the_original_top():
     sc = parse_scenario(BASE, path="cap.toml")
     stages = sc.timeline.stages
-    assert [s.label for s in stages[1:]] == ["remove-source", "place-cap", "set-flow"]
-    assert stages[2].offset == pytest.approx(-0.5)  # 0.5 m cap above the original top
+    # three actions at 1 yr, applied in the order written, make one stage
+    assert [s.label for s in stages[1:]] == ["remove-source + place-cap + set-flow"]
+    assert stages[1].offset == pytest.approx(-0.5)  # 0.5 m cap above the original top
+    assert stages[1].carry[0] is None  # the cap starts clean
+    assert stages[1].column.top.kind == "sealed"
+    assert stages[1].column.darcy_flux == pytest.approx(0.01 / YEAR, rel=1e-12)
     assert sc.output.depths.min() == pytest.approx(-0.5)
 
 

@@ -86,3 +86,45 @@ def test_fuzz_only_unit_error(text):
     except UnitError:
         return
     assert math.isfinite(value)
+
+
+# --- units practitioners type -------------------------------------------------------
+
+@pytest.mark.parametrize("text, mg_per_l", [("2 ppm", 2.0), ("2.5 PPM", 2.5),
+                                            ("7 ppb", 7e-3), ("0 ppb", 0.0)])
+def test_ppm_ppb_in_water(text, mg_per_l):
+    """In water 1 ppm = 1 mg/L and 1 ppb = 1 ug/L: a mass fraction 1e-6 (1e-9) of a
+    dilute solution of density 1 kg/L; 1 L = 1e-3 m^3 (SI Brochure, 9th ed. 2019,
+    Table 8), so 1 mg/L = 1e-3 kg m-3.  The fraction is pint's own ppm (1e-6)."""
+    frac = ureg.Quantity(1, "ppm").to("dimensionless").magnitude
+    assert frac == pytest.approx(1e-6, rel=1e-15)
+    assert to_si(text, "concentration", "c") == pytest.approx(
+        mg_per_l * 1e-6 * 1e3, rel=1e-12, abs=1e-30)  # mg/L * (kg/mg) / (m^3/L)
+
+
+@pytest.mark.parametrize("text, dimension", [
+    ("3 ppm", "dimensionless"),     # a soil or mass fraction: by mass or volume?
+    ("3 ppb", "dimensionless"),
+    ("3 ppm", "density"),
+    ("1 ppt", "concentration"),     # parts per thousand or per trillion (pint: a pottle)
+    ("1 ppm/L", "concentration"),
+])
+def test_ambiguous_parts_per_are_refused(text, dimension):
+    with pytest.raises(UnitError, match="ppm|ppb|ppt"):
+        to_si(text, dimension, "key")
+
+
+@pytest.mark.parametrize("text", ["120 mm/y", "120 mm/yr", "120 mm/a", "120 mm y-1",
+                                  "120 mm/year"])
+def test_mm_per_year(text):
+    """mm/y, mm/yr and mm/a are one millimetre per Julian year, 1e-3 m / 31 557 600 s
+    (IAU), as pint converts mm/year."""
+    ref = ureg.Quantity(120, "mm/year").to("m/s").magnitude
+    assert to_si(text, "velocity", "q") == pytest.approx(ref, rel=1e-14)
+    assert to_si(text, "velocity", "q") == pytest.approx(0.12 / JULIAN_YEAR_S, rel=1e-14)
+
+
+def test_percent_for_fractions():
+    """1 % = 1e-2 (ISO 80000-1)."""
+    assert to_si("0.4 %", "dimensionless", "foc") == pytest.approx(0.004, rel=1e-15)
+    assert to_si("35 %", "dimensionless", "n") == pytest.approx(0.35, rel=1e-15)

@@ -12,6 +12,15 @@ Conventions
 * ``d`` is the day (86 400 s), ``L`` the litre (1e-3 m3).
 * ``ug``, ``mcg`` and ``µg`` are all the microgram.
 * UDUNITS-style exponents are accepted in unit text: ``m3``, ``kg m-3``, ``m2/s``.
+* ``y`` is read as ``yr`` too, so velocities and Darcy fluxes may be written ``mm/y``,
+  ``mm/yr`` or ``mm/a`` (1 mm/yr = 1e-3 m / 31 557 600 s = 3.169e-11 m/s).
+* ``%`` (percent, 1e-2) is accepted for dimensionless fractions: ``porosity = "35 %"``.
+* ``ppm`` and ``ppb`` are accepted for dissolved concentrations in water only, as
+  1 ppm = 1 mg/L and 1 ppb = 1 ug/L: a mass fraction of 1e-6 (1e-9) of a dilute aqueous
+  solution whose density is taken as 1 kg/L (within 0.3 % from 0 to 40 C; the solute
+  itself adds about 1e-6 per ppm).  Anywhere else they are refused as ambiguous: a soil's
+  "ppm" may be by mass or volume, of dry or wet soil; ``ppt`` is parts per thousand or
+  per trillion.
 """
 from __future__ import annotations
 
@@ -22,7 +31,7 @@ import re
 import pint
 
 __all__ = ["ureg", "UnitError", "DIMENSIONS", "to_si", "si_unit", "YEAR", "DAY", "MG_PER_L",
-           "UG_PER_L", "MG_PER_M2", "LITRE_PER_KG"]
+           "UG_PER_L", "MG_PER_M2", "LITRE_PER_KG", "PARTS_PER_IN_WATER"]
 
 #: The project's single unit registry. Never create another one.
 ureg = pint.UnitRegistry()
@@ -97,6 +106,13 @@ _UNIT_TOKEN = re.compile(r"\s*(?:[A-Za-zµμ_%][A-Za-z_µμ]*(?:-?\d{1,2}(?![\d.
                          r"|[*/()]|1(?![\d.]))")
 _CHAINED_POWER = re.compile(r"(?:\*\*|\^)\s*[+-]?[\d.]+\s*(?:\*\*|\^)")
 _UDUNITS_EXPONENT = re.compile(r"(?<=[A-Za-zµμ_])(-?\d{1,2})(?![\d.])")
+# "y" alone (as in mm/y) is the year
+_Y_YEAR = re.compile(r"(?<![A-Za-zµμ_])y(?![A-Za-zµμ_])")
+# parts-per names: "ppm" in pint is a bare 1e-6 and "ppt" a volume (the pottle)
+_PARTS_PER = re.compile(r"(?<![A-Za-zµμ_])(pp[mbtq]v?)(?![A-Za-zµμ_])", re.IGNORECASE)
+#: What ppm and ppb mean for a dissolved concentration in water (dilute solution,
+#: density 1 kg/L): the unit text they stand for.
+PARTS_PER_IN_WATER = {"ppm": "mg/L", "ppb": "ug/L"}
 
 
 def si_unit(dimension: str) -> str:
@@ -131,6 +147,8 @@ def _parse(text: str, dimension: str, where: str):
     if (len(unit_text) > 80 or not _check_unit_text(unit_text)
             or _CHAINED_POWER.search(unit_text)):
         raise _fail(text, dimension, where, f"cannot read the units {unit_text!r}")
+    unit_text = _parts_per(text, unit_text, dimension, where)
+    unit_text = _Y_YEAR.sub("yr", unit_text)
     unit_text = _UDUNITS_EXPONENT.sub(r"**\1", unit_text)
     if unit_text.startswith("/"):
         unit_text = "1" + unit_text
@@ -139,6 +157,26 @@ def _parse(text: str, dimension: str, where: str):
     except Exception as exc:  # pint raises many kinds (undefined unit, syntax ...)
         raise _fail(text, dimension, where, f"cannot read the units {unit_text!r}: {exc}") from None
     return ureg.Quantity(magnitude, units)
+
+
+def _parts_per(text: str, unit_text: str, dimension: str, where: str) -> str:
+    """``unit_text`` with ppm/ppb read as mg/L and ug/L for a dissolved concentration in
+    water (:data:`PARTS_PER_IN_WATER`); a parts-per name anywhere else is refused."""
+    found = _PARTS_PER.findall(unit_text)
+    if not found:
+        return unit_text
+    name = found[0].lower()
+    if dimension == "concentration" and unit_text.strip().lower() in PARTS_PER_IN_WATER:
+        return PARTS_PER_IN_WATER[unit_text.strip().lower()]
+    if dimension == "concentration":
+        why = (f"{found[0]!r} is ambiguous (parts per thousand or per trillion)" if
+               name.startswith("ppt") else f"{found[0]!r} can only stand alone here")
+        reason = f"{why}; in water 1 ppm = 1 mg/L and 1 ppb = 1 ug/L"
+    else:
+        reason = (f"{found[0]!r} is only read as a dissolved concentration in water "
+                  "(1 ppm = 1 mg/L, 1 ppb = 1 ug/L); here it is ambiguous (by mass or by "
+                  "volume, of dry or wet soil): write the units, e.g. mg/kg, or a number")
+    raise _fail(text, dimension, where, reason)
 
 
 def to_si(value, dimension: str, where: str = "value") -> float:

@@ -9,6 +9,8 @@ exit status 3.
 """
 from __future__ import annotations
 
+import warnings
+
 import click
 
 from transport import __version__
@@ -22,6 +24,7 @@ from transport.cli.report import report
 from transport.cli.run import run
 from transport.cli.site import site
 from transport.cli.verify import verify
+from transport.scenario.reader import PlausibilityWarning
 from transport.solvers.checks import UnreliableResultError
 
 __all__ = ["main"]
@@ -31,6 +34,11 @@ class _Group(click.Group):
     """Turns the expected input errors into a clean message and exit status 2."""
 
     def invoke(self, ctx):
+        with warnings.catch_warnings():  # restores showwarning on the way out
+            warnings.showwarning = _one_line(warnings.showwarning)
+            return self._invoke(ctx)
+
+    def _invoke(self, ctx):
         try:
             return super().invoke(ctx)
         except (click.exceptions.ClickException, click.exceptions.Exit,
@@ -40,6 +48,17 @@ class _Group(click.Group):
             raise UserError(describe(exc)) from None
         except UnreliableResultError as exc:
             raise Refused(f"refused: {exc}") from None
+
+
+def _one_line(show):
+    """A ``warnings.showwarning`` printing a PlausibilityWarning (load time: file, key,
+    value, usual range, source) as one ``Warning:`` line on stderr; others go to ``show``."""
+    def shown(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, PlausibilityWarning):
+            click.echo(f"Warning: {message}", err=True)
+        else:
+            show(message, category, filename, lineno, file, line)
+    return shown
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})

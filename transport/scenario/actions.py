@@ -7,11 +7,15 @@ Boundary values (``concentration``, ``flux``, ``outside_concentration``) may be 
     concentration = { table_file = "leachate.csv" }      # header e.g. "time [yr],conc [mg/L]"
     concentration = { initial = "120 mg/L", half_life = "8 yr" }   # or rate = "0.1 1/yr"
 
-Actions change the column at a time (``[[actions]]``, in time order):
+Actions change the column at a time (``[[actions]]``, in time order; several actions may
+share a time and are then applied in the order written, with no time in between):
 
     kind = "remove-source"   top becomes clean (or give a new [actions.top] table)
     kind = "set-top" | "set-bottom"   a new boundary table (top = {...} / bottom = {...})
-    kind = "excavate"        depth = "0.5 m" (and optionally top = {...})
+    kind = "excavate"        depth = "0.5 m"; the excavated soil and the source in it
+                             leave (the new surface gets the top's kind with no source),
+                             unless residual = "2 mg/L" (a source left in the ground),
+                             source = "kept" (the top boundary stays) or top = {...}
     kind = "place-cap"       layers = [{...}, ...] (layer tables, top first; optional top)
     kind = "amend-layer"     layer = "silt", then any layer keys to change
     kind = "set-flow"        darcy_flux = "0.01 m/yr" (dispersion follows the new velocity)
@@ -27,8 +31,8 @@ import numpy as np
 
 from transport.model.column import InputError
 from transport.model.schedules import Schedule
-from transport.solvers.timeline import (Timeline, amend_layer, excavate, place_cap, remove_source,
-                       set_boundary, set_flow)
+from transport.solvers.stages import (EXCAVATION_SOURCE, Timeline, amend_layer, excavate,
+                                      place_cap, remove_source, set_boundary, set_flow)
 
 __all__ = ["parse_value", "parse_actions", "check_inlet", "ACTION_KINDS"]
 
@@ -39,7 +43,7 @@ ACTION_KINDS = ("remove-source", "set-top", "set-bottom", "excavate", "place-cap
 #: change is solved on its own by the Laplace engine, so the cost grows with the count.
 MAX_PAIRS = 1000
 ACTION_KEYS = {"remove-source": ("top",), "set-top": ("top",), "set-bottom": ("bottom",),
-               "excavate": ("depth", "top"), "place-cap": ("layers", "top"),
+               "excavate": ("depth", "top", "source", "residual"), "place-cap": ("layers", "top"),
                "amend-layer": ("layer",), "set-flow": ("darcy_flux",)}
 
 
@@ -143,6 +147,31 @@ def check_inlet(r, key: str, end: str, q: float):
                       f'"free-outflow" at the {end}')
 
 
+def _excavation_source(r, act, key, top):
+    """(source, residual) of an excavate action: what happens to the top boundary's source
+    (``source = "removed"`` by default, or ``"kept"``) and an optional residual
+    concentration (kg m-3); at most one of top, source and residual is given."""
+    given = [k for k in ("top", "source", "residual") if k in act]
+    if len(given) > 1:
+        raise r.error(f"{key}.{given[1]}", act[given[1]], f"given together with {given[0]}",
+                      fix="keep one: top (a new boundary), residual (a source left in the "
+                      "ground) or source = \"kept\" (the top boundary stays)")
+    source = act.get("source", "removed")
+    if source not in EXCAVATION_SOURCE:
+        raise r.error(f"{key}.source", source, "unknown excavation source",
+                      allowed=" | ".join(f'"{s}"' for s in EXCAVATION_SOURCE),
+                      fix='"removed" (the default: the source leaves with the soil) or '
+                      '"kept" (the top boundary stays as it was)')
+    residual = None
+    if "residual" in act:
+        residual = r.quantity(act["residual"], "concentration", f"{key}.residual", low=0)
+        if top.kind not in ("concentration", "inlet", "mass-transfer"):
+            raise r.error(f"{key}.residual", act["residual"], f"the top boundary is "
+                          f"{top.kind!r}, which holds no concentration",
+                          fix="give the new top boundary instead: top = { kind = ... }")
+    return source, residual
+
+
 def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_end,
                   prefix=""):
     """The [[actions]] list as a Timeline (None when there are none).
@@ -178,9 +207,10 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
             raise r.error(f"{key}.at", act["at"], "the action comes at or after the last "
                           "output time, outside the run", fix="move it earlier or extend "
                           "output.times")
-        if at <= prev_t:
-            raise r.error(f"{key}.at", act["at"], "actions must be in time order, one per "
-                          "time", fix="sort the [[actions]] by time")
+        if at < prev_t:
+            raise r.error(f"{key}.at", act["at"], "actions must be in time order (several "
+                          "at one time are applied in the order written)",
+                          fix="sort the [[actions]] by time")
         prev_t = at
         stage = timeline.stages[-1]
         try:
@@ -204,7 +234,8 @@ def parse_actions(r, data, column, q, raw_layers, make_layer, make_boundary, t_e
                                   fix="excavate less than the remaining column")
                 top = make_boundary({"top": act["top"]}, "top", current_q,
                                     f"{key}.top") if "top" in act else None
-                action = excavate(d, top)
+                source, residual = _excavation_source(r, act, key, stage.column.top)
+                action = excavate(d, top, source=source, residual=residual)
             elif kind == "place-cap":
                 layers_raw = act.get("layers")
                 if not isinstance(layers_raw, list) or not layers_raw:

@@ -9,7 +9,10 @@ Messages about a file name the path and what was expected and never echo its con
 
 Values are checked against the range the model can represent (:data:`DIMENSION_RANGES`,
 :data:`KEY_RANGES`): a value outside it is refused up front with that range, instead of
-overflowing in an engine.
+overflowing in an engine.  A value the model represents but that lies outside the usual
+field range of its key (:data:`PLAUSIBLE_RANGES`, each with its source) is accepted with a
+:class:`PlausibilityWarning` naming the file, key, value, usual range and source, and the
+percent reading where the value looks like a percentage (porosity 35: "35 %" = 0.35).
 """
 from __future__ import annotations
 
@@ -18,11 +21,13 @@ import os
 import re
 import stat
 import tomllib
+import warnings
 from pathlib import Path
 
 from transport.units import YEAR, UnitError, si_unit, to_si
 
-__all__ = ["ScenarioError", "Reader", "MISSING", "read_text_file", "read_input_file",
+__all__ = ["ScenarioError", "PlausibilityWarning", "PLAUSIBLE_RANGES", "plausibility",
+           "percent_reading", "Reader", "MISSING", "read_text_file", "read_input_file",
            "parse_toml", "range_error",
            "DIMENSION_RANGES", "KEY_RANGES", "MAX_TOML_BYTES", "MAX_TABLE_BYTES",
            "MAX_NESTING"]
@@ -80,7 +85,94 @@ KEY_RANGES = {
                           "Burns 2007)"),
     "transfer_coefficient": (1e-20, None, "mass-transfer coefficients of at least 1e-20 m/s"),
 }
+#: Usual field ranges per key (the last part of a key path), SI: (low, high, shown unit,
+#: SI per shown unit, source).  None leaves a side open.  Outside: a PlausibilityWarning.
+PLAUSIBLE_RANGES = {
+    "porosity": (0.25, 0.70, "", 1.0, "unconsolidated deposits, gravel 0.25-0.40 to clay "
+                 "0.40-0.70 (Freeze & Cherry 1979, Groundwater, table 2.4); 1 is accepted "
+                 "silently as the convention for a sheet modelled per its own volume"),
+    "bulk_density": (1000.0, 2300.0, "g/cm^3", 1000.0, "mineral soils about 1.1-1.8, "
+                     "compacted fill and clay liners up to about 2.2, peat far below 1 (from "
+                     "memory)"),
+    "organic_carbon_fraction": (None, 0.1, "", 1.0, "mineral soils and aquifer materials "
+                                "about 0.0002-0.05; only organic soils and peat exceed 0.1 "
+                                "(from memory)"),
+    "organic_carbon_partition": (None, 1e4, "L/kg", 1e-3, "log Koc of organic chemicals "
+                                 "from about 0 to 7, i.e. up to about 1e7 L/kg "
+                                 "(from memory)"),
+    "distribution_coefficient": (None, 10.0, "L/kg", 1e-3, "Kd of organics in soils "
+                                 "about 0.01-1000 L/kg, of strongly sorbed metals up to "
+                                 "about 1e4 L/kg (from memory)"),
+    "half_life": (86400.0, None, "d", 86400.0, "biodegradation half-lives in soil and "
+                  "groundwater run from days to years (from memory; compilations such as "
+                  "Howard et al. 1991, Handbook of Environmental Degradation Rates)"),
+    "darcy_flux": (None, 2.0 / YEAR, "m/yr", 1.0 / YEAR, "recharge through soil is "
+                   "rarely above about 1 m/yr even in humid climates (precipitation minus "
+                   "evapotranspiration); more means ponding or irrigation (from memory)"),
+    "dispersivity": (None, 10.0, "m", 1.0, "field dispersivities are about a tenth of the "
+                     "travel distance, above 10 m only over kilometres (Gelhar, Welty & "
+                     "Rehfeldt 1992, Water Resour. Res. 28(7):1955)"),
+}
+#: Keys that are dimensionless fractions (a value above 1 may be a percentage).
+FRACTION_KEYS = ("porosity", "water_content", "organic_carbon_fraction", "tortuosity")
 _LAST_KEY = re.compile(r"([A-Za-z_]+)(?:\[\d+\])*\s*$")
+
+
+class PlausibilityWarning(UserWarning):
+    """A value the model accepts but that lies outside the usual field range of its key.
+
+    Attributes ``file``, ``key``, ``value`` (as written), ``usual`` (the range, as text)
+    and ``source`` let callers build their own messages; ``str()`` is one line.
+    """
+
+    def __init__(self, file, key, value, usual, source, hint=""):
+        self.file, self.key, self.value, self.usual, self.source = (file, key, value, usual,
+                                                                     source)
+        text = (f"{file}: {key} = {_short(value)} is outside the usual range {usual} "
+                f"({source})")
+        super().__init__(text + (f"; {hint}" if hint else ""))
+
+
+def _shown(x: float) -> str:
+    return f"{x:.3g}"
+
+
+def percent_reading(key: str, si: float):
+    """The percent reading of a fraction that looks like a percentage, as text
+    (``"did you mean 35 % = 0.35? write "35 %" or 0.35"``), or None."""
+    name = _last_key(key)
+    if name not in FRACTION_KEYS or not 0 < si <= 100:
+        return None
+    frac = si / 100.0
+    low, high = PLAUSIBLE_RANGES.get(name, (None, 1.0))[:2]
+    if si <= 1 and not ((low is None or frac >= low) and (high is None or frac <= high)):
+        return None
+    return f'did you mean {_shown(si)} % = {_shown(frac)}? write "{_shown(si)} %" or {_shown(frac)}'
+
+
+def plausibility(key: str, si: float):
+    """(usual range as text, source, hint) when ``si`` (SI) at ``key`` lies outside the
+    usual field range of :data:`PLAUSIBLE_RANGES`, else None."""
+    name = _last_key(key)
+    spec = PLAUSIBLE_RANGES.get(name)
+    if spec is None or si == 0 or (name == "porosity" and si == 1.0):
+        return None
+    low, high, unit, per, source = spec
+    a = abs(si) if name == "darcy_flux" else si
+    if (low is None or a >= low) and (high is None or a <= high):
+        return None
+    u = f" {unit}" if unit else ""
+    usual = (f"{_shown(low / per)}-{_shown(high / per)}{u}" if low is not None and
+             high is not None else f">= {_shown(low / per)}{u}" if low is not None else
+             f"<= {_shown(high / per)}{u}")
+    if name == "darcy_flux":
+        usual = "|q| " + usual
+    return usual, source, percent_reading(key, si) or "check the value and its units"
+
+
+def _last_key(key: str):
+    m = _LAST_KEY.search(str(key).rsplit(".", 1)[-1])
+    return m.group(1) if m else None
 
 
 class ScenarioError(ValueError):
@@ -153,6 +245,7 @@ class Reader:
 
     def __init__(self, file: str, base_dir: Path):
         self.file, self.base_dir = file, base_dir
+        self.warned = set()  # (key name, value) pairs already warned about
 
     def error(self, key, value=MISSING, problem="", allowed="", fix=""):
         """A :class:`ScenarioError` for this file (returned, for the caller to raise)."""
@@ -196,7 +289,9 @@ class Reader:
         -------
         float
             The SI value, within the limits and the range the model represents
-            (:func:`range_error`).
+            (:func:`range_error`).  Outside the usual field range of its key
+            (:func:`plausibility`) it is returned with a :class:`PlausibilityWarning`,
+            once per value of a key in a file.
         """
         try:
             si = to_si(value, dimension, key)
@@ -215,13 +310,19 @@ class Reader:
                              fix="check the value and its units")
         if high is not None and (si > high or (high_open and si == high)):
             raise self.error(key, value, f"must be {'<' if high_open else '<='} {high:g}{unit}",
-                             fix="check the value and its units")
+                             fix=percent_reading(key, si) or "check the value and its units")
         bad = range_error(key, dimension, si)
         if bad is not None:
             why, lo, hi = bad
             raise self.error(key, value, f"{si:.3g}{unit} is outside what the model "
                              f"represents", allowed=why,
                              fix="check the value and its units")
+        odd = plausibility(key, si)
+        seen = (_last_key(key), repr(value))
+        if odd is not None and seen not in self.warned:
+            # once per value of a key: layers re-derived by an action read it again
+            self.warned.add(seen)
+            warnings.warn(PlausibilityWarning(self.file, key, value, *odd), stacklevel=2)
         return si
 
     def optional(self, table, name, dimension, key, default=None, **limits):

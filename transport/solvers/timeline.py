@@ -9,17 +9,17 @@ z_local = z - offset.
 Carried state: soil that stays keeps its mass per volume, so a layer whose capacity
 theta R changes (an amendment) starts with C_new = C_old (theta R)_old / (theta R)_new;
 new layers (a cap, backfill) start clean.  The budget carries across stages and reports
-the mass removed with excavated soil.
+the mass removed with excavated soil.  The stages and the actions that make them are in
+:mod:`transport.solvers.stages` (re-exported here).
 """
 from __future__ import annotations
 
-import math
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
-from transport.model.column import Boundary, Column, InitialState, InputError
+from transport.model.column import InitialState, InputError
 from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError, assemble,
                                       budget_terms, choose, clip_to_bounds,
                                       concentration_bounds, describe_refusal, quantities)
@@ -30,179 +30,14 @@ from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, 
                                             earliest_time_after_change)
 from transport.solvers.result import Solution
 from transport.solvers.staged import solve_staged_laplace
+from transport.solvers.stages import (EXCAVATION_SOURCE, Stage, Timeline, amend_layer,
+                                      clean_boundary, compose_carry, excavate, local_column,
+                                      place_cap, remove_source, set_boundary, set_flow)
 
-__all__ = ["Stage", "Timeline", "solve_timeline", "solve_timeline_modal", "build_timeline", "remove_source", "excavate", "place_cap",
-           "amend_layer", "set_flow", "set_boundary"]
-
-
-@dataclass(frozen=True)
-class Stage:
-    """From ``start`` (s) on, ``column`` holds, its top at depth ``offset`` (m, original
-    frame).  ``carry[i]`` multiplies the carried concentration in layer i (None: the
-    layer is new and starts clean)."""
-
-    start: float
-    column: Column
-    offset: float = 0.0
-    carry: tuple = None
-    label: str = ""
-
-
-@dataclass(frozen=True)
-class Timeline:
-    stages: tuple
-
-    def __post_init__(self):
-        stages = tuple(self.stages)
-        object.__setattr__(self, "stages", stages)
-        if not stages or stages[0].start != 0.0:
-            raise InputError("a timeline starts with a stage at time 0")
-        starts = [s.start for s in stages]
-        if any(b <= a for a, b in zip(starts, starts[1:])):
-            raise InputError(f"stage times must increase strictly, got {starts}")
-
-    @classmethod
-    def single(cls, column: Column):
-        return cls((Stage(0.0, column),))
-
-    def then(self, start: float, action, label: str = ""):
-        """A new timeline with ``action`` (a function Stage -> Stage) applied at ``start``."""
-        if not math.isfinite(start) or start <= self.stages[-1].start:
-            raise InputError(f"an action at {start!r} s must come after the previous one "
-                             f"({self.stages[-1].start} s)")
-        prev = self.stages[-1]
-        new = action(prev)
-        column = _global_clock(new.column, prev.column, float(start))
-        return Timeline(self.stages + (replace(new, column=column, start=float(start),
-                                               label=label),))
-
-
-def _delayed(schedule, start):
-    return None if schedule is None else schedule.shifted(-start)
-
-
-def _global_clock(column: Column, before: Column, start: float) -> Column:
-    """Schedules of a stage column on the run's clock (t = 0 at the start of the run).
-
-    A boundary or source kept from the previous stage keeps its schedule (already on the
-    run's clock: a depleting source goes on depleting); one the action brings in (a new
-    top, a cap layer's source) starts its schedule at the action time."""
-    def bc(new, old):
-        if new.schedule is None or new.schedule is old.schedule:
-            return new
-        return replace(new, schedule=_delayed(new.schedule, start))
-    old_sched = {id(l.source_schedule) for l in before.layers if l.source_schedule is not None}
-    layers = tuple(l if l.source_schedule is None or id(l.source_schedule) in old_sched
-                   else replace(l, source_schedule=_delayed(l.source_schedule, start))
-                   for l in column.layers)
-    return replace(column, top=bc(column.top, before.top),
-                   bottom=bc(column.bottom, before.bottom), layers=layers)
-
-
-def local_column(stage: Stage) -> Column:
-    """The stage's column with its schedules on the stage's own clock (t = 0 at its
-    start), as the engines solve it."""
-    col, dt = stage.column, stage.start
-    if dt == 0:
-        return col
-
-    def sh(x):
-        return None if x is None else x.shifted(dt)
-    return replace(col, top=replace(col.top, schedule=sh(col.top.schedule)),
-                   bottom=replace(col.bottom, schedule=sh(col.bottom.schedule)),
-                   layers=tuple(replace(l, source_schedule=sh(l.source_schedule))
-                                for l in col.layers))
-
-
-# --- actions (Stage -> Stage) ---------------------------------------------------------
-
-def _same(stage, column, offset=None, carry=None):
-    n = len(column.layers)
-    return Stage(stage.start, column, stage.offset if offset is None else offset,
-                 tuple([1.0] * n) if carry is None else tuple(carry))
-
-
-def set_boundary(end: str, boundary: Boundary):
-    """Replace the top or bottom boundary (e.g. the source is removed)."""
-    def act(stage):
-        col = replace(stage.column, **{end: boundary})
-        return _same(stage, col)
-    return act
-
-
-def remove_source(clean: Boundary = None):
-    """The source is taken away: the top becomes clean (a zero concentration by default)."""
-    return set_boundary("top", clean or Boundary("concentration", 0.0))
-
-
-def excavate(thickness: float, top: Boundary = None):
-    """Remove ``thickness`` (m) from the top; the rest keeps its state."""
-    def act(stage):
-        col = stage.column
-        if not (thickness > 0 and thickness < col.length):
-            raise InputError(f"excavation depth {thickness!r} m must be > 0 and less than "
-                             f"the column ({col.length} m)")
-        layers, cut = [], thickness
-        for lay in col.layers:
-            if cut >= lay.thickness * (1 - 1e-12):
-                cut -= lay.thickness
-                continue
-            layers.append(replace(lay, thickness=lay.thickness - cut) if cut > 0 else lay)
-            cut = 0.0
-        new = replace(col, layers=tuple(layers), top=top or col.top)
-        return _same(stage, new, offset=stage.offset + thickness)
-    return act
-
-
-def place_cap(layers, top: Boundary = None):
-    """Place new clean layers (top first) on the column."""
-    layers = tuple(layers)
-
-    def act(stage):
-        col = stage.column
-        if col.darcy_flux != 0 and any(l.partition_to_next != 1 for l in layers):
-            raise InputError("cap layers with partition jumps need a zero Darcy flux")
-        new = Column(layers=layers + col.layers, top=top or col.top, bottom=col.bottom,
-                     darcy_flux=col.darcy_flux)
-        cap = sum(l.thickness for l in layers)
-        carry = (None,) * len(layers) + (1.0,) * len(col.layers)
-        return Stage(stage.start, new, stage.offset - cap, carry)
-    return act
-
-
-def amend_layer(name: str, **changes):
-    """Change properties of the layer called ``name`` (retardation, decay_rate,
-    diffusivity, water_content ...); its mass in place is kept."""
-    def act(stage):
-        col = stage.column
-        names = [l.name for l in col.layers]
-        if name not in names:
-            raise InputError(f"no layer named {name!r} to amend; layers are {names}")
-        carry, layers = [], []
-        for lay in col.layers:
-            if lay.name == name:
-                new = replace(lay, **changes)
-                carry.append(lay.water_content * lay.retardation / (new.water_content * new.retardation))
-                layers.append(new)
-            else:
-                carry.append(1.0)
-                layers.append(lay)
-        return _same(stage, replace(col, layers=tuple(layers)), carry=carry)
-    return act
-
-
-def set_flow(darcy_flux: float, diffusivities=None):
-    """Change the Darcy flux (and, since dispersion follows the pore velocity, optionally
-    each layer's diffusivity)."""
-    def act(stage):
-        col = stage.column
-        layers = col.layers
-        if diffusivities is not None:
-            layers = tuple(replace(l, diffusivity=d) for l, d in zip(layers, diffusivities))
-        return _same(stage, Column(layers=layers, top=col.top, bottom=col.bottom,
-                                   darcy_flux=darcy_flux))
-    return act
-
+__all__ = ["Stage", "Timeline", "solve_timeline", "solve_timeline_modal", "build_timeline",
+           "local_column", "remove_source", "excavate", "place_cap", "amend_layer",
+           "set_flow", "set_boundary", "clean_boundary", "compose_carry",
+           "EXCAVATION_SOURCE"]
 
 # --- solving --------------------------------------------------------------------------
 
