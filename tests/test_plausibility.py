@@ -92,11 +92,12 @@ def test_site_materials_warn_too():
     """A site's materials are read by the same reader (transport/site/columns.py)."""
     from pathlib import Path
     from transport.site.config import parse_site
-    text = Path("data/site-demo/site.toml").read_text()
+    site = Path(__file__).resolve().parent.parent / "data" / "site-demo" / "site.toml"
+    text = site.read_text()
     assert "porosity = 0.38" in text
     bad = text.replace("porosity = 0.38", "porosity = 0.9", 1)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        parse_site(bad, Path("data/site-demo/site.toml"))
+        parse_site(bad, site)
     got = [w.message for w in caught if issubclass(w.category, PlausibilityWarning)]
     assert got and got[0].key.startswith("materials.") and got[0].key.endswith("porosity")
