@@ -7,11 +7,13 @@ unconsolidated deposits 0.25-0.70 (Freeze & Cherry 1979, table 2.4); field
 dispersivities (Gelhar, Welty & Rehfeldt 1992); the others "from memory", marked so.
 """
 import warnings
+from pathlib import Path
 
 import pytest
 
 from transport.scenario.reader import PLAUSIBLE_RANGES, PlausibilityWarning
 from transport.scenario.schema import ScenarioError, parse_scenario
+from transport.site.config import parse_site
 
 BASE = """
 [chemical]
@@ -90,8 +92,6 @@ def test_porosity_as_a_percent_stays_an_error_with_the_percent_reading():
 
 def test_site_materials_warn_too():
     """A site's materials are read by the same reader (transport/site/columns.py)."""
-    from pathlib import Path
-    from transport.site.config import parse_site
     site = Path(__file__).resolve().parent.parent / "data" / "site-demo" / "site.toml"
     text = site.read_text()
     assert "porosity = 0.38" in text
