@@ -1,8 +1,9 @@
-"""Command line: ``stratiflux run | check | modes | plot | new | compare | site | verify``.
+"""Command line: ``stratiflux run | check | modes | plot | new | compare | site | verify |
+report``.
 
 This module holds the ``stratiflux`` group and registers the commands, one module each
 (:mod:`transport.cli.run`, ``check``, ``modes``, ``plot``, ``new``, ``compare``,
-``site``, ``verify``); what they share is in :mod:`transport.cli.common`. Every command
+``site``, ``verify``, ``report``); what they share is in :mod:`transport.cli.common`. Every command
 is a thin layer over the library. Input errors end the program with a one-paragraph
 message and exit status 2, never a traceback; a run no engine can vouch for ends with
 exit status 3.
