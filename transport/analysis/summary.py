@@ -211,9 +211,12 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
     if c_end is None or metrics.horizon != t_end:
         c_end = float(np.asarray(solution.concentration_at(receptor, np.array([t_end])))[0])
     if c_peak - c_end <= PLATEAU_RTOL * max(abs(c_peak), 1e-300):
+        trend = getattr(metrics, "trend_at_end", None) if metrics.horizon == t_end else None
+        reading = {"rising": "it is still rising there, so the peak lies beyond the run",
+                   "flat": "it is at steady state there (flat within the tolerance)"}.get(
+            trend, "it is still rising or at steady state, so the peak lies beyond the run")
         lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
-                     f"the end of the run ({format_time(t_end)}); it is still rising or "
-                     "at steady state, so the peak lies beyond the run.")
+                     f"the end of the run ({format_time(t_end)}); {reading}.")
     else:
         lines.append(f"{where}: peak {format_concentration(c_peak)} at "
                      f"{format_time(t_peak)}.")
