@@ -21,6 +21,9 @@ Conventions
   itself adds about 1e-6 per ppm).  Anywhere else they are refused as ambiguous: a soil's
   "ppm" may be by mass or volume, of dry or wet soil; ``ppt`` is parts per thousand or
   per trillion.
+* ``mg/kg``, ``ug/kg`` and ``g/kg`` are mass fractions (dimension ``mass_fraction``, SI
+  kg/kg): a soil concentration per mass of dry soil.  Their units must be a mass over a
+  mass; a bare number or ``%`` is not read as one.
 """
 from __future__ import annotations
 
@@ -92,6 +95,7 @@ DIMENSIONS = {
     "mass_flux": ("[mass] / [length] ** 2 / [time]", "kg/(m^2 s)", '"2 g/m^2/d"'),
     "mass_rate_density": ("[mass] / [length] ** 3 / [time]", "kg/(m^3 s)", '"0.5 mg/L/d"'),
     "dimensionless": ("", "1", "0.35"),
+    "mass_fraction": ("", "kg/kg", '"2.5 mg/kg"'),
 }
 
 _DIMENSIONALITY = {name: ureg.get_dimensionality(spec[0]) for name, spec in DIMENSIONS.items()}
@@ -190,7 +194,8 @@ def to_si(value, dimension: str, where: str = "value") -> float:
     dimension : str
         One of the keys of :data:`DIMENSIONS`: length, time, velocity, diffusivity,
         concentration, density, specific_volume, rate, mass_flux,
-        mass_rate_density, dimensionless.
+        mass_rate_density, dimensionless, mass_fraction (a mass over a mass, e.g.
+        ``"2.5 mg/kg"``).
     where : str
         Key path used in error messages, e.g. ``"layers[2].thickness"``.
 
@@ -235,4 +240,15 @@ def to_si(value, dimension: str, where: str = "value") -> float:
         raise _fail(value, dimension, where, str(exc)) from None
     if not math.isfinite(magnitude):
         raise _fail(value, dimension, where, "it is not a finite number")
+    if dimension == "mass_fraction" and not _mass_over_mass(quantity):
+        raise _fail(value, dimension, where, "its units are not a mass over a mass")
     return magnitude
+
+
+def _mass_over_mass(quantity) -> bool:
+    """Whether the units of ``quantity`` hold a mass both above and below the line
+    (``mg/kg`` does; ``%`` or no units do not)."""
+    mass = ureg.get_dimensionality("[mass]")
+    powers = [power for name, power in quantity.unit_items()
+              if ureg.get_dimensionality(name) == mass]
+    return any(p > 0 for p in powers) and any(p < 0 for p in powers)

@@ -12,10 +12,12 @@ from dataclasses import dataclass, field
 from transport.model import chemicals
 from transport.model import media
 from transport.model.column import InputError, Layer
-from transport.scenario.reader import MISSING, Reader
+from transport.scenario.reader import MISSING, Reader, range_error
+from transport.units import UnitError, to_si
 
 __all__ = ["ChemicalSpec", "read_chemical", "read_layer", "layer_detail", "CHEMICAL_KEYS",
-           "LAYER_KEYS", "MAX_LAYER_DIFFUSIVITY", "MAX_RETARDATION"]
+           "is_soil_concentration", "pore_water_from_soil", "read_concentration",
+           "SOIL_CONVERSION_SOURCE", "LAYER_KEYS", "MAX_LAYER_DIFFUSIVITY", "MAX_RETARDATION"]
 
 CHEMICAL_KEYS = ("name", "free_water_diffusivity", "organic_carbon_partition", "half_life")
 LAYER_KEYS = ("name", "thickness", "porosity", "water_content", "bulk_density",
@@ -28,6 +30,11 @@ SORPTION_KEYS = ("organic_carbon_fraction", "distribution_coefficient", "retarda
 MAX_LAYER_DIFFUSIVITY = 1.0
 #: Largest retardation factor a Kd or organic carbon may give (common practice).
 MAX_RETARDATION = 1e8
+
+#: Where the soil-to-pore-water partitioning equation comes from (cited from memory).
+SOIL_CONVERSION_SOURCE = ("C_T = C_w (theta_w + Kd rho_b) / rho_b: US EPA 1996, Soil Screening "
+                          "Guidance: Technical Background Document, EPA/540/R-95/128, eq. 22 "
+                          "(from memory), without its air term (no Henry constant is used)")
 
 _SORPTION_SOURCES = {"none": "none given: R = 1",
                      "retardation_factor": "retardation_factor from scenario file",
@@ -193,8 +200,106 @@ def read_layer(r: Reader, raw, i, chem: ChemicalSpec, q: float, top: float, last
     except (InputError, ValueError) as exc:
         raise r.error(key, problem=str(exc), fix="correct the layer's properties") from None
     _check_derived(r, t, key, derived)
-    initial = r.optional(t, "initial_concentration", "concentration", key, low=0)
-    return derived.layer, layer_detail(derived, top, chem), initial
+    detail = layer_detail(derived, top, chem)
+    initial = None
+    if "initial_concentration" in t:
+        initial = read_concentration(r, t["initial_concentration"],
+                                     f"{key}.initial_concentration", detail, key)
+    return derived.layer, detail, initial
+
+
+def is_soil_concentration(value) -> bool:
+    """Whether ``value`` is a soil concentration: text whose units are a mass over a
+    mass (``"2.5 mg/kg"``, ``"40 ug/kg"``, ``"0.1 g/kg"``), per mass of dry soil.
+    ``ppm``/``ppb`` are not (they are read as pore-water concentrations only)."""
+    if not isinstance(value, str):
+        return False
+    try:
+        to_si(value, "mass_fraction")
+    except UnitError:
+        return False
+    return True
+
+
+def pore_water_from_soil(total, bulk_density, water_content, distribution_coefficient):
+    """The pore-water concentration in equilibrium with a total soil concentration.
+
+    Two-phase (water and sorbed) linear partitioning of a non-volatile solute:
+    ``C_T = C_w (theta_w / rho_b + Kd)``, so ``C_w = C_T rho_b / (theta_w + Kd rho_b)``
+    (:data:`SOIL_CONVERSION_SOURCE`; the equation's air term ``H' theta_a / rho_b`` is
+    left out: the chemical data here hold no Henry constant and the model has no gas
+    phase).  Its defining property: the mass per bulk volume
+    ``theta_w C_w + rho_b Kd C_w`` equals ``rho_b C_T``.
+
+    Parameters
+    ----------
+    total : float
+        C_T, mass of chemical per mass of dry soil (kg/kg).
+    bulk_density : float
+        rho_b, dry bulk density, kg m-3.
+    water_content : float
+        theta_w, volumetric water content.
+    distribution_coefficient : float
+        Kd, m3 kg-1.
+
+    Returns
+    -------
+    float
+        C_w, kg m-3.
+
+    Examples
+    --------
+    >>> pore_water_from_soil(1e-6, 1600.0, 0.3, 0.0)  # 1 mg/kg, no sorption
+    0.005333333333333333
+    """
+    return total * bulk_density / (water_content + distribution_coefficient * bulk_density)
+
+
+def read_concentration(r: Reader, value, where: str, detail: dict, layer_key: str) -> float:
+    """A concentration of a layer as pore water (kg m-3): a pore-water value as given
+    (``"120 mg/L"``), or a soil concentration (``"25 mg/kg"``, :func:`is_soil_concentration`)
+    converted with the layer's bulk density, water content and Kd
+    (:func:`pore_water_from_soil`).
+
+    Parameters
+    ----------
+    r : Reader
+    value : str
+        As written.
+    where : str
+        Key path of the value, for messages.
+    detail : dict
+        The layer's row of the derived table (:func:`layer_detail`).
+    layer_key : str
+        Key path of the layer (``layers[2]``), for the missing-bulk-density message.
+
+    Returns
+    -------
+    float
+        The pore-water concentration, kg m-3.
+    """
+    if not is_soil_concentration(value):
+        return r.quantity(value, "concentration", where, low=0)
+    total = r.quantity(value, "mass_fraction", where, low=0, high=1)
+    rho_b = detail.get("bulk_density")
+    if rho_b is None:
+        raise r.error(where, value, f"a soil concentration (per mass of dry soil) needs the "
+                      f"bulk density of {layer_key} ({detail.get('name')!r}) to be converted to "
+                      "pore water, and it has none",
+                      fix=f'add bulk_density to {layer_key}, e.g. "1.7 g/cm^3", or give the '
+                      'pore-water concentration, e.g. "120 mg/L"')
+    theta = detail["water_content"]
+    kd = detail.get("distribution_coefficient")
+    if kd is None:  # sorption given as R (or none): R = 1 + rho_b Kd / theta_w
+        kd = (detail["retardation_factor"] - 1.0) * theta / rho_b
+    c_w = pore_water_from_soil(total, rho_b, theta, kd)
+    bad = range_error(where, "concentration", c_w)
+    if bad is not None:
+        raise r.error(where, value, f"gives a pore-water concentration of {c_w:.3g} kg/m^3, "
+                      "outside what the model represents", allowed=bad[0],
+                      fix="check the value, its units and the layer's bulk_density, "
+                      "water_content and sorption")
+    return c_w
 
 
 def _read_sorption(r: Reader, t, key: str, chem: ChemicalSpec, rho_b) -> dict:

@@ -11,11 +11,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from transport.model.column import Column, InitialState
+from transport.scenario.layers import is_soil_concentration, read_concentration
 from transport.scenario.reader import Reader
 from transport.solvers.staged import MAX_SAMPLES
 from transport.units import YEAR
 
 __all__ = ["OutputSpec", "read_output", "read_times", "read_samples", "read_samples_file",
+           "sample_layer",
            "depth_grid", "with_cap_depths", "check_run_size", "check_advection",
            "run_memory_bytes", "handover_bytes", "MEMORY_BUDGET", "MAX_CONTOUR_NODES", "MAX_TIMES", "MAX_DEPTHS",
            "DEFAULT_DEPTH_INTERVALS", "DEFAULT_TOLERANCE"]
@@ -41,7 +43,7 @@ class OutputSpec:
     tolerance: float = DEFAULT_TOLERANCE
 
 
-def read_samples_file(r: Reader, raw, length: float) -> InitialState:
+def read_samples_file(r: Reader, raw, length: float, layers=None) -> InitialState:
     """The measured profile of ``initial.samples_file``: a CSV file with a header of two
     columns carrying their units (``depth [m],concentration [mg/L]``), one sample a row.
 
@@ -53,6 +55,9 @@ def read_samples_file(r: Reader, raw, length: float) -> InitialState:
         The file name as written.
     length : float
         Column length, m: no sample may lie below it.
+    layers : list of dict, optional
+        The layers' rows of the derived table, for soil concentrations (mg/kg), see
+        :func:`read_samples`.
 
     Returns
     -------
@@ -76,10 +81,11 @@ def read_samples_file(r: Reader, raw, length: float) -> InitialState:
                           "cell(s); each row needs exactly two (depth, concentration)",
                           fix="one sample per row: depth,concentration")
         pairs.append([c.strip() + (f" {u}" if u else "") for c, u in zip(row, header_units)])
-    return read_samples(r, pairs, length, f"{key}({path.name}) row", base=1)
+    return read_samples(r, pairs, length, f"{key}({path.name}) row", base=1, layers=layers)
 
 
-def read_samples(r: Reader, raw, length: float, key="initial.samples", base=1) -> InitialState:
+def read_samples(r: Reader, raw, length: float, key="initial.samples", base=1,
+                 layers=None) -> InitialState:
     """A measured profile from ``[depth, concentration]`` pairs (top to bottom; a depth
     given twice is a step: the value just above, then just below).
 
@@ -92,6 +98,14 @@ def read_samples(r: Reader, raw, length: float, key="initial.samples", base=1) -
         Column length, m.
     key : str
         Key path for messages; ``base`` is the number of the first pair in them.
+    layers : list of dict, optional
+        The layers' rows of the derived table (name, top, bottom, bulk_density,
+        water_content, distribution_coefficient, retardation_factor), needed for soil
+        concentrations: a sample in mg/kg (ug/kg, g/kg) of dry soil is converted to pore
+        water with the properties of the layer it was taken in
+        (:func:`transport.scenario.layers.read_concentration`).  A sample at a layer face
+        uses the layer below, as the profile's value at that depth is the deeper one;
+        the first of two samples at one face depth (a step) uses the layer above.
 
     Returns
     -------
@@ -121,8 +135,46 @@ def read_samples(r: Reader, raw, length: float, key="initial.samples", base=1) -
                           fix="give at most two samples per depth: the value just above "
                               "and the value just below a step")
         depths.append(z)
-        values.append(r.quantity(pair[1], "concentration", f"{where}[2]", low=0))
+        values.append(pair[1])
+    for j, value in enumerate(values):
+        where = f"{key}[{j + base}][2]"
+        if not is_soil_concentration(value):
+            values[j] = r.quantity(value, "concentration", where, low=0)
+            continue
+        if not layers:
+            raise r.error(where, value, "a soil concentration needs the layers it was "
+                          "taken in", fix='give the pore-water concentration, e.g. "40 mg/L"')
+        above = j + 1 < len(depths) and depths[j + 1] == depths[j]
+        index = sample_layer(layers, depths[j], above)
+        values[j] = read_concentration(r, value, where, layers[index], f"layers[{index + 1}]")
     return InitialState.profile(depths, values)
+
+
+def sample_layer(layers, depth: float, above: bool = False) -> int:
+    """Index of the layer a sample at ``depth`` (m) was taken in: the one with
+    top <= depth < bottom, so that at a face it is the layer below (the bottom face of
+    the column belongs to the last layer); with ``above``, the one with
+    top < depth <= bottom (the layer above a face; the top face belongs to the first).
+
+    Parameters
+    ----------
+    layers : list of dict
+        Rows with ``top`` and ``bottom`` (m), top first.
+    depth : float
+        Sample depth, m.
+    above : bool
+        Whether the sample is the value just above a step at ``depth``.
+
+    Returns
+    -------
+    int
+        Index into ``layers``.
+    """
+    for i, row in enumerate(layers):
+        if (row["top"] < depth <= row["bottom"]) if above else \
+                (row["top"] <= depth < row["bottom"]):
+            return i
+    return 0 if above else len(layers) - 1
 
 
 def read_times(r: Reader, raw) -> np.ndarray:

@@ -296,9 +296,10 @@ def _parse_data(r, data, text, file, prefix=""):
         raise r.error("initial", problem="a measured profile and layers[].initial_concentration "
                       "are both given", fix="keep one way of giving the initial state")
     if "samples" in init_table:
-        initial = read_samples(r, init_table["samples"], column.length)
+        initial = read_samples(r, init_table["samples"], column.length, layers=details)
     elif "samples_file" in init_table:
-        initial = read_samples_file(r, init_table["samples_file"], column.length)
+        initial = read_samples_file(r, init_table["samples_file"], column.length,
+                                    layers=details)
     elif per_layer:
         initial = InitialState.uniform([v or 0.0 for v in initial_values])
     else:
