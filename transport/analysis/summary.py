@@ -9,7 +9,8 @@ the continuous solution) and the solution's own budget and error estimates.
 
 Concentrations are shown in mg/L (ug/L below 0.1 mg/L), times in years (days below one
 year), masses per area in mg/m2: the conversions are the constants of
-:mod:`transport.units`.
+:mod:`transport.units`. With the scenario's ``output.start_date`` a point in time also
+shows its calendar date (UTC): ``3.512 yr (2030-09-04)``.
 
 Examples
 --------
@@ -19,6 +20,7 @@ Examples
 """
 from __future__ import annotations
 
+import datetime as dt
 import math
 
 import numpy as np
@@ -29,6 +31,7 @@ from transport.solvers.checks import QUANTITIES
 from transport.units import DAY, MG_PER_L, MG_PER_M2, UG_PER_L, YEAR
 
 __all__ = ["PLATEAU_RTOL", "RELIABLE_FRACTION", "format_concentration", "format_time",
+           "format_date",
            "earliest_resolved_time", "run_horizon", "error_at", "reliability_note",
            "refused_lines", "receptor_lines", "final_budget", "budget_line", "check_line",
            "summary_lines", "verdict_line", "trend_phrase", "peak_beyond_flag",
@@ -69,13 +72,17 @@ def format_concentration(c: float) -> str:
     return f"{mg_per_l:.4g} mg/L"
 
 
-def format_time(t: float) -> str:
-    """An elapsed time as text: years (Julian), or days below one year.
+def format_time(t: float, start: dt.datetime | None = None) -> str:
+    """An elapsed time as text: years (Julian), or days below one year; with ``start``
+    followed by the calendar date it falls on (UTC, proleptic Gregorian).
 
     Parameters
     ----------
     t : float
         Elapsed time, s.
+    start : datetime.datetime, optional
+        Calendar date of time 0 (``output.start_date``); give it only for a point in
+        time, not for a duration.
 
     Returns
     -------
@@ -87,10 +94,33 @@ def format_time(t: float) -> str:
     '2.5 yr'
     >>> format_time(86400.0 * 3)
     '3 d'
+    >>> format_time(86400.0 * 3, dt.datetime(2027, 3, 1, tzinfo=dt.timezone.utc))
+    '3 d (2027-03-04)'
     """
-    if abs(t) >= YEAR:
-        return f"{t / YEAR:.4g} yr"
-    return f"{t / DAY:.4g} d"
+    text = f"{t / YEAR:.4g} yr" if abs(t) >= YEAR else f"{t / DAY:.4g} d"
+    if start is None:
+        return text
+    return f"{text} ({format_date(t, start)})"
+
+
+def format_date(t: float, start: dt.datetime) -> str:
+    """The calendar date (UTC, proleptic Gregorian) of the day on which the instant ``t``
+    seconds after ``start`` falls, ``YYYY-MM-DD`` (a year of output times is the Julian
+    year, 365.25 d, so whole years after a midnight start end at 06:00, 12:00, ...).
+
+    Parameters
+    ----------
+    t : float
+        Elapsed time, s.
+    start : datetime.datetime
+        Calendar date of time 0, timezone-aware.
+
+    Returns
+    -------
+    str
+    """
+    when = start.astimezone(dt.timezone.utc) + dt.timedelta(seconds=float(t))
+    return when.strftime("%Y-%m-%d")
 
 
 # ------------------------------------------------------------------------------- the run
@@ -163,7 +193,7 @@ def refused_lines(solution) -> list:
 
 
 def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
-                   t_end: float) -> list:
+                   t_end: float, start_date=None) -> list:
     """Sentences on the receptor: screening level reached or not, peak or plateau,
     mass passed, time to 95 % of the steady value.
 
@@ -177,6 +207,8 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
         Design life, s: a first exceedance is said to fall within or after it.
     t_start, t_end : float
         Earliest resolved output time and horizon of the run, s.
+    start_date : datetime.datetime, optional
+        Calendar date of time 0: points in time show their date (:func:`format_time`).
 
     Returns
     -------
@@ -190,11 +222,12 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
         shown = format_concentration(level)
         if t_cross is None:
             lines.append(f"{where}: screening level {shown} not reached within the run "
-                         f"({format_time(t_start)} to {format_time(t_end)}).")
+                         f"({format_time(t_start, start_date)} to "
+                         f"{format_time(t_end, start_date)}).")
         elif t_cross <= t_start:
             lines.append(f"{where}: screening level {shown} already reached at the "
-                         f"earliest output time {format_time(t_start)}; earlier times "
-                         "are not resolved (add earlier output times)."
+                         f"earliest output time {format_time(t_start, start_date)}; "
+                         "earlier times are not resolved (add earlier output times)."
                          + reliability_note(solution, t_start, level))
         else:
             against = ""
@@ -202,9 +235,9 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
                 side = "within" if t_cross <= design_life else "after"
                 against = f", {side} the {format_time(design_life)} design life"
             lines.append(f"{where}: screening level {shown} first reached at "
-                         f"{format_time(t_cross)}{against}; above it for "
+                         f"{format_time(t_cross, start_date)}{against}; above it for "
                          f"{format_time(metrics.time_above_level)} up to "
-                         f"{format_time(t_end)}."
+                         f"{format_time(t_end, start_date)}."
                          + reliability_note(solution, t_cross, level))
     t_peak, c_peak = metrics.peak_time, metrics.peak_concentration
     c_end = metrics.end_concentration
@@ -216,17 +249,17 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
                    "flat": "it is at steady state there (flat within the tolerance)"}.get(
             trend, "it is still rising or at steady state, so the peak lies beyond the run")
         lines.append(f"{where}: highest concentration {format_concentration(c_end)} at "
-                     f"the end of the run ({format_time(t_end)}); {reading}.")
+                     f"the end of the run ({format_time(t_end, start_date)}); {reading}.")
     else:
         lines.append(f"{where}: peak {format_concentration(c_peak)} at "
-                     f"{format_time(t_peak)}.")
+                     f"{format_time(t_peak, start_date)}.")
     if metrics.cumulative_mass is not None:
         lines.append(f"{where}: {metrics.cumulative_mass / MG_PER_M2:.4g} mg/m2 passed "
-                     f"downward up to {format_time(t_end)}.")
+                     f"downward up to {format_time(t_end, start_date)}.")
     if metrics.time_to_95_percent_steady is not None:
         lines.append(f"{where}: 95 % of the steady value "
                      f"{format_concentration(metrics.steady_concentration)} is reached at "
-                     f"{format_time(metrics.time_to_95_percent_steady)}.")
+                     f"{format_time(metrics.time_to_95_percent_steady, start_date)}.")
     return lines
 
 
@@ -236,15 +269,16 @@ def final_budget(solution) -> dict:
     return {k: float(np.asarray(v)[-1]) for k, v in budget.items()}
 
 
-def budget_line(solution) -> list:
+def budget_line(solution, start_date=None) -> list:
     """The mass budget at the end of the run in one sentence (``[]`` without a budget):
-    every term, the residual and its size against the largest term."""
+    every term, the residual and its size against the largest term (``start_date``: the
+    end is shown with its calendar date)."""
     last = final_budget(solution)
     if not last:
         return []
     scale = max([abs(v) for k, v in last.items() if k != "residual"] + [1e-300])
     return [
-        f"Mass budget at {format_time(float(solution.times[-1]))} (kg/m2): "
+        f"Mass budget at {format_time(float(solution.times[-1]), start_date)} (kg/m2): "
         f"stored {last.get('stored', math.nan):.6g}, initial "
         f"{last.get('initial_stored', math.nan):.6g}, entered top "
         f"{last.get('entered_top', math.nan):.6g}, left bottom "
@@ -269,81 +303,85 @@ def check_line(solution) -> list:
 
 
 # ------------------------------------------------------------- design life and whole run
-def trend_phrase(metrics) -> str:
-    """How C ends a window, in words (from ``metrics.trend_at_end``).
+def trend_phrase(metrics, start=None) -> str:
+    """How C ends a window, in words (from ``metrics.trend_at_end``; ``start``: the
+    calendar date of time 0, see :func:`format_time`).
 
     Examples
     --------
     >>> trend_phrase(metrics)                                # doctest: +SKIP
     'still rising at 50 yr'
     """
-    at = format_time(metrics.horizon)
+    at = format_time(metrics.horizon, start)
     return {"rising": f"still rising at {at}", "falling": f"falling at {at}",
             "flat": f"flat within the tolerance at {at}"}.get(
                 metrics.trend_at_end, f"not resolved at {at}")
 
 
-def peak_beyond_flag(metrics) -> str:
+def peak_beyond_flag(metrics, start=None) -> str:
     """Whether the peak of a window lies after its end, for a table cell: ``"yes
     (still rising at 100 yr)"``, ``"no (falling at 100 yr)"``, ``"no (flat within the
     tolerance at 100 yr)"``, ``"possibly (rising again at ..., below the peak at ...)"``
-    or ``"unknown (...)"``."""
+    or ``"unknown (...)"`` (``start``: see :func:`format_time`)."""
     m = metrics
     if m.peak_beyond_horizon:
-        return f"yes ({trend_phrase(m)})"
+        return f"yes ({trend_phrase(m, start)})"
     if m.trend_at_end == "rising":
-        return (f"possibly (rising again at {format_time(m.horizon)}, below the peak at "
-                f"{format_time(m.peak_time)})")
+        return (f"possibly (rising again at {format_time(m.horizon, start)}, below the peak "
+                f"at {format_time(m.peak_time, start)})")
     if m.trend_at_end is None:
-        return f"unknown ({trend_phrase(m)})"
-    return f"no ({trend_phrase(m)})"
+        return f"unknown ({trend_phrase(m, start)})"
+    return f"no ({trend_phrase(m, start)})"
 
 
-def design_life_flag(views) -> str:
+def design_life_flag(views, start=None) -> str:
     """Whether the peak lies after the design life, for a table cell: still rising at
     its end, or a higher peak later in the run (:attr:`ReceptorViews.peak_after_design_life`);
-    else :func:`peak_beyond_flag` of the design-life view."""
+    else :func:`peak_beyond_flag` of the design-life view (``start``: see
+    :func:`format_time`)."""
     d, w = views.design_life, views.whole_run
     if d.peak_beyond_horizon:
-        return f"yes ({trend_phrase(d)})"
+        return f"yes ({trend_phrase(d, start)})"
     if views.peak_after_design_life:
         rise = (w.peak_concentration - d.peak_concentration) / max(
             abs(d.peak_concentration), 1e-300)
         return (f"yes (higher later: {format_concentration(w.peak_concentration)} at "
-                f"{format_time(w.peak_time)}, {100 * rise:.2g} % above)")
-    return peak_beyond_flag(d)
+                f"{format_time(w.peak_time, start)}, {100 * rise:.2g} % above)")
+    return peak_beyond_flag(d, start)
 
 
-def _window_text(m) -> str:
+def _window_text(m, start=None) -> str:
     """Peak, screening level and mass of one window, for a sentence."""
     parts = [f"peak {format_concentration(m.peak_concentration)} at "
-             f"{format_time(m.peak_time)}"]
+             f"{format_time(m.peak_time, start)}"]
     level = m.screening_level
     if level is not None:
         if m.first_exceedance is None:
             parts.append(f"screening level {format_concentration(level)} not reached")
         else:
             parts.append(f"screening level {format_concentration(level)} first reached at "
-                         f"{format_time(m.first_exceedance)}, above it for "
+                         f"{format_time(m.first_exceedance, start)}, above it for "
                          f"{format_time(m.time_above_level)}")
     if m.cumulative_mass is not None:
         parts.append(f"{m.cumulative_mass / MG_PER_M2:.4g} mg/m2 passed downward")
     return "; ".join(parts)
 
 
-def view_lines(views) -> list:
+def view_lines(views, start_date=None) -> list:
     """Sentences on the two windows of a run: the design-life view (when the design life
     ends before the run) with whether its peak lies after it, then whether the peak lies
-    beyond the end of the run (:func:`peak_beyond_flag`)."""
+    beyond the end of the run (:func:`peak_beyond_flag`); ``start_date``: the end of
+    the run is shown with its calendar date."""
     d, w = views.design_life, views.whole_run
     where = f"Receptor at {w.receptor_depth:g} m"
     lines = []
     if d is not w and d.horizon < w.horizon:
         lines.append(f"{where} within the {format_time(d.horizon)} design life: "
-                     f"{_window_text(d)}; peak after the design life: "
-                     f"{design_life_flag(views)}.")
-    lines.append(f"{where} over the whole run (to {format_time(w.horizon)}): peak after the "
-                 f"end of the run: {peak_beyond_flag(w)}.")
+                     f"{_window_text(d, start_date)}; peak after the design life: "
+                     f"{design_life_flag(views, start_date)}.")
+    lines.append(f"{where} over the whole run (to {format_time(w.horizon, start_date)}): "
+                 "peak after the "
+                 f"end of the run: {peak_beyond_flag(w, start_date)}.")
     return lines
 
 
@@ -359,7 +397,8 @@ def run_views(solution, receptor_depth=None, screening_level=None, design_life=N
 
 
 def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
-                  screening_level=None, design_life=None, views=None) -> list:
+                  screening_level=None, design_life=None, views=None,
+                  start_date=None) -> list:
     """The reading of one run, as printed by ``stratiflux run`` (one sentence a line).
 
     Parameters
@@ -380,6 +419,9 @@ def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
     views : ReceptorViews, optional
         Metrics over the design life and the whole run (:func:`run_views`); computed
         when omitted (its ``whole_run`` takes the place of ``metrics``).
+    start_date : datetime.datetime, optional
+        Calendar date of time 0 (``output.start_date``): points in time are shown with
+        their date beside the elapsed years; without it nothing changes.
 
     Returns
     -------
@@ -410,9 +452,9 @@ def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
                                           design_life)
             views = ReceptorViews(design, metrics)
         lines += receptor_lines(solution, views.whole_run, design_life=design_life,
-                                t_start=t_start, t_end=t_end)
-        lines += view_lines(views)
-    return lines + budget_line(solution) + check_line(solution)
+                                t_start=t_start, t_end=t_end, start_date=start_date)
+        lines += view_lines(views, start_date)
+    return lines + budget_line(solution, start_date) + check_line(solution)
 
 
 def verdict_line(label: str, metrics, views=None) -> str:

@@ -78,7 +78,8 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     design_life = setting(sc, "design_life")
     views = run_views(solution, receptor, level, design_life)  # printed and written
     lines = summary_lines(solution, title=sc.title, receptor_depth=receptor,
-                          screening_level=level, design_life=design_life, views=views)
+                          screening_level=level, design_life=design_life, views=views,
+                          start_date=setting(sc, "start_date"))
     progress(3, total, f"writing {output}")
     command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
     if tolerance is not None:
@@ -94,7 +95,8 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                             scenario_text=getattr(sc, "source_text", None),
                             screening_level=level, receptor_depth=receptor,
                             history=shlex.join(command), stage=stage,
-                            porosity=_total_porosity(sc, solution), metrics=views)
+                            porosity=_total_porosity(sc, solution), metrics=views,
+                            start_date=setting(sc, "start_date"))
         if plots_dir:
             progress(4, total, f"drawing figures in {plots_dir}")
             figures = write_plots(solution, plots_dir, Path(output).stem,

@@ -26,6 +26,7 @@ import xarray as xr
 
 from transport.caution import CAUTION
 from transport.io.atomic import stage_or_write
+from transport.io.cf_time import NOMINAL_START, TIME_UNITS, time_comment, time_start, time_units
 from transport.io.netcdf_metrics import metric_variables
 from transport.units import DAY
 
@@ -42,9 +43,6 @@ __all__ = [
     "source_text",
 ]
 
-#: Nominal start of the run. The model has no calendar; times are elapsed times.
-NOMINAL_START = "2000-01-01 00:00:00"
-TIME_UNITS = f"days since {NOMINAL_START}"
 #: Fill value of the fields (NETCDF.md); all floating fields are float64.
 FILL_VALUE = -9999.0
 #: zlib level 4 + shuffle: readable by every GDAL and netCDF-C build (NETCDF.md).
@@ -216,7 +214,7 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
                    screening_level: float | None = None,
                    receptor_depth: float | None = None,
                    history: str | None = None, station_id: str = "column",
-                   porosity=None, metrics=None) -> xr.Dataset:
+                   porosity=None, metrics=None, start_date=None) -> xr.Dataset:
     """Build the CF dataset of one column run (no file is written).
 
     Parameters
@@ -244,6 +242,9 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
         ``water_content`` theta that the engines use (they differ above the water table).
     metrics : ReceptorViews, optional
         Receptor metrics, written as scalar variables (:mod:`transport.io.netcdf_metrics`).
+    start_date : datetime.datetime, optional
+        Calendar date of time 0 (timezone-aware): the time units count days from it
+        (:func:`time_units`); without it from the nominal :data:`NOMINAL_START`.
 
     Returns
     -------
@@ -354,10 +355,9 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     coords = {
         "time": (("time",), times / DAY, {
             "standard_name": "time", "long_name": "elapsed time since the start of the run",
-            "units": TIME_UNITS, "calendar": "proleptic_gregorian",
+            "units": time_units(start_date), "calendar": "proleptic_gregorian",
             "units_metadata": "leap_seconds: none", "axis": "T",
-            "comment": f"The run starts at time 0; {NOMINAL_START} is a nominal start "
-                       "date, not a real one: read the values as elapsed days."}),
+            "comment": time_comment(start_date)}),
         "depth": (("depth",), depths, {
             "standard_name": "depth", "long_name": "depth below the top of the column",
             "units": "m", "positive": "down", "axis": "Z", "bounds": "depth_bnds"}),
@@ -438,7 +438,7 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
                         screening_level: float | None = None,
                         receptor_depth: float | None = None,
                         history: str | None = None, stage=None, porosity=None,
-                        metrics=None) -> str:
+                        metrics=None, start_date=None) -> str:
     """Write one column run to a CF-1.11 NetCDF file, atomically (``stage``: see
     :func:`write_dataset_atomic`).
 
@@ -450,7 +450,8 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
     """
     ds = column_dataset(solution, title=title, scenario_text=scenario_text,
                         screening_level=screening_level, receptor_depth=receptor_depth,
-                        history=history, porosity=porosity, metrics=metrics)
+                        history=history, porosity=porosity, metrics=metrics,
+                        start_date=start_date)
     return write_dataset_atomic(ds, path, stage=stage)
 
 
@@ -458,9 +459,10 @@ def read_column_netcdf(path, *, decode_times: bool = True) -> xr.Dataset:
     """Read a column file written by :func:`write_column_netcdf` into memory.
 
     With ``decode_times`` (default) the time coordinate becomes ``datetime64[ms]``
-    counted from the nominal start: millisecond resolution over +-2.9e8 years, so long
-    design lives stay exact numpy datetimes. (xarray's own decoder silently switches to
-    nanoseconds, which overflow after 2262, when float days are not whole units.)
+    counted from the file's start (``start_date``, else nominal): millisecond
+    resolution over +-2.9e8 years, so long design lives stay exact numpy datetimes.
+    (xarray's own decoder silently switches to nanoseconds, which overflow after 2262,
+    when float days are not whole units.)
     ``units``/``calendar`` move to ``encoding`` so the dataset can be written back.
     Pass ``decode_times=False`` to keep the stored float days. :func:`elapsed_seconds`
     gives elapsed seconds either way. The file is closed on return.
@@ -472,15 +474,16 @@ def read_column_netcdf(path, *, decode_times: bool = True) -> xr.Dataset:
         return ds
     time = ds["time"]
     units = time.attrs.get("units", "")
-    if units.replace("T", " ") != TIME_UNITS:
-        raise ValueError(f"{path}: time units {units!r} are not {TIME_UNITS!r}; "
-                         "read it with decode_times=False")
+    try:
+        start = time_start(units.replace("T", " "))
+    except ValueError:
+        raise ValueError(f"{path}: time units {units!r} are not 'days since <date>' "
+                         f"(e.g. {TIME_UNITS!r}); read it with decode_times=False") from None
     milliseconds = np.round(np.asarray(time.values, dtype=float) * DAY * 1e3)  # ms
-    start = np.datetime64(NOMINAL_START.replace(" ", "T"), "ms")
     attrs = {k: v for k, v in time.attrs.items() if k not in ("units", "calendar")}
     decoded = xr.Variable(("time",), start + milliseconds.astype("int64").astype(
         "timedelta64[ms]"), attrs)
-    decoded.encoding = {"units": TIME_UNITS, "calendar": time.attrs.get(
+    decoded.encoding = {"units": units, "calendar": time.attrs.get(
         "calendar", "proleptic_gregorian"), "dtype": "float64", "_FillValue": None}
     return ds.assign_coords(time=decoded)
 
@@ -490,10 +493,8 @@ def elapsed_seconds(ds: xr.Dataset) -> np.ndarray:
     time = ds["time"]
     values = np.asarray(time.values)
     if np.issubdtype(values.dtype, np.datetime64):
-        start = np.datetime64(NOMINAL_START.replace(" ", "T"))
+        start = time_start(time.encoding.get("units", TIME_UNITS).replace("T", " "))
         return (values - start) / np.timedelta64(1, "s")
     units = time.attrs.get("units", TIME_UNITS)
-    if not units.startswith("days since"):
-        raise ValueError(f"time units {units!r}: expected 'days since ...' as written by "
-                         "write_column_netcdf")
+    time_start(units.replace("T", " "))  # refuses units other than 'days since <date>'
     return values.astype(float) * DAY

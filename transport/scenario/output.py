@@ -3,6 +3,7 @@ receptor, screening level, design life, tolerance)."""
 from __future__ import annotations
 
 import csv
+import datetime as dt
 import io
 import math
 import re
@@ -16,7 +17,8 @@ from transport.scenario.reader import Reader
 from transport.solvers.staged import MAX_SAMPLES
 from transport.units import YEAR
 
-__all__ = ["OutputSpec", "read_output", "read_times", "read_samples", "read_samples_file",
+__all__ = ["OutputSpec", "read_output", "read_times", "read_start_date", "read_samples",
+           "read_samples_file",
            "sample_layer",
            "depth_grid", "with_cap_depths", "check_run_size", "check_advection",
            "run_memory_bytes", "handover_bytes", "MEMORY_BUDGET", "MAX_CONTOUR_NODES", "MAX_TIMES", "MAX_DEPTHS",
@@ -27,13 +29,14 @@ MAX_DEPTHS = 20_001  # output depths
 DEFAULT_DEPTH_INTERVALS = 200
 DEFAULT_TOLERANCE = 1e-8
 OUTPUT_KEYS = ("times", "depths", "depth_spacing", "receptor_depth", "screening_level",
-               "design_life", "tolerance")
+               "design_life", "tolerance", "start_date")
 TIME_RANGE_KEYS = ("start", "stop", "count", "spacing")
 
 
 @dataclass(frozen=True, eq=False)
 class OutputSpec:
-    """What to compute: times (s), depths (m), receptor and screening settings."""
+    """What to compute: times (s), depths (m), receptor and screening settings, and the
+    calendar date of time 0 (``start_date``, a UTC-aware datetime, or None)."""
 
     times: np.ndarray
     depths: np.ndarray
@@ -41,6 +44,7 @@ class OutputSpec:
     screening_level: float | None = None
     design_life: float | None = None
     tolerance: float = DEFAULT_TOLERANCE
+    start_date: dt.datetime | None = None
 
 
 def read_samples_file(r: Reader, raw, length: float, layers=None) -> InitialState:
@@ -280,9 +284,55 @@ def _depths(r: Reader, out, column: Column, receptor: float):
     return grid[(grid >= 0) & (grid <= length)]
 
 
+def read_start_date(r: Reader, raw) -> dt.datetime | None:
+    """The calendar date of time 0 (``output.start_date``), in UTC.
+
+    Parameters
+    ----------
+    r : Reader
+    raw : str, datetime.date, datetime.datetime or None
+        An ISO 8601 date, optionally with a time and ``Z`` or an offset
+        (``"2027-03-01"``, ``"2027-03-01T06:00:00+01:00"``); a bare TOML date or
+        date-time is taken as well. A date or time without an offset is UTC.
+
+    Returns
+    -------
+    datetime.datetime or None
+        Timezone-aware, UTC; None when ``raw`` is None.
+
+    Examples
+    --------
+    >>> read_start_date(reader, "2027-03-01T06:00:00+01:00")  # doctest: +SKIP
+    datetime.datetime(2027, 3, 1, 5, 0, tzinfo=datetime.timezone.utc)
+    """
+    if raw is None:
+        return None
+    key = "output.start_date"
+    value = raw
+    if isinstance(raw, str):
+        text = raw.strip()
+        try:
+            if not re.match(r"^\d{4}-\d{2}-\d{2}([T ]|$)", text):
+                raise ValueError(text)
+            value = dt.datetime.fromisoformat(text)
+        except ValueError:
+            raise r.error(key, raw, "not an ISO 8601 date",
+                          fix='e.g. start_date = "2027-03-01" or '
+                              '"2027-03-01T00:00:00Z"') from None
+    if isinstance(value, dt.date) and not isinstance(value, dt.datetime):
+        value = dt.datetime(value.year, value.month, value.day)
+    if not isinstance(value, dt.datetime):
+        raise r.error(key, raw, "must be an ISO 8601 date",
+                      fix='e.g. start_date = "2027-03-01"')
+    if value.tzinfo is None:
+        return value.replace(tzinfo=dt.timezone.utc)
+    return value.astimezone(dt.timezone.utc)
+
+
 def read_output(r: Reader, data, column: Column) -> OutputSpec:
     """The ``[output]`` table of a scenario for ``column``: times, depths, receptor,
-    screening level, design life and tolerance (SI), validated together.
+    screening level, design life and tolerance (SI), validated together, and the
+    optional calendar start date (:func:`read_start_date`).
 
     Parameters
     ----------
@@ -317,9 +367,10 @@ def read_output(r: Reader, data, column: Column) -> OutputSpec:
                       fix="add an earlier output time or correct the design life")
     tol = r.optional(out, "tolerance", "dimensionless", "output", default=DEFAULT_TOLERANCE,
                      low=1e-14, high=1e-2)
+    start_date = read_start_date(r, out.get("start_date"))
     times.setflags(write=False)
     depths.setflags(write=False)
-    return OutputSpec(times, depths, receptor, level, life, tol)
+    return OutputSpec(times, depths, receptor, level, life, tol, start_date)
 
 
 def with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
@@ -352,7 +403,7 @@ def with_cap_depths(output: OutputSpec, timeline) -> OutputSpec:
     depths = np.unique(np.concatenate([d, extra[extra < d.max()]]))
     depths.setflags(write=False)
     return OutputSpec(output.times, depths, output.receptor_depth, output.screening_level,
-                      output.design_life, output.tolerance)
+                      output.design_life, output.tolerance, output.start_date)
 
 
 #: Memory a run may take (bytes) before it is refused up front (4 GiB: a laptop's share).

@@ -14,6 +14,7 @@ from transport.model.column import Column, InitialState, InputError
 from transport.solvers.fv.assembly import assemble, build_storage, cell_props, initial_cells
 from transport.solvers.fv.mesh import Mesh
 from transport.solvers.fv.signals import MarchFailure, Signals, march_linear
+from transport.units import YEAR
 
 __all__ = ["DEFAULT_RTOL", "FVIntegrationError", "integrate", "MAX_RHS_EVALUATIONS"]
 
@@ -107,8 +108,8 @@ def integrate(column, times, initial, mesh, rtol, atol, scheme, isotherm, augmen
             except (MarchFailure, _BDFFailure, ValueError, np.linalg.LinAlgError,
                     RuntimeError) as exc:
                 raise FVIntegrationError(
-                    f"finite-volume engine: time integration failed between {a:.6g} s and "
-                    f"{b:.6g} s ({exc}); {_stiffest_layer(column, mesh, t_end)}") from None
+                    f"finite-volume engine: time integration failed between {a / YEAR:.6g} yr "
+                    f"and {b / YEAR:.6g} yr ({exc}); {_stiffest_layer(column, mesh, t_end)}") from None
             out_sorted[sel] = ys[np.searchsorted(t_eval, t_sorted[sel])]
             y = ys[-1]
         out[order] = out_sorted

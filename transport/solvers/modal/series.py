@@ -36,6 +36,7 @@ from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, 
                                             mode_count, required_modes)
 from transport.solvers.modal.spectrum import eigenvalues
 from transport.solvers.result import Solution
+from transport.units import YEAR
 
 # the sizing names are re-exported: callers find the whole modal engine here
 __all__ = ["solve", "ModalSeries", "ModeCapWarning", "AccuracyWarning", "build_series",
@@ -460,7 +461,7 @@ def solve(column: Column, times, depths, *, initial=None, tolerance: float = Non
                 f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
                 f"column Peclet number is about {2 * (series.op.A.max() - series.op.A.min()):.0f})"
                 f" exceeds the tolerance at {bad_t.size} output time(s), the latest "
-                f"{bad_t.max():.4g} s; use later output times or cross-check with another "
+                f"{bad_t.max() / YEAR:.4g} yr; use later output times or cross-check with another "
                 "engine", AccuracyWarning, stacklevel=2)
     zero = times == 0
     if zero.any():

@@ -15,6 +15,7 @@ from transport.model.column import Column
 from transport.model.schedules import Schedule
 from transport.solvers.modal.operator import Operator
 from transport.solvers.modal.spectrum import eigenvalues
+from transport.units import YEAR
 
 __all__ = ["DEFAULT_TOLERANCE", "ModeCapWarning", "AccuracyWarning", "column_signals",
            "required_modes", "mode_count", "earliest_time_after_change"]
@@ -77,8 +78,8 @@ def mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
         t_ok = (math.log(1 / tolerance) + math.log(n_modes) + 2) / lam[-1]
         warnings.warn(
             f"{n_modes} modes (the cap) do not meet the tolerance {tolerance:g} at the "
-            f"earliest time {t_min:.4g} s after a change; results are accurate from about "
-            f"{t_ok:.4g} s after it. Raise max_modes or use later output times.",
+            f"earliest time {t_min / YEAR:.4g} yr after a change; results are accurate from "
+            f"about {t_ok / YEAR:.4g} yr after it. Raise max_modes or use later output times.",
             ModeCapWarning, stacklevel=4)
     return lam
 
