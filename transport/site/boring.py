@@ -25,6 +25,7 @@ from scipy.optimize import brentq, minimize_scalar
 from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_trend,
                                         time_above)
 from transport.model.column import InitialState
+from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       concentration_bounds, describe_refusal, own_errors,
                                       quantities)
@@ -219,7 +220,8 @@ def solve_boring(site, col, depth, times, grid, initial=None):
                 f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
                 f"column Peclet number is about "
                 f"{2 * (series.op.A.max() - series.op.A.min()):.0f}) exceeds the tolerance "
-                f"at {bad_t.size} output time(s), the latest {bad_t.max():.4g} s; use later "
+                f"at {bad_t.size} output time(s), the latest {bad_t.max() / YEAR:.4g} yr; "
+                "use later "
                 "output times or cross-check with another engine", AccuracyWarning)
     conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
     receptor = probe.rows(slice(-1, None))
