@@ -29,9 +29,9 @@ from pathlib import Path
 import numpy as np
 
 from transport import __version__
-from transport.analysis.metrics import receptor_metrics
+from transport.analysis.metrics import receptor_views
 from transport.analysis.report_html import render_html
-from transport.analysis.summary import (PLATEAU_RTOL, budget_line, final_budget,
+from transport.analysis.summary import (budget_line, final_budget,
                                         format_concentration, format_time, run_horizon,
                                         summary_lines)
 from transport.io.atomic import write_text
@@ -117,13 +117,8 @@ def input_hashes(scenario) -> list:
             for p in input_files(scenario)]
 
 
-def _view(label, solution, receptor_depth, screening_level, horizon) -> MetricView:
-    m = receptor_metrics(solution, receptor_depth, screening_level, horizon)
-    c_end = float(np.asarray(solution.concentration_at(receptor_depth,
-                                                       np.array([m.horizon])))[0])
-    at_end = m.peak_concentration - c_end <= PLATEAU_RTOL * max(abs(m.peak_concentration),
-                                                                1e-300)
-    return MetricView(label, m, c_end, bool(at_end))
+def _view(label, m) -> MetricView:
+    return MetricView(label, m, m.end_concentration, m.peak_at_end)
 
 
 def metric_views(solution, receptor_depth: float, screening_level=None,
@@ -149,14 +144,16 @@ def metric_views(solution, receptor_depth: float, screening_level=None,
         continuous solution.
     """
     t_end = run_horizon(solution.times, design_life)
+    both = receptor_views(solution, receptor_depth, screening_level,
+                          design_life=design_life if design_life and float(design_life)
+                          < t_end else None, run_end=t_end)
     views = []
-    if design_life and float(design_life) < t_end:
-        views.append(_view(f"design life (0 to {format_time(design_life)})", solution,
-                           receptor_depth, screening_level, float(design_life)))
+    if both.design_life is not both.whole_run:
+        views.append(_view(f"design life (0 to {format_time(design_life)})",
+                           both.design_life))
     label = "whole run" if views else "whole run (= design life)" if design_life else \
         "whole run"
-    views.append(_view(f"{label} (0 to {format_time(t_end)})", solution, receptor_depth,
-                       screening_level, t_end))
+    views.append(_view(f"{label} (0 to {format_time(t_end)})", both.whole_run))
     return views
 
 

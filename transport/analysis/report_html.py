@@ -14,7 +14,9 @@ from importlib.metadata import PackageNotFoundError, version
 
 import numpy as np
 
-from transport.analysis.summary import PLATEAU_RTOL, format_concentration, format_time
+from transport.analysis.metrics import ReceptorViews
+from transport.analysis.summary import (design_life_flag, format_concentration, format_time,
+                                        peak_beyond_flag)
 from transport.caution import ASSUMPTIONS, CAUTION
 from transport.units import LITRE_PER_KG, MG_PER_M2, YEAR
 
@@ -119,16 +121,6 @@ def _conc_cell(c):
     return _cell(None, "–" if c is None else format_concentration(c), c)
 
 
-def _end_state(view) -> str:
-    """No; yes, at steady state (the end value is the long-term limit within
-    PLATEAU_RTOL); or yes, still rising (the peak lies beyond the window)."""
-    if not view.peak_at_end:
-        return "no"
-    c_ss = view.metrics.steady_concentration
-    if c_ss is not None and abs(view.end_concentration - c_ss) <= PLATEAU_RTOL * max(
-            abs(c_ss), 1e-300):
-        return "yes, at steady state (the long-term limit)"
-    return "yes, still rising: the peak lies beyond this window"
 
 
 def _metrics(views) -> str:
@@ -137,6 +129,7 @@ def _metrics(views) -> str:
                 "output time could not be vouched for.</p>")
     head = ["quantity"] + [v.label for v in views]
     m = [v.metrics for v in views]
+    both = ReceptorViews(m[0], m[-1])
     rows = [
         ("receptor depth", [_cell(None, f"{x.receptor_depth:g} m", x.receptor_depth)
                             for x in m]),
@@ -147,8 +140,8 @@ def _metrics(views) -> str:
         ("time of the highest concentration", [_time_cell(x.peak_time) for x in m]),
         ("concentration at the end of the window", [_conc_cell(v.end_concentration)
                                                      for v in views]),
-        ("highest value at the end of the window?", [f"<td>{_E(_end_state(v))}</td>"
-                                                      for v in views]),
+        ("peak after the end of the window?", [f"<td>{_E(flag)}</td>" for flag in (
+            [design_life_flag(both)] if len(views) > 1 else []) + [peak_beyond_flag(m[-1])]]),
         ("mass passed the receptor (mg/m²)",
          [_cell(None, "–" if x.cumulative_mass is None
                 else f"{x.cumulative_mass / MG_PER_M2:.4g}", x.cumulative_mass) for x in m]),
@@ -164,14 +157,13 @@ def _metrics(views) -> str:
     flags = []
     if len(views) > 1:
         d, w = views[0].metrics, views[-1].metrics
-        if views[0].peak_at_end or (w.peak_time > d.horizon
-                                    and w.peak_concentration > d.peak_concentration):
+        if both.peak_after_design_life:
             flags.append(
                 f"The peak lies beyond the design life: within it the highest value is "
                 f"{format_concentration(d.peak_concentration)}; over the whole run it is "
                 f"{format_concentration(w.peak_concentration)} at "
                 f"{format_time(w.peak_time)}.")
-    if _end_state(views[-1]).startswith("yes, still rising"):
+    if views[-1].metrics.peak_beyond_horizon:
         flags.append("Still rising at the end of the run: the peak lies beyond the last "
                      "output time; extend the output times to see it.")
     return out + "".join(f'<p class="flag">{_E(f)}</p>' for f in flags)
