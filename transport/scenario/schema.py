@@ -58,7 +58,7 @@ __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scen
 
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
-            "actions", "alternatives")
+            "actions", "alternatives", "fit")  # [fit] is read by stratiflux fit
 ALTERNATIVE_KEYS = ("name", "actions", "top")
 FLOW_KEYS = ("darcy_flux",)
 BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentration",),
