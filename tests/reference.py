@@ -338,6 +338,16 @@ class _LaplaceColumn:
                 put(row, i, *row_f(i, zeta))
                 put(row, i, *row_c(i, zeta), scale=sign * h)
                 rhs[row] += sign * h * val
+            elif bc.kind == "source-zone":
+                # the zone's mass balance, transformed: Gamma (s + lambda) C^ - Gamma C_s(0)
+                # = -F^ - q_out C^ (top) or +F^ - q_out C^ (bottom), C^ = C^ at the end
+                gam, lam = mp.mpf(bc.capacity), mp.mpf(bc.decay_rate)
+                q_out = max(-q, 0) if end == "top" else max(q, 0)
+                h = gam * (s + lam) + q_out
+                put(row, i, *row_f(i, zeta))
+                put(row, i, *row_c(i, zeta), scale=sign * h)
+                if with_initial:
+                    rhs[row] += sign * gam * mp.mpf(bc.value)
             else:  # pragma: no cover - model.Boundary validates kinds
                 raise InputError(f"unknown boundary kind {bc.kind!r}")
         for i in range(n - 1):  # C_below - K C_above = 0 ; F_above - F_below = 0

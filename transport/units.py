@@ -96,6 +96,7 @@ DIMENSIONS = {
     "mass_rate_density": ("[mass] / [length] ** 3 / [time]", "kg/(m^3 s)", '"0.5 mg/L/d"'),
     "dimensionless": ("", "1", "0.35"),
     "mass_fraction": ("", "kg/kg", '"2.5 mg/kg"'),
+    "areal_mass": ("[mass] / [length] ** 2", "kg/m^2", '"40 g/m^2"'),
 }
 
 _DIMENSIONALITY = {name: ureg.get_dimensionality(spec[0]) for name, spec in DIMENSIONS.items()}

@@ -27,6 +27,7 @@ import numpy as np
 
 from transport.analysis.metrics import (PLATEAU_RTOL, ReceptorViews, error_at,
                                         receptor_metrics, receptor_views)
+from transport.analysis.zone import zone_lines
 from transport.solvers.checks import QUANTITIES
 from transport.units import DAY, MG_PER_L, MG_PER_M2, UG_PER_L, YEAR
 
@@ -454,7 +455,9 @@ def summary_lines(solution, metrics=None, *, title: str, receptor_depth=None,
         lines += receptor_lines(solution, views.whole_run, design_life=design_life,
                                 t_start=t_start, t_end=t_end, start_date=start_date)
         lines += view_lines(views, start_date)
-    return lines + budget_line(solution, start_date) + check_line(solution)
+    when = format_time(float(solution.times[-1]), start_date)
+    return (lines + zone_lines(solution, when) + budget_line(solution, start_date)
+            + check_line(solution))
 
 
 def verdict_line(label: str, metrics, views=None) -> str:

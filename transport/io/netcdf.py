@@ -389,6 +389,13 @@ def column_dataset(solution, *, title: str, scenario_text: str | None = None,
     }
     if scenario_text is not None:
         attrs["scenario_text"] = str(scenario_text)
+    for end in ("top", "bottom"):
+        bc = getattr(column, end)
+        if bc.kind == "source-zone":  # transport.model.column.Boundary
+            attrs[f"source_zone_{end}"] = (
+                f"well-mixed source zone of finite inventory: initial pore-water "
+                f"concentration {bc.value:.9g} kg m-3, capacity {bc.capacity:.9g} m, decay rate "
+                f"{bc.decay_rate:.9g} s-1, initial inventory {bc.zone_inventory():.9g} kg m-2")
     timeline = solution.timeline
     if timeline is not None and len(timeline.stages) > 1:
         attrs["stages"] = "; ".join(

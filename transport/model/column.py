@@ -25,6 +25,7 @@ __all__ = [
     "Column",
     "InitialState",
     "BOUNDARY_KINDS",
+    "has_source_zone",
 ]
 
 
@@ -39,6 +40,7 @@ BOUNDARY_KINDS = (
     "free-outflow",  # dC/dz = 0
     "mass-transfer",  # F = h (value - C) at top, F = h (C - value) at bottom
     "sealed",  # F = 0
+    "source-zone",  # a well-mixed source zone of finite inventory beyond this end
 )
 
 
@@ -111,12 +113,28 @@ class Boundary:
     transfer_coefficient : h (m s-1) for mass-transfer
     schedule : optional :class:`transport.model.schedules.Schedule` giving the value in time
         (replaces ``value``)
+    capacity : Gamma (m), source-zone only: the zone's mass per plan area per unit
+        pore-water concentration, H (theta + rho_b Kd) for a zone of thickness H
+    decay_rate : lambda (s-1), source-zone only: first-order decay inside the zone
+
+    A ``source-zone`` end is a well-mixed zone of finite inventory just beyond the end
+    (above the top, below the bottom).  The column's concentration at that end equals the
+    zone's, C_s(t), which starts at ``value`` and falls as mass leaves the zone: at the top
+    ``Gamma dC_s/dt = -F(0, t) - q_out C_s - Gamma lambda C_s``, at the bottom
+    ``Gamma dC_s/dt = F(L, t) - q_out C_s - Gamma lambda C_s``, with q_out = max(-q, 0)
+    at the top and max(q, 0) at the bottom the water that passes through the zone away
+    from the column (water entering the zone from outside is clean).  This is the mass
+    balance of a well-mixed reservoir in contact with a medium (Crank 1975, The
+    Mathematics of Diffusion, 2nd ed., sec. 3.3, "diffusion from a stirred solution of
+    limited volume", generalised to flow through the zone).
     """
 
     kind: str
     value: float = 0.0
     transfer_coefficient: float = 0.0
     schedule: object = None  # transport.model.schedules.Schedule of the value in time, or None
+    capacity: float = 0.0
+    decay_rate: float = 0.0
 
     def __post_init__(self):
         if self.kind not in BOUNDARY_KINDS:
@@ -127,6 +145,34 @@ class Boundary:
         object.__setattr__(self, "transfer_coefficient", h)
         if self.kind == "mass-transfer" and not h > 0:
             raise InputError(f"mass-transfer boundary needs transfer_coefficient > 0 m/s, got {h!r}")
+        cap = _finite("source-zone capacity", self.capacity)
+        lam = _finite("source-zone decay_rate", self.decay_rate)
+        object.__setattr__(self, "capacity", cap)
+        object.__setattr__(self, "decay_rate", lam)
+        if self.kind == "source-zone":
+            if not cap > 0:
+                raise InputError(f"a source-zone boundary needs capacity > 0 m (its mass per "
+                                 f"area per unit concentration), got {cap!r}")
+            if lam < 0:
+                raise InputError(f"source-zone decay_rate must be >= 0 1/s, got {lam!r}")
+            if self.value < 0:
+                raise InputError(f"source-zone initial concentration must be >= 0, got "
+                                 f"{self.value!r}")
+            if self.schedule is not None:
+                raise InputError("a source-zone boundary takes its initial concentration, "
+                                 "not a schedule: its concentration follows from its mass "
+                                 "balance")
+
+    def zone_outflow(self, darcy_flux: float, end: str) -> float:
+        """q_out (m s-1): the water passing through a source zone at ``end`` away from
+        the column (it carries C_s out of the system); 0 for other kinds."""
+        if self.kind != "source-zone":
+            return 0.0
+        return max(-darcy_flux, 0.0) if end == "top" else max(darcy_flux, 0.0)
+
+    def zone_inventory(self) -> float:
+        """Initial mass per area in a source zone (kg m-2): Gamma C_s(0)."""
+        return self.capacity * self.value if self.kind == "source-zone" else 0.0
 
 
 @dataclass(frozen=True)
@@ -237,6 +283,11 @@ class InitialState:
         span = np.where(d[j] > d[i], d[j] - d[i], 1.0)
         lin = v[i] + (z - d[i]) / span * (v[j] - v[i])
         return np.where(inside, lin, np.where(lo < 0, v[0], v[-1]))
+
+
+def has_source_zone(column: Column) -> bool:
+    """Whether either end of ``column`` is a source zone of finite inventory."""
+    return "source-zone" in (column.top.kind, column.bottom.kind)
 
 
 def check_output_grid(column: Column, times, depths, semi_infinite_bottom: bool = False):

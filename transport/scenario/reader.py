@@ -62,6 +62,8 @@ DIMENSION_RANGES = {
     "mass_rate_density": (0.0, 1e-2, "source rates up to 0.01 kg/(m^3 s), about 860 g/L/d "
                           "(common practice)"),
     "dimensionless": (0.0, 1e8, "numbers up to 1e8"),
+    "areal_mass": (0.0, 1e5, "masses per area up to 100 t/m^2 (common practice: far beyond "
+                   "any source zone)"),
 }
 # per key (the last part of a key path): (low, high, why); None leaves a side to the
 # dimension's range

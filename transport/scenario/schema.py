@@ -26,8 +26,11 @@ Schema (all keys spelled out; ``docs/scenario-reference.md`` has the full page):
     initial_concentration (concentration)
     [top] / [bottom]
     kind = "concentration" | "flux" | "inlet" | "free-outflow" | "mass-transfer" | "sealed"
+           | "source-zone"
     concentration (concentration, inlet) | flux (flux) | transfer_coefficient and
-    outside_concentration (mass-transfer)
+    outside_concentration (mass-transfer) | concentration and inventory OR thickness,
+    water_content [, bulk_density, distribution_coefficient | organic_carbon_fraction]
+    [, half_life] (source-zone: finite inventory, transport/scenario/zone.py)
     [initial]
     samples = [["0 m", "80 mg/L"], ...]  OR  samples_file = "profile.csv"
     [output]
@@ -51,6 +54,7 @@ from transport.scenario.layers import ChemicalSpec, read_chemical, read_layer
 from transport.scenario.output import (OutputSpec, check_run_size, read_output, read_samples,
                                        read_samples_file, with_cap_depths)
 from transport.scenario.reader import MISSING, Reader, ScenarioError, parse_toml, read_text_file
+from transport.scenario.zone import ZONE_KEYS, read_source_zone
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
            "parse_scenario", "parse_alternatives", "load_alternatives", "starter_scenario_text",
@@ -58,13 +62,14 @@ __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scen
 
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
-            "actions", "alternatives", "fit")  # [fit] is read by stratiflux fit
+            "actions", "alternatives", "fit",  # [fit] is read by stratiflux fit
+            "sensitivity")  # [sensitivity] is read by stratiflux sensitivity
 ALTERNATIVE_KEYS = ("name", "actions", "top")
 FLOW_KEYS = ("darcy_flux",)
 BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentration",),
                        "flux": ("flux",), "mass-transfer": ("transfer_coefficient",
                                                             "outside_concentration"),
-                       "free-outflow": (), "sealed": ()}
+                       "free-outflow": (), "sealed": (), "source-zone": ZONE_KEYS}
 INITIAL_KEYS = ("samples", "samples_file")
 #: Most layers a column may have (a detailed boring log has tens): the run time and
 #: memory of a column grow with its layer count.
@@ -115,7 +120,8 @@ class Scenario:
         return [dict(row) for row in self.layer_details]
 
 
-def read_boundary(r: Reader, data, end: str, q: float, key: str | None = None) -> Boundary:
+def read_boundary(r: Reader, data, end: str, q: float, key: str | None = None,
+                  chem=None) -> Boundary:
     """The ``[top]`` or ``[bottom]`` table: its kind and values (constants or schedules).
 
     Parameters
@@ -128,6 +134,8 @@ def read_boundary(r: Reader, data, end: str, q: float, key: str | None = None) -
         Darcy flux, m s-1 (an inlet needs water entering at its end).
     key : str, optional
         Key path of the table in messages; default ``end``.
+    chem : ChemicalSpec, optional
+        The chemical (K_oc and half-life of a source zone, :mod:`transport.scenario.zone`).
 
     Returns
     -------
@@ -158,6 +166,8 @@ def read_boundary(r: Reader, data, end: str, q: float, key: str | None = None) -
             raise r.error(f"{where}.{name}", t[name], "a list is not a boundary value",
                           fix='give one value, or a schedule table such as '
                           '{ steps = [["0 yr", "120 mg/L"], ["10 yr", "0 mg/L"]] }')
+    if kind == "source-zone":
+        return read_source_zone(r, t, where, chem)
     if kind in ("concentration", "inlet"):
         if "concentration" not in t:
             raise r.error(f"{where}.concentration", problem=f"missing for kind {kind!r}",
@@ -277,9 +287,10 @@ def _parse_data(r, data, text, file, prefix=""):
         initial_values.append(init)
         top += layer.thickness
 
-    bottom_boundary = read_boundary(r, data, "bottom", q)
+    bottom_boundary = read_boundary(r, data, "bottom", q, chem=chem)
     try:
-        column = Column(tuple(layers), read_boundary(r, data, "top", q, key=f"{prefix}top"),
+        column = Column(tuple(layers), read_boundary(r, data, "top", q, key=f"{prefix}top",
+                                                     chem=chem),
                         bottom_boundary, q)
     except InputError as exc:
         raise r.error("flow.darcy_flux", q, str(exc), fix="see the message") from None
@@ -310,7 +321,8 @@ def _parse_data(r, data, text, file, prefix=""):
         r, data, column, q, raw_layers,
         make_layer=lambda raw, key, q_, top_, last_: read_layer(r, raw, 0, chem, q_, top_,
                                                                 last_, key=key)[0],
-        make_boundary=lambda table, end, q_, key: read_boundary(r, table, end, q_, key=key),
+        make_boundary=lambda table, end, q_, key: read_boundary(r, table, end, q_, key=key,
+                                                                chem=chem),
         t_end=float(output.times.max()), prefix=prefix)
     if timeline is not None:
         output = with_cap_depths(output, timeline)

@@ -126,6 +126,10 @@ def concentration_bounds(column, initial, t_end: float) -> Bounds:
         lo_v, hi_v = _signal_range(bc.value, bc.schedule, t_end)
         if bc.kind == "concentration":
             vals += [lo_v / kap, hi_v / kap]
+        elif bc.kind == "source-zone":
+            # a well-mixed cell between C_s(0) and the column, fed by clean water only:
+            # it never leaves the range of its own start and the column's data
+            vals += [bc.value / kap]
         elif bc.kind == "inlet":
             if q == 0 or not inward:
                 lo_ok = hi_ok = False  # water leaves through an inlet: no bound

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from transport.model.column import Column, InitialState, InputError
+from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
                                       clip_to_bounds, concentration_bounds, describe_refusal,
                                       own_errors, quantities)
@@ -32,7 +32,7 @@ from transport.solvers.fv.engine import solve_fv_result
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.laplace.contour import companion_nodes, default_nodes
 from transport.solvers.modal import series as modal
-from transport.solvers.modal.operator import build_operator
+from transport.solvers.modal.operator import ZONE_NOT_MODAL, build_operator
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.sizing import DEFAULT_TOLERANCE, earliest_time_after_change
 from transport.solvers.result import Solution
@@ -278,6 +278,9 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
     if semi_infinite_bottom and engine in ("modal", "finite-volume"):
         raise InputError(f"a semi-infinite bottom layer needs the Laplace engine (or auto), "
                          f"not {engine!r}")
+    zone = has_source_zone(column)
+    if zone and engine in ("modal", "finite-volume"):
+        raise InputError(ZONE_NOT_MODAL.replace("the modal engine", f"the {engine} engine"))
     nt = times.size
     lap = solve_laplace(column, times, depths, initial=initial,
                         semi_infinite_bottom=semi_infinite_bottom)
@@ -289,8 +292,12 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
     series, evaluator = None, laplace_at
     eig, n_modes = np.empty(0), 0
     note = ""
-    if engine == "laplace" or semi_infinite_bottom:
+    if engine == "laplace" or semi_infinite_bottom or zone:
         cands = [("laplace", lap_c)]
+        if zone and engine == "auto":
+            note = ("auto: the source zone (finite inventory) is served by the Laplace "
+                    "engine alone, vouched for by its own bound (two node counts), the "
+                    "physical bounds and the mass budget")
     elif engine == "finite-volume":
         fv = solve_fv_result(column, times, depths, initial=initial, tolerance=tolerance,
                              cells_per_layer=cells_per_layer)

@@ -16,7 +16,7 @@ over soil, an amended layer) are handed over as jumps (a repeated sample depth).
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -192,6 +192,21 @@ def _mass_at(state, depth, t):
     return total, err
 
 
+def _carried_zones(prev, stage, col, end_sol):
+    """``col`` with each source zone kept from the previous stage holding the
+    concentration it had at the change (the zone's own state: C at that end of the
+    previous column), and the error of that value (kg m-3); a zone an action brings in
+    starts from its own initial concentration."""
+    err = 0.0
+    for j, end in enumerate(("top", "bottom")):
+        bc = getattr(col, end)
+        if bc.kind == "source-zone" and getattr(stage.column, end) is getattr(prev.column, end):
+            c = float(end_sol.concentration[0, j])
+            col = replace(col, **{end: replace(bc, value=max(c, 0.0))})
+            err += float(np.nan_to_num(own_errors(end_sol)["concentration"][0], nan=np.inf))
+    return col, err
+
+
 def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, local_column):
     """All quantities of a staged run by the Laplace engine.
 
@@ -204,7 +219,7 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
     times = np.asarray(times, float)
     depths = np.asarray(depths, float)
     nt, nz = times.size, depths.size
-    cols = tuple(local_column(st) for st in stages)
+    cols = [local_column(st) for st in stages]
     inits, errs, merrs = [initial or InitialState.clean()], [0.0], [0.0]
     totals = dict(entered_top=0.0, left_bottom=0.0, decayed=0.0, produced=0.0, removed=0.0)
     carried = []
@@ -216,8 +231,9 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
             t_loc = st.start - prev.start
             h = _handover(pcol, inits[i - 1], t_loc, prev.offset, st, cols[i], scale,
                           tolerance)
+            cols[i], zone_err = _carried_zones(stages[i - 1], st, cols[i], ends[-1])
             inits.append(h.initial)
-            errs.append(errs[-1] + h.error)
+            errs.append(errs[-1] + h.error + zone_err)
             merrs.append(merrs[-1] + h.mass_error)
             b = ends[-1].budget
             for k in ("entered_top", "left_bottom", "decayed", "produced"):

@@ -167,9 +167,12 @@ EXCAVATION_SOURCE = ("removed", "kept")
 def clean_boundary(boundary: Boundary) -> Boundary:
     """``boundary`` with its source taken away: the same kind, no schedule, and a zero
     concentration (concentration, inlet, mass-transfer outside) or zero flux (flux).
-    Free-outflow and sealed boundaries carry no source and come back unchanged."""
+    Free-outflow and sealed boundaries carry no source and come back unchanged; a source
+    zone is taken away whole, leaving a zero concentration."""
     if boundary.kind in ("free-outflow", "sealed"):
         return boundary
+    if boundary.kind == "source-zone":  # the zone goes with the soil: a clean surface
+        return Boundary("concentration", 0.0)
     return replace(boundary, value=0.0, schedule=None)
 
 
@@ -232,6 +235,11 @@ def place_cap(layers, top: Boundary = None):
         col = stage.column
         if col.darcy_flux != 0 and any(l.partition_to_next != 1 for l in layers):
             raise InputError("cap layers with partition jumps need a zero Darcy flux")
+        if top is None and col.top.kind == "source-zone":
+            raise InputError("a cap placed on a source-zone top would bury the zone, which "
+                             "this model cannot hold between the cap and the soil; give the "
+                             "cap's own top boundary (e.g. a zero concentration) and, to keep "
+                             "the zone's mass, model the zone as a layer under the cap")
         new = Column(layers=layers + col.layers, top=top or col.top, bottom=col.bottom,
                      darcy_flux=col.darcy_flux)
         cap = sum(l.thickness for l in layers)

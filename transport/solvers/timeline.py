@@ -19,11 +19,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from transport.model.column import InitialState, InputError
+from transport.model.column import InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError, assemble,
                                       budget_terms, choose, clip_to_bounds,
                                       concentration_bounds, describe_refusal, quantities)
 from transport.solvers.engines import checked_fields, modal_evaluator
+from transport.solvers.modal.operator import ZONE_NOT_MODAL
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import build_series
 from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
@@ -227,7 +228,10 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
         bounds = Bounds(None if None in lo else min(lo), None if None in hi else max(hi),
                         np.ones(len(timeline.stages[0].column.layers)))
     cands, series, modal_sol = [], None, None
-    if engine in ("auto", "modal"):
+    zone = any(has_source_zone(st.column) for st in timeline.stages)
+    if zone and engine == "modal":
+        raise InputError(ZONE_NOT_MODAL)
+    if engine in ("auto", "modal") and not zone:
         with warnings.catch_warnings():
             if engine == "auto":
                 warnings.simplefilter("ignore", AccuracyWarning)

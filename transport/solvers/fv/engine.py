@@ -36,7 +36,7 @@ import warnings
 
 import numpy as np
 
-from transport.model.column import Column, InitialState, InputError
+from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.fv.assembly import face_values, initial_at, initial_cells
 from transport.solvers.fv.mesh import fixed_plan, plan_mesh
 from transport.solvers.fv.richardson import estimate
@@ -176,6 +176,9 @@ def solve_fv(column: Column, times, depths, *, initial: InitialState | None = No
     cell centres and the reconstructed face values.  Time: see :func:`transport.solvers.fv.stepping.integrate`.
     """
     rtol = DEFAULT_RTOL if tolerance is None else tolerance
+    if has_source_zone(column):
+        raise InputError("the finite-volume engine does not model a source-zone boundary "
+                         "(finite inventory) yet; use engine auto or laplace")
     if cells_per_layer is None:
         mesh = plan_mesh(column, times, initial).mesh(column, 2.0)
     else:

@@ -38,10 +38,12 @@ def _components(column: Column, seg_layer):
     atom)])}.  By linearity each group is solved from its own origin (no delay factor
     e^{-s t0}, which a Talbot contour cannot invert) and added at t - t0."""
     groups = {0.0: ([], [], [])}
-    for atom in _atoms(column.top.schedule, column.top.value):
-        groups.setdefault(atom[0], ([], [], []))[0].append(atom)
-    for atom in _atoms(column.bottom.schedule, column.bottom.value):
-        groups.setdefault(atom[0], ([], [], []))[1].append(atom)
+    for end, slot in (("top", 0), ("bottom", 1)):
+        bc = getattr(column, end)
+        if bc.kind == "source-zone":  # its inventory enters through the boundary row
+            continue
+        for atom in _atoms(bc.schedule, bc.value):
+            groups.setdefault(atom[0], ([], [], []))[slot].append(atom)
     for i, lay in enumerate(column.layers):
         if lay.source_rate == 0:
             continue

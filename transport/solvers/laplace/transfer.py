@@ -17,7 +17,9 @@ computed without cancellation (r1 r2 = -c (s + mu) / k), and each exponential an
 at the segment end where it is largest (z = bottom when Re r >= 0, else top), so every
 entry has modulus <= 1 times a flux factor: thick layers and column Peclet numbers of
 1000 and more never overflow.  The 2N unknowns follow from the two boundary rows (the
-same kinds as :func:`transport.solvers.modal.operator.boundary_row`) and, at each internal face,
+same kinds as :func:`transport.solvers.modal.operator.boundary_row`, and a source zone of
+finite inventory, whose row F^ +/- (Gamma (s + lambda) + q_out) C^ = +/- Gamma C_s(0) is
+the Laplace transform of its mass balance, :class:`transport.model.column.Boundary`) and, at each internal face,
 C_below = K C_above and continuity of F = q C - k C'.  The system is banded (2, 2); its
 rows are equilibrated and it is solved by LU with partial pivoting (LAPACK gbsv).
 
@@ -142,6 +144,7 @@ class LaplaceTransfer:
         g, q = self.seg, self.q
         top_hat, bot_hat, src_hat, with_initial = signals
         self._signals = (top_hat, bot_hat)
+        self._with_initial = with_initial
         s = np.asarray(s, dtype=complex)[None, :]
         self.capped = np.zeros(s.shape[1], bool)
         a0 = g["a"][:, None] * with_initial
@@ -208,6 +211,14 @@ class LaplaceTransfer:
             h = bc.transfer_coefficient
             sign = 1.0 if end == "top" else -1.0
             return cF + sign * h * cC, sign * h * val - F0 - sign * h * C0
+        if kind == "source-zone":
+            # Gamma (s + lambda) C^_s - Gamma C_s(0) = -/+ F^ - q_out C^_s with C^_s = C^
+            # at this end: F^ +/- h C^ = +/- Gamma C_s(0), h = Gamma (s + lambda) + q_out;
+            # the zone's initial inventory belongs to the component holding the initial state
+            sign = 1.0 if end == "top" else -1.0
+            h = bc.capacity * (s + bc.decay_rate) + bc.zone_outflow(self.q, end)
+            inv = bc.capacity * bc.value * self._with_initial
+            return cF + sign * h * cC, sign * inv - F0 - sign * h * C0
         raise InputError(f"unknown boundary kind {kind!r}")  # pragma: no cover
 
     def _linear_system(self, s, r, anc, alpha, beta, k, l):

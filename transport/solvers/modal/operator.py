@@ -12,7 +12,7 @@ import numpy as np
 
 from transport.model.column import Column, InputError
 
-__all__ = ["Operator", "SpectrumError", "boundary_row", "build_operator", "sinc", "tanhc",
+__all__ = ["Operator", "SpectrumError", "ZONE_NOT_MODAL", "boundary_row", "build_operator", "sinc", "tanhc",
            "ENDPOINT_FORM_MIN"]
 
 # Hyperbolic layers with w*l above this use the two-endpoint exponential form.
@@ -55,6 +55,12 @@ class Operator:
         return al + be * self.q / 2.0, be, np.exp(-A_end)
 
 
+#: Why the modal engine refuses a source zone, and what to use instead.
+ZONE_NOT_MODAL = ("a source-zone boundary (finite inventory) is not solved by the modal engine: "
+                  "its condition depends on the decay rate of each mode; use engine auto or "
+                  "laplace, which solve it exactly")
+
+
 def boundary_row(bc, kappa: float, q: float, end: str):
     """Boundary condition as (alpha_u, beta_u, gamma): alpha_u u + beta_u k u' = gamma g."""
     h = bc.transfer_coefficient
@@ -70,6 +76,8 @@ def boundary_row(bc, kappa: float, q: float, end: str):
         if end == "top":
             return (kappa * (q + h), -1.0, h)
         return (kappa * (q - h), -1.0, -h)
+    if kind == "source-zone":
+        raise InputError(ZONE_NOT_MODAL)
     raise InputError(f"unknown boundary kind {kind!r}")
 
 
