@@ -226,3 +226,15 @@ def test_cli_run_prints_the_zone_account(tmp_path):
     refused = CliRunner().invoke(main, ["run", str(path), "-o", str(out), "--engine", "modal"])
     assert refused.exit_code == 2
     assert "use engine auto or laplace" in " ".join(refused.output.split())
+
+
+def test_check_describes_the_zone(tmp_path):
+    path = tmp_path / "zone.toml"
+    path.write_text(SCENARIO.format(zone='concentration = "80 mg/L"\ninventory = "40 g/m^2"\n'
+                                    'half_life = "4 yr"'))
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 0, res.output
+    # 40 g/m^2 = 4e4 mg/m2; capacity 0.04 kg/m^2 / 0.08 kg/m^3 = 0.5 m
+    assert ("Top: source zone of finite inventory: 80 mg/L pore water at the start, "
+            "capacity 0.5 m") in res.output
+    assert "4e+04 mg/m2 at the start, half-life in the zone 4 yr" in res.output

@@ -31,6 +31,7 @@ import numpy as np
 from transport import __version__
 from transport.analysis.metrics import receptor_views
 from transport.analysis.report_html import render_html
+from transport.analysis.zone import describe_zone
 from transport.analysis.summary import (budget_line, final_budget,
                                         format_concentration, format_time, run_horizon,
                                         summary_lines)
@@ -197,6 +198,8 @@ def job_paragraph(scenario) -> str:
 
 
 def _boundary_text(boundary) -> str:
+    if boundary.kind == "source-zone":
+        return describe_zone(boundary)
     if boundary.kind in ("concentration", "inlet"):
         value = f" {format_concentration(boundary.value)}"
     else:

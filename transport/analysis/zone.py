@@ -12,9 +12,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from transport.units import MG_PER_L, MG_PER_M2
+from transport.units import MG_PER_L, MG_PER_M2, YEAR
 
-__all__ = ["ZoneAccount", "zone_accounts", "zone_lines"]
+__all__ = ["ZoneAccount", "zone_accounts", "zone_lines", "describe_zone"]
 
 
 @dataclass(frozen=True)
@@ -71,3 +71,13 @@ def zone_lines(solution, when: str) -> list:
             f"{a.concentration / MG_PER_L:.4g} mg/L), {a.otherwise / MG_PER_M2:.4g} mg/m2 "
             f"decayed in the zone or carried away through it.")
     return lines
+
+
+def describe_zone(boundary) -> str:
+    """A source-zone boundary in words and the units a reader uses."""
+    lam = boundary.decay_rate
+    half = f"{np.log(2) / lam / YEAR:.4g} yr" if lam > 0 else "none"
+    return (f"source zone of finite inventory: {boundary.value / MG_PER_L:.4g} mg/L pore water "
+            f"at the start, capacity {boundary.capacity:.4g} m (mass per area per unit "
+            f"concentration), {boundary.zone_inventory() / MG_PER_M2:.4g} mg/m2 at the start, "
+            f"half-life in the zone {half}")

@@ -5,6 +5,7 @@ import math
 
 import click
 
+from transport.analysis.zone import describe_zone
 from transport.scenario.schema import load_scenario
 from transport.units import YEAR
 
@@ -82,5 +83,8 @@ def check(scenario):
     click.echo(f"Scenario: {sc.title}")
     table = sc.derived_table()
     click.echo(table if isinstance(table, str) else format_layer_table(table))
+    for end in ("top", "bottom"):
+        if getattr(sc.column, end).kind == "source-zone":
+            click.echo(f"{end.capitalize()}: {describe_zone(getattr(sc.column, end))}")
     click.echo(f"OK: {scenario} is valid ({len(sc.column.layers)} layer(s), "
                f"{sc.column.length:g} m).")
