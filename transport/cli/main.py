@@ -1,9 +1,9 @@
 """Command line: ``stratiflux run | check | modes | plot | new | compare | site | verify |
-report``.
+report | fit``.
 
 This module holds the ``stratiflux`` group and registers the commands, one module each
 (:mod:`transport.cli.run`, ``check``, ``modes``, ``plot``, ``new``, ``compare``,
-``site``, ``verify``, ``report``); what they share is in :mod:`transport.cli.common`. Every command
+``site``, ``verify``, ``report``, ``fit``); what they share is in :mod:`transport.cli.common`. Every command
 is a thin layer over the library. Input errors end the program with a one-paragraph
 message and exit status 2, never a traceback; a run no engine can vouch for ends with
 exit status 3.
@@ -18,6 +18,7 @@ from transport import __version__
 from transport.cli.check import check
 from transport.cli.common import Refused, UserError, describe
 from transport.cli.compare import compare
+from transport.cli.fit import fit
 from transport.cli.modes import modes
 from transport.cli.new import new
 from transport.cli.plot import plot
@@ -76,7 +77,7 @@ def main():
     """
 
 
-for _command in (run, check, modes, plot, new, compare, site, verify, report):
+for _command in (run, check, modes, plot, new, compare, site, verify, report, fit):
     main.add_command(_command)
 
 if __name__ == "__main__":  # pragma: no cover
