@@ -14,7 +14,7 @@ from transport.solvers.laplace.contour import default_nodes, invert_best
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
-__all__ = ["solve_laplace"]
+__all__ = ["solve_laplace", "laplace_solution", "signal_components", "signals_for"]
 
 
 def _atom_hat(kind, amp, rate, s):
@@ -33,7 +33,7 @@ def _atoms(schedule, constant):
     return [(float(t0), kind, float(amp), float(rate)) for kind, t0, amp, rate in schedule.atoms]
 
 
-def _components(column: Column, seg_layer):
+def signal_components(column: Column, seg_layer):
     """Group the signal atoms by switch-on time: {t0: (top, bottom, [(segment mask,
     atom)])}.  By linearity each group is solved from its own origin (no delay factor
     e^{-s t0}, which a Talbot contour cannot invert) and added at t - t0."""
@@ -53,7 +53,10 @@ def _components(column: Column, seg_layer):
     return groups
 
 
-def _signals_for(group, s, nseg, with_initial):
+def signals_for(group, s, nseg, with_initial):
+    """The ``signals`` of :meth:`LaplaceTransfer.solve` for one switch-on group of
+    :func:`signal_components` (``group`` None: no signal in this component)."""
+    group = group or ([], [], [])
     top, bot, src = group
     top_hat = sum((_atom_hat(k, a, r, s) for _, k, a, r in top), 0.0 * s)
     bot_hat = sum((_atom_hat(k, a, r, s) for _, k, a, r in bot), 0.0 * s)
@@ -111,14 +114,14 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
              np.arange(3 * nz, 3 * nz + 4))
     # growth parabola of the advective branch (widest over the layers); 0 without flow
     s0 = float(np.max(model.q ** 2 / (4 * g["k"] * g["c"])))
-    for t0, group in sorted(_components(column, seg_layer).items()):
+    for t0, group in sorted(signal_components(column, seg_layer).items()):
         tau = times - t0
         on = tau > 0
         if not on.any():
             continue
 
         def transform(s, group=group, first=(t0 == 0.0)):
-            coef = model.solve(s, _signals_for(group, s, model.n, first))
+            coef = model.solve(s, signals_for(group, s, model.n, first))
             C, F = model.fields(coef, np.concatenate([depths, ends]))
             st = model.stored(coef)  # (nseg, ns)
             decayed = (g["mu"][:, None] * st).sum(axis=0) / s
@@ -130,6 +133,19 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
             f, e = invert_best(transform, tau[on], n_nodes, s0, parts)
         out[on] += f
         est[on] += e
+    return laplace_solution(column, model, initial, times, depths, out, est,
+                            semi_infinite_bottom)
+
+
+def laplace_solution(column, model, initial, times, depths, out, est,
+                     semi_infinite_bottom=False, produced_extra=None) -> Solution:
+    """The :class:`Solution` of inverted outputs ``out`` and their estimates ``est``
+    (nt, 3 nz + 4: C, F, cumulative mass at the depths; cumulative mass at the two ends,
+    stored, decayed), with the values at t = 0 and the mass budget.  ``produced_extra``
+    (nt,) kg m-2 is mass produced besides the layer sources (a daughter species: its
+    yield times its parent's decayed mass) and ``est`` holds its error in the budget."""
+    g = model.seg
+    nz, nt = depths.size, times.size
     # error estimate per quantity and time; a group with any non-finite value or
     # estimate at a time is refused there: NaN values, infinite estimate
     groups = {"concentration": np.arange(nz), "total_flux": np.arange(nz, 2 * nz),
@@ -155,6 +171,8 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
             sched = lay.source_schedule
             produced += lay.source_rate * lay.thickness * (
                 times if sched is None else np.asarray(sched.integral(times), dtype=float))
+    if produced_extra is not None:
+        produced = produced + np.asarray(produced_extra, float)
     if semi_infinite_bottom:
         tail = g["a"][-1] != 0 or g["b"][-1] != 0 or column.layers[-1].source_rate != 0
         init_mass = math.nan if tail else init_mass

@@ -35,9 +35,15 @@ from scipy.linalg.lapack import zgbsv
 
 from transport.model.column import Column, InitialState, InputError
 
-__all__ = ["PiecewiseCubic", "LaplaceTransfer", "initial_values"]
+__all__ = ["PiecewiseCubic", "LaplaceTransfer", "initial_values", "RESONANT"]
 
 _EXP_CAP = 600.0  # largest exponent kept (exp(600) ~ 1e260)
+
+#: Why a decay chain is refused when a parent's exponential solves the daughter's own
+#: equation (the same transport and decay in a layer: a secular term, not modelled).
+RESONANT = ("a daughter species has the same diffusivity, retardation and decay rate as "
+            "its parent in a layer, which this engine does not represent; give the two "
+            "species distinct decay rates (a difference of 1e-6 relative is enough)")
 
 
 def _segments(column: Column, initial: InitialState):
@@ -134,12 +140,16 @@ class LaplaceTransfer:
         self.semi = bool(semi_infinite)
         self.n = self.seg["l"].size
 
-    def solve(self, s, signals):
+    def solve(self, s, signals, forcing=None):
         """Per-segment roots, anchors, particular parts and coefficients for s (ns,).
 
         ``signals`` = (top, bottom, sources, with_initial): transforms of the boundary
         values (ns,), of the layer sources per segment (nseg, ns), and whether the
-        initial state belongs to this component.
+        initial state belongs to this component.  ``forcing`` (a decay chain's parent,
+        :mod:`transport.solvers.laplace.chain`): ``(poly, rho, anchor, amp)``, a
+        transformed source per bulk volume  sum_m poly[m] zeta^m + sum_e amp[e]
+        e^{rho[e] (zeta - anchor[e])}  on each segment (poly (4, nseg, ns); rho, anchor,
+        amp (ne, nseg, ns)); its particular solution is carried with the fields.
         """
         g, q = self.seg, self.q
         top_hat, bot_hat, src_hat, with_initial = signals
@@ -147,8 +157,10 @@ class LaplaceTransfer:
         self._with_initial = with_initial
         s = np.asarray(s, dtype=complex)[None, :]
         self.capped = np.zeros(s.shape[1], bool)
-        a0 = g["a"][:, None] * with_initial
-        b0 = g["b"][:, None] * with_initial
+        c_seg = g["c"][:, None]
+        poly = np.zeros((4, 1, 1)) if forcing is None else forcing[0] / c_seg
+        a0 = g["a"][:, None] * with_initial + poly[0]
+        b0 = g["b"][:, None] * with_initial + poly[1]
         k, c, l = g["k"][:, None], g["c"][:, None], g["l"][:, None]
         sm = s + g["mu"][:, None]
         root = np.sqrt(q * q + 4 * k * c * sm)
@@ -160,8 +172,8 @@ class LaplaceTransfer:
             r1 = -2 * c * sm / (q - root)
         # particular solution P = p0 + p1 z + p2 z^2 + p3 z^3 of
         # k P'' - q P' - c sm P = -c (a0 + a1 z + a2 z^2 + a3 z^3) - sigma / s
-        a2 = g["a2"][:, None] * with_initial
-        a3 = g["a3"][:, None] * with_initial
+        a2 = g["a2"][:, None] * with_initial + poly[2]
+        a3 = g["a3"][:, None] * with_initial + poly[3]
         p3 = a3 / sm
         p2 = (c * a2 - 3 * q * p3) / (c * sm)
         beta = (c * b0 + 6 * k * p3 - 2 * q * p2) / (c * sm)
@@ -174,8 +186,34 @@ class LaplaceTransfer:
         if self.semi:
             anc[1, -1] = 0.0
         self._r, self._anc, self._alpha, self._beta, self._k = r, anc, alpha, alpha[1], k
+        # particular part of each forcing exponential: P = amp / (c sm + q rho - k rho^2)
+        if forcing is None or forcing[1].shape[0] == 0:
+            self._xr = self._xanc = self._xp = np.zeros((0,) + sm.shape, complex)
+        else:
+            rho, xanc, amp = forcing[1], forcing[2], forcing[3]
+            den = c * sm + q * rho - k * rho * rho
+            scale = np.abs(c * sm) + abs(q) * np.abs(rho) + k * np.abs(rho) ** 2
+            if np.any(np.abs(den) <= 1e-10 * scale):
+                raise InputError(RESONANT)
+            self._xr, self._xanc, self._xp = rho, np.broadcast_to(xanc, rho.shape), amp / den
         coef = self._linear_system(s[0], r, anc, alpha, beta, k, l)
         return coef
+
+    def representation(self, coef):
+        """C^ of the last :meth:`solve` on every segment as (poly (4, nseg, ns), rho,
+        anchor, amp (ne, nseg, ns)): sum_m poly[m] zeta^m + sum_e amp[e] e^{rho[e]
+        (zeta - anchor[e])}, every exponential bounded by 1 on its segment."""
+        anc = np.broadcast_to(self._anc, self._r.shape)
+        return (self._alpha, np.concatenate([self._r, self._xr]),
+                np.concatenate([anc, self._xanc]), np.concatenate([coef, self._xp]))
+
+    def _forced(self, i, zeta):
+        """Value and slope of the forcing's exponential particular part at local depth
+        zeta of segments i (zeta broadcasting against (len(i), ns)): two arrays."""
+        if self._xr.shape[0] == 0:
+            return 0.0, 0.0
+        e = self._exp(self._xr[:, i] * (zeta - self._xanc[:, i]))
+        return (self._xp[:, i] * e).sum(axis=0), (self._xp[:, i] * self._xr[:, i] * e).sum(axis=0)
 
     def _exp(self, x):
         """exp(x) with Re x capped at _EXP_CAP; records whether the cap was hit per s."""
@@ -189,6 +227,8 @@ class LaplaceTransfer:
         e = self._exp(r[:, i] * (zeta - anc[:, i]))
         cC = e
         C0, dC0 = _poly(alpha[:, i], zeta)
+        xC, xdC = self._forced(i, zeta)
+        C0, dC0 = C0 + xC, dC0 + xdC
         cF = k[i] * r[::-1, i] * e  # q - k r1 = k r2 and q - k r2 = k r1: no cancellation
         F0 = self.q * C0 - k[i] * dC0
         return cC, C0, cF, F0
@@ -206,7 +246,7 @@ class LaplaceTransfer:
             target = {"flux": val, "inlet": self.q * val, "sealed": 0.0 * val}[kind]
             return cF, target - F0
         if kind == "free-outflow":
-            return r[:, i] * cC, -_poly(alpha[:, i], zeta)[1] + 0 * val
+            return r[:, i] * cC, -(_poly(alpha[:, i], zeta)[1] + self._forced(i, zeta)[1]) + 0 * val
         if kind == "mass-transfer":
             h = bc.transfer_coefficient
             sign = 1.0 if end == "top" else -1.0
@@ -303,6 +343,8 @@ class LaplaceTransfer:
             e[0, idx == self.n - 1] = 0.0
         cf = coef[:, idx]
         P, dP = _poly(self._alpha[:, idx], zc)
+        xC, xdC = self._forced(idx, zc)
+        P, dP = P + xC, dP + xdC
         C = (cf * e).sum(axis=0) + P
         dC = (cf * r * e).sum(axis=0) + dP
         F = self.q * C - self._k[idx] * dC
@@ -318,6 +360,13 @@ class LaplaceTransfer:
         integ = l * _expm1_over(np.where(x.real > _EXP_CAP, _EXP_CAP + 1j * x.imag, x))
         p = self._alpha
         lin = l * (p[0] + l * (p[1] / 2 + l * (p[2] / 3 + l * p[3] / 4)))
+        if self._xr.shape[0]:  # int_0^l e^{rho (zeta - a)} dzeta of the forcing's part
+            xr, xa = self._xr, self._xanc
+            lo, hi = self._exp(-xr * xa), self._exp(xr * (l - xa))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                xi = np.where(np.abs(xr * l) < 1e-6, l * lo * _expm1_over(xr * l),
+                              (hi - lo) / xr)
+            lin = lin + (self._xp * xi).sum(axis=0)
         out = c * ((coef * integ).sum(axis=0) + lin)
         if self.semi:  # last layer: int_0^inf e^{r2 zeta} = -1/r2 (A = 0)
             r2 = r[1, -1]
