@@ -321,6 +321,11 @@ def _check_data(profile, spec, base):
         raise FitError(f"{profile.path}: {n} sample(s) for {p} free parameter(s): a fit "
                        "needs more samples than free parameters. Fix: add samples or free "
                        "fewer [[fit.free]] keys")
+    if spec.error_model == "absolute" and profile.sigma is None:
+        raise ScenarioError(profile.path, "column 'sigma'", problem="missing: "
+                            "fit.error_model = \"absolute\" takes sigma as the true error "
+                            "of each sample", fix="add a sigma column (e.g. 'sigma [mg/L]') "
+                            "or use error_model = \"scaled\"")
     length = base.column.length
     deep = np.nonzero(profile.depths > length * (1 + 1e-12))[0]
     if deep.size:

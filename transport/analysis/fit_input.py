@@ -67,6 +67,7 @@ LEAF_DIMENSIONS = {
     "darcy_flux": "velocity", "concentration": "concentration", "flux": "mass_flux",
     "transfer_coefficient": "velocity", "outside_concentration": "concentration",
     "initial": None, "rate": "rate", "start": "time", "at": "time",
+    "inventory": "areal_mass",
 }
 _ROOTS = ("chemical", "flow", "layers", "top", "bottom", "actions")
 _SEGMENT = re.compile(r"^([A-Za-z_][A-Za-z0-9_]*)((?:\[\d+\])*)$")
@@ -275,8 +276,8 @@ def _folder(path):
 def _free(r: Reader, data, t, where) -> FreeParameter:
     r.keys(t, FREE_KEYS, where)
     key = t.get("key")
-    if key == SOURCE_AGE:
-        dim, current = "time", None
+    if key == SOURCE_AGE:  # starts at the profile time of [fit] where it gives one
+        dim, current = "time", (data.get("fit") or {}).get("time")
     else:
         dim, current = _resolve(r, data, key, f"{where}.key")
     for name in ("low", "high"):

@@ -92,9 +92,9 @@ def summary_lines(result, title: str = "", data_name: str = "") -> list:
     bad = [e.key for e in result.estimates if not e.identifiable]
     if bad:
         lines += ["", "Not identifiable from these data: " + ", ".join(bad) + ". Their "
-                  "values are not supported by the data: fix them from other evidence, "
-                  "or add data that depend on them (another sampling time, a flux or "
-                  "mass measurement)."]
+                  "values are not supported by the data: fix them (or all but one of a "
+                  "combination) from other evidence, or add data that depend on them "
+                  "separately."]
     lines += [""] + [f"- {s}" for s in result.statements]
     lines += ["", METHOD, "", DEFER]
     return lines

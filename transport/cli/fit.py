@@ -72,6 +72,7 @@ def fit(scenario, data, profile_time, out_dir, engine, tolerance):
             raise Refused(str(exc)) from None
         except FitError as exc:
             raise UserError(str(exc)) from None
+        bar.update(bar.length - bar.pos)  # converged: the budget is no longer needed
     title = result.scenario.title
     data_name = os.path.basename(data or spec.data or "")
     fitted, missed = fitted_scenario_text(result, text, scenario, paths["scenario"],
