@@ -243,12 +243,13 @@ def test_profile_errors_name_file_column_and_fix(tmp_path, header, rows, where, 
      "fit.free[1].high", "swap low and high"),
     ('low = "1e-11 m^2/s"', 'low = "1e-11 m/s"', "fit.free[1].low", "m^2/s"),
     ('scale = "log"', 'scale = "logarithmic"', "fit.free[1].scale", "log"),
+    ('low = "0.5 yr"', 'low = "0 yr"', "fit.free[2].low", "low > 0"),
 ])
 def test_fit_table_errors_name_file_key_and_fix(old, new, key, fix):
     """Unknown key path (with a did-you-mean), an index out of range, bounds reversed,
-    wrong units of a bound, an unknown scale."""
+    wrong units of a bound, an unknown scale, a source age reaching t = 0."""
     with pytest.raises(ScenarioError) as err:
-        read_fit_spec(SLAB.replace(old, new), "core-case.toml")
+        read_fit_spec((SLAB + FREE_AGE).replace(old, new), "core-case.toml")
     text = str(err.value)
     assert text.startswith("core-case.toml: ") and key in text and "Fix:" in text
     assert fix in text

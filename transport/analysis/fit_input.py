@@ -295,6 +295,9 @@ def _free(r: Reader, data, t, where) -> FreeParameter:
     if scale not in ("linear", "log"):
         raise r.error(f"{where}.scale", scale, "unknown scale", allowed="linear | log",
                       fix='write scale = "log" for a positive quantity spanning decades')
+    if key == SOURCE_AGE and low <= 0:
+        raise r.error(f"{where}.low", t["low"], "the source age must stay after t = 0",
+                      fix='give low > 0, e.g. low = "1 yr"')
     if scale == "log" and low <= 0:
         raise r.error(f"{where}.low", t["low"], "a log scale needs a positive lower bound",
                       fix='give low > 0, or scale = "linear"')
