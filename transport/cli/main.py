@@ -1,9 +1,9 @@
 """Command line: ``stratiflux run | check | modes | plot | new | compare | site | verify |
-report | fit``.
+report | sensitivity | fit``.
 
 This module holds the ``stratiflux`` group and registers the commands, one module each
 (:mod:`transport.cli.run`, ``check``, ``modes``, ``plot``, ``new``, ``compare``,
-``site``, ``verify``, ``report``, ``fit``); what they share is in :mod:`transport.cli.common`. Every command
+``site``, ``verify``, ``report``, ``sensitivity``, ``fit``); what they share is in :mod:`transport.cli.common`. Every command
 is a thin layer over the library. Input errors end the program with a one-paragraph
 message and exit status 2, never a traceback; a run no engine can vouch for ends with
 exit status 3.
@@ -24,6 +24,7 @@ from transport.cli.new import new
 from transport.cli.plot import plot
 from transport.cli.report import report
 from transport.cli.run import run
+from transport.cli.sensitivity import sensitivity
 from transport.cli.site import site
 from transport.cli.verify import verify
 from transport.scenario.reader import PlausibilityWarning
@@ -77,7 +78,7 @@ def main():
     """
 
 
-for _command in (run, check, modes, plot, new, compare, site, verify, report, fit):
+for _command in (run, check, modes, plot, new, compare, site, verify, report, sensitivity, fit):
     main.add_command(_command)
 
 if __name__ == "__main__":  # pragma: no cover
