@@ -96,23 +96,33 @@ def _known_keys(table_path: str) -> tuple:
     return ()
 
 
+def _joined(path) -> str:
+    return ".".join(n + "".join(f"[{i}]" for i in idx) for n, idx in path)
+
+
 def get_value(r: Reader, data: dict, path: tuple, where: str, shown: str):
     """The value at ``path`` in ``data``, or a ScenarioError at ``where`` (the
     ``sensitivity.inputs[j].key``) naming the missing part and the fix."""
-    node, walked = data, ""
-    for name, indices in path:
+    node, walked, full = data, "", _joined(path)
+    for k, (name, indices) in enumerate(path):
         here = f"{walked}.{name}" if walked else name
+        if isinstance(node, list):
+            raise r.error(where, shown, f"{walked} is a list (of {len(node)})",
+                          fix=f"give the index, counted from 1, e.g. {walked}[1].{name}")
         if not isinstance(node, dict):
-            raise r.error(where, shown, f"{walked} is not a table")
+            raise r.error(where, shown, f"{walked} is not a table",
+                          fix=f"name a key inside a table, not inside {walked}")
         if name not in node:
             known = sorted(set(node) | set(_known_keys(walked)))
             close = difflib.get_close_matches(name, known, n=1, cutoff=0.6)
             if name in _known_keys(walked) or (not walked and name in ("chemical", "flow")):
                 raise r.error(where, shown, f"the scenario does not give {here}",
-                              fix=f"give {here} in the scenario (its value is the base "
+                              fix=f"give {full} in the scenario (its value is the base "
                                   "value of the one-at-a-time runs)")
+            fixed = _joined(path[:k] + ((close[0], indices),) + path[k + 1:]) if close \
+                else None
             raise r.error(where, shown, f"unknown key {here!r}",
-                          fix=(f"did you mean {_replace_last(here, close[0])!r}?" if close
+                          fix=(f"did you mean {fixed!r}?" if fixed
                                else "use a key path of the scenario, e.g. "
                                     "layers[2].organic_carbon_fraction or flow.darcy_flux"))
         node, walked = node[name], here
@@ -123,15 +133,10 @@ def get_value(r: Reader, data: dict, path: tuple, where: str, shown: str):
             if i > len(node):
                 n = len(node)
                 raise r.error(where, shown, f"{walked} has {n} entr{'y' if n == 1 else 'ies'}",
-                              allowed=f"indices 1 to {len(node)} (counted from 1)",
-                              fix=f"use an index from 1 to {len(node)}")
+                              allowed=f"indices 1 to {n} (counted from 1)",
+                              fix=f"use an index from 1 to {n}")
             node, walked = node[i - 1], f"{walked}[{i}]"
     return node
-
-
-def _replace_last(path: str, name: str) -> str:
-    head, _, _ = path.rpartition(".")
-    return f"{head}.{name}" if head else name
 
 
 def with_values(data: dict, changes) -> dict:
