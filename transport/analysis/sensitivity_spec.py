@@ -290,9 +290,11 @@ def _input(r, data, t, j):
         per = per_unit or 1.0
         raise r.error(f"{key}.key", raw_key, f"the scenario's value {base_raw!r} "
                       f"({base / per:.4g} {unit}) lies outside the range "
-                      f"{low / per:.4g} to {high / per:.4g} {unit}".rstrip(),
-                      fix="widen low/high to include the scenario's value, or change the "
-                          "scenario")
+                      f"{low / per:.4g} to {high / per:.4g} {unit} ({source})".rstrip(),
+                      fix=("widen low/high to include the scenario's value, or change the "
+                           "scenario" if source == "given" else "give low and high "
+                           "around the scenario's value, or centre the distribution on "
+                           "it"))
     return SensitivityInput(inp_key, path, dim, unit, per_unit, base, low, high, source,
                             dist)
 
