@@ -14,27 +14,37 @@ import warnings
 
 import click
 
+import importlib
+
 from transport import __version__
-from transport.cli.check import check
 from transport.cli.common import Refused, UserError, describe
-from transport.cli.compare import compare
-from transport.cli.fit import fit
-from transport.cli.modes import modes
-from transport.cli.new import new
-from transport.cli.plot import plot
-from transport.cli.report import report
-from transport.cli.run import run
-from transport.cli.sensitivity import sensitivity
-from transport.cli.site import site
-from transport.cli.verify import verify
 from transport.scenario.reader import PlausibilityWarning
 from transport.solvers.checks import UnreliableResultError
 
 __all__ = ["main"]
 
 
+#: Command name -> module under transport.cli holding the click command of that name.
+#: A command's module is imported only when that command runs (or when the help lists
+#: the commands), so ``stratiflux run`` does not pay for the site, sensitivity or fit
+#: machinery at start-up (the lazy-loading pattern of click's documentation,
+#: "Lazily Loading Subcommands").
+COMMANDS = {name: name for name in ("run", "check", "modes", "plot", "new", "compare",
+                                    "site", "verify", "report", "sensitivity", "fit")}
+
+
 class _Group(click.Group):
-    """Turns the expected input errors into a clean message and exit status 2."""
+    """Turns the expected input errors into a clean message and exit status 2; loads
+    each command's module when it is needed."""
+
+    def list_commands(self, ctx):
+        return sorted(set(super().list_commands(ctx)) | set(COMMANDS))
+
+    def get_command(self, ctx, name):
+        if name in COMMANDS and name not in self.commands:
+            module = importlib.import_module(f"transport.cli.{COMMANDS[name]}")
+            self.add_command(getattr(module, name), name)
+        return super().get_command(ctx, name)
 
     def invoke(self, ctx):
         with warnings.catch_warnings():  # restores showwarning on the way out
@@ -77,9 +87,6 @@ def main():
     regulator, local codes and licensed professionals.
     """
 
-
-for _command in (run, check, modes, plot, new, compare, site, verify, report, sensitivity, fit):
-    main.add_command(_command)
 
 if __name__ == "__main__":  # pragma: no cover
     main()
