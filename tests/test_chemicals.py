@@ -85,6 +85,32 @@ def test_unknown_name_suggests_close_match():
 def test_malformed_table_rejected():
     header = ",".join(chemicals.COLUMNS)
     with pytest.raises(chemicals.ChemicalError, match="empty"):
-        chemicals.parse_table(header + "\nx,,1e-9,,10,src,1,2,src\n")
+        chemicals.parse_table(header + "\nx,,1e-9,,10,src,1,2,src,C2\n")
     with pytest.raises(chemicals.ChemicalError, match="not a number"):
-        chemicals.parse_table(header + "\nx,,abc,src,10,src,1,2,src\n")
+        chemicals.parse_table(header + "\nx,,abc,src,10,src,1,2,src,C2\n")
+
+
+def test_molar_masses_from_iupac_atomic_weights():
+    # IUPAC 2021 conventional atomic weights (from memory): C 12.011, H 1.008, Cl 35.45,
+    # N 14.007, O 15.999; the sums by hand
+    assert chemicals.lookup("PCE").molar_mass == pytest.approx(0.165822, rel=1e-12)
+    assert chemicals.lookup("TCE").molar_mass == pytest.approx(0.131380, rel=1e-12)
+    assert chemicals.lookup("cis-DCE").molar_mass == pytest.approx(0.096938, rel=1e-12)
+    assert chemicals.lookup("vinyl chloride").molar_mass == pytest.approx(0.062496, rel=1e-12)
+    assert chemicals.lookup("nitrate").molar_mass == pytest.approx(0.062004, rel=1e-12)
+    with pytest.raises(chemicals.ChemicalError, match="atomic weight"):
+        chemicals.molar_mass("C2Xe")
+    with pytest.raises(chemicals.ChemicalError, match="plain molecular formula"):
+        chemicals.molar_mass("C2(OH)")
+
+
+def test_cis_dce_diffusivity_follows_hayduk_laudie_like_its_neighbours():
+    """D_w = 13.26e-5 / (mu^1.14 V^0.589) cm2/s, mu = 0.89 cP, V the LeBas molar volume
+    (C 14.8, H 3.7, Cl 24.6 cm3/mol; Hayduk & Laudie 1974, AIChE J. 20:611; LeBas
+    increments from memory): the TCE row reproduces it, so the cis-DCE row follows it."""
+    def hl(v):
+        return 13.26e-5 / (0.89 ** 1.14 * v ** 0.589) * 1e-4
+    assert chemicals.lookup("TCE").free_water_diffusivity == pytest.approx(
+        hl(2 * 14.8 + 3.7 + 3 * 24.6), rel=1e-3)
+    assert chemicals.lookup("cis-DCE").free_water_diffusivity == pytest.approx(
+        hl(2 * 14.8 + 2 * 3.7 + 2 * 24.6), rel=1e-3)

@@ -8,7 +8,8 @@ scenario applies decay only when it states a half-life itself.
 Columns: name, aliases (";"-separated), free_water_diffusivity_m2_s,
 diffusivity_source, koc_L_kg ("n/a" where organic carbon does not control sorption,
 e.g. metals), koc_source, half_life_low_d, half_life_high_d ("inf": no decay),
-half_life_source.
+half_life_source, formula (molecular formula; the molar mass follows from the IUPAC
+atomic weights, :data:`ATOMIC_WEIGHTS`).
 """
 from __future__ import annotations
 
@@ -23,11 +24,31 @@ from importlib import resources
 
 from transport.units import DAY, LITRE_PER_KG
 
-__all__ = ["Chemical", "ChemicalError", "load_table", "lookup", "names", "normalise_name"]
+__all__ = ["Chemical", "ChemicalError", "load_table", "lookup", "names", "normalise_name",
+           "molar_mass", "ATOMIC_WEIGHTS"]
 
 COLUMNS = ("name", "aliases", "free_water_diffusivity_m2_s", "diffusivity_source",
            "koc_L_kg", "koc_source", "half_life_low_d", "half_life_high_d",
-           "half_life_source")
+           "half_life_source", "formula")
+
+#: Conventional atomic weights (g/mol) of the elements in the table: IUPAC Commission on
+#: Isotopic Abundances and Atomic Weights, standard atomic weights 2021 (abridged /
+#: conventional values; from memory).
+ATOMIC_WEIGHTS = {"H": 1.008, "C": 12.011, "N": 14.007, "O": 15.999, "Cl": 35.45,
+                  "Cd": 112.41, "Pb": 207.2}
+
+
+def molar_mass(formula: str) -> float:
+    """Molar mass (kg/mol) of a molecular formula such as ``"C2HCl3"``."""
+    parts = re.findall(r"([A-Z][a-z]?)(\d*)", formula)
+    if not parts or "".join(e + n for e, n in parts) != formula:
+        raise ChemicalError(f"formula {formula!r} is not a plain molecular formula")
+    total = 0.0
+    for element, count in parts:
+        if element not in ATOMIC_WEIGHTS:
+            raise ChemicalError(f"formula {formula!r}: no atomic weight for {element}")
+        total += ATOMIC_WEIGHTS[element] * (int(count) if count else 1)
+    return total / 1000.0
 
 
 class ChemicalError(ValueError):
@@ -53,6 +74,12 @@ class Chemical:
     half_life_low: float
     half_life_high: float
     half_life_source: str
+    formula: str = ""
+
+    @property
+    def molar_mass(self) -> float:
+        """kg/mol, from :attr:`formula`."""
+        return molar_mass(self.formula)
 
 
 def normalise_name(name: str) -> str:
@@ -96,6 +123,7 @@ def parse_table(text: str) -> tuple:
             half_life_low=_number(rec["half_life_low_d"], i, "half_life_low_d") * DAY,
             half_life_high=_number(rec["half_life_high_d"], i, "half_life_high_d") * DAY,
             half_life_source=rec["half_life_source"].strip(),
+            formula=rec["formula"].strip(),
         ))
     return tuple(rows)
 
