@@ -9,8 +9,9 @@ import warnings
 
 import numpy as np
 
-from transport.model.column import Column, InitialState
+from transport.model.column import Column, InitialState, InputError
 from transport.scenario.schema import Scenario
+from transport.solvers.chain import solve_chain
 from transport.solvers.engines import FV_TOLERANCE, solve_column
 from transport.solvers.timeline import Timeline, solve_timeline
 
@@ -48,7 +49,7 @@ def solve(target, times=None, depths=None, *, initial: InitialState = None,
 
     Returns
     -------
-    Solution
+    Solution (a tuple of Solution, parent first, for a scenario with a decay chain)
         Fields on the (time, depth) grid in SI units (kg m-3, kg m-2 s-1, kg m-2), the
         mass budget, the engine and the error bound of every quantity per time;
         ``to_dataset()`` gives the CF layout of ``stratiflux run``.
@@ -88,13 +89,20 @@ def solve(target, times=None, depths=None, *, initial: InitialState = None,
 
 
 def solve_scenario(scenario, depths=None, times=None, engine: str = "auto",
-                   tolerance: float = None, on_unreliable: str = "raise"):
+                   tolerance: float = None, on_unreliable: str = "raise",
+                   species: bool = False):
     """Solve ``scenario`` on its output grid; returns ``(solution, warnings)``.
 
     As :func:`solve`, except that the warnings raised while solving are caught and
     returned (a list of :class:`Warning` instances: ``str(w)`` is the message,
-    ``type(w)`` its class) for the command line to print.
+    ``type(w)`` its class) for the command line to print.  A scenario with a decay chain
+    is solved only by a caller that takes one solution per species (``species=True``:
+    the first item is then a tuple); others get an :class:`InputError` saying so.
     """
+    if getattr(scenario, "chain", None) is not None and not species:
+        raise InputError(f"{scenario.path or 'the scenario'} has a decay chain ([[chain]]); "
+                         "this command takes one species: run the chain with stratiflux "
+                         "run, or remove the [[chain]] tables to study the parent alone")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         solution = _solve_scenario(scenario, depths, times, engine, tolerance,
@@ -118,6 +126,13 @@ def _solve_scenario(scenario, depths, times, engine, tolerance, on_unreliable, i
     depths = np.asarray(out.depths if depths is None else depths, float)
     tol = _tolerance(tolerance, engine, default=out.tolerance)
     initial = scenario.initial if initial is None else initial
+    if scenario.chain is not None:
+        if engine not in ("auto", "laplace"):
+            raise InputError(f"a decay chain is solved by the Laplace engine; use engine "
+                             f"auto or laplace, not {engine!r}")
+        initials = (initial,) + (InitialState.clean(),) * (len(scenario.chain.columns) - 1)
+        return solve_chain(scenario.chain, times, depths, initials=initials, tolerance=tol,
+                           on_unreliable=on_unreliable)
     if scenario.timeline is not None and len(scenario.timeline.stages) > 1:
         return solve_timeline(scenario.timeline, times, depths, initial=initial,
                               tolerance=tol, engine=engine, on_unreliable=on_unreliable)

@@ -99,7 +99,8 @@ def setting(scenario, name):
     return getattr(getattr(scenario, "output", None), name, None)
 
 
-def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable=False):
+def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable=False,
+          species=False):
     """Solve ``scenario`` (:func:`transport.api.solve_scenario`), print its warnings.
 
     A run no engine can vouch for raises :class:`Refused`, unless ``allow_unreliable``
@@ -108,7 +109,7 @@ def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable
     try:
         solution, caught = solve_scenario(
             scenario, depths=depths, engine=engine, tolerance=tolerance,
-            on_unreliable="flag" if allow_unreliable else "raise")
+            on_unreliable="flag" if allow_unreliable else "raise", species=species)
     except UnreliableResultError as exc:
         raise Refused(f"{getattr(scenario, 'path', None) or 'scenario'}: refused: {exc}") \
             from None

@@ -19,7 +19,8 @@ __all__ = ["plot", "file_kind"]
 
 _KINDS = {"run": "a single run ('stratiflux run')",
           "comparison": "a comparison ('stratiflux compare')",
-          "site": "a site ('stratiflux site')"}
+          "site": "a site ('stratiflux site')",
+          "chain": "a decay-chain run ('stratiflux run' of a scenario with [[chain]])"}
 
 
 def file_kind(ds) -> str | None:
@@ -32,6 +33,8 @@ def file_kind(ds) -> str | None:
         return "comparison"
     if "station" in ds.dims and "station_id" in ds.variables:
         return "site"
+    if dims == ("species", "time", "depth"):
+        return "chain"
     if dims == ("time", "depth"):
         return "run"
     return None
@@ -51,6 +54,22 @@ def _draw(kind, ds, file, out_dir, stem, receptor, level, life):
             click.echo("Note: the file holds no receptor depth; give --receptor-depth "
                        "(m) for the breakthrough figure.", err=True)
         return write_comparison_figures(view, out_dir, stem, ds.attrs.get("title") or None)
+    if kind == "chain":  # one set of run figures per species
+        paths = []
+        for i, name in enumerate(ds["species_name"].values):
+            one = ds.isel(species=i)
+            lev = level
+            if lev is None and "screening_level" in one.variables:
+                value = float(one["screening_level"])
+                lev = value if value == value else None  # NaN: none for this species
+                if lev is None:
+                    one = one.drop_vars("screening_level")
+            slug = "".join(ch if ch.isalnum() else "-" for ch in str(name)).strip("-").lower()
+            paths += write_plots(one, out_dir, f"{stem}_{slug}", receptor_depth=receptor if
+                                 receptor is not None else float(ds["receptor_depth"]),
+                                 screening_level=lev, design_life=life,
+                                 title=f"{ds.attrs.get('title', '')}: {name}")
+        return paths
     if receptor is None and "receptor_depth" in ds.variables:
         receptor = float(ds["receptor_depth"])
     if level is None and "screening_level" in ds.variables:
@@ -73,8 +92,9 @@ def plot(file, out_dir, receptor_depth, screening_level, design_life):
     """Draw figures from a NetCDF FILE written by 'stratiflux run', 'compare' or 'site'.
 
     \b
-    A run gives <stem>_profiles.png and <stem>_breakthrough.png; a comparison
-    <stem>_breakthrough.png, _metrics.png and _profiles.png; a site <stem>_map.png.
+    A run gives <stem>_profiles.png and <stem>_breakthrough.png (a decay chain: one
+    pair per species); a comparison <stem>_breakthrough.png, _metrics.png and
+    _profiles.png; a site <stem>_map.png.
 
     \b
     Example:

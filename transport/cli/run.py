@@ -11,6 +11,7 @@ from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
 from transport.cli.common import (UserError, echo_wrapped, progress, setting, solve,
                                   write_plots)
+from transport.cli.run_chain import run_chain
 from transport.io.atomic import OutputSet, terminate_as_exit
 from transport.io.netcdf import write_column_netcdf
 from transport.scenario.schema import load_scenario
@@ -62,6 +63,13 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                         "Create it or choose another path with -o.")
     progress(1, total, f"reading {scenario}")
     sc = load_scenario(scenario)
+    if sc.chain is not None:
+        if engine not in ("auto", "laplace"):
+            raise UserError(f"{scenario}: a decay chain is solved by the Laplace engine; "
+                            f"use --engine auto or laplace, not {engine}")
+        command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
+        return run_chain(sc, scenario, output, plots_dir, engine, tolerance,
+                         allow_unreliable, command)
     progress(2, total, f"solving {len(sc.column.layers)} layer(s), "
                        f"{len(sc.times)} time(s) x {len(sc.depths)} depth(s)")
     solution = solve(sc, engine=engine, tolerance=tolerance,

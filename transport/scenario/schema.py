@@ -54,6 +54,7 @@ from transport.scenario.layers import ChemicalSpec, read_chemical, read_layer
 from transport.scenario.output import (OutputSpec, check_run_size, read_output, read_samples,
                                        read_samples_file, with_cap_depths)
 from transport.scenario.reader import MISSING, Reader, ScenarioError, parse_toml, read_text_file
+from transport.scenario.chain import read_chain
 from transport.scenario.zone import ZONE_KEYS, read_source_zone
 
 __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scenario",
@@ -63,7 +64,8 @@ __all__ = ["ScenarioError", "Scenario", "ChemicalSpec", "OutputSpec", "load_scen
 
 TOP_KEYS = ("title", "chemical", "flow", "layers", "top", "bottom", "initial", "output",
             "actions", "alternatives", "fit",  # [fit] is read by stratiflux fit
-            "sensitivity")  # [sensitivity] is read by stratiflux sensitivity
+            "sensitivity",  # [sensitivity] is read by stratiflux sensitivity
+            "chain")  # [[chain]]: daughters of a decay chain (transport/scenario/chain.py)
 ALTERNATIVE_KEYS = ("name", "actions", "top")
 FLOW_KEYS = ("darcy_flux",)
 BOUNDARY_VALUE_KEYS = {"concentration": ("concentration",), "inlet": ("concentration",),
@@ -99,6 +101,9 @@ class Scenario:
     source_text: str
     layer_details: tuple = ()
     timeline: object = None  # transport.solvers.timeline.Timeline when [[actions]] are given
+    chain: object = None  # transport.model.chain.Chain when [[chain]] daughters are given
+    chain_details: tuple = ()  # per daughter: its derived table (as layer_details)
+    chain_levels: tuple = ()  # per daughter: its screening level (kg m-3) or None
 
     @property
     def times(self) -> np.ndarray:
@@ -327,9 +332,16 @@ def _parse_data(r, data, text, file, prefix=""):
     if timeline is not None:
         output = with_cap_depths(output, timeline)
     check_run_size(r, output, column, initial, timeline)
+    chain = read_chain(r, data, chem, column, q)
+    if chain is not None and timeline is not None:
+        raise r.error("chain", problem="a decay chain with [[actions]] is not available yet",
+                      fix="run the chain without actions, or the parent alone with them")
     return Scenario(title=title, path=None if file == "<string>" else file, column=column,
                     initial=initial, chemical=chem, output=output, source_text=text,
-                    layer_details=tuple(details), timeline=timeline)
+                    layer_details=tuple(details), timeline=timeline,
+                    chain=None if chain is None else chain[0],
+                    chain_details=() if chain is None else chain[1],
+                    chain_levels=() if chain is None else chain[2])
 
 
 def load_scenario(path: str | Path) -> Scenario:
