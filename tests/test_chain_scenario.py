@@ -160,3 +160,11 @@ def test_single_species_commands_refuse_a_chain_with_the_fix(tmp_path):
     res = CliRunner().invoke(main, ["run", str(DEMO), "-o", str(tmp_path / "x.nc"),
                                     "--engine", "modal"])
     assert res.exit_code == 2 and "solved by the Laplace engine" in " ".join(res.output.split())
+
+
+def test_check_prints_each_daughters_layers():
+    res = CliRunner().invoke(main, ["check", str(DEMO)])
+    assert res.exit_code == 0, res.output
+    # yield TCE / PCE from IUPAC atomic weights: 131.38 / 165.822
+    assert "Daughter trichloroethene (yield 0.7923 kg per kg of its parent decayed)" in res.output
+    assert "Daughter vinyl chloride" in res.output

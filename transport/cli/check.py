@@ -83,6 +83,10 @@ def check(scenario):
     click.echo(f"Scenario: {sc.title}")
     table = sc.derived_table()
     click.echo(table if isinstance(table, str) else format_layer_table(table))
+    if sc.chain is not None:  # each daughter's layers, derived with its own chemical
+        for name, y, rows in zip(sc.chain.names[1:], sc.chain.yields[1:], sc.chain_details):
+            click.echo(f"Daughter {name} (yield {y:.4g} kg per kg of its parent decayed):")
+            click.echo(format_layer_table([dict(row) for row in rows]))
     for end in ("top", "bottom"):
         if getattr(sc.column, end).kind == "source-zone":
             click.echo(f"{end.capitalize()}: {describe_zone(getattr(sc.column, end))}")
