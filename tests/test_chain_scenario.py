@@ -150,7 +150,8 @@ def test_plot_draws_each_species(demo_run, tmp_path):
     res = CliRunner().invoke(main, ["plot", str(demo_run[0]), "--out", str(tmp_path)])
     assert res.exit_code == 0, res.output
     names = sorted(p.name for p in tmp_path.glob("*.png"))
-    assert len(names) == 8 and "dc_vinyl-chloride_breakthrough.png" in names
+    assert len(names) == 9 and "dc_vinyl-chloride_breakthrough.png" in names
+    assert "dc_chain_breakthrough.png" in names
 
 
 def test_single_species_commands_refuse_a_chain_with_the_fix(tmp_path):

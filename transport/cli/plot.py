@@ -9,6 +9,7 @@ import os
 from pathlib import Path
 
 import click
+import numpy as np
 
 from transport.cli.common import UserError, write_plots
 from transport.io.gis import station_table
@@ -54,8 +55,17 @@ def _draw(kind, ds, file, out_dir, stem, receptor, level, life):
             click.echo("Note: the file holds no receptor depth; give --receptor-depth "
                        "(m) for the breakthrough figure.", err=True)
         return write_comparison_figures(view, out_dir, stem, ds.attrs.get("title") or None)
-    if kind == "chain":  # one set of run figures per species
-        paths = []
+    if kind == "chain":  # every species on one figure, then one set of figures each
+        from transport.plot.chain import curves_of_dataset, plot_chain_breakthrough
+        rec = receptor if receptor is not None else float(ds["receptor_depth"])
+        names = [str(n) for n in ds["species_name"].values]
+        lev_all = [None if not np.isfinite(v) else float(v)
+                   for v in np.atleast_1d(ds["screening_level"].values)] \
+            if "screening_level" in ds.variables else [level] * len(names)
+        t, curves = curves_of_dataset(ds, rec)
+        paths = [plot_chain_breakthrough(t, curves, names, os.path.join(
+            out_dir, f"{stem}_chain_breakthrough.png"), receptor_depth=rec, levels=lev_all,
+            design_life=life, title=ds.attrs.get("title", ""))]
         for i, name in enumerate(ds["species_name"].values):
             one = ds.isel(species=i)
             lev = level

@@ -2,11 +2,13 @@
 written to one NetCDF file with a species dimension."""
 from __future__ import annotations
 
+import os
 import re
 import shlex
 from pathlib import Path
 
 import click
+import numpy as np
 
 from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
@@ -19,6 +21,21 @@ __all__ = ["run_chain"]
 
 def _slug(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9]+", "-", name).strip("-").lower() or "species"
+
+
+def _chain_figure(solutions, names, levels, receptor, design_life, title, plots_dir, stem,
+                  stage):
+    """Every species' receptor curve on one figure (400 samples of the continuous
+    solution from the first output time)."""
+    from transport.plot.chain import plot_chain_breakthrough  # matplotlib: lazily
+
+    times = solutions[0].times
+    t = np.linspace(float(times[times > 0].min()), float(times.max()), 400)
+    curves = [sol.concentration_at(receptor, t) for sol in solutions]
+    return plot_chain_breakthrough(t, curves, names,
+                                   os.path.join(plots_dir, f"{stem}_chain_breakthrough.png"),
+                                   stage=stage, receptor_depth=receptor, levels=levels,
+                                   design_life=design_life, title=title)
 
 
 def run_chain(sc, scenario, output, plots_dir, engine, tolerance, allow_unreliable,
@@ -57,6 +74,10 @@ def run_chain(sc, scenario, output, plots_dir, engine, tolerance, allow_unreliab
         figures = []
         if plots_dir:
             progress(4, total, f"drawing figures in {plots_dir}")
+            os.makedirs(plots_dir, exist_ok=True)
+            if receptor is not None:
+                figures.append(_chain_figure(solutions, names, levels, receptor, design_life,
+                                             sc.title, plots_dir, Path(output).stem, stage))
             for name, sol, level in zip(names, solutions, levels):
                 figures += write_plots(sol, plots_dir, f"{Path(output).stem}_{_slug(name)}",
                                        receptor_depth=receptor, screening_level=level,
