@@ -120,3 +120,27 @@ def test_bounds_follow_the_physics_of_each_end():
     profile = InitialState.profile([0.0, 0.7, 0.7, 1.5], [0.2, 0.2, 3.0, 3.0])
     b = concentration_bounds(_two_layers(0.5), profile, YEAR)
     assert b.hi == 3.0 and b.lo == 0.0
+
+
+def test_refusal_names_what_each_engine_failed_when_no_single_engine_vouches():
+    """Each quantity vouched for by some engine, but no engine for all of them: the
+    message must say which engine failed which quantity (it once said "()")."""
+    from transport.solvers.checks import Choice, describe_refusal
+
+    nt = 2
+    ok, bad = np.array([1e-12, 1e-12]), np.array([1e-12, 5e-8])
+    scale = {q: 1.0 for q in ("concentration", "total_flux", "cumulative_mass", "budget")}
+    per = {"modal": {"concentration": ok, "total_flux": ok, "cumulative_mass": bad,
+                     "budget": ok},
+           "laplace": {"concentration": ok, "total_flux": bad, "cumulative_mass": ok,
+                       "budget": ok}}
+    choice = Choice(engine=np.array(["modal", ""], dtype=object),
+                    error={q: ok.copy() for q in scale},
+                    reliable=np.array([True, False]),
+                    failed={q: np.zeros(nt, bool) for q in scale}, scale=scale,
+                    by_candidate=per)
+    text = describe_refusal(np.array([1.0, 2.0]) * 3.15576e7, choice, 1e-8, "modal and laplace")
+    assert "no single engine vouches for every quantity" in text
+    assert "modal: cumulative mass error up to 5e-08" in text
+    assert "laplace: total flux error up to 5e-08" in text
+    assert "2 yr" in text and "()" not in text

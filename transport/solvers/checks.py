@@ -272,6 +272,8 @@ class Choice:
     reliable: np.ndarray  # (nt,) bool
     failed: dict = field(default_factory=dict)  # quantity -> (nt,) bool
     scale: dict = field(default_factory=dict)
+    #: selectable engine -> quantity -> (nt,) its error bound (before the choice)
+    by_candidate: dict = field(default_factory=dict)
 
 
 def choose(times, candidates, tolerance: float, bounds: Bounds | None, column, depths,
@@ -354,7 +356,8 @@ def choose(times, candidates, tolerance: float, bounds: Bounds | None, column, d
                 error[q][t] = best
                 failed[q][t] = not best <= tolerance * sc[q]
     reliable = engine != ""
-    return Choice(engine, error, reliable, failed, sc)
+    per = {c[0]: e for c, e in zip(candidates[:selectable], cand_err)}
+    return Choice(engine, error, reliable, failed, sc, per)
 
 
 def assemble(candidates, choice: Choice, budgets):
@@ -419,6 +422,14 @@ def describe_refusal(times, choice: Choice, tolerance: float, tried: str,
               "at that time, or a value is not finite)" if q == "budget" else
               f"{_LABEL[q]} not vouched for (a value is not finite or no engine gives a "
               "bound)") for q in which)
+    if not which and choice.by_candidate:  # each quantity vouched for, but by different engines
+        parts = []
+        for name, errs in choice.by_candidate.items():
+            over = [(q, float(np.max(errs[q][bad] / choice.scale[q]))) for q in QUANTITIES
+                    if np.any(errs[q][bad] > tolerance * choice.scale[q])]
+            parts.append(f"{name}: " + ", ".join(
+                f"{_LABEL[q]} error up to {w:.2g} of its scale" for q, w in over))
+        detail = ("no single engine vouches for every quantity; " + "; ".join(parts))
     return (f"no engine could vouch for the results at {tb.size} output time(s) ({shown}) "
             f"within the tolerance {tolerance:g} ({detail}); tried: {tried}. The tool does "
             "not report numbers it cannot vouch for. Try a looser tolerance "
