@@ -1,40 +1,64 @@
-"""Site throughput and memory: borings per second, in-process vs local processes vs a
-Dask LocalCluster, and peak memory of a run streamed to disk as the borings grow.
+"""Site throughput and memory: column solves per second in one process, in local worker
+processes and on a Dask cluster of real scheduler and worker processes started from the
+command line, against the previous implementation run in the same process; peak memory
+of runs streamed to disk as the borings grow.
 
-    python benchmarks/bench_site.py                # about 1-2 minutes on 2 cores
-    python benchmarks/bench_site.py --borings 2000 --memory 1000 5000 20000
-    python benchmarks/bench_site.py --repeat-logs  # borings share layer stacks
+    python benchmarks/bench_site.py                  # about 8 minutes on 2 cores
+    python benchmarks/bench_site.py --borings 64 --realizations 32
+    python benchmarks/bench_site.py --memory 1000 10000 20000 --no-dask --no-previous
 
 The site is the invented demo yard (data/site-demo/site.toml) on a regular 10 m grid of
 borings, each with a FIVE-layer log (made ground, silty sand, clay, silty sand, clay)
 whose thicknesses differ from boring to boring (no two stacks alike, so the per-stack
-cache does not help; ``--repeat-logs`` cycles 48 stacks instead), and 100 log-spaced
-output times (deterministic runs, no Monte Carlo unless ``--realizations``).
+cache does not help; ``--repeat-logs`` cycles 48 stacks instead), 100 log-spaced output
+times and the demo's three uncertain parameters (``--realizations`` Monte Carlo
+realizations per boring, Latin hypercube, seed 7).
 
-Rates are wall time of :func:`transport.site.run.run_site`, including writing every
-output (NetCDF, GeoPackage, GeoJSON, CSV, map) and, for the cluster, excluding its
-start-up. Peak memory is measured two ways for in-process runs (workers=1): the
-tracemalloc peak (Python and numpy allocations) and the growth of the process's peak
-resident set size (``ru_maxrss``); both should stay flat as the borings grow, because
-chunks are streamed to disk.
+A column solve is one boring's deterministic column (fields on the grid, both time
+windows, checked by the Laplace engine at every output time) or one Monte Carlo
+realization's column (receptor metrics, checked by the Laplace engine at the
+breakthrough and the peak); rates are column solves per wall second of
+:func:`transport.site.run.run_site`, every output written (NetCDF, GeoPackage,
+GeoJSON, CSV, map). Each configuration runs the current code and the previous one
+(``benchmarks/legacy_site``, the site modules before this work) on the same site.
+
+The cluster is ``python -m distributed.cli.dask_scheduler`` and ``python -m
+distributed.cli.dask_worker --nworkers N --nthreads 1`` started with subprocess on
+127.0.0.1 (the ``dask scheduler`` / ``dask worker`` commands), warmed on a small site,
+its caches emptied before each timed run, and stopped afterwards; its rate excludes its
+start-up. Per core it is compared with the same number of local processes.
+
+Memory: each size runs in a fresh Python process (workers=1, 48 repeated stacks so that
+10,000 borings take minutes, not hours: the streaming path is the same); the peak
+resident set size of that process (``ru_maxrss``) is reported while chunks are streamed
+(sampled with psutil at every finished chunk, when installed) and for the whole run
+including the GIS files and the map.
 """
 from __future__ import annotations
 
 import argparse
+import json
 import math
+import os
 import resource
 import shutil
+import socket
+import subprocess
+import sys
 import tempfile
 import time
-import tracemalloc
 from pathlib import Path
 
-from transport.site.chunks import clear_caches
-from transport.site.config import load_site
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))  # legacy_site: the previous implementation
 
-DEMO = Path(__file__).resolve().parents[1] / "data" / "site-demo"
+from transport.site.chunks import clear_caches  # noqa: E402
+from transport.site.config import load_site  # noqa: E402
+
+DEMO = HERE.parent / "data" / "site-demo"
 STACK = ("made ground", "silty sand", "clay", "silty sand", "clay")
 RECEPTOR_ELEVATION = 36.0  # m, as in the demo site file
+SEED = 7
 
 
 def _log_rows(bid: str, k: int, elevation: float, distinct: bool) -> list:
@@ -73,87 +97,225 @@ def make_site(folder: Path, n: int, *, times: int = 100, distinct: bool = True):
     return load_site(folder / "site.toml")
 
 
-def timed_run(site, out, realizations=0, **options):
-    """Wall time of one site run, with the per-process column caches emptied first (local
-    workers are forked from this process and would inherit them)."""
-    # imported on the first run: the output libraries' import is part of the cold time
+def _implementations():
+    """{"current": run_site, "previous": run_site of benchmarks/legacy_site} and the
+    functions that empty each one's per-process caches."""
+    import legacy_site.chunks
+    import legacy_site.run
+
     from transport.site.run import run_site
 
-    clear_caches()
+    return {"current": (run_site, clear_caches),
+            "previous": (legacy_site.run.run_site, legacy_site.chunks.clear_caches)}
+
+
+def timed_run(run_site, clear, site, out, realizations, client=None, **options):
+    """Wall time of one site run, with the column caches of this process emptied first
+    (local workers are forked from it and would inherit them), and those of the cluster's
+    workers when ``client`` is given."""
+    clear()
+    if client is not None:
+        client.run(clear)
     start = time.perf_counter()
-    run_site(site, out, realizations=realizations, **options)
+    run_site(site, out, realizations=realizations, seed=SEED, sampling="latin-hypercube",
+             **options)
     return time.perf_counter() - start
 
 
-def _maxrss_mib() -> float:
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
+# ------------------------------------------------------------------ command-line cluster
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+class CommandLineCluster:
+    """``dask scheduler`` and ``dask worker`` as separate processes on 127.0.0.1
+    (through ``python -m distributed.cli...``, the modules behind those commands), with
+    this folder on the workers' PYTHONPATH so that they can run the previous
+    implementation too; stopped (SIGTERM, then SIGKILL) on exit."""
+
+    def __init__(self, workers: int, log_dir: Path):
+        self.n, self.log_dir, self.procs = workers, log_dir, []
+        self.address = f"tcp://127.0.0.1:{_free_port()}"
+
+    def __enter__(self):
+        env = dict(os.environ)
+        env["PYTHONPATH"] = os.pathsep.join([str(HERE), env.get("PYTHONPATH", "")])
+        port = self.address.rsplit(":", 1)[1]
+        commands = [
+            [sys.executable, "-m", "distributed.cli.dask_scheduler", "--host", "127.0.0.1",
+             "--port", port, "--no-dashboard"],
+            [sys.executable, "-m", "distributed.cli.dask_worker", self.address,
+             "--nworkers", str(self.n), "--nthreads", "1", "--no-dashboard",
+             "--memory-limit", "0"]]
+        try:
+            for k, cmd in enumerate(commands):
+                log = open(self.log_dir / f"dask-{k}.log", "w")  # noqa: SIM115
+                self.procs.append(subprocess.Popen(cmd, stdout=log, stderr=log, env=env))
+                log.close()
+                if k == 0:
+                    self._wait_for_port(int(port))
+            from distributed import Client
+
+            with Client(self.address, timeout="30s") as client:
+                client.wait_for_workers(self.n, timeout=120)
+        except BaseException:
+            self.__exit__(None, None, None)
+            raise
+        return self
+
+    def _wait_for_port(self, port, limit=60.0):
+        t0 = time.monotonic()
+        while time.monotonic() - t0 < limit:
+            if self.procs[0].poll() is not None:
+                raise RuntimeError(f"dask scheduler exited; see {self.log_dir}/dask-0.log")
+            with socket.socket() as s:
+                if s.connect_ex(("127.0.0.1", port)) == 0:
+                    return
+            time.sleep(0.2)
+        raise RuntimeError("dask scheduler did not start listening within 60 s")
+
+    def __exit__(self, *exc):
+        for p in reversed(self.procs):
+            if p.poll() is None:
+                p.terminate()
+        for p in reversed(self.procs):
+            try:
+                p.wait(20)
+            except subprocess.TimeoutExpired:
+                p.kill()
+                p.wait(10)
+        self.procs = []
+        return False
+
+
+# ------------------------------------------------------------------------- memory
+def memory_child(n: int, chunk: int, folder: Path):
+    """One streamed run of n borings in this (fresh) process; prints a JSON line."""
+    from transport.site.run import run_site
+
+    try:
+        import psutil
+        proc = psutil.Process()
+    except ImportError:  # pragma: no cover - optional
+        proc = None
+    site = make_site(folder, n, distinct=False)
+    streaming = {"rss": 0}
+
+    def progress(_):
+        if proc is not None:
+            streaming["rss"] = max(streaming["rss"], proc.memory_info().rss)
+    t0 = time.perf_counter()
+    run_site(site, folder / "out", realizations=0, workers=1, chunk_size=chunk,
+             progress=progress)
+    wall = time.perf_counter() - t0
+    size = (folder / "out" / "site.nc").stat().st_size
+    print(json.dumps({"borings": n, "wall": wall, "streaming_rss": streaming["rss"],
+                      "maxrss": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+                      "netcdf": size}))
+
+
+def measure_memory(n: int, chunk: int, work: Path) -> dict:
+    folder = work / f"mem{n}"
+    folder.mkdir()
+    out = subprocess.run([sys.executable, __file__, "--memory-child", str(n),
+                          "--chunk-size", str(chunk), "--work", str(folder)],
+                         capture_output=True, text=True, check=True)
+    shutil.rmtree(folder, ignore_errors=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+# --------------------------------------------------------------------------- main
+def _row(label, results, columns):
+    cur = results.get(("current", label))
+    old = results.get(("previous", label))
+    text = f"{label:34s}"
+    for t in (cur, old):
+        text += (f" {columns / t:9.1f} col/s {1e3 * t / columns:6.2f} ms" if t
+                 else f" {'-':>25s}")
+    if cur and old:
+        text += f"   x{old / cur:5.2f}"
+    print(text)
 
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--borings", type=int, default=600, help="borings for the rates")
-    parser.add_argument("--memory", type=int, nargs="+", default=[500, 2000, 8000],
-                        help="boring counts for the memory runs (in-process)")
+    parser.add_argument("--borings", type=int, default=32, help="borings for the rates")
+    parser.add_argument("--realizations", type=int, default=16,
+                        help="Monte Carlo realizations per boring (rates)")
+    parser.add_argument("--memory", type=int, nargs="*", default=[1000, 10000],
+                        help="boring counts for the memory runs (fresh processes)")
     parser.add_argument("--workers", type=int, default=2)
-    parser.add_argument("--chunk-size", type=int, default=64)
-    parser.add_argument("--realizations", type=int, default=0,
-                        help="Monte Carlo realizations per boring (rates only)")
+    parser.add_argument("--chunk-size", type=int, default=2)
     parser.add_argument("--repeat-logs", action="store_true",
                         help="cycle 48 layer stacks (the per-stack cache then applies)")
     parser.add_argument("--no-dask", action="store_true")
+    parser.add_argument("--no-previous", action="store_true",
+                        help="skip the previous implementation")
+    parser.add_argument("--memory-child", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--work", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.memory_child:
+        memory_child(args.memory_child, args.chunk_size, args.work)
+        return
     distinct = not args.repeat_logs
     work = Path(tempfile.mkdtemp(prefix="bench-site-"))
-    chunk = args.chunk_size
+    chunk, nw, real = args.chunk_size, args.workers, args.realizations
+    impls = _implementations()
+    if args.no_previous:
+        impls.pop("previous")
     try:
         site = make_site(work, args.borings, distinct=distinct)
-        print(f"site: {len(site.borings)} borings, {len(site.borings[0].intervals)} layers, "
-              f"{site.times.size} times x {site.depths.size} depths, "
-              f"{'distinct' if distinct else '48 repeated'} stacks, "
-              f"{args.realizations} realizations, chunks of {chunk}")
-        mc = {"realizations": args.realizations}
-        rates = {}
-        # the first run in a process pays for importing the output libraries (NetCDF,
-        # GeoPackage, matplotlib): measured on a small site, reported apart
-        warm_dir = work / "warm"
-        warm_dir.mkdir()
-        t_cold = timed_run(make_site(warm_dir, 16, distinct=distinct), warm_dir / "out",
-                           workers=1, chunk_size=chunk)
-        print(f"first run in the process (16 borings, imports included): {t_cold:.2f} s")
-        t_one = timed_run(site, work / "one", workers=1, chunk_size=chunk, **mc)
-        rates["in-process (1 worker)"] = t_one
-        t_local = timed_run(site, work / "local", workers=args.workers, chunk_size=chunk,
-                            **mc)
-        rates[f"local processes ({args.workers})"] = t_local
+        columns = args.borings * (1 + real)
+        print(f"site: {len(site.borings)} borings x {len(site.borings[0].intervals)} "
+              f"layers, {site.times.size} times x {site.depths.size} depths, "
+              f"{'distinct' if distinct else '48 repeated'} stacks, {real} realizations "
+              f"({columns} column solves), chunks of {chunk}; load average "
+              f"{os.getloadavg()[0]:.2f} on {os.cpu_count()} CPUs")
+        warm = work / "warm"
+        warm.mkdir()
+        small = make_site(warm, 4, distinct=distinct)
+        for name, (run, clear) in impls.items():  # imports of the output libraries
+            t_cold = timed_run(run, clear, small, warm / name, 2, workers=1)
+            print(f"first run in the process ({name}, 4 borings, imports included): "
+                  f"{t_cold:.2f} s")
+        results = {}
+        labels = {"one": "1 process", "local": f"{nw} local processes",
+                  "dask": f"{nw}-worker command-line Dask cluster"}
+        for name, (run, clear) in impls.items():
+            results[(name, labels["one"])] = timed_run(
+                run, clear, site, work / f"one-{name}", real, workers=1, chunk_size=chunk)
+            results[(name, labels["local"])] = timed_run(
+                run, clear, site, work / f"local-{name}", real, workers=nw,
+                chunk_size=chunk)
         if not args.no_dask:
-            from distributed import LocalCluster
+            with CommandLineCluster(nw, work) as cluster:
+                from distributed import Client
 
-            with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
-                              dashboard_address=None) as cluster:
-                # warm the workers (imports) on the small site, as for the in-process run
-                timed_run(make_site(warm_dir, 16, distinct=distinct), warm_dir / "dask",
-                          scheduler=cluster.scheduler_address, chunk_size=chunk)
-                t_dask = timed_run(site, work / "dask", scheduler=cluster.scheduler_address,
-                                   chunk_size=chunk, **mc)
-            rates[f"dask LocalCluster ({args.workers})"] = t_dask
-        for label, t in rates.items():
-            print(f"{label:28s}: {args.borings / t:8.1f} borings/s "
-                  f"({1e3 * t / args.borings:.2f} ms per boring)")
+                with Client(cluster.address) as client:
+                    for name, (run, clear) in impls.items():
+                        timed_run(run, clear, small, warm / f"dask-{name}", 2, client,
+                                  scheduler=cluster.address, chunk_size=1)
+                        results[(name, labels["dask"])] = timed_run(
+                            run, clear, site, work / f"dask-{name}", real, client,
+                            scheduler=cluster.address, chunk_size=chunk)
+        print(f"{'':34s} {'current':>25s} {'previous':>25s}   speed-up")
+        for label in labels.values():
+            _row(label, results, columns)
+        if not args.no_dask:
+            local = results[("current", labels["local"])]
+            dask = results[("current", labels["dask"])]
+            print(f"command-line cluster per core vs local processes: {local / dask:.0%} "
+                  f"(target >= 80 %)")
+        print(f"load average at the end: {os.getloadavg()[0]:.2f}")
         for n in args.memory:
-            folder = work / f"mem{n}"
-            folder.mkdir()
-            big = make_site(folder, n, distinct=distinct)
-            rss0 = _maxrss_mib()
-            tracemalloc.start()
-            t = timed_run(big, folder / "out", workers=1, chunk_size=chunk)
-            _, peak = tracemalloc.get_traced_memory()
-            tracemalloc.stop()
-            size = (folder / "out" / "site.nc").stat().st_size
-            print(f"streamed {n:6d} borings (in-process): tracemalloc peak "
-                  f"{peak / 2**20:6.1f} MiB, max RSS {_maxrss_mib():6.0f} MiB (+"
-                  f"{_maxrss_mib() - rss0:.0f}), {n / t:6.1f} borings/s under the tracer, "
-                  f"NetCDF {size / 2**20:.1f} MiB")
-            shutil.rmtree(folder, ignore_errors=True)
+            m = measure_memory(n, 16, work)
+            stream = (f"{m['streaming_rss'] / 2**20:6.0f} MiB while streaming, "
+                      if m["streaming_rss"] else "")
+            print(f"memory, {n:6d} borings (fresh process, 48 stacks): peak RSS "
+                  f"{stream}{m['maxrss'] / 2**20:6.0f} MiB whole run (GIS files and map "
+                  f"included); {m['wall']:.0f} s, NetCDF {m['netcdf'] / 2**20:.0f} MiB")
     finally:
         shutil.rmtree(work, ignore_errors=True)
 

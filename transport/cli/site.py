@@ -18,6 +18,7 @@ from transport.caution import CAUTION
 from transport.cli.common import fail
 from transport.io.atomic import terminate_as_exit
 from transport.io.gis import station_table
+from transport.site.batch import WORKER_WAIT
 from transport.site.config import load_site
 from transport.site.run import run_site
 
@@ -41,7 +42,13 @@ __all__ = ["site"]
               help="Local worker processes (default: CPU count; ignored with --scheduler).")
 @click.option("--chunk-size", type=click.IntRange(min=1), default=16, show_default=True,
               help="Borings per chunk (unit of work and of resumption).")
-def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, chunk_size):
+@click.option("--worker-wait", type=click.FloatRange(min=0), default=WORKER_WAIT,
+              show_default=True, metavar="SECONDS",
+              help="With --scheduler: how long to wait while no Dask worker is connected "
+                   "before stopping (finished chunks are kept: run again to resume); "
+                   "0: wait indefinitely.")
+def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, chunk_size,
+         worker_wait):
     """Solve every boring of SITE.toml; write NetCDF, GeoPackage, GeoJSON, CSV and a map.
 
     An interrupted run continues where it stopped when started again with the same
@@ -81,7 +88,7 @@ def site(site_file, out_dir, realizations, seed, sampling, scheduler, workers, c
             files = run_site(loaded, out_dir, realizations=realizations, seed=seed,
                              sampling=sampling, workers=workers, scheduler=scheduler,
                              chunk_size=chunk_size, progress=bar.update,
-                             history=shlex.join(command))
+                             history=shlex.join(command), worker_wait=worker_wait)
     except (ValueError, OSError) as exc:
         fail(exc)
     if files.chunks_damaged:

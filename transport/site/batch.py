@@ -6,12 +6,22 @@ bounds and the Monte Carlo draws), in this process (``workers=1``), in a local p
 pool (:class:`concurrent.futures.ProcessPoolExecutor`, the default) or on a
 ``dask.distributed`` cluster (``scheduler=ADDRESS``): the same function and inputs, so
 the three give identical numbers. :func:`solve_site` gathers the chunks in memory;
-:func:`transport.site.run.run_site` writes them to files as they finish.
+:func:`transport.site.run.run_site` writes them to files as they finish, from results
+packed by the workers (:func:`transport.site.chunks.solve_packed`: the bytes of the
+chunk file and their checksum, so the writing process only stores them).
+
+A cluster task carries only its own borings (:func:`chunk_site`) and the Monte Carlo
+draws (scattered once instead when they are large), so a worker that joins or replaces
+a lost one needs nothing but the task. A lost worker's chunks are run again by the
+scheduler; a chunk that keeps killing its workers, a cluster left without workers for
+``worker_wait`` seconds or a scheduler that goes away end the run with one
+:class:`ClusterError` (finished chunks are kept for the next run).
 """
 from __future__ import annotations
 
 import contextlib
 import ctypes
+import dataclasses
 import logging
 import os
 import select
@@ -21,16 +31,25 @@ import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, CancelledError, ProcessPoolExecutor
 from concurrent.futures import wait as futures_wait
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
 import numpy as np
 
-from transport.site.chunks import MC_KEYS, METRIC_KEYS, draw_samples, solve_chunk
+from transport.site.chunks import (MC_KEYS, METRIC_KEYS, draw_samples, solve_chunk,
+                                   solve_packed)
 
-__all__ = ["DEFAULT_CHUNK", "SCHEDULER_TIMEOUT", "plan_chunks", "iter_chunks", "solve_site",
-           "SiteResult", "ClusterError"]
+__all__ = ["DEFAULT_CHUNK", "SCHEDULER_TIMEOUT", "WORKER_WAIT", "plan_chunks", "chunk_site",
+           "iter_chunks", "solve_site", "SiteResult", "ClusterError"]
 
 DEFAULT_CHUNK = 16
+#: Seconds a Dask run waits while no worker is connected (all lost, or none started
+#: yet) before it stops with ClusterError; 0 or None: wait indefinitely.
+WORKER_WAIT = 300
+#: Monte Carlo draws up to this size travel with every cluster task; larger ones are
+#: scattered to the workers once.
+INLINE_SAMPLES = 8 * 2 ** 20
+_POLL = 2.0  # s between checks of a cluster's workers while waiting for chunks
 
 
 def plan_chunks(n: int, size: int = DEFAULT_CHUNK) -> list:
@@ -83,35 +102,53 @@ def _init_worker(site, samples, parent=None):
     threading.Thread(target=watch, daemon=True, name="stratiflux-parent-watch").start()
 
 
-def _pool_chunk(start, stop):
-    return solve_chunk(_WORKER["site"], start, stop, _WORKER["samples"])
+def _pool_chunk(start, stop, packed=False):
+    solve = solve_packed if packed else solve_chunk
+    return solve(_WORKER["site"], start, stop, _WORKER["samples"])
+
+
+def chunk_site(site, start: int, stop: int):
+    """``site`` with only the borings ``start:stop``: all one chunk's task needs (the
+    common grid, times and settings are the site's own fields)."""
+    return dataclasses.replace(site, borings=tuple(site.borings[start:stop]))
 
 
 def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
-                scheduler: str | None = None):
+                scheduler: str | None = None, packed: bool = False,
+                worker_wait: float | None = WORKER_WAIT):
     """Yield (index into ``chunks``, result of :func:`solve_chunk`) as chunks finish.
 
     ``scheduler``: a dask.distributed scheduler address (``tcp://host:8786``, or an
     in-process LocalCluster's address); else ``workers`` local processes (default: CPU
-    count; 1 runs in this process).
+    count; 1 runs in this process). ``packed``: yield the
+    :class:`~transport.site.chunks.PackedChunk` made by the worker instead.
+    ``worker_wait``: seconds a cluster run waits while no worker is connected.
     """
     if not chunks:
         return
+    solve = solve_packed if packed else solve_chunk
     window = max(2, 2 * (workers or os.cpu_count() or 1))
     if scheduler is not None:
-        yield from _on_cluster(site, chunks, samples, scheduler, window)
+        yield from _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait)
         return
     workers = workers or os.cpu_count() or 1
     if workers == 1 or len(chunks) == 1:
         for i, (a, b) in enumerate(chunks):
-            yield i, solve_chunk(site, a, b, samples)
+            yield i, solve(site, a, b, samples)
         return
-    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), initializer=_init_worker,
-                             initargs=(site, samples, os.getpid())) as pool:
-        yield from _windowed(lambda a, b: pool.submit(_pool_chunk, a, b), chunks, window,
-                             lambda pending: futures_wait(pending,
-                                                          return_when=FIRST_COMPLETED).done,
-                             lambda fut: fut.result())
+    try:
+        with ProcessPoolExecutor(max_workers=min(workers, len(chunks)),
+                                 initializer=_init_worker,
+                                 initargs=(site, samples, os.getpid())) as pool:
+            yield from _windowed(
+                lambda a, b: pool.submit(_pool_chunk, a, b, packed), chunks, window,
+                lambda pending: futures_wait(pending, return_when=FIRST_COMPLETED).done,
+                lambda fut: fut.result())
+    except BrokenProcessPool:
+        raise ClusterError(
+            "a local worker process died while solving (killed, or out of memory); "
+            "chunks already finished are kept: run the same command again to resume, "
+            "with fewer --workers or a smaller --chunk-size if memory is short") from None
 
 
 #: Seconds to reach a Dask scheduler before the run is refused.
@@ -119,8 +156,8 @@ SCHEDULER_TIMEOUT = 10
 
 
 class ClusterError(ValueError):
-    """The Dask cluster cannot be reached or stopped answering (one paragraph, with the
-    address and the fix)."""
+    """The Dask cluster cannot be reached, stopped answering or lost its workers, or a
+    local worker process died (one paragraph, with the address and the fix)."""
 
 
 def _cluster_failure(scheduler, exc, started):
@@ -139,11 +176,14 @@ def _cluster_failure(scheduler, exc, started):
     return ClusterError(f"{what} {scheduler!r} ({reason}); {fix}.")
 
 
-def _on_cluster(site, chunks, samples, scheduler, window):
+def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
     """The chunks on a dask.distributed cluster; a scheduler that cannot be reached, or
     that speaks another protocol, or dies during the run becomes one ClusterError
-    (within SCHEDULER_TIMEOUT seconds), never a traceback or a hang."""
-    from distributed import Client, wait  # optional and slow to import: only for a cluster
+    (within SCHEDULER_TIMEOUT seconds), never a traceback or a hang; so do a chunk that
+    killed its workers (``distributed.KilledWorker``) and a cluster left without any
+    worker for ``worker_wait`` seconds."""
+    # optional and slow to import: only for a cluster
+    from distributed import Client, KilledWorker, wait
 
     started = False
     # the client logs its own tracebacks when the scheduler goes away; the run reports
@@ -165,17 +205,56 @@ def _on_cluster(site, chunks, samples, scheduler, window):
     try:
         with client:
             started = True
-            site_f, samples_f = client.scatter([site, samples], broadcast=True)
+            draws = samples
+            if samples is not None and samples.nbytes > INLINE_SAMPLES:
+                draws = client.scatter(samples, broadcast=True)
             window = max(window, 2 * max(1, sum(client.nthreads().values())))
+            watch = _WorkerWatch(client, wait, scheduler, worker_wait)
             yield from _windowed(
-                lambda a, b: client.submit(solve_chunk, site_f, a, b, samples_f, pure=False),
-                chunks, window,
-                lambda pending: wait(pending, return_when="FIRST_COMPLETED").done,
+                lambda a, b: client.submit(solve, chunk_site(site, a, b), 0, b - a, draws,
+                                           pure=False),
+                chunks, window, watch.done,
                 lambda fut: (fut.result(), fut.release())[0])
+    except KilledWorker as exc:
+        raise ClusterError(
+            f"a chunk of the run stopped every Dask worker that ran it at {scheduler!r} "
+            f"({str(exc).strip().splitlines()[0] if str(exc).strip() else 'KilledWorker'}): "
+            "a worker process died while solving it (out of memory, or killed); chunks "
+            "already finished are kept: run the same command again to resume, with more "
+            "memory per worker or a smaller --chunk-size") from None
     except (OSError, MemoryError, CancelledError) as exc:
         raise _cluster_failure(scheduler, exc, started) from None
     finally:
         restore()
+
+
+class _WorkerWatch:
+    """Waits for the first of the pending futures, checking every _POLL seconds that
+    the cluster still has a worker; none for ``limit`` seconds raises ClusterError."""
+
+    def __init__(self, client, wait, scheduler, limit):
+        self.client, self.wait, self.scheduler = client, wait, scheduler
+        self.limit = limit if limit and limit > 0 else None
+        self.alone_since = None
+
+    def done(self, pending):
+        while True:
+            try:
+                return self.wait(pending, timeout=_POLL, return_when="FIRST_COMPLETED").done
+            except TimeoutError:
+                pass
+            if self.client.nthreads():
+                self.alone_since = None
+                continue
+            now = time.monotonic()
+            self.alone_since = self.alone_since or now
+            if self.limit is not None and now - self.alone_since >= self.limit:
+                raise ClusterError(
+                    f"no Dask worker has been connected to the scheduler at "
+                    f"{self.scheduler!r} for {self.limit:g} s (workers lost, or none "
+                    "started); chunks already finished are kept: start workers (`dask "
+                    "worker ADDRESS`) and run the same command again to resume, or run "
+                    "it without --scheduler to use local worker processes") from None
 
 
 def _windowed(submit, chunks, window, wait_done, result):
@@ -214,12 +293,12 @@ class SiteResult:
 def solve_site(site, *, realizations: int | None = None, seed: int | None = None,
                sampling: str | None = None, workers: int | None = None,
                scheduler: str | None = None, chunk_size: int = DEFAULT_CHUNK,
-               progress=None) -> SiteResult:
+               progress=None, worker_wait: float | None = WORKER_WAIT) -> SiteResult:
     """Solve all borings in memory (for files, see :func:`transport.site.run.run_site`).
 
     ``realizations``/``seed``/``sampling`` default to the site file's [uncertainty];
     0 realizations: deterministic only. ``progress(n_done_borings)`` is called as
-    chunks finish.
+    chunks finish. ``worker_wait``: see :func:`iter_chunks`.
     """
     n_real = site.realizations if realizations is None else int(realizations)
     seed = site.seed if seed is None else seed
@@ -236,7 +315,8 @@ def solve_site(site, *, realizations: int | None = None, seed: int | None = None
     keys = METRIC_KEYS + (MC_KEYS if samples is not None else ())
     metrics = {k: np.full(len(site.borings), np.nan) for k in keys}
     notes = []
-    for i, res in iter_chunks(site, chunks, samples, workers=workers, scheduler=scheduler):
+    for i, res in iter_chunks(site, chunks, samples, workers=workers, scheduler=scheduler,
+                              worker_wait=worker_wait):
         a, b = chunks[i]
         for k in fields:
             fields[k][a:b] = res[k]

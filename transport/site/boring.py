@@ -16,6 +16,7 @@ realizations need only the receptor curve (:func:`realization_metrics`).
 """
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 
@@ -27,8 +28,8 @@ from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_tren
 from transport.model.column import InitialState
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
-                                      concentration_bounds, describe_refusal, own_errors,
-                                      quantities)
+                                      clip_to_bounds, concentration_bounds,
+                                      describe_refusal, own_errors, quantities)
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
@@ -48,8 +49,13 @@ MAX_MODES = 4000  # the mode cap of transport.solvers.modal.series.solve
 TIME_RTOL = 1e-10  # Brent tolerance on time, relative
 
 
+@functools.lru_cache(maxsize=64)
 def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
-    return np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
+    """The scan samples of a window, made once per window (every realization of a run
+    scans the same ones); read-only."""
+    t = np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
+    t.setflags(write=False)
+    return t
 
 
 # ------------------------------------------------------------------------ series
@@ -303,7 +309,9 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     """The modal fields of a boring vouched for by the Laplace engine (as
     :func:`transport.solvers.engines.solve_column`): per output time the modal values where the
     two agree within the tolerance for C and the cumulative mass, else the Laplace
-    values; a time neither can vouch for refuses the boring.  Returns the fields and
+    values, moved onto the physical bounds where they lie outside them within their
+    error bound (:func:`transport.solvers.checks.clip_to_bounds`, as solve_column does);
+    a time neither can vouch for refuses the boring.  Returns the fields and
     the receptor curve C(t) the metrics are read from (modal only where every output
     time from the first positive one on was served by it)."""
     tol = site.tolerance
@@ -329,6 +337,9 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
             t_all[~choice.reliable])
     modal = choice.engine == "modal"
     conc = np.where(modal[:-1, None], conc, lq["concentration"][:-1])
+    # as solve_column: values outside the physical bounds by no more than their error
+    # bound (rounding-level negatives of a clean column) are moved onto the bounds
+    conc = clip_to_bounds(col, bounds, z, conc, choice.error["concentration"][:-1])
     cum = np.where(modal[:, None], cum, lq["cumulative_mass"])
     if modal[:-1][times > 0].all():
         return conc, cum, modal_at

@@ -14,7 +14,10 @@ per process.
 """
 from __future__ import annotations
 
+import hashlib
+import io
 from collections import OrderedDict
+from dataclasses import dataclass
 
 import numpy as np
 from threadpoolctl import threadpool_limits
@@ -25,7 +28,7 @@ from transport.site.columns import boring_column, check_draws, material_layers
 from transport.site.uncertainty import sample_matrix
 
 __all__ = ["QUANTILES", "METRIC_KEYS", "MC_KEYS", "draw_samples", "clear_caches",
-           "solve_chunk"]
+           "solve_chunk", "PackedChunk", "pack_result", "unpack_result", "solve_packed"]
 
 FIELD_CACHE_SIZE = 128  # columns whose fields are kept (each nt x nz x 2 floats: 17 MB
 #                        at 100 times x 84 depths)
@@ -93,11 +96,39 @@ _FIELDS_CACHE = _Cache(FIELD_CACHE_SIZE)
 _METRICS_CACHE = _Cache(METRIC_CACHE_SIZE)
 
 
+_DRAWN = {"key": None, "layers": None}  # the last sample matrix's material layers
+
+
 def clear_caches():
     """Forget the columns solved so far in this process (and in local worker processes
     forked from it later); for benchmarks that must not reuse an earlier run."""
     _FIELDS_CACHE.bind(None)
     _METRICS_CACHE.bind(None)
+    _DRAWN.update(key=None, layers=None)
+
+
+def _drawn_layers(site, samples) -> list:
+    """[(material layers, Darcy flux)] of every realization: derived once per process
+    for a site and sample matrix (every chunk of a run shares them), not once per chunk.
+    A draw the materials cannot take raises ScenarioError naming the realization."""
+    if samples is None:
+        return []
+    samples = np.ascontiguousarray(samples, dtype=float)
+    key = (site.fingerprint, site.path, samples.shape,
+           hashlib.sha256(samples.tobytes()).hexdigest())
+    if _DRAWN["key"] == key:
+        return _DRAWN["layers"]
+    names = [d.parameter for d in site.distributions]
+    drawn = []
+    for j, draw in enumerate(samples):
+        try:
+            drawn.append(material_layers(site, dict(zip(names, draw))))
+        except ScenarioError as exc:
+            raise ScenarioError(exc.file, f"realization {j + 1}: {exc.key}",
+                                problem=exc.problem, fix="bound the distribution "
+                                "(lower/upper) so that draws stay valid") from None
+    _DRAWN.update(key=key, layers=drawn)
+    return drawn
 
 
 def _one_blas_thread():
@@ -135,17 +166,8 @@ def _solve_chunk(site, start, stop, samples):
     if samples is not None:
         out.update({k: np.full(n, np.nan) for k in MC_KEYS})
     notes = []
-    names = [d.parameter for d in site.distributions]
     layers, q = material_layers(site)
-    drawn = []
-    if samples is not None:
-        for j, draw in enumerate(samples):
-            try:
-                drawn.append(material_layers(site, dict(zip(names, draw))))
-            except ScenarioError as exc:
-                raise ScenarioError(exc.file, f"realization {j + 1}: {exc.key}",
-                                    problem=exc.problem, fix="bound the distribution "
-                                    "(lower/upper) so that draws stay valid") from None
+    drawn = _drawn_layers(site, samples)
     for k, boring in enumerate(site.borings[start:stop]):
         col = boring_column(site, boring, layers, q)
         initial = boring.initial_state
@@ -183,4 +205,41 @@ def _solve_chunk(site, start, stop, samples):
     out["warnings"] = notes
     return out
 
+
+# ------------------------------------------------------------------ packed results
+@dataclass(frozen=True)
+class PackedChunk:
+    """A solved chunk as the bytes of its resumable chunk file (an uncompressed ``.npz``
+    of the arrays of :func:`solve_chunk`, warnings as ``id<TAB>message`` strings) and
+    their SHA-256: made by the worker, so the process that writes the outputs only
+    stores the bytes and reads the arrays back (:func:`unpack_result`)."""
+
+    data: bytes
+    sha256: str
+    stations: int
+
+
+def pack_result(result: dict) -> PackedChunk:
+    """The :class:`PackedChunk` of a :func:`solve_chunk` result."""
+    arrays = {k: v for k, v in result.items() if k != "warnings"}
+    arrays["warnings"] = np.array(["\t".join(w) for w in result["warnings"]], dtype=str)
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays)
+    data = buffer.getvalue()
+    return PackedChunk(data, hashlib.sha256(data).hexdigest(),
+                       int(np.shape(result["breakthrough_time"])[0]))
+
+
+def unpack_result(data) -> dict:
+    """The arrays and warnings ([(boring id, message)]) of packed chunk bytes, or of a
+    path to a chunk file."""
+    with np.load(io.BytesIO(data) if isinstance(data, bytes) else data) as npz:
+        out = {k: npz[k] for k in npz.files if k != "warnings"}
+        out["warnings"] = [tuple(w.split("\t", 1)) for w in npz["warnings"]]
+    return out
+
+
+def solve_packed(site, start: int, stop: int, samples=None) -> PackedChunk:
+    """:func:`solve_chunk`, packed by :func:`pack_result` in the process that solved it."""
+    return pack_result(solve_chunk(site, start, stop, samples))
 

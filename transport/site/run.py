@@ -13,6 +13,13 @@ it, and only then are all five renamed into place together
 (:class:`transport.io.atomic.OutputSet`), so a failure at any step leaves the previous
 outputs as they were. The sidecar and the chunk folder are removed after success.
 Temporary files of a killed earlier run of the same outputs are removed on the way.
+
+The workers hand over each chunk already packed as the bytes of its chunk file with
+their checksum (:class:`transport.site.chunks.PackedChunk`): this process stores the
+bytes and reads the arrays back, and writes the NetCDF file in blocks of consecutive
+chunks (at most BLOCK_BYTES of fields, or what arrived within BLOCK_SECONDS), with one
+flush and one sidecar update per block; the sidecar is also written when the run is
+interrupted (a SIGKILL loses at most the last BLOCK_SECONDS of chunks, computed again).
 """
 from __future__ import annotations
 
@@ -21,6 +28,7 @@ import hashlib
 import json
 import re
 import shutil
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -30,10 +38,16 @@ from transport.io.atomic import STARTED, OutputSet, atomic_write, clean_stale, p
 from transport.io.gis import station_table, write_geojson, write_geopackage, write_metrics_csv
 from transport.io.netcdf import package_version
 from transport.io.site_netcdf import SiteNetCDFWriter
-from transport.site.batch import DEFAULT_CHUNK, iter_chunks, plan_chunks
-from transport.site.chunks import draw_samples
+from transport.site.batch import DEFAULT_CHUNK, WORKER_WAIT, iter_chunks, plan_chunks
+from transport.site.chunks import draw_samples, unpack_result
 
-__all__ = ["run_site", "SiteRunFiles"]
+__all__ = ["run_site", "SiteRunFiles", "BLOCK_BYTES", "BLOCK_SECONDS"]
+
+#: Fields (bytes) of finished chunks held before they are written into the NetCDF file
+#: as one block, and the longest time a finished chunk waits for its block (s).
+BLOCK_BYTES = 32 * 2 ** 20
+BLOCK_SECONDS = 2.0
+_FIELDS = ("concentration", "cumulative_mass")
 
 
 @dataclass(frozen=True)
@@ -77,25 +91,65 @@ def _sha256(path) -> str:
     return digest.hexdigest()
 
 
-def _save_chunk(folder: Path, index: int, result: dict) -> str:
-    """Save one finished chunk atomically; returns the SHA-256 of the file."""
-    arrays = {k: v for k, v in result.items() if k != "warnings"}
-    arrays["warnings"] = np.array(["\t".join(w) for w in result["warnings"]], dtype=str)
-    digest = {}
-
+def _store_chunk(folder: Path, index: int, packed) -> str:
+    """Store one finished chunk (its packed bytes) atomically; returns their SHA-256."""
     def write(tmp):
         with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
-        digest["sha256"] = _sha256(tmp)
+            fh.write(packed.data)
     atomic_write(_chunk_path(folder, index), write)
-    return digest["sha256"]
+    return packed.sha256
 
 
 def _load_chunk(folder: Path, index: int) -> dict:
-    with np.load(_chunk_path(folder, index)) as data:
-        out = {k: data[k] for k in data.files if k != "warnings"}
-        out["warnings"] = [tuple(w.split("\t", 1)) for w in data["warnings"]]
-    return out
+    return unpack_result(_chunk_path(folder, index))
+
+
+def _runs(held: dict):
+    """(start, result) of each run of consecutive stations among the held chunk
+    results {start: result}, arrays concatenated along the station axis."""
+    run, end = [], None
+    for start in sorted(held):
+        if run and start != end:
+            yield _joined(run)
+            run = []
+        run.append((start, held[start]))
+        end = start + len(held[start]["breakthrough_time"])
+    if run:
+        yield _joined(run)
+
+
+def _joined(run):
+    if len(run) == 1:
+        return run[0]
+    parts = [r for _, r in run]
+    return run[0][0], {k: np.concatenate([p[k] for p in parts]) for k in parts[0]
+                       if k != "warnings"}
+
+
+class _Blocks:
+    """Finished chunks gathered for the NetCDF ``writer`` and written as blocks of
+    consecutive stations, with one flush and ``on_flush()`` (the sidecar) per block:
+    when BLOCK_BYTES of fields are held, BLOCK_SECONDS after the block's first chunk,
+    and at :meth:`flush`. Memory stays at one block."""
+
+    def __init__(self, writer, on_flush):
+        self.writer, self.on_flush = writer, on_flush
+        self.held, self.size, self.since = {}, 0, None
+
+    def add(self, start: int, result: dict):
+        self.held[start] = result
+        self.size += sum(np.asarray(result[k]).nbytes for k in _FIELDS)
+        self.since = self.since or time.monotonic()
+        if self.size >= BLOCK_BYTES or time.monotonic() - self.since >= BLOCK_SECONDS:
+            self.flush()
+
+    def flush(self):
+        if self.held:
+            for start, block in _runs(self.held):
+                self.writer.write_chunk(start, block)
+            self.writer.flush()
+        self.held, self.size, self.since = {}, 0, None
+        self.on_flush()
 
 
 def _chunk_intact(folder: Path, index: int, sha256: str | None, n_stations: int) -> bool:
@@ -163,7 +217,7 @@ def _clean_legacy_outputs(out: Path, stem: str):
 
 def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, workers=None,
              scheduler=None, chunk_size=DEFAULT_CHUNK, progress=None, history=None,
-             stem=None) -> SiteRunFiles:
+             stem=None, worker_wait=WORKER_WAIT) -> SiteRunFiles:
     """Solve ``site`` and write all outputs into ``out_dir`` (created if needed).
 
     Parameters
@@ -175,6 +229,8 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
     progress : callable(n_borings_done), e.g. a click progress bar's ``update``
     history : command line stored in the NetCDF ``history``
     stem : output file stem (default: the site file's stem)
+    worker_wait : seconds a cluster run waits while no Dask worker is connected before
+        it stops (finished chunks kept); 0 or None: indefinitely
     """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -235,27 +291,38 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
     # every output is produced under a temporary name and all five are renamed together
     # at the end of the block: a failure at any step leaves the previous files as they were
     with OutputSet() as stage:
-        # the NetCDF file (a temporary until complete) takes each chunk as it arrives, so
-        # its compression overlaps the solving; the .npz copies are what a resumed run
-        # reuses, each vouched for by its checksum in the sidecar
+        # the NetCDF file (a temporary until complete) takes the chunks in blocks as they
+        # arrive, so its compression overlaps the solving; the .npz copies are what a
+        # resumed run reuses, each vouched for by its checksum in the sidecar
         with SiteNetCDFWriter(nc_path, site, monte_carlo=mc_info, history=history,
                               stage=stage) as writer:
+            vouched = dict(state)
+
+            def vouch():  # the sidecar lists a chunk only after its file is complete
+                if vouched["done"] != sorted(done):
+                    state["done"] = sorted(done)
+                    _write_json(sidecar, state)
+                    vouched.update(state)
+            blocks = _Blocks(writer, vouch)
             for index in sorted(done):
                 result = _load_chunk(folder, index)
-                writer.write_chunk(chunks[index][0], result)
+                blocks.add(chunks[index][0], result)
                 notes[index] = result["warnings"]
-            for j, result in iter_chunks(site, [chunks[i] for i in todo], samples,
-                                         workers=workers, scheduler=scheduler):
-                index = todo[j]
-                checksums[str(index)] = _save_chunk(folder, index, result)
-                done.add(index)
-                state["done"] = sorted(done)
-                _write_json(sidecar, state)  # after the chunk file is complete
-                writer.write_chunk(chunks[index][0], result)
-                writer.flush()
-                notes[index] = result["warnings"]
-                if progress:
-                    progress(chunks[index][1] - chunks[index][0])
+            try:
+                for j, packed in iter_chunks(site, [chunks[i] for i in todo], samples,
+                                             workers=workers, scheduler=scheduler,
+                                             packed=True, worker_wait=worker_wait):
+                    index = todo[j]
+                    checksums[str(index)] = _store_chunk(folder, index, packed)
+                    done.add(index)
+                    result = unpack_result(packed.data)
+                    notes[index] = result["warnings"]
+                    blocks.add(chunks[index][0], result)
+                    if progress:
+                        progress(chunks[index][1] - chunks[index][0])
+                blocks.flush()
+            finally:
+                vouch()  # also when interrupted: the next run reuses every stored chunk
         table = station_table(writer.tmp)
         write_geopackage(table, paths["geopackage"], stage=stage)
         write_geojson(table, paths["geojson"], stage=stage)

@@ -1,0 +1,377 @@
+"""One boring's column solved and checked: fields on the site grid and receptor metrics.
+
+The column is built from SI floats (:mod:`transport.site.columns`) and its modal
+series built once (:func:`site_series`: :func:`transport.solvers.modal.series.build_series`
+without the quadrature a clean column does not need). Concentration and cumulative mass
+are evaluated only on the written grid, in one pass with the receptor depth (depth
+functions evaluated once), giving the numbers of :func:`transport.solvers.modal.series.solve`
+on the same column, and vouched for by the Laplace engine (:func:`checked_fields`). At the
+receptor depth: the first crossing of the screening level within the design life
+(Brent's method on the continuous series after a bracketing scan; Brent 1973,
+*Algorithms for Minimization without Derivatives*, ch. 4), the peak concentration and
+its time (bounded Brent minimisation around the best scan sample), and the cumulative
+mass per unit area through the receptor depth at the end of the design life (closed form
+in time, :meth:`transport.solvers.modal.series.ModalSeries.cumulative_mass`). Monte Carlo
+realizations need only the receptor curve (:func:`realization_metrics`).
+"""
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+from scipy.optimize import brentq, minimize_scalar
+
+from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_trend,
+                                        time_above)
+from transport.model.column import InitialState
+from transport.units import YEAR
+from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
+                                      concentration_bounds, describe_refusal, own_errors,
+                                      quantities)
+from transport.solvers.laplace import solve_laplace
+from transport.solvers.modal.projection import initial_profile
+from transport.solvers.modal.series import (AccuracyWarning, build_series,
+                                            earliest_time_after_change)
+
+__all__ = ["SCAN_SAMPLES", "MAX_MODES", "TIME_RTOL", "site_series", "receptor_metrics",
+           "curve_metrics", "solve_boring", "window_views", "views_metrics", "checked_fields",
+           "verified_metrics", "realization_metrics"]
+
+#: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
+#: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
+#: and SCAN_SAMPLES // 2 log-spaced; 128 gives 0.4 yr steps over a 50 yr life, receptor
+#: curves of a metre-scale column vary over years). A spike narrower than
+#: the spacing can be missed (the series itself is continuous in time).
+SCAN_SAMPLES = 128
+MAX_MODES = 4000  # the mode cap of transport.solvers.modal.series.solve
+TIME_RTOL = 1e-10  # Brent tolerance on time, relative
+
+
+def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
+    return np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
+
+
+# ------------------------------------------------------------------------ series
+def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES,
+                initial=None):
+    """The :class:`~transport.solvers.modal.series.ModalSeries` of a boring's column: for a clean
+    column without the quadrature of the projections (zero) and of the layer masses (not
+    written for sites): ``build_series(..., masses=False)``; with a measured ``initial``
+    state its projections are computed as in a single-column run."""
+    return build_series(column, initial or InitialState.clean(), t_min, tolerance,
+                        max_modes, masses=False)
+
+
+class _Probe:
+    """Concentration and cumulative mass of a series at fixed depths, for any times,
+    with the depth functions evaluated once (the sums of
+    :meth:`ModalSeries.concentration` and :meth:`ModalSeries.cumulative_mass`)."""
+
+    def __init__(self, series, z, _parent=None):
+        self.series, self.z = series, np.atleast_1d(np.asarray(z, dtype=float))
+        if _parent is None:
+            self.c_modes, self.f_modes, self.c_lift, self.f_lift = series.fields(self.z)
+        self.clean = not np.any(series.proj0)
+        self._tail, self._parent = None, _parent
+
+    def rows(self, sel: slice):
+        """The probe at depths ``z[sel]`` only (the receptor row for the metrics, whose
+        root finding calls it many times), sharing the evaluated depth functions."""
+        sub = _Probe(self.series, self.z[sel], _parent=(self, sel))
+        sub.c_modes, sub.f_modes, sub.c_lift, sub.f_lift = (
+            m[sel] for m in (self.c_modes, self.f_modes, self.c_lift, self.f_lift))
+        return sub
+
+    def tail(self):
+        if self._tail is None:
+            if self._parent is not None:
+                probe, sel = self._parent
+                self._tail = {k: (v[sel] if k != "D" else v) for k, v in probe.tail().items()}
+            else:
+                self._tail = self.series.tail_corrections(self.z)
+        return self._tail
+
+    def coefficients(self, t):
+        return self.series.coefficients(t)
+
+    def concentration(self, t):
+        s = self.series
+        out = (self.c_modes @ self.coefficients(t) + self.c_lift @ s.signal_values(t)).T
+        drive = s.drive(t)
+        if np.any(drive):
+            out = out + (self.tail()["C"][:, 1:] @ drive).T
+        return out
+
+    def cumulative_mass(self, t):
+        s = self.series
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = (self.f_modes @ s.integrated_coefficients(t)
+               + self.f_lift @ s.signal_integrals(t)).T
+        out = out + s.integrated_correction(self.tail()["F"], t)
+        return np.where(t[:, None] == 0, 0.0, out)
+
+    def roundoff_bound(self, t, rows=slice(None)):
+        """:meth:`ModalSeries.roundoff_bound` at the probe's depths ``rows``, with the
+        depth functions already evaluated."""
+        return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
+
+
+def curve_metrics(conc, t_start, t_end, level, n_scan):
+    """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
+
+    Parameters
+    ----------
+    conc : callable
+        ``conc(times) -> array`` of concentrations (kg m-3) at the receptor.
+    t_start, t_end : float
+        The window, s.
+    level : float
+        Screening level, kg m-3.
+    n_scan : int
+        Uniform scan samples (plus half as many log-spaced) that bracket the
+        crossing and the peak before Brent's method polishes them.
+
+    Returns
+    -------
+    tuple of float
+    """
+    def one(s):
+        return float(conc(np.array([s]))[0])
+
+    t = _scan_times(t_start, t_end, n_scan)
+    c = conc(t)
+    above = np.flatnonzero(c >= level)
+    if above.size == 0:
+        t_cross = math.nan
+    elif above[0] == 0:
+        t_cross = float(t[0])
+    else:
+        i = int(above[0])
+        t_cross, info = brentq(lambda s: one(s) - level, t[i - 1], t[i], rtol=TIME_RTOL,
+                               full_output=True)
+        if not info.converged:  # pragma: no cover - a valid bracket always converges
+            raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
+    i = int(np.argmax(c))
+    t_peak, c_peak = float(t[i]), float(c[i])
+    if 0 < i < t.size - 1:
+        res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
+                              method="bounded", options={"xatol": TIME_RTOL * t_end})
+        if res.success and -res.fun > c_peak:
+            t_peak, c_peak = float(res.x), float(-res.fun)
+    return float(t_cross), t_peak, c_peak
+
+
+def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: float,
+                     n_scan: int = SCAN_SAMPLES, probe=None):
+    """(breakthrough time or NaN, peak time, peak concentration, cumulative mass).
+
+    Times in s, concentration kg m-3, mass kg m-2; the window is [t_start, t_end]
+    (earliest resolved output time to the end of the design life). A breakthrough equal
+    to ``t_start`` means the level is already reached at the earliest resolved time.
+    The crossing is polished by Brent's root finder and the peak by bounded Brent
+    minimisation to a relative time tolerance TIME_RTOL, both on the continuous series.
+    """
+    probe = probe or _Probe(series, [depth])
+    m = curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start, t_end, level, n_scan)
+    return m + (float(probe.cumulative_mass(np.array([t_end]))[0, 0]),)
+
+
+def solve_boring(site, col, depth, times, grid, initial=None):
+    """Fields on the grid (cut at the bottom), metrics and warnings of one column:
+    the numbers of :func:`transport.solvers.modal.series.solve` on the same column and depths.
+
+    Parameters
+    ----------
+    site : transport.site.config.Site
+        Screening level, design life and tolerance.
+    col : Column
+        The boring's column.
+    depth : float
+        Receptor depth, m.
+    times, grid : numpy.ndarray
+        Output times (s) and the site's common depth grid (m).
+    initial : InitialState, optional
+        Measured initial profile; default clean.
+
+    Returns
+    -------
+    tuple
+        (depths of the grid kept, concentration (time, depth), cumulative mass (time,
+        depth), metrics in the order of ``METRIC_KEYS``, warning texts).
+    """
+    initial = initial or InitialState.clean()
+    keep = grid <= col.length * (1 + 1e-12)
+    z = np.minimum(grid[keep], col.length)
+    t_end = site.design_life
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        t_min = earliest_time_after_change(col, times)
+        series = site_series(col, t_min, site.tolerance, initial=initial)
+        probe = _Probe(series, np.append(z, depth))
+        conc = probe.concentration(times)
+        cum = probe.cumulative_mass(np.append(times, t_end))
+        positive = times > 0
+        scale = max(float(np.max(np.abs(conc[:, :-1]))), 1e-300)
+        bound = probe.roundoff_bound(times[positive], slice(0, z.size))
+        if bound.max() > site.tolerance * scale:
+            bad_t = times[positive][np.any(bound > site.tolerance * scale, axis=1)]
+            warnings.warn(
+                f"rounding error of the modal series (up to {bound.max():.3g} kg/m3, the "
+                f"column Peclet number is about "
+                f"{2 * (series.op.A.max() - series.op.A.min()):.0f}) exceeds the tolerance "
+                f"at {bad_t.size} output time(s), the latest {bad_t.max() / YEAR:.4g} yr; "
+                "use later "
+                "output times or cross-check with another engine", AccuracyWarning)
+    conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
+    receptor = probe.rows(slice(-1, None))
+    conc, cum, conc_at = checked_fields(site, col, initial, times, np.append(z, depth), t_end,
+                                  conc, cum, lambda t: receptor.concentration(t)[:, 0])
+    t_start = float(times[positive].min())
+    conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
+    m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
+    metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
+    views = window_views(site, col, initial, depth, times, conc_at, m, cum)
+    return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
+            tuple(str(w.message) for w in caught))
+
+
+class _Remember:
+    """A curve C(t) that remembers the sample arrays it was asked for (the windows'
+    scans share their samples)."""
+
+    def __init__(self, conc):
+        self.conc, self.seen = conc, {}
+
+    def __call__(self, t):
+        t = np.atleast_1d(np.asarray(t, float))
+        key = t.tobytes()
+        if key not in self.seen:
+            self.seen[key] = np.asarray(self.conc(t), float)
+        return self.seen[key]
+
+
+def window_views(site, col, initial, depth, times, conc_at, design, cum):
+    """The receptor read over the design life and over the whole run (to the last output
+    time, or the design life if later) as
+    :class:`transport.analysis.metrics.ReceptorViews`: the design-life breakthrough and
+    peak ``design`` (from :func:`curve_metrics`), the time above the level
+    (:func:`transport.analysis.metrics.time_above`), the whole run's metrics, and
+    whether C still rises at each window's end
+    (:func:`transport.analysis.metrics.end_trend`, against twice the tolerance times the
+    scale of C). ``cum`` holds the cumulative mass at the output times and the design
+    life (last row), the receptor in the last column."""
+    curve = _Remember(conc_at)
+    level, tol = site.screening_level, site.tolerance
+    t_start = float(times[times > 0].min())
+    t_life = site.design_life
+    t_run = max(float(times.max()), t_life)
+    run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES)
+    mass_life = float(cum[-1, -1])
+    mass_run = mass_life if t_run == t_life else float(cum[times.size - 1, -1])
+    scale = concentration_bounds(col, initial, t_run).scale or max(abs(run[2]), 1e-300)
+    bound = tol * scale
+    out = []
+
+    def at(d, t):  # the receptor curve in the (depth, times) form of analysis.metrics
+        return curve(t)
+    for (bt, pk_t, pk), t_end, mass in ((design, t_life, mass_life),
+                                        (run, t_run, mass_run)):
+        above = time_above(at, depth, level, t_start, t_end, n=SCAN_SAMPLES)
+        trend = end_trend(at, depth, t_start, t_end, bound, SCAN_SAMPLES)
+        c_end = float(curve(np.array([t_end]))[0])
+        first = None if np.isnan(bt) else bt
+        out.append(ReceptorMetrics(depth, level, t_end, first, above, pk_t, pk, mass, None,
+                                   None, first is None, c_end, trend, bound))
+    return ReceptorViews(out[0], out[1])
+
+
+def views_metrics(views):
+    """The site metrics of :data:`transport.site.chunks.METRIC_KEYS` after the first
+    seven, from :func:`window_views`: time above the level over the design life, whether
+    the peak lies after it (1/0), the whole run's breakthrough (NaN: not reached), time
+    above, peak time and concentration, mass, whether its peak lies after its end (1/0),
+    and the end of the run (s)."""
+    d, w = views.design_life, views.whole_run
+    return (d.time_above_level, float(views.peak_after_design_life),
+            math.nan if w.first_exceedance is None else w.first_exceedance,
+            w.time_above_level, w.peak_time, w.peak_concentration, w.cumulative_mass,
+            float(w.peak_beyond_horizon), w.horizon)
+
+
+def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
+    """The modal fields of a boring vouched for by the Laplace engine (as
+    :func:`transport.solvers.engines.solve_column`): per output time the modal values where the
+    two agree within the tolerance for C and the cumulative mass, else the Laplace
+    values; a time neither can vouch for refuses the boring.  Returns the fields and
+    the receptor curve C(t) the metrics are read from (modal only where every output
+    time from the first positive one on was served by it)."""
+    tol = site.tolerance
+    t_all = np.append(times, t_end)
+    lap = solve_laplace(col, t_all, z, initial=initial)
+    lq = quantities(lap)
+    le = own_errors(lap)
+    # the last row of cum is the design life at every depth; C there is not asked for
+    mq = {"concentration": np.vstack([conc, lq["concentration"][-1:]]),
+          "total_flux": lq["total_flux"], "cumulative_mass": cum,
+          "budget": np.zeros((t_all.size, 0))}
+    nan = {q: np.full(t_all.size, np.nan) for q in QUANTITIES}
+    nan["total_flux"] = le["total_flux"]  # not a modal output here: taken from Laplace
+    nan["budget"] = np.zeros(t_all.size)
+    lq["budget"] = np.zeros((t_all.size, 0))
+    le = dict(le, budget=np.zeros(t_all.size))
+    bounds = concentration_bounds(col, initial, float(t_all.max()))
+    choice = choose(t_all, [("modal", mq, nan), ("laplace", lq, le)], tol, bounds, col, z)
+    if not choice.reliable.all():
+        raise UnreliableResultError(
+            f"boring column of {col.length:g} m: "
+            + describe_refusal(t_all, choice, tol, "modal and laplace"),
+            t_all[~choice.reliable])
+    modal = choice.engine == "modal"
+    conc = np.where(modal[:-1, None], conc, lq["concentration"][:-1])
+    cum = np.where(modal[:, None], cum, lq["cumulative_mass"])
+    if modal[:-1][times > 0].all():
+        return conc, cum, modal_at
+    depth = float(z[-1])
+
+    def laplace_at(t):
+        t = np.atleast_1d(np.asarray(t, float))
+        return solve_laplace(col, t, [depth], initial=initial).concentration[:, 0]
+    return conc, cum, laplace_at
+
+
+def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
+                     scale):
+    """Check a realization's breakthrough and peak against the Laplace engine; if the
+    modal curve is off there, read both metrics from the Laplace curve instead."""
+    probe_t = [t for t in (bt, pk_t) if np.isfinite(t) and t > 0]
+    if not probe_t:
+        return bt, pk
+    lap = solve_laplace(col, probe_t, [depth], initial=initial)
+    c, e = lap.concentration[:, 0], own_errors(lap)["concentration"]
+    want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
+    if np.all(np.abs(c - np.array(want)) <= tol * scale + e):
+        return bt, pk
+
+    def laplace_at(t):
+        return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial).concentration[:, 0]
+    bt2, _, pk2 = curve_metrics(laplace_at, t_start, t_end, level, SCAN_SAMPLES)
+    return bt2, pk2
+
+
+def realization_metrics(site, col, depth, t_start, times, initial=None):
+    """(breakthrough time, peak concentration) of one Monte Carlo column, warnings."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
+                             initial=initial)
+    probe = _Probe(series, [depth])
+    bt, pk_t, pk = curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
+                                  site.design_life, site.screening_level, SCAN_SAMPLES)
+    scale = concentration_bounds(col, initial, site.design_life).scale or max(abs(pk), 1e-300)
+    bt, pk = verified_metrics(col, initial or InitialState.clean(), depth, t_start,
+                              site.design_life, site.screening_level, site.tolerance, bt,
+                              pk_t, pk, scale)
+    return bt, pk, tuple(str(w.message) for w in caught)
+
+

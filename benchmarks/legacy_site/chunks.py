@@ -1,0 +1,186 @@
+"""A chunk of a site's borings solved in one process: caches, Monte Carlo draws and
+their summaries.
+
+A chunk of consecutive borings is solved by :func:`solve_chunk`, a pure function of
+the site, the chunk bounds and the Monte Carlo draws, so that this process, a local
+process pool and a Dask cluster (:mod:`transport.site.batch`) give identical numbers.
+Per boring the column is built from SI floats (:mod:`transport.site.columns`: material
+properties converted once, a Monte Carlo draw applied by arithmetic) and solved by
+:func:`transport.site.boring.solve_boring`; each realization's column gives its
+breakthrough time and peak (:func:`transport.site.boring.realization_metrics`),
+summarised as the exceedance probability and empirical quantiles. Borings with
+identical stacks are solved once per process (bounded caches); BLAS runs on one thread
+per process.
+"""
+from __future__ import annotations
+
+from collections import OrderedDict
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from transport.scenario.reader import ScenarioError
+from .boring import realization_metrics, solve_boring
+from transport.site.columns import boring_column, check_draws, material_layers
+from transport.site.uncertainty import sample_matrix
+
+__all__ = ["QUANTILES", "METRIC_KEYS", "MC_KEYS", "draw_samples", "clear_caches",
+           "solve_chunk"]
+
+FIELD_CACHE_SIZE = 128  # columns whose fields are kept (each nt x nz x 2 floats: 17 MB
+#                        at 100 times x 84 depths)
+METRIC_CACHE_SIZE = 100_000  # Monte Carlo columns whose two metrics are kept
+QUANTILES = (0.05, 0.5, 0.95)
+METRIC_KEYS = ("breakthrough_time", "peak_time", "peak_concentration", "receptor_mass",
+               "receptor_depth", "n_modes", "boring_depth",
+               # the design life and the whole run (transport.site.boring.views_metrics)
+               "time_above_level", "peak_after_design_life", "run_breakthrough_time",
+               "run_time_above_level", "run_peak_time", "run_peak_concentration",
+               "run_receptor_mass", "peak_after_run_end", "run_end")
+MC_KEYS = ("exceedance_probability", "breakthrough_time_p5", "breakthrough_time_p50",
+           "breakthrough_time_p95", "peak_concentration_p5", "peak_concentration_p50",
+           "peak_concentration_p95")
+
+
+
+def draw_samples(site, realizations: int, seed: int, sampling: str) -> np.ndarray:
+    """The (realizations, parameters) SI draws shared by all borings, each checked
+    against its key's allowed range (:func:`transport.site.columns.check_draws`)."""
+    samples = sample_matrix(site.distributions, realizations, seed, sampling)
+    check_draws(site, samples)
+    return samples
+
+
+def _quantiles(values: np.ndarray) -> np.ndarray:
+    """Empirical quantiles (inverted CDF, no interpolation: a quantile is a drawn value;
+    Hyndman and Fan 1996, Am. Stat. 50:361, definition 1). NaN (never) sorts as +inf."""
+    v = np.where(np.isnan(values), np.inf, values)
+    q = np.quantile(v, QUANTILES, method="inverted_cdf")
+    return np.where(np.isinf(q), np.nan, q)
+
+
+# ------------------------------------------------------------------------- caches
+class _Cache:
+    """Results of columns already solved in this process, keyed by the SI column and
+    the receptor depth (identical layer stacks are solved once); bounded (LRU) so that
+    memory stays flat, and cleared when the site settings change."""
+
+    def __init__(self, size):
+        self.size, self.key, self.data = size, None, OrderedDict()
+
+    def bind(self, key):
+        if key != self.key:
+            self.key, self.data = key, OrderedDict()
+
+    def get(self, key):
+        try:
+            value = self.data[key]
+        except (KeyError, TypeError):  # TypeError: unhashable (a schedule), no caching
+            return None
+        self.data.move_to_end(key)
+        return value
+
+    def put(self, key, value):
+        try:
+            self.data[key] = value
+        except TypeError:
+            return
+        while len(self.data) > self.size:
+            self.data.popitem(last=False)
+
+
+_FIELDS_CACHE = _Cache(FIELD_CACHE_SIZE)
+_METRICS_CACHE = _Cache(METRIC_CACHE_SIZE)
+
+
+def clear_caches():
+    """Forget the columns solved so far in this process (and in local worker processes
+    forked from it later); for benchmarks that must not reuse an earlier run."""
+    _FIELDS_CACHE.bind(None)
+    _METRICS_CACHE.bind(None)
+
+
+def _one_blas_thread():
+    """BLAS limited to one thread while a chunk is solved: the products are small
+    (modes x depths), and one thread per worker process keeps the cores from being
+    oversubscribed (measured: 2-3x faster with two workers on two cores)."""
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+def solve_chunk(site, start: int, stop: int, samples=None) -> dict:
+    """Solve borings ``start:stop`` of ``site``: fields on the common grid, metrics, and
+    with ``samples`` (realizations x parameters, SI) the Monte Carlo summaries.
+
+    Returns a dict of arrays with a leading station axis (see METRIC_KEYS, MC_KEYS,
+    ``concentration``/``cumulative_mass`` of shape (n, time, depth), NaN below a
+    boring's bottom) and ``warnings``: [(boring id, message)]. Columns are built from
+    SI floats (:mod:`transport.site.columns`); borings with the same layer stack and
+    receptor depth are solved once per process.
+    """
+    with _one_blas_thread():
+        return _solve_chunk(site, start, stop, samples)
+
+
+def _solve_chunk(site, start, stop, samples):
+    times = np.asarray(site.times, dtype=float)
+    grid = np.asarray(site.depths, dtype=float)
+    n, nt, nz = stop - start, times.size, grid.size
+    t_start = float(times[times > 0].min())
+    settings = (site.fingerprint, site.path)
+    _FIELDS_CACHE.bind(settings)
+    _METRICS_CACHE.bind(settings)
+    out = {"concentration": np.full((n, nt, nz), np.nan),
+           "cumulative_mass": np.full((n, nt, nz), np.nan)}
+    out.update({k: np.full(n, np.nan) for k in METRIC_KEYS})
+    if samples is not None:
+        out.update({k: np.full(n, np.nan) for k in MC_KEYS})
+    notes = []
+    names = [d.parameter for d in site.distributions]
+    layers, q = material_layers(site)
+    drawn = []
+    if samples is not None:
+        for j, draw in enumerate(samples):
+            try:
+                drawn.append(material_layers(site, dict(zip(names, draw))))
+            except ScenarioError as exc:
+                raise ScenarioError(exc.file, f"realization {j + 1}: {exc.key}",
+                                    problem=exc.problem, fix="bound the distribution "
+                                    "(lower/upper) so that draws stay valid") from None
+    for k, boring in enumerate(site.borings[start:stop]):
+        col = boring_column(site, boring, layers, q)
+        initial = boring.initial_state
+        key = (col, boring.receptor_depth, boring.initial)
+        found = _FIELDS_CACHE.get(key)
+        if found is None:
+            found = solve_boring(site, col, boring.receptor_depth, times, grid, initial)
+            _FIELDS_CACHE.put(key, found)
+        keep, conc, cum, metrics, msgs = found
+        notes += [(boring.id, m) for m in msgs]
+        out["concentration"][k][:, keep] = conc
+        out["cumulative_mass"][k][:, keep] = cum
+        for name, value in zip(METRIC_KEYS, metrics):
+            out[name][k] = value
+        if samples is None:
+            continue
+        bt = np.empty(len(samples))
+        pk = np.empty(len(samples))
+        for j, (layers_j, q_j) in enumerate(drawn):
+            col_j = boring_column(site, boring, layers_j, q_j)
+            key = (col_j, boring.receptor_depth, boring.initial)
+            found = _METRICS_CACHE.get(key)
+            if found is None:
+                found = realization_metrics(site, col_j, boring.receptor_depth, t_start,
+                                             times, initial)
+                _METRICS_CACHE.put(key, found)
+            bt[j], pk[j], msgs = found
+            notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]
+        out["exceedance_probability"][k] = float(np.mean(~np.isnan(bt)))
+        for name, value in zip(MC_KEYS[1:4], _quantiles(bt)):
+            out[name][k] = value
+        for name, value in zip(MC_KEYS[4:], np.quantile(pk, QUANTILES,
+                                                        method="inverted_cdf")):
+            out[name][k] = value
+    out["warnings"] = notes
+    return out
+
+
