@@ -207,16 +207,17 @@ def _solve_chunk(site, start, stop, samples):
 
 
 # ------------------------------------------------------------------ packed results
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class PackedChunk:
-    """A solved chunk as the bytes of its resumable chunk file (an uncompressed ``.npz``
-    of the arrays of :func:`solve_chunk`, warnings as ``id<TAB>message`` strings) and
-    their SHA-256: made by the worker, so the process that writes the outputs only
-    stores the bytes and reads the arrays back (:func:`unpack_result`)."""
+    """A solved chunk with the bytes of its resumable chunk file (an uncompressed
+    ``.npz`` of the arrays of :func:`solve_chunk`, warnings as ``id<TAB>message``
+    strings) and their SHA-256, made by the worker: the process that writes the outputs
+    stores the bytes as they are and writes ``result`` (the arrays) into the NetCDF
+    file, without serialising, hashing or parsing anything."""
 
     data: bytes
     sha256: str
-    stations: int
+    result: dict
 
 
 def pack_result(result: dict) -> PackedChunk:
@@ -226,8 +227,7 @@ def pack_result(result: dict) -> PackedChunk:
     buffer = io.BytesIO()
     np.savez(buffer, **arrays)
     data = buffer.getvalue()
-    return PackedChunk(data, hashlib.sha256(data).hexdigest(),
-                       int(np.shape(result["breakthrough_time"])[0]))
+    return PackedChunk(data, hashlib.sha256(data).hexdigest(), result)
 
 
 def unpack_result(data) -> dict:

@@ -14,9 +14,9 @@ it, and only then are all five renamed into place together
 outputs as they were. The sidecar and the chunk folder are removed after success.
 Temporary files of a killed earlier run of the same outputs are removed on the way.
 
-The workers hand over each chunk already packed as the bytes of its chunk file with
-their checksum (:class:`transport.site.chunks.PackedChunk`): this process stores the
-bytes and reads the arrays back, and writes the NetCDF file in blocks of consecutive
+The workers hand over each chunk with the bytes of its chunk file and their checksum
+already made (:class:`transport.site.chunks.PackedChunk`): this process stores the
+bytes as they are, and writes the NetCDF file in blocks of consecutive
 chunks (at most BLOCK_BYTES of fields, or what arrived within BLOCK_SECONDS), with one
 flush and one sidecar update per block; the sidecar is also written when the run is
 interrupted (a SIGKILL loses at most the last BLOCK_SECONDS of chunks, computed again).
@@ -315,7 +315,7 @@ def run_site(site, out_dir, *, realizations=None, seed=None, sampling=None, work
                     index = todo[j]
                     checksums[str(index)] = _store_chunk(folder, index, packed)
                     done.add(index)
-                    result = unpack_result(packed.data)
+                    result = packed.result
                     notes[index] = result["warnings"]
                     blocks.add(chunks[index][0], result)
                     if progress:
