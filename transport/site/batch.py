@@ -198,7 +198,10 @@ def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
     for log in logs:
         log.setLevel(logging.CRITICAL)
     try:
-        client = Client(scheduler, timeout=f"{SCHEDULER_TIMEOUT}s")
+        # not the process's default client: a client left behind by a failed connection
+        # would otherwise be picked up by every later dask or xarray call in the process
+        # (xarray's NetCDF writer asks for a distributed lock and times out)
+        client = Client(scheduler, timeout=f"{SCHEDULER_TIMEOUT}s", set_as_default=False)
     except (OSError, MemoryError, ValueError, TypeError) as exc:
         restore()
         raise _cluster_failure(scheduler, exc, started) from None
