@@ -206,7 +206,8 @@ def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
         restore()
         raise _cluster_failure(scheduler, exc, started) from None
     try:
-        with client:
+        # current only inside this block (distributed.wait asks for the current client)
+        with client, client.as_current():
             started = True
             draws = samples
             if samples is not None and samples.nbytes > INLINE_SAMPLES:
