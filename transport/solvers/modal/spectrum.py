@@ -37,6 +37,8 @@ from __future__ import annotations
 import numpy as np
 
 from transport.solvers.modal.operator import Operator, SpectrumError
+from transport.solvers.modal.transfer import (AngleScales, LayerTerms, chunks, end_remap,
+                                              increments, layer_integrals, shoot)
 
 __all__ = ["count_below", "eigenvalues"]
 
@@ -47,142 +49,121 @@ _ROOT_REL = 1e-11
 _NEAR = 1e-6  # |f_j| (rad) below which a small step means convergence
 _SEARCH_POINTS = 256  # target points per pass for modes that search their bracket
 _MAX_ROOT_ITER = 200
+# A Halley step below _QUAD_STEP of lambda whose estimated remaining error is below
+# _HALLEY_REL of it ends the iteration without another pass.
+_QUAD_STEP = 1e-3
+# Precision is relative to max(|lambda|, _SPAN_FLOOR x the diffusive scale of the
+# column): relative for every eigenvalue but one within 1e-6 of that scale from zero.
+_SPAN_FLOOR = 1e-6
+_HALLEY_REL = 1e-14
 # Grid points for the bracketing pass: n + _GRID_EXTRA.
 _GRID_EXTRA = 64
-# |w| l below this: series transfer in the fixed scale k/l (keeps d theta/d lambda finite).
-_SMALL_X = 1e-3
 
 
-def _bc_angle(c_v, c_p, scale, right: bool):
-    """Angle of the boundary direction (v, p) = (c_p, -c_v) in ``scale``."""
-    ang = np.mod(np.arctan2(scale * c_p, -c_v), np.pi)
-    if right:
-        ang = np.where(ang <= 0.0, np.pi, ang)
-    return ang
+def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True):
+    """Angle mismatch of the two shots at a matching face, its lambda derivative and
+    the face used.
 
+    Shooting from the top gives the Pruefer angle phi_L at every face, shooting from the
+    bottom the angle phi_R of the solution that meets the bottom condition, lifted so
+    that phi_L - phi_R - j pi has the sign of theta(L) - beta - j pi at every face (the
+    angle maps of the layers are increasing and commute with a shift by pi); so
+    ceil(G / pi) counts the eigenvalues below lambda.  The matching face (where
+    ``face`` is negative or None) is the one where the two shots are closest to
+    parallel (|v_L p_R - p_L v_R| / (|v_L p_R| + |p_L v_R|) least): near an eigenvalue,
+    a face where the mode is large, which neither shot reached through a region where
+    it is exponentially small, so a mode confined to a few layers gives a smooth
+    mismatch instead of the narrow jump of the end angle.  There the mismatch is
+    measured in the natural scale sigma = k |w| of the layer above, in which the angle
+    of a uniform layer grows exactly as |w|: its branch from the lifted angles, its value
+    from the two states directly (to rounding, whatever the size of the angles).  The
+    Wronskian identity p v_lambda - v p_lambda = int_0^z a v^2 (from the top; minus
+    int_z^L a v^2 from the bottom) gives d phi / d lambda = (sigma' v p +
+    sigma int a v^2) / ((sigma v)^2 + p^2) (Pryce 1993, ch. 2).  The angle change of
+    every layer is taken from the shot that reaches it before the face (one pass of the
+    angle maps for both shots).
 
-def _angle_pass(op: Operator, lam: np.ndarray, slope: bool):
-    """Pruefer angle theta(L) and right boundary angle beta in a common end scale, and
-    optionally d(theta - beta)/d lambda.
+    Without ``slopes`` (counting) the mismatch is measured in the scale that puts the
+    top shot at 45 degrees, where it is largest next to an eigenvalue.
 
-    Layer i is stepped in the scale S = k w (angle advances by x = w l) where
-    y = w^2 l^2 >= x0^2, in the fixed scale k/l with the scaled hyperbolic transfer where
-    y <= -x0^2, and in the scale k/l with the Taylor-series transfer
-    [[C, Sn], [-y Sn, C]] (C = cos sqrt(y), Sn = sin sqrt(y)/sqrt(y), entire in y) where
-    |y| < x0^2.  At a face the angle moves to the next scale inside its branch
-    [n pi, (n+1) pi): theta += atan2((rho - 1) sin cos, cos^2 + rho sin^2), rho = S'/S.
-    The slope is propagated by differentiating each of these closed-form maps (Pryce
-    1993, ch. 5, for the Pruefer angle derivative); the choice of scales leaves
-    theta - beta unchanged, it only keeps every map and its derivative bounded.
-    The lambdas are processed in increasing order so each branch is a contiguous slice.
+    Returns (G, dG, face), arrays of the size of lam (dG is NaN without ``slopes``).
     """
-    order = np.argsort(lam, kind="stable")
-    ls = lam[order]
-    n = ls.size
-    ks, ls_, a_, s_ = (op.k.tolist(), op.thickness.tolist(), op.a.tolist(), op.s.tolist())
-    x0sq = _SMALL_X * _SMALL_X
-    c_v, c_p, _ = op.v_condition("top")
-    S_prev = np.full(n, ks[0] / ls_[0])
-    theta = np.full(n, float(_bc_angle(c_v, c_p, ks[0] / ls_[0], right=False)))
-    dth = np.zeros(n) if slope else None
-    g_prev = np.zeros(n) if slope else None  # d log S_prev / d lambda
-    for i in range(op.n_layers):
-        k, l = ks[i], ls_[i]
-        kl = k / l
-        yl = a_[i] * l * l / k  # dy/dlambda
-        y = ls * yl - s_[i] * l * l / k
-        ih = int(np.searchsorted(y, -x0sq, side="left"))  # [:ih] hyperbolic, big x
-        it = int(np.searchsorted(y, x0sq, side="left"))  # [it:] trigonometric, big x
-        S = np.full(n, kl)
-        if it < n:
-            x_t = np.sqrt(y[it:])
-            S[it:] = kl * x_t
-        # move to the new scale inside the branch
-        rho = S / S_prev
-        sn, cs = np.sin(theta), np.cos(theta)
-        sc, ss = sn * cs, sn * sn
-        cc = cs * cs
-        theta += np.arctan2((rho - 1.0) * sc, cc + rho * ss)
-        if slope:
-            g = np.zeros(n)
-            if it < n:
-                g[it:] = 0.5 * yl / y[it:]
-            dth = rho * ((g - g_prev) * sc + dth) / (cc + rho * rho * ss)
-            g_prev = g
-        S_prev = S
-        if it < n:  # trigonometric, big x: exact advance
-            theta[it:] += x_t
-            if slope:
-                dth[it:] += 0.5 * yl / x_t
-        for lo_, hi_, hyper in ((0, ih, True), (ih, it, False)):
-            if hi_ <= lo_:
+    m = lam.size
+    G, dG, FACE = np.empty(m), np.empty(m), np.empty(m, dtype=np.int64)
+    face = np.full(m, -1) if face is None else np.asarray(face)
+    a = op.a[:, None]
+    rows = np.arange(op.n_layers)[:, None]
+    for sl in chunks(op.n_layers, m):
+        terms = LayerTerms(op, lam[sl], integrals=slopes)
+        VL, PL, LL = shoot(terms, +1)
+        VR, PR, LR = shoot(terms, -1)
+        sc = AngleScales(terms)
+        best = face[sl].copy()
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            free = np.flatnonzero(best < 0)
+            if free.size:
+                vl, pl, vr, pr = VL[:, free], PL[:, free], VR[:, free], PR[:, free]
+                c1, c2 = vl * pr, pl * vr
+                par = np.abs(c1 - c2)
+                par /= np.abs(c1) + np.abs(c2)
+                best[free] = np.argmin(np.where(np.isnan(par), 2.0, par), axis=0)
+            cols = np.arange(best.size)
+            vl, pl, vr, pr = VL[best, cols], PL[best, cols], VR[best, cols], PR[best, cols]
+            S = sc.S[best, cols]
+            # the natural scale sigma = k |w| of the layer above the face (below the top
+            # face), a smooth function of lambda, and its derivative
+            lay = np.maximum(best - 1, 0)
+            w2 = terms.w2[lay, cols]
+            nat = op.k[lay] * np.sqrt(np.abs(w2))
+            sig = np.where(nat > 0, nat, S)
+            if not slopes:
+                # the scale that puts the top shot at 45 degrees: the most sensitive one
+                bal = np.abs(pl / vl)
+                sig = np.where(np.isfinite(bal) & (bal > 0), bal, sig)
+            dsig = np.where(nat > 0, np.sign(w2) * op.k[lay] * op.a[lay], 0.0) / (2.0 * sig)
+            # every layer from the shot that reaches it before the face
+            left = rows < best
+            V = np.where(left, VL[:-1], VR[:-1])
+            P = np.where(left, PL[:-1], PR[:-1])
+            inc = increments(terms, sc, V, P, (~left, VR[1:], PR[1:]))
+            rho = sig / S
+            lifted = (sc.theta0 - sc.beta + end_remap(sc, VR[-1], PR[-1]) + inc.sum(axis=0)
+                      + _remap(S * vl, pl, rho) - _remap(S * vr, pr, rho))
+            delta = np.arctan2(sig * (vl * pr - pl * vr), sig * sig * vl * vr + pl * pr)
+            delta -= np.pi * np.round(delta / np.pi)
+            G[sl] = delta + np.pi * np.round((lifted - delta) / np.pi)
+            if not slopes:
+                dG[sl] = np.nan
+                FACE[sl] = best
                 continue
-            sl = slice(lo_, hi_)
-            X, Y = rho[sl] * sn[sl], cs[sl]  # direction in the new scale (not unit)
-            yy = y[sl]
-            if hyper:
-                x = np.sqrt(-yy)
-                th = np.tanh(x)
-                tc, h = th / x, x * th
-                X1, Y1 = X + tc * Y, h * X + Y
-                cross, dot = tc * Y * Y - h * X * X, X * X + Y * Y + (h + tc) * X * Y
-            else:
-                C = 1.0 + yy * (-0.5 + yy / 24.0)
-                Sn = 1.0 + yy * (-1.0 / 6.0 + yy / 120.0)
-                X1, Y1 = C * X + Sn * Y, C * Y - yy * Sn * X
-                cross = Sn * (Y * Y + yy * X * X)
-                dot = C * (X * X + Y * Y) + (1.0 - yy) * Sn * X * Y
-            if slope:
-                d = dth[sl]
-                if hyper:
-                    dx = -0.5 * yl / x
-                    sech2 = 1.0 - th * th
-                    dtc, dh = (sech2 - tc) / x * dx, (th + x * sech2) * dx
-                    dX1 = Y * d + dtc * Y - tc * X * d
-                    dY1 = dh * X + h * Y * d - X * d
-                else:
-                    dC, dS = -0.5 * Sn * yl, (-1.0 / 6.0 + yy / 60.0) * yl
-                    dX1 = dC * X + C * Y * d + dS * Y - Sn * X * d
-                    dY1 = -(yl * Sn + yy * dS) * X - yy * Sn * Y * d + dC * Y - C * X * d
-                dth[sl] = (Y1 * dX1 - X1 * dY1) / (X1 * X1 + Y1 * Y1)
-            theta[sl] += np.arctan2(cross, dot)
-    # common, lambda-continuous end scale
-    k, l = ks[-1], ls_[-1]
-    yl = a_[-1] * l * l / k
-    y = ls * yl - s_[-1] * l * l / k
-    final = (k / l) * np.sqrt(np.abs(y) + 1.0)
-    rho = final / S_prev
-    sn, cs = np.sin(theta), np.cos(theta)
-    sc, ss, cc = sn * cs, sn * sn, cs * cs
-    theta += np.arctan2((rho - 1.0) * sc, cc + rho * ss)
-    d_v, d_p, _ = op.v_condition("bottom")
-    beta = _bc_angle(d_v, d_p, final, right=True)
-    out = np.empty((3 if slope else 2, n))
-    out[0, order] = theta
-    out[1, order] = beta
-    if slope:
-        g = 0.5 * np.sign(y) * yl / (np.abs(y) + 1.0)
-        dth = rho * ((g - g_prev) * sc + dth) / (cc + rho * rho * ss)
-        dbeta = -d_v * d_p * final * g / (d_v * d_v + (final * d_p) ** 2)
-        out[2, order] = dth - dbeta
-    return out
+            # int a v^2 from each end to the face, in units of the state's size there
+            L = np.where(left, LL[:-1], LR[:-1])
+            I, lg = layer_integrals(terms, V, P, L, np.where(left, VL[1:], VR[1:]),
+                                    np.where(left, LL[1:], LR[1:]))
+            rl, rr = (sig * vl) ** 2 + pl * pl, (sig * vr) ** 2 + pr * pr
+            ref = np.where(left, 2.0 * LL[best, cols] + np.log(rl),
+                           2.0 * LR[best, cols] + np.log(rr))
+            lg -= ref
+            np.exp(lg, out=lg)
+            lg *= I
+            dG[sl] = (sig * (a * lg).sum(axis=0)
+                      + dsig * (vl * pl / rl - vr * pr / rr))
+        FACE[sl] = best
+    return G, dG, FACE
 
 
-def _end_angles(op: Operator, lam: np.ndarray):
-    """Pruefer angle at z = L and the right boundary angle, in a common scale.
-
-    Returns (theta, beta): eigenvalue number j sits where theta - beta = j pi, and
-    theta - beta is continuous with a single crossing of each j pi.
-    """
-    lam = np.atleast_1d(np.asarray(lam, dtype=float))
-    theta, beta = _angle_pass(op, lam.ravel(), slope=False)
-    return theta.reshape(lam.shape), beta.reshape(lam.shape)
+def _remap(X, Y, rho):
+    """Angle change of the direction atan2(X, Y) when X is multiplied by rho > 0, inside
+    its branch (in (-pi/2, pi/2))."""
+    return np.arctan2((rho - 1.0) * X * Y, Y * Y + rho * X * X)
 
 
 def count_below(op: Operator, lam) -> np.ndarray:
-    """Number of eigenvalues strictly below each ``lam`` (Pruefer count)."""
-    theta, beta = _end_angles(op, np.atleast_1d(np.asarray(lam, dtype=float)))
-    n = np.ceil((theta - beta) / np.pi - 1e-12)
+    """Number of eigenvalues strictly below each ``lam`` (Pruefer count, from the
+    two-shot mismatch: ceil(G / pi), see :func:`_mismatch`)."""
+    lam = np.atleast_1d(np.asarray(lam, dtype=float))
+    G = _mismatch(op, lam.ravel(), slopes=False)[0].reshape(lam.shape)
+    n = np.ceil(G / np.pi - 1e-12)
     return np.maximum(n, 0).astype(np.int64)
 
 
@@ -220,8 +201,9 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     The mismatch f_j = theta - beta - j pi has the sign of lambda - lambda_j everywhere
     (the face remaps are increasing maps of each branch onto itself, and in a fixed scale
     theta(L) increases with lambda: Pryce 1993, thm 2.5.3), so one pass of the Pruefer
-    angle over a grid brackets every eigenvalue, and each bracket is narrowed by the sign
-    of f_j alone, without further counting.
+    angle over a grid brackets every eigenvalue; the same pass shoots from both ends, so
+    each root starts from a Newton step on the two-shot mismatch (:func:`_mismatch`,
+    of the same sign as f_j) at the better end of its bracket.
     """
     if n < 1:
         return np.empty(0)
@@ -230,9 +212,8 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
         # grid in sqrt(lambda - lo), where the angle grows about linearly; its two ends
         # check the guessed bounds in the same pass (else search them, and redo)
         grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
-        theta, beta = _end_angles(op, grid)
-        F = theta - beta
-        raw = np.ceil(F / np.pi - 1e-12)
+        G, dG, face = _mismatch(op, grid)
+        raw = np.ceil(G / np.pi - 1e-12)
         if (raw[0] <= 0 and raw[-1] >= n) or attempt:
             break
         lo, hi, span = _lambda_bounds(op, n)
@@ -240,39 +221,88 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     j = np.arange(n)
     i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
     a, b = grid[i_lo], grid[i_lo + 1]
-    fa, fb = F[i_lo] - j * np.pi, F[i_lo + 1] - j * np.pi
-    return _polish(op, a, b, fa, fb, j, span)
+    # first Newton step from the better end of the bracket
+    ga, gb = G[i_lo] - j * np.pi, G[i_lo + 1] - j * np.pi
+    sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
+    sb, okb = _lambda_step(gb, dG[i_lo + 1], b, lo)[:2]
+    xa, xb = a + sa, b + sb
+    oka &= (xa > a) & (xa < b) & (ga <= 0)
+    okb &= (xb > a) & (xb < b) & (gb >= 0)
+    use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
+    x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
+    # where both ends matched at the same face, G is one smooth function over the
+    # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
+    same = (face[i_lo] == face[i_lo + 1]) & (ga < 0) & (gb > 0)
+    if same.any():
+        xh = _hermite_root(a[same], b[same], ga[same], gb[same], dG[i_lo][same],
+                           dG[i_lo + 1][same], lo)
+        x[same] = np.where(np.isfinite(xh) & (xh > a[same]) & (xh < b[same]), xh, x[same])
+    return _polish(op, a, b, x, j, span, lo)
+
+
+def _hermite_root(a, b, ga, gb, da, db, lo):
+    """Root in (a, b) of the cubic Hermite interpolant of g (values ga < 0 < gb,
+    lambda slopes da, db) in mu = sqrt(lambda - lo), by safeguarded Newton steps on
+    the cubic (it is monotone between the ends where the data are)."""
+    ma, mb = np.sqrt(np.maximum(a - lo, 0.0)), np.sqrt(np.maximum(b - lo, 0.0))
+    h = mb - ma
+    pa, pb = da * 2.0 * ma * h, db * 2.0 * mb * h  # slopes in t = (mu - ma) / h
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = np.clip(-ga / (gb - ga), 0.0, 1.0)
+        for _ in range(8):
+            t2, t3 = t * t, t * t * t
+            p = ((2 * t3 - 3 * t2 + 1) * ga + (t3 - 2 * t2 + t) * pa
+                 + (-2 * t3 + 3 * t2) * gb + (t3 - t2) * pb)
+            dp = ((6 * t2 - 6 * t) * ga + (3 * t2 - 4 * t + 1) * pa
+                  + (-6 * t2 + 6 * t) * gb + (3 * t2 - 2 * t) * pb)
+            t = np.clip(t - p / np.where(dp > 0, dp, np.inf), 0.0, 1.0)
+    mu = ma + t * h
+    return lo + mu * mu
 
 
 def _newton_step(f, df):
-    """Newton step on tan(f) where |f| < pi/4 (-sin f cos f / f': exact for an isolated
-    arctan-shaped angle jump, quadratic otherwise), on f elsewhere; and its validity."""
+    """Newton step -f / f' and its validity (a finite, positive slope)."""
     good = np.isfinite(df) & (df > 0)
-    step = np.where(np.abs(f) < 0.25 * np.pi, -np.sin(f) * np.cos(f), -f)
-    return step / np.where(good, df, 1.0), good
+    return -f / np.where(good, df, 1.0), good
 
 
-def _polish(op, a, b, fa, fb, j, span):
-    """Safeguarded Newton iteration on f_j, vectorised over the modes.
+def _lambda_step(f, df, x, lo):
+    """Newton step of f_j in mu = sqrt(lambda - lo), in which the angles grow about
+    linearly (exactly, in a uniform layer), returned as a lambda step
+    d_mu (2 mu + d_mu); with its validity, mu, df/dmu and d_mu."""
+    mu = np.sqrt(np.maximum(x - lo, 0.0))
+    dmu = df * 2.0 * mu
+    step, good = _newton_step(f, dmu)
+    return step * (2.0 * mu + step), good, mu, dmu, step
 
-    Start: inverse linear interpolation of the angle on the grid bracket (a, b).  A mode
-    whose Newton step leaves its bracket, or whose |f_j| falls by less than half far from
-    the root, switches to search: its bracket is cut at K equally spaced points in one
-    pass (K grows as fewer modes search, so the passes over the layers stay few), then
-    Newton restarts from the best sample if its step stays inside.  Searching is what
-    finds the narrow jump of the angle near a mode confined to a few layers.  Stop when
-    a Newton step near the root is below _ROOT_REL of max(|lambda|, lambda scale), when
-    rounding noise stalls the steps, or when the bracket is a few ulps wide.
+
+def _polish(op, a, b, x, j, span, lo):
+    """Safeguarded Newton-Halley iteration on the mismatch f_j, vectorised over modes.
+
+    Start: x inside the bracket (a, b).  Each pass evaluates the two-shot mismatch
+    (:func:`_mismatch`); a mode keeps its matching face and scale from one pass to the
+    next, so that the change of the slope between two passes gives the curvature, and
+    the Halley step (Halley 1694; the cubically convergent correction of Newton's step,
+    e.g. Press et al. 2007, Numerical Recipes, sec. 9.4) is taken once the curvature is
+    known.  A mode whose step leaves its bracket, or whose |f_j| falls by less than half
+    far from the root, switches to search: its bracket is cut at K equally spaced points
+    in one pass (K grows as fewer modes search, so the passes over the layers stay
+    few), then the iteration restarts from the best sample, at a face chosen afresh.
+    Stop when a step near the root is below _ROOT_REL of max(|lambda|, lambda scale);
+    when the error left after the Halley step (estimated from the curvature and its
+    change) is below _HALLEY_REL of it; when rounding noise stalls the steps; or when
+    the bracket is a few ulps wide.
     """
     eps = np.finfo(float).eps
-    den = fb - fa
-    x = np.where(den > 0, a - fa * (b - a) / np.where(den > 0, den, 1.0), 0.5 * (a + b))
-    x = np.where((x > a) & (x < b), x, 0.5 * (a + b))
+    n = x.size
     out = x.copy()
-    search = np.zeros(x.size, bool)
-    dx_prev = np.full(x.size, np.inf)
-    f_prev = np.full(x.size, np.inf)
-    idx = np.arange(x.size)
+    search = np.zeros(n, bool)
+    f_prev = np.full(n, np.inf)
+    dx_prev = np.full(n, np.inf)
+    face = np.full(n, -1)
+    x_old = np.full(n, np.nan)  # mu of the last point at the same face and scale
+    d_old = np.full(n, np.nan)  # and the slope in mu there
+    idx = np.arange(n)
     for _ in range(_MAX_ROOT_ITER):
         if idx.size == 0:
             return out
@@ -281,30 +311,46 @@ def _polish(op, a, b, fa, fb, j, span):
         K = 2 ** bits - 1
         pts = a[srch, None] + (b - a)[srch, None] * (np.arange(1, K + 1) / (K + 1))
         lam = np.concatenate([x[newt], pts.ravel()])
-        theta, beta, df = _angle_pass(op, lam, slope=True)
-        f_all = theta - beta - np.concatenate([j[newt], np.repeat(j[srch], K)]) * np.pi
         nn = newt.size
+        fc = np.concatenate([face[newt], np.full(pts.size, -1)])
+        G, df, fc = _mismatch(op, lam, fc)
+        f_all = G - np.concatenate([j[newt], np.repeat(j[srch], K)]) * np.pi
         # Newton modes
-        f, xi = f_all[:nn], lam[:nn]
+        f, xi, d = f_all[:nn], lam[:nn], df[:nn]
         A = np.where(f < 0, xi, a[newt])
         B = np.where(f > 0, xi, b[newt])
         a[newt], b[newt] = A, B
-        step, good = _newton_step(f, df[:nn])
+        _, good, mu, dmu, smu = _lambda_step(f, d, xi, lo)
+        scale = np.maximum(np.abs(xi), _SPAN_FLOOR * span)
+        # curvature in mu from the slopes at the last two points of the same face, scale
+        same = (face[newt] >= 0) & np.isfinite(x_old[newt]) & (x_old[newt] != mu)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            curv = np.where(same, (dmu - d_old[newt]) / (mu - x_old[newt]), 0.0)
+            h = smu * curv / (2.0 * dmu)  # Halley: step / (1 + h)
+            halley = same & good & (np.abs(h) < 0.5)
+            smu = np.where(halley, smu / (1.0 + h), smu)
+            # error left after the Halley step: cubic term and the curvature's own error
+            c2 = np.abs(curv / (2.0 * dmu))
+            err = (c2 * c2 * (2.0 * np.abs(smu) + np.abs(mu - x_old[newt])) * smu * smu
+                   * (2.0 * mu))
+        step = smu * (2.0 * mu + smu)
         xn = xi + step
         near = np.abs(f) <= _NEAR
         bad = ~(good & (xn > A) & (xn < B)) | (~near & (np.abs(f) > 0.5 * f_prev[newt]))
         step = np.abs(step)
-        scale = np.maximum(np.abs(xi), span)
         # a converged step may round onto the bracket end it came from (xn == xi): it is
         # still converged, so "small" does not require the step to stay strictly inside
         small = near & good & (step <= _ROOT_REL * scale)
+        cubic = near & halley & ~bad & (step <= _QUAD_STEP * scale) & (err <= _HALLEY_REL * scale)
         stall = near & ~bad & (step <= 1e-9 * scale) & (step > 0.5 * dx_prev[newt])
         tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
-        done_n = small | stall | tight | (f == 0)
-        bad &= ~small
+        done_n = small | cubic | stall | tight | (f == 0)
+        bad &= ~(small | cubic)
         out[newt] = np.where(f == 0, xi, np.where(bad, 0.5 * (A + B), np.clip(xn, A, B)))
         x[newt] = np.where(bad, 0.5 * (A + B), xn)
         dx_prev[newt], f_prev[newt], search[newt] = step, np.abs(f), bad
+        x_old[newt], d_old[newt] = mu, dmu
+        face[newt] = np.where(bad, -1, fc[:nn])
         # search modes: keep the sub-bracket where f_j changes sign
         fs, ds = f_all[nn:].reshape(-1, K), df[nn:].reshape(-1, K)
         r = np.arange(srch.size)
@@ -316,15 +362,16 @@ def _polish(op, a, b, fa, fb, j, span):
         use_l = (kneg > 0) & ((kneg == K) | (np.abs(fs[r, kl]) < np.abs(fs[r, kr])))
         kk = np.where(use_l, kl, kr)
         fx = fs[r, kk]
-        step, good = _newton_step(fx, ds[r, kk])
+        step, good = _lambda_step(fx, ds[r, kk], pts[r, kk], lo)[:2]
         xn = pts[r, kk] + step
         ok = good & (xn > A) & (xn < B)
         zero = fx == 0
         x[srch] = np.where(ok, xn, 0.5 * (A + B))
         out[srch] = np.where(zero, pts[r, kk], x[srch])
         search[srch], f_prev[srch], dx_prev[srch] = ~ok, np.abs(fx), np.inf
+        # the next pass chooses its face afresh (a sample's face is not kept)
+        face[srch], x_old[srch] = -1, np.nan
         tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
         idx = np.concatenate([newt[~done_n], srch[~(zero | tight)]])
     raise SpectrumError(f"{idx.size} eigenvalues did not converge in {_MAX_ROOT_ITER} "
                         "iterations")
-
