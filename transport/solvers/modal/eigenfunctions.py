@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from transport.solvers.modal.operator import ENDPOINT_FORM_MIN, Operator
-from transport.solvers.modal.transfer import (LayerTerms, chunks, layer_integrals,
+from transport.solvers.modal.transfer import (LayerTerms, Prep, chunks, layer_integrals,
                                               normalise, shc, shoot)
 
 __all__ = ["Modes", "modes"]
@@ -128,10 +128,10 @@ def modes(op: Operator, lam) -> Modes:
     sc = (op.k[lay] / op.thickness[lay])[:, None]
     la = np.log(op.a)[:, None]
     faces = np.arange(nL + 1)[:, None]
+    prep = Prep(op)
     for cs in chunks(nL, lam.size):
-        terms = LayerTerms(op, lam[cs])
-        VL, PL, LL = shoot(terms, +1)
-        VR, PR, LR = shoot(terms, -1)
+        terms = LayerTerms(prep, lam[cs])
+        VL, PL, LL, VR, PR, LR = shoot(terms)
         # face where both shots agree best: least |sin| of the angle between them
         XL, XR = sc * VL, sc * VR
         cross = XL * PR

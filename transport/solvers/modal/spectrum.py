@@ -37,8 +37,8 @@ from __future__ import annotations
 import numpy as np
 
 from transport.solvers.modal.operator import Operator, SpectrumError
-from transport.solvers.modal.transfer import (AngleScales, LayerTerms, chunks, end_remap,
-                                              increments, layer_integrals, shoot)
+from transport.solvers.modal.transfer import (AngleScales, LayerTerms, Prep, chunks,
+                                              end_remap, increments, layer_integrals, shoot)
 
 __all__ = ["count_below", "eigenvalues"]
 
@@ -60,7 +60,7 @@ _HALLEY_REL = 1e-14
 _GRID_EXTRA = 64
 
 
-def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True):
+def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, prep=None):
     """Angle mismatch of the two shots at a matching face, its lambda derivative and
     the face used.
 
@@ -91,64 +91,75 @@ def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True):
     m = lam.size
     G, dG, FACE = np.empty(m), np.empty(m), np.empty(m, dtype=np.int64)
     face = np.full(m, -1) if face is None else np.asarray(face)
-    a = op.a[:, None]
-    rows = np.arange(op.n_layers)[:, None]
+    prep = Prep(op) if prep is None else prep
+    rows = prep.rows
     for sl in chunks(op.n_layers, m):
-        terms = LayerTerms(op, lam[sl], integrals=slopes)
-        VL, PL, LL = shoot(terms, +1)
-        VR, PR, LR = shoot(terms, -1)
-        sc = AngleScales(terms)
+        terms = LayerTerms(prep, lam[sl], integrals=slopes)
         best = face[sl].copy()
-        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            free = np.flatnonzero(best < 0)
-            if free.size:
+        VL, PL, LL, VR, PR, LR = shoot(terms)
+        sc = AngleScales(terms)
+        free = best < 0
+        if free.any():
+            if free.all():
+                vl, pl, vr, pr = VL, PL, VR, PR
+            else:
+                free = np.flatnonzero(free)
                 vl, pl, vr, pr = VL[:, free], PL[:, free], VR[:, free], PR[:, free]
-                c1, c2 = vl * pr, pl * vr
-                par = np.abs(c1 - c2)
-                par /= np.abs(c1) + np.abs(c2)
-                best[free] = np.argmin(np.where(np.isnan(par), 2.0, par), axis=0)
-            cols = np.arange(best.size)
-            vl, pl, vr, pr = VL[best, cols], PL[best, cols], VR[best, cols], PR[best, cols]
-            S = sc.S[best, cols]
-            # the natural scale sigma = k |w| of the layer above the face (below the top
-            # face), a smooth function of lambda, and its derivative
-            lay = np.maximum(best - 1, 0)
-            w2 = terms.w2[lay, cols]
-            nat = op.k[lay] * np.sqrt(np.abs(w2))
-            sig = np.where(nat > 0, nat, S)
-            if not slopes:
-                # the scale that puts the top shot at 45 degrees: the most sensitive one
-                bal = np.abs(pl / vl)
-                sig = np.where(np.isfinite(bal) & (bal > 0), bal, sig)
-            dsig = np.where(nat > 0, np.sign(w2) * op.k[lay] * op.a[lay], 0.0) / (2.0 * sig)
-            # every layer from the shot that reaches it before the face
-            left = rows < best
-            V = np.where(left, VL[:-1], VR[:-1])
-            P = np.where(left, PL[:-1], PR[:-1])
-            inc = increments(terms, sc, V, P, (~left, VR[1:], PR[1:]))
-            rho = sig / S
-            lifted = (sc.theta0 - sc.beta + end_remap(sc, VR[-1], PR[-1]) + inc.sum(axis=0)
-                      + _remap(S * vl, pl, rho) - _remap(S * vr, pr, rho))
-            delta = np.arctan2(sig * (vl * pr - pl * vr), sig * sig * vl * vr + pl * pr)
-            delta -= np.pi * np.round(delta / np.pi)
-            G[sl] = delta + np.pi * np.round((lifted - delta) / np.pi)
-            if not slopes:
-                dG[sl] = np.nan
-                FACE[sl] = best
-                continue
-            # int a v^2 from each end to the face, in units of the state's size there
-            L = np.where(left, LL[:-1], LR[:-1])
-            I, lg = layer_integrals(terms, V, P, L, np.where(left, VL[1:], VR[1:]),
-                                    np.where(left, LL[1:], LR[1:]))
-            rl, rr = (sig * vl) ** 2 + pl * pl, (sig * vr) ** 2 + pr * pr
-            ref = np.where(left, 2.0 * LL[best, cols] + np.log(rl),
-                           2.0 * LR[best, cols] + np.log(rr))
-            lg -= ref
-            np.exp(lg, out=lg)
-            lg *= I
-            dG[sl] = (sig * (a * lg).sum(axis=0)
-                      + dsig * (vl * pl / rl - vr * pr / rr))
+            # how far from parallel the two shots are: sin^2 of the angle between them
+            # in a scale-free form
+            c1, c2 = vl * pr, pl * vr
+            par = c1 - c2
+            par *= par
+            c1 *= c1
+            c2 *= c2
+            c1 += c2
+            par /= c1
+            par[np.isnan(par)] = 2.0
+            best[free] = np.argmin(par, axis=0)
+        cols = np.arange(best.size)
+        vl, pl, vr, pr = VL[best, cols], PL[best, cols], VR[best, cols], PR[best, cols]
+        S = sc.S[best, cols]
+        # the natural scale sigma = k |w| of the layer above the face (below the top
+        # face), a smooth function of lambda, and its derivative
+        lay = np.maximum(best - 1, 0)
+        w2 = terms.w2[lay, cols]
+        nat = op.k[lay] * np.sqrt(np.abs(w2))
+        sig = np.where(nat > 0, nat, S)
+        if not slopes:
+            # the scale that puts the top shot at 45 degrees: the most sensitive one
+            bal = np.abs(pl / vl)
+            sig = np.where(np.isfinite(bal) & (bal > 0), bal, sig)
+        # every layer from the shot that reaches it before the face
+        left = rows < best
+        V = np.where(left, VL[:-1], VR[:-1])
+        P = np.where(left, PL[:-1], PR[:-1])
+        inc = increments(terms, sc, V, P, (~left, VR[1:], PR[1:]))
+        rho = sig / S
+        lifted = (sc.theta0 - sc.beta + end_remap(sc, VR[-1], PR[-1]) + inc.sum(axis=0)
+                  + _remap(S * vl, pl, rho) - _remap(S * vr, pr, rho))
+        delta = np.arctan2(sig * (vl * pr - pl * vr), sig * sig * vl * vr + pl * pr)
+        delta -= np.pi * np.round(delta / np.pi)
+        G[sl] = delta + np.pi * np.round((lifted - delta) / np.pi)
         FACE[sl] = best
+        if not slopes:
+            dG[sl] = np.nan
+            continue
+        # int a v^2 from each end to the face, in units of the state's size there
+        L = np.where(left, LL[:-1], LR[:-1])
+
+        def bottom(r):
+            lr = left[r]
+            return np.where(lr, VL[r + 1], VR[r + 1]), np.where(lr, LL[r + 1], LR[r + 1])
+        I, lg = layer_integrals(terms, V, P, L, bottom)
+        rl, rr = (sig * vl) ** 2 + pl * pl, (sig * vr) ** 2 + pr * pr
+        ref = np.where(left, 2.0 * LL[best, cols] + np.log(rl),
+                       2.0 * LR[best, cols] + np.log(rr))
+        lg -= ref
+        np.exp(lg, out=lg)
+        lg *= I
+        lg *= prep.a
+        dsig = np.where(nat > 0, np.sign(w2) * op.k[lay] * op.a[lay], 0.0) / (2.0 * sig)
+        dG[sl] = sig * lg.sum(axis=0) + dsig * (vl * pl / rl - vr * pr / rr)
     return G, dG, FACE
 
 
@@ -162,7 +173,8 @@ def count_below(op: Operator, lam) -> np.ndarray:
     """Number of eigenvalues strictly below each ``lam`` (Pruefer count, from the
     two-shot mismatch: ceil(G / pi), see :func:`_mismatch`)."""
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
-    G = _mismatch(op, lam.ravel(), slopes=False)[0].reshape(lam.shape)
+    with np.errstate(**_QUIET):
+        G = _mismatch(op, lam.ravel(), slopes=False)[0].reshape(lam.shape)
     n = np.ceil(G / np.pi - 1e-12)
     return np.maximum(n, 0).astype(np.int64)
 
@@ -203,59 +215,77 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     theta(L) increases with lambda: Pryce 1993, thm 2.5.3), so one pass of the Pruefer
     angle over a grid brackets every eigenvalue; the same pass shoots from both ends, so
     each root starts from a Newton step on the two-shot mismatch (:func:`_mismatch`,
-    of the same sign as f_j) at the better end of its bracket.
+    of the same sign as f_j) at the better end of its bracket, or from the root of the
+    cubic through both ends where they were matched at the same face.
     """
     if n < 1:
         return np.empty(0)
-    lo, hi, span = _lambda_guess(op, n)
-    for attempt in range(2):
-        # grid in sqrt(lambda - lo), where the angle grows about linearly; its two ends
-        # check the guessed bounds in the same pass (else search them, and redo)
-        grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
-        G, dG, face = _mismatch(op, grid)
-        raw = np.ceil(G / np.pi - 1e-12)
-        if (raw[0] <= 0 and raw[-1] >= n) or attempt:
-            break
-        lo, hi, span = _lambda_bounds(op, n)
-    counts = np.maximum.accumulate(np.maximum(raw, 0))
-    j = np.arange(n)
-    i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
-    a, b = grid[i_lo], grid[i_lo + 1]
-    # first Newton step from the better end of the bracket
-    ga, gb = G[i_lo] - j * np.pi, G[i_lo + 1] - j * np.pi
-    sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
-    sb, okb = _lambda_step(gb, dG[i_lo + 1], b, lo)[:2]
-    xa, xb = a + sa, b + sb
-    oka &= (xa > a) & (xa < b) & (ga <= 0)
-    okb &= (xb > a) & (xb < b) & (gb >= 0)
-    use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
-    x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
-    # where both ends matched at the same face, G is one smooth function over the
-    # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
-    same = (face[i_lo] == face[i_lo + 1]) & (ga < 0) & (gb > 0)
-    if same.any():
-        xh = _hermite_root(a[same], b[same], ga[same], gb[same], dG[i_lo][same],
-                           dG[i_lo + 1][same], lo)
-        x[same] = np.where(np.isfinite(xh) & (xh > a[same]) & (xh < b[same]), xh, x[same])
-    return _polish(op, a, b, x, j, span, lo)
+    prep = Prep(op)
+    with np.errstate(**_QUIET):
+        lo, hi, span = _lambda_guess(op, n)
+        for attempt in range(2):
+            # grid in sqrt(lambda - lo), where the angle grows about linearly; its two
+            # ends check the guessed bounds in the same pass (else search them, and redo)
+            grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+            G, dG, face = _mismatch(op, grid, prep=prep)
+            raw = np.ceil(G / np.pi - 1e-12)
+            if (raw[0] <= 0 and raw[-1] >= n) or attempt:
+                break
+            lo, hi, span = _lambda_bounds(op, n)
+        counts = np.maximum.accumulate(np.maximum(raw, 0))
+        j = np.arange(n)
+        i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
+        i_hi = i_lo + 1
+        a, b = grid[i_lo], grid[i_hi]
+        # first Newton step from the better end of the bracket
+        jpi = j * np.pi
+        ga, gb = G[i_lo] - jpi, G[i_hi] - jpi
+        sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
+        sb, okb = _lambda_step(gb, dG[i_hi], b, lo)[:2]
+        xa, xb = a + sa, b + sb
+        oka &= (xa > a) & (xa < b) & (ga <= 0)
+        okb &= (xb > a) & (xb < b) & (gb >= 0)
+        use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
+        x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
+        # where both ends matched at the same face, G is one smooth function over the
+        # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
+        same = (face[i_lo] == face[i_hi]) & (ga < 0) & (gb > 0)
+        if same.any():
+            sel = np.flatnonzero(same)
+            xh = _hermite_root(a[sel], b[sel], ga[sel], gb[sel], dG[i_lo[sel]],
+                               dG[i_hi[sel]], lo)
+            x[sel] = np.where((xh > a[sel]) & (xh < b[sel]), xh, x[sel])
+            use_a[sel] = np.abs(ga[sel]) <= np.abs(gb[sel])
+        # the end the start came from: its face and slope give the curvature at the
+        # first pass if that pass matches at the same face
+        end = np.where(use_a, i_lo, i_hi)
+        mu_end = np.sqrt(np.maximum(grid[end] - lo, 0.0))
+        known = (oka | okb | same)
+        start = (np.where(known, face[end], -1), np.where(known, mu_end, np.nan),
+                 dG[end] * 2.0 * mu_end)
+        return _polish(op, a, b, x, j, span, lo, prep, start)
+
+
+#: floating-point conditions that the iterations handle themselves (overflowing
+#: states of exponentially small modes give a NaN slope, which sends the mode to search)
+_QUIET = dict(invalid="ignore", divide="ignore", over="ignore")
 
 
 def _hermite_root(a, b, ga, gb, da, db, lo):
     """Root in (a, b) of the cubic Hermite interpolant of g (values ga < 0 < gb,
     lambda slopes da, db) in mu = sqrt(lambda - lo), by safeguarded Newton steps on
-    the cubic (it is monotone between the ends where the data are)."""
+    the cubic from the secant root."""
     ma, mb = np.sqrt(np.maximum(a - lo, 0.0)), np.sqrt(np.maximum(b - lo, 0.0))
     h = mb - ma
     pa, pb = da * 2.0 * ma * h, db * 2.0 * mb * h  # slopes in t = (mu - ma) / h
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.clip(-ga / (gb - ga), 0.0, 1.0)
-        for _ in range(8):
-            t2, t3 = t * t, t * t * t
-            p = ((2 * t3 - 3 * t2 + 1) * ga + (t3 - 2 * t2 + t) * pa
-                 + (-2 * t3 + 3 * t2) * gb + (t3 - t2) * pb)
-            dp = ((6 * t2 - 6 * t) * ga + (3 * t2 - 4 * t + 1) * pa
-                  + (-6 * t2 + 6 * t) * gb + (3 * t2 - 2 * t) * pb)
-            t = np.clip(t - p / np.where(dp > 0, dp, np.inf), 0.0, 1.0)
+    # p(t) = ga + pa t + c2 t^2 + c3 t^3
+    c2 = 3.0 * (gb - ga) - 2.0 * pa - pb
+    c3 = 2.0 * (ga - gb) + pa + pb
+    t = np.clip(-ga / (gb - ga), 0.0, 1.0)
+    for _ in range(5):
+        p = ga + t * (pa + t * (c2 + t * c3))
+        dp = pa + t * (2.0 * c2 + 3.0 * t * c3)
+        t = np.clip(t - p / np.where(dp > 0, dp, np.inf), 0.0, 1.0)
     mu = ma + t * h
     return lo + mu * mu
 
@@ -276,22 +306,24 @@ def _lambda_step(f, df, x, lo):
     return step * (2.0 * mu + step), good, mu, dmu, step
 
 
-def _polish(op, a, b, x, j, span, lo):
+def _polish(op, a, b, x, j, span, lo, prep, start):
     """Safeguarded Newton-Halley iteration on the mismatch f_j, vectorised over modes.
 
-    Start: x inside the bracket (a, b).  Each pass evaluates the two-shot mismatch
-    (:func:`_mismatch`); a mode keeps its matching face and scale from one pass to the
-    next, so that the change of the slope between two passes gives the curvature, and
-    the Halley step (Halley 1694; the cubically convergent correction of Newton's step,
+    Start: x inside the bracket (a, b), and ``start`` = (face, mu, slope in mu) of the
+    grid point it was reached from.  Each pass evaluates the two-shot mismatch
+    (:func:`_mismatch`); a mode keeps its matching face from one pass to the next, so
+    that the change of the slope between two passes gives the curvature, and the
+    Halley step (Halley 1694; the cubically convergent correction of Newton's step,
     e.g. Press et al. 2007, Numerical Recipes, sec. 9.4) is taken once the curvature is
-    known.  A mode whose step leaves its bracket, or whose |f_j| falls by less than half
-    far from the root, switches to search: its bracket is cut at K equally spaced points
-    in one pass (K grows as fewer modes search, so the passes over the layers stay
-    few), then the iteration restarts from the best sample, at a face chosen afresh.
-    Stop when a step near the root is below _ROOT_REL of max(|lambda|, lambda scale);
-    when the error left after the Halley step (estimated from the curvature and its
-    change) is below _HALLEY_REL of it; when rounding noise stalls the steps; or when
-    the bracket is a few ulps wide.
+    known; steps are taken in mu = sqrt(lambda - lo).  A mode whose step leaves its
+    bracket, or whose |f_j| falls by less than half far from the root, switches to
+    search: its bracket is cut at K equally spaced points in one pass (K grows as fewer
+    modes search, so the passes over the layers stay few), then the iteration restarts
+    from the best sample, at a face chosen afresh.  Stop when a step near the root is
+    below _ROOT_REL of max(|lambda|, _SPAN_FLOOR lambda scale); when the error left
+    after the Halley step (estimated from the curvature and its change) is below
+    _HALLEY_REL of it; when rounding noise stalls the steps; or when the bracket is a
+    few ulps wide.
     """
     eps = np.finfo(float).eps
     n = x.size
@@ -299,79 +331,100 @@ def _polish(op, a, b, x, j, span, lo):
     search = np.zeros(n, bool)
     f_prev = np.full(n, np.inf)
     dx_prev = np.full(n, np.inf)
-    face = np.full(n, -1)
-    x_old = np.full(n, np.nan)  # mu of the last point at the same face and scale
-    d_old = np.full(n, np.nan)  # and the slope in mu there
+    face = np.full(n, -1)  # the face the next pass matches at (-1: its own choice)
+    # the last point evaluated (mu, slope in mu, the face it matched at): at first the
+    # grid end the start came from
+    used, mu_old, d_old = (np.array(v) for v in start)
+    jpi = j * np.pi
+    floor = _SPAN_FLOOR * span
     idx = np.arange(n)
     for _ in range(_MAX_ROOT_ITER):
         if idx.size == 0:
             return out
-        srch, newt = idx[search[idx]], idx[~search[idx]]
-        bits = int(np.clip(np.log2(_SEARCH_POINTS / max(srch.size, 1)), 1, 4))
-        K = 2 ** bits - 1
-        pts = a[srch, None] + (b - a)[srch, None] * (np.arange(1, K + 1) / (K + 1))
-        lam = np.concatenate([x[newt], pts.ravel()])
+        srch_mask = search[idx]
+        if srch_mask.any():
+            srch, newt = idx[srch_mask], idx[~srch_mask]
+            bits = int(np.clip(np.log2(_SEARCH_POINTS / srch.size), 1, 4))
+            K = 2 ** bits - 1
+            pts = a[srch, None] + (b - a)[srch, None] * (np.arange(1, K + 1) / (K + 1))
+            lam = np.concatenate([x[newt], pts.ravel()])
+            fc = np.concatenate([face[newt], np.full(pts.size, -1)])
+        else:
+            srch, newt = idx[:0], idx
+            lam, fc = x[newt], face[newt]
         nn = newt.size
-        fc = np.concatenate([face[newt], np.full(pts.size, -1)])
-        G, df, fc = _mismatch(op, lam, fc)
-        f_all = G - np.concatenate([j[newt], np.repeat(j[srch], K)]) * np.pi
+        G, df, fc = _mismatch(op, lam, fc, prep=prep)
         # Newton modes
-        f, xi, d = f_all[:nn], lam[:nn], df[:nn]
+        f, xi, d = G[:nn] - jpi[newt], lam[:nn], df[:nn]
         A = np.where(f < 0, xi, a[newt])
         B = np.where(f > 0, xi, b[newt])
         a[newt], b[newt] = A, B
         _, good, mu, dmu, smu = _lambda_step(f, d, xi, lo)
-        scale = np.maximum(np.abs(xi), _SPAN_FLOOR * span)
-        # curvature in mu from the slopes at the last two points of the same face, scale
-        same = (face[newt] >= 0) & np.isfinite(x_old[newt]) & (x_old[newt] != mu)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            curv = np.where(same, (dmu - d_old[newt]) / (mu - x_old[newt]), 0.0)
-            h = smu * curv / (2.0 * dmu)  # Halley: step / (1 + h)
-            halley = same & good & (np.abs(h) < 0.5)
-            smu = np.where(halley, smu / (1.0 + h), smu)
-            # error left after the Halley step: cubic term and the curvature's own error
-            c2 = np.abs(curv / (2.0 * dmu))
-            err = (c2 * c2 * (2.0 * np.abs(smu) + np.abs(mu - x_old[newt])) * smu * smu
-                   * (2.0 * mu))
+        scale = np.maximum(np.abs(xi), floor)
+        # curvature in mu from the slopes at the last two points of the same face
+        mo = mu_old[newt]
+        same = (fc[:nn] == used[newt]) & (mo != mu)  # mo is NaN where there is none
+        curv = np.where(same, (dmu - d_old[newt]) / (mu - mo), 0.0)
+        c2 = curv / (2.0 * dmu)
+        h = smu * c2  # Halley: step / (1 + h)
+        halley = same & good & (np.abs(h) < 0.5)
+        smu = np.where(halley, smu / (1.0 + h), smu)
+        # error left after the Halley step: cubic term and the curvature's own error
+        err = c2 * c2 * (2.0 * np.abs(smu) + np.abs(mu - mo)) * smu * smu * (2.0 * mu)
         step = smu * (2.0 * mu + smu)
         xn = xi + step
-        near = np.abs(f) <= _NEAR
-        bad = ~(good & (xn > A) & (xn < B)) | (~near & (np.abs(f) > 0.5 * f_prev[newt]))
+        af = np.abs(f)
+        near = af <= _NEAR
+        bad = ~(good & (xn > A) & (xn < B)) | (~near & (af > 0.5 * f_prev[newt]))
         step = np.abs(step)
         # a converged step may round onto the bracket end it came from (xn == xi): it is
         # still converged, so "small" does not require the step to stay strictly inside
         small = near & good & (step <= _ROOT_REL * scale)
-        cubic = near & halley & ~bad & (step <= _QUAD_STEP * scale) & (err <= _HALLEY_REL * scale)
+        cubic = (near & halley & ~bad & (step <= _QUAD_STEP * scale)
+                 & (err <= _HALLEY_REL * scale))
         stall = near & ~bad & (step <= 1e-9 * scale) & (step > 0.5 * dx_prev[newt])
         tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
-        done_n = small | cubic | stall | tight | (f == 0)
+        zero = f == 0
+        done_n = small | cubic | stall | tight | zero
         bad &= ~(small | cubic)
-        out[newt] = np.where(f == 0, xi, np.where(bad, 0.5 * (A + B), np.clip(xn, A, B)))
-        x[newt] = np.where(bad, 0.5 * (A + B), xn)
-        dx_prev[newt], f_prev[newt], search[newt] = step, np.abs(f), bad
-        x_old[newt], d_old[newt] = mu, dmu
+        mid = 0.5 * (A + B)
+        out[newt] = np.where(zero, xi, np.where(bad, mid, np.clip(xn, A, B)))
+        x[newt] = np.where(bad, mid, xn)
+        dx_prev[newt], f_prev[newt], search[newt] = step, af, bad
+        mu_old[newt], d_old[newt], used[newt] = mu, dmu, fc[:nn]
         face[newt] = np.where(bad, -1, fc[:nn])
-        # search modes: keep the sub-bracket where f_j changes sign
-        fs, ds = f_all[nn:].reshape(-1, K), df[nn:].reshape(-1, K)
-        r = np.arange(srch.size)
-        kneg = np.count_nonzero(fs < 0, axis=1)
-        ends = np.concatenate([a[srch, None], pts, b[srch, None]], axis=1)
-        A, B = ends[r, kneg], ends[r, kneg + 1]
-        a[srch], b[srch] = A, B
-        kl, kr = np.maximum(kneg - 1, 0), np.minimum(kneg, K - 1)
-        use_l = (kneg > 0) & ((kneg == K) | (np.abs(fs[r, kl]) < np.abs(fs[r, kr])))
-        kk = np.where(use_l, kl, kr)
-        fx = fs[r, kk]
-        step, good = _lambda_step(fx, ds[r, kk], pts[r, kk], lo)[:2]
-        xn = pts[r, kk] + step
-        ok = good & (xn > A) & (xn < B)
-        zero = fx == 0
-        x[srch] = np.where(ok, xn, 0.5 * (A + B))
-        out[srch] = np.where(zero, pts[r, kk], x[srch])
-        search[srch], f_prev[srch], dx_prev[srch] = ~ok, np.abs(fx), np.inf
-        # the next pass chooses its face afresh (a sample's face is not kept)
-        face[srch], x_old[srch] = -1, np.nan
-        tight = (B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B))
-        idx = np.concatenate([newt[~done_n], srch[~(zero | tight)]])
+        if srch.size:
+            done_s = _search_update(srch, pts, K, G[nn:] - np.repeat(jpi[srch], K), df[nn:],
+                                    a, b, x, out, search, f_prev, dx_prev, face, mu_old, lo)
+            idx = np.concatenate([newt[~done_n], srch[~done_s]])
+        else:
+            idx = newt[~done_n]
     raise SpectrumError(f"{idx.size} eigenvalues did not converge in {_MAX_ROOT_ITER} "
                         "iterations")
+
+
+def _search_update(srch, pts, K, f_all, df, a, b, x, out, search, f_prev, dx_prev, face,
+                   mu_old, lo):
+    """Searching modes: keep the sub-bracket where f_j changes sign, restart Newton from
+    the best sample if its step stays inside (else bisect once more)."""
+    fs, ds = f_all.reshape(-1, K), df.reshape(-1, K)
+    r = np.arange(srch.size)
+    kneg = np.count_nonzero(fs < 0, axis=1)
+    ends = np.concatenate([a[srch, None], pts, b[srch, None]], axis=1)
+    A, B = ends[r, kneg], ends[r, kneg + 1]
+    a[srch], b[srch] = A, B
+    kl, kr = np.maximum(kneg - 1, 0), np.minimum(kneg, K - 1)
+    use_l = (kneg > 0) & ((kneg == K) | (np.abs(fs[r, kl]) < np.abs(fs[r, kr])))
+    kk = np.where(use_l, kl, kr)
+    fx = fs[r, kk]
+    step, good = _lambda_step(fx, ds[r, kk], pts[r, kk], lo)[:2]
+    xn = pts[r, kk] + step
+    ok = good & (xn > A) & (xn < B)
+    zero = fx == 0
+    x[srch] = np.where(ok, xn, 0.5 * (A + B))
+    out[srch] = np.where(zero, pts[r, kk], x[srch])
+    search[srch], f_prev[srch], dx_prev[srch] = ~ok, np.abs(fx), np.inf
+    # the next pass chooses its face afresh (a sample's face is not kept)
+    face[srch], mu_old[srch] = -1, np.nan
+    eps = np.finfo(float).eps
+    return zero | ((B - A) <= _ROOT_ULPS * eps * np.maximum(np.abs(A), np.abs(B)))

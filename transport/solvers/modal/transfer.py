@@ -27,8 +27,8 @@ import numpy as np
 
 from transport.solvers.modal.operator import ENDPOINT_FORM_MIN, Operator, tanhc
 
-__all__ = ["LayerTerms", "AngleScales", "shoot", "normalise", "increments", "end_remap",
-           "shc", "layer_integrals", "chunks", "bc_angle", "SMALL_X"]
+__all__ = ["Prep", "LayerTerms", "AngleScales", "shoot", "normalise", "increments",
+           "end_remap", "shc", "layer_integrals", "chunks", "bc_angle", "SMALL_X"]
 
 #: |w| l below this: the angle is stepped in the fixed scale k/l with the Taylor-series
 #: transfer (keeps the angle and its derivative finite at w = 0).
@@ -61,33 +61,59 @@ def _series(y2, sign):
                   + y2 ** 4 / 39916800)
 
 
-class LayerTerms:
-    """Per-layer quantities of ``op`` at the lambdas ``lam``: arrays (N, n), row i =
-    layer i.
+class Prep:
+    """Per-operator constants shared by every pass over a set of lambdas: layer
+    coefficients as columns (N, 1), the end states of both shots, the boundary angles."""
 
-    ``w2`` w^2, ``x`` |w| l, ``trig`` w^2 > 0, ``c``/``b12``/``b21`` the (scaled)
-    transfer matrix, ``logc`` its log-scale (None when every entry is trigonometric),
-    ``big`` the thick evanescent entries (x > 1), ``hcols`` the columns with an
-    evanescent entry.  With ``integrals``: the coefficients of the closed-form layer
-    integral int v^2 = alpha v0^2 + beta v0 (p0/k) + gamma (p0/k)^2 from the state
-    (v0, p0) at the top of the layer.
+    def __init__(self, op: Operator):
+        self.op = op
+        nL = op.n_layers
+        self.k, self.l = op.k[:, None], op.thickness[:, None]
+        self.a, self.s = op.a[:, None], op.s[:, None]
+        self.kl = self.k / self.l
+        self.lk = self.l / self.k
+        self.mkl = -self.k * self.l
+        self.hl, self.hl3, self.l2 = 0.5 * self.l, 0.5 * self.l ** 3, self.l * self.l
+        self.rows = np.arange(nL)[:, None]
+        kl = op.k / op.thickness
+        self.kl_last, self.kl0 = float(kl[-1]), float(kl[0])
+        # the end states (v, p) = (c_p, -c_v) of both shots, unit in the edge scale
+        ends = []
+        for end, sc in (("top", kl[0]), ("bottom", kl[-1])):
+            c_v, c_p, _ = op.v_condition(end)
+            nrm = np.hypot(sc * c_p, c_v)
+            ends.append((c_p / nrm, -c_v / nrm))
+        self.ends = np.array(ends)[:, :, None]  # (shot, component, 1)
+        c_v, c_p, _ = op.v_condition("top")
+        self.theta0 = float(bc_angle(c_v, c_p, self.kl0, right=False))
+        self.d_v, self.d_p, _ = op.v_condition("bottom")
+
+
+class LayerTerms:
+    """Per-layer quantities at the lambdas ``lam``: arrays (N, n), row i = layer i.
+
+    ``w2`` w^2, ``x`` |w| l, ``trig`` w^2 > 0, ``c`` and ``B`` (b12, b21 side by side,
+    (N, 2, n)) the (scaled) transfer matrix, ``logc`` its log-scale (None when every
+    entry is trigonometric), ``big`` the thick evanescent entries (x > 1), ``hcols``
+    the columns with an evanescent entry.  With ``integrals``: the coefficients of the
+    closed-form layer integral int v^2 = alpha v0^2 + beta v0 (p0/k) + gamma (p0/k)^2
+    from the state (v0, p0) at the top of the layer.
     """
 
-    def __init__(self, op: Operator, lam, integrals: bool = True):
+    def __init__(self, prep: Prep, lam, integrals: bool = True):
         lam = np.asarray(lam, dtype=float)
-        self.op, self.lam = op, lam
-        nL, n = op.n_layers, lam.size
-        k = op.k[:, None]
-        l = op.thickness[:, None]
-        w2 = np.multiply(lam[None, :], op.a[:, None])
-        w2 -= op.s[:, None]
-        w2 /= k
+        self.prep, self.op, self.lam = prep, prep.op, lam
+        nL, n = prep.op.n_layers, lam.size
+        w2 = np.multiply(lam, prep.a)
+        w2 -= prep.s
+        w2 /= prep.k
         trig = w2 > 0
-        x = np.abs(w2)
-        np.sqrt(x, out=x)
-        x *= l
+        self.all_trig = bool(trig.all())
+        x = np.sqrt(w2) if self.all_trig else np.sqrt(np.abs(w2))
+        x *= prep.l
         self.w2, self.x, self.trig = w2, x, trig
-        self.hcols = np.flatnonzero(~trig.all(axis=0))
+        self.hcols = (np.empty(0, dtype=int) if self.all_trig
+                      else np.flatnonzero(~trig.all(axis=0)))
         # cos x and sin x from t = tan(x/2)
         t = np.multiply(x, 0.5)
         np.tan(t, out=t)
@@ -95,135 +121,137 @@ class LayerTerms:
         d = cos + 1.0
         np.subtract(1.0, cos, out=cos)
         cos /= d
-        t *= 2.0
+        t += t
         t /= d
         sin = t
-        pos = x > 0
-        sincx = np.divide(sin, x, out=d, where=pos)
-        sincx[~pos] = 1.0
+        self.pos = bool(x.all())
+        if self.pos:
+            sincx = np.divide(sin, x, out=d)
+        else:
+            sincx = np.divide(sin, x, out=d, where=x > 0)
+            sincx[x == 0] = 1.0
         self.c = cos
         # the off-diagonal entries (b12, b21) side by side: (N, 2, n)
         B = np.empty((nL, 2, n))
-        np.multiply(l / k, sincx, out=B[:, 0])
-        np.multiply(-k * l, w2, out=B[:, 1])
+        np.multiply(prep.lk, sincx, out=B[:, 0])
+        np.multiply(prep.mkl, w2, out=B[:, 1])
         B[:, 1] *= sincx
         self.B = B
         self.logc = None
         self.big = None
-        self.big_rows = np.empty(0, dtype=int)
+        self.big_rows = set()
         if self.hcols.size:
-            h = self.hcols
-            xh, th = x[:, h], ~trig[:, h]
-            tanh = np.tanh(xh)
-            self.c[:, h] = np.where(th, 1.0, cos[:, h])
-            B[:, 0, h] = np.where(th, (l / k) * tanhc(xh), B[:, 0, h])
-            B[:, 1, h] = np.where(th, (k / l) * xh * tanh, B[:, 1, h])
-            self.logc = np.zeros_like(x)
-            big = th & (xh > 1.0)
-            logc = np.where(th, xh + np.log1p(np.exp(-2 * xh)) - _LOG2, 0.0)
-            # thick evanescent entries are stepped in components: their log-scale is x
-            self.logc[:, h] = np.where(big, xh, logc)
-            self.big = np.zeros(x.shape, dtype=bool)
-            self.big[:, h] = big
-            self.big_rows = np.flatnonzero(self.big.any(axis=1))
+            self._evanescent(cos)
         if integrals:
-            self._integral_terms(cos, sin, sincx, pos)
+            self._integral_terms(cos, sin, sincx)
 
-    def _integral_terms(self, cos, sin, sincx, pos):
+    def _evanescent(self, cos):
+        """The scaled hyperbolic transfers of the entries with w^2 <= 0."""
+        prep, h = self.prep, self.hcols
+        xh, th = self.x[:, h], ~self.trig[:, h]
+        B = self.B
+        self.c[:, h] = np.where(th, 1.0, cos[:, h])
+        B[:, 0, h] = np.where(th, prep.lk * tanhc(xh), B[:, 0, h])
+        B[:, 1, h] = np.where(th, prep.kl * xh * np.tanh(xh), B[:, 1, h])
+        self.logc = np.zeros_like(self.x)
+        big = th & (xh > 1.0)
+        logc = np.where(th, xh + np.log1p(np.exp(-2 * xh)) - _LOG2, 0.0)
+        # thick evanescent entries are stepped in components: their log-scale is x
+        self.logc[:, h] = np.where(big, xh, logc)
+        self.big = np.zeros(self.x.shape, dtype=bool)
+        self.big[:, h] = big
+        self.big_rows = set(np.flatnonzero(self.big.any(axis=1)).tolist())
+
+    def _integral_terms(self, cos, sin, sincx):
         """alpha, beta, gamma of int v^2 over each layer (closed forms; the thick
         evanescent entries are replaced by the two-exponential form in
         :func:`layer_integrals`)."""
-        op, x = self.op, self.x
-        l = op.thickness[:, None]
-        sinc2 = np.divide(sin * cos, x, out=np.ones_like(x), where=pos)  # sinc(2x)
-        self.alpha = (0.5 * l) * (1.0 + sinc2)
-        m2 = np.divide(1.0 - sinc2, x * x, out=np.zeros_like(x), where=pos)
+        prep, x = self.prep, self.x
+        sinc2 = sin * cos  # sinc(2x) = sin x cos x / x
+        if self.pos:
+            sinc2 /= x
+        else:
+            np.divide(sinc2, x, out=sinc2, where=x > 0)
+            sinc2[x == 0] = 1.0
+        self.alpha = 1.0 + sinc2
+        self.alpha *= prep.hl
+        m2 = np.subtract(1.0, sinc2, out=sinc2)
+        m2 /= x * x
         small = x < 0.1
         if small.any():
             xs = x[small]
             m2[small] = _series(4.0 * xs * xs, -1.0)  # (1 - sinc 2x) / x^2
-        self.gamma = (0.5 * l ** 3) * m2
-        self.beta = (l * l) * (sincx * sincx)
+        self.gamma = np.multiply(prep.hl3, m2, out=m2)
+        self.beta = sincx * sincx
+        self.beta *= prep.l2
         if self.hcols.size:
-            h = self.hcols
+            h, l = self.hcols, prep.l
             th = ~self.trig[:, h]
-            xh = np.minimum(x[:, h], ENDPOINT_FORM_MIN)
+            xh = np.minimum(self.x[:, h], ENDPOINT_FORM_MIN)
             xs = np.where(xh < 1e-8, 1.0, xh)
-            shc = np.where(xh < 1e-8, 1.0, np.sinh(xs) / xs)
-            shc2 = np.where(xh < 1e-8, 1.0, np.sinh(2 * xs) / (2 * xs))
-            m2h = np.where(xh < 0.1, _series(4.0 * xh * xh, 1.0),
-                           (shc2 - 1.0) / (xs * xs))
-            self.alpha[:, h] = np.where(th, 0.5 * l * (1.0 + shc2), self.alpha[:, h])
+            sh = np.where(xh < 1e-8, 1.0, np.sinh(xs) / xs)
+            sh2 = np.where(xh < 1e-8, 1.0, np.sinh(2 * xs) / (2 * xs))
+            m2h = np.where(xh < 0.1, _series(4.0 * xh * xh, 1.0), (sh2 - 1.0) / (xs * xs))
+            self.alpha[:, h] = np.where(th, 0.5 * l * (1.0 + sh2), self.alpha[:, h])
             self.gamma[:, h] = np.where(th, 0.5 * l ** 3 * m2h, self.gamma[:, h])
-            self.beta[:, h] = np.where(th, l * l * shc * shc, self.beta[:, h])
+            self.beta[:, h] = np.where(th, l * l * sh * sh, self.beta[:, h])
 
 
-def shoot(terms: LayerTerms, direction: int, every: int = _RESCALE_EVERY):
-    """States (V, P) and log scales L at every face, shooting from one end.
+def shoot(terms: LayerTerms, every: int = _RESCALE_EVERY):
+    """States at every face, shooting from the top and from the bottom.
 
     The state at face j is (V, P) exp(L); (V, P) is rescaled every ``every`` faces.
-    Returns V, P, L of shape (N+1, n).
+    Returns VL, PL, LL, VR, PR, LR of shape (N+1, n) (top shot, bottom shot).
     """
-    op = terms.op
-    nL = op.n_layers
+    return _shoot(terms, +1, every) + _shoot(terms, -1, every)
+
+
+def _shoot(terms, direction, every):
+    """One shot: (v1, p1) = c (v, p) +- (b12 p, b21 v) across each layer, three row
+    operations per layer."""
+    prep = terms.prep
+    nL = prep.op.n_layers
     n = terms.lam.size
     VP = np.empty((nL + 1, 2, n))
-    end = "top" if direction > 0 else "bottom"
-    c_v, c_p, _ = op.v_condition(end)
-    j0 = 0 if direction > 0 else nL
-    i_edge = 0 if direction > 0 else nL - 1
-    sc = op.k[i_edge] / op.thickness[i_edge]
-    nrm = np.hypot(sc * c_p, c_v)
-    VP[j0, 0] = c_p / nrm
-    VP[j0, 1] = -c_v / nrm
-    # (v1, p1) = c (v, p) +- (b12 p, b21 v)
-    combine = np.add if direction > 0 else np.subtract
+    L = np.empty((nL + 1, n))
+    down = direction > 0
+    j0 = 0 if down else nL
+    VP[j0] = prep.ends[0 if down else 1]
+    combine = np.add if down else np.subtract
     mul = np.multiply
-    C, B = list(terms.c), list(terms.B)
-    rows = list(VP)
-    scl = (op.k / op.thickness).tolist()
-    big_rows = set(terms.big_rows.tolist())
+    Cl, Bl, VPl, Ll = list(terms.c), list(terms.B), list(VP), list(L)
+    scl = prep.kl[:, 0].tolist()
+    big_rows = terms.big_rows
+    logc = terms.logc
     tmp = np.empty((2, n))
-    # log-scales from the rescalings, (face, log nrm), in shooting order
-    rescaled = []
-    order = range(nL) if direction > 0 else range(nL - 1, -1, -1)
+    acc = np.zeros(n)
+    L[j0] = 0.0
+    norms = []
+    order = range(nL) if down else range(nL - 1, -1, -1)
     for step, i in enumerate(order, start=1):
-        jout = i + 1 if direction > 0 else i
-        st, out = rows[i if direction > 0 else i + 1], rows[jout]
-        mul(C[i], st, out=out)
-        mul(B[i], st[::-1], out=tmp)
+        jin, jout = (i, i + 1) if down else (i + 1, i)
+        st, out = VPl[jin], VPl[jout]
+        mul(Cl[i], st, out=out)
+        mul(Bl[i], st[::-1], out=tmp)
         combine(out, tmp, out=out)
-        if i in big_rows:
+        if big_rows and i in big_rows:
             _big_step(terms, i, st, out, direction)
+        if logc is not None:
+            acc += logc[i]
         if step % every == 0 or step == nL:
             nrm = np.hypot(scl[i] * out[0], out[1])
             out /= nrm
-            rescaled.append((jout, nrm))
-    norms = np.array([r[1] for r in rescaled])
-    if not (np.all(np.isfinite(norms)) and np.all(norms > 0)) and every > 1:
-        return shoot(terms, direction, every=1)
-    np.log(norms, out=norms)
-    rescaled = [(j, lg) for (j, _), lg in zip(rescaled, norms)]
-    L = np.empty((nL + 1, n))
-    L[j0] = 0.0
-    acc = np.zeros(n)
-    prev = j0
-    for j, lg in rescaled:
-        # faces after ``prev`` up to ``j`` (exclusive) keep the scale of ``prev``
-        if direction > 0:
-            L[prev + 1:j] = acc
+            norms.append(nrm)
+            acc += np.log(nrm)
+            Ll[jout][...] = acc
+        elif logc is not None:
+            Ll[jout][...] = acc
         else:
-            L[j + 1:prev] = acc
-        acc = acc + lg
-        L[j] = acc
-        prev = j
-    if terms.logc is not None:
-        # the cosh scaling of the evanescent transfers, accumulated in shooting order
-        lc = terms.logc
-        if direction > 0:
-            L[1:] += np.cumsum(lc, axis=0)
-        else:
-            L[:-1] += np.cumsum(lc[::-1], axis=0)[::-1]
+            Ll[jout][...] = Ll[jin]
+    if every > 1 and norms:
+        allnrm = np.concatenate(norms)
+        if not (np.all(np.isfinite(allnrm)) and np.all(allnrm > 0)):
+            return _shoot(terms, direction, 1)
     return VP[:, 0], VP[:, 1], L
 
 
@@ -270,28 +298,27 @@ class AngleScales:
     in it (shared by both shots)."""
 
     def __init__(self, terms: LayerTerms):
-        op = terms.op
-        nL = op.n_layers
-        kl = (op.k / op.thickness)[:, None]
-        x, trig = terms.x, terms.trig
+        prep = terms.prep
+        nL = prep.op.n_layers
+        x = terms.x
         n = terms.lam.size
-        self.tr = trig & (x >= SMALL_X)  # stepped in the scale k w
-        self.all_tr = bool(self.tr.all())
+        if terms.all_trig and x.min() >= SMALL_X:
+            self.tr, self.all_tr = None, True
+        else:
+            self.tr = terms.trig & (x >= SMALL_X)  # stepped in the scale k w
+            self.all_tr = bool(self.tr.all())
         S = np.empty((nL + 1, n))
-        S[0] = kl[0, 0]
-        np.multiply(kl, x, out=S[1:])
+        S[0] = prep.kl0
+        np.multiply(prep.kl, x, out=S[1:])
         if not self.all_tr:
-            S[1:] = np.where(self.tr, S[1:], kl)
+            S[1:] = np.where(self.tr, S[1:], prep.kl)
         self.S = S
-        self.rho_m1 = S[1:] / S[:-1]
-        self.rho = self.rho_m1.copy()
-        self.rho_m1 -= 1.0
+        self.rho = S[1:] / S[:-1]
+        self.rho_m1 = self.rho - 1.0
         # the common, lambda-continuous end scale
-        self.final = kl[-1, 0] * np.sqrt(x[-1] * x[-1] + 1.0)
-        d_v, d_p, _ = op.v_condition("bottom")
-        self.beta = bc_angle(d_v, d_p, self.final, right=True)
-        c_v, c_p, _ = op.v_condition("top")
-        self.theta0 = float(bc_angle(c_v, c_p, kl[0, 0], right=False))
+        self.final = prep.kl_last * np.sqrt(x[-1] * x[-1] + 1.0)
+        self.beta = bc_angle(prep.d_v, prep.d_p, self.final, right=True)
+        self.theta0 = prep.theta0
 
 
 def increments(terms: LayerTerms, sc: AngleScales, v, p, below=None):
@@ -369,21 +396,31 @@ def _slow_increments(terms, sc, v, p, cols, inc, up=None):
     inc[:, cols] += add
 
 
-def layer_integrals(terms: LayerTerms, V, P, L, V1=None, L1=None):
+def layer_integrals(terms: LayerTerms, V, P, L, bottom=None):
     """int_layer v^2 dz of the solution with state (V, P) exp(L) at the top of each
-    layer (arrays (N, n)) and (V1, P1) exp(L1) at its bottom, as (I, lg): the integral
-    is I exp(lg), lg = 2 L except in the thick evanescent entries, whose integral comes
-    from both faces in the two-exponential form.  With V1, L1 None, V and L hold the
-    N+1 faces of one shot.  Closed forms: sinc and sinh series of the layer solution.
+    layer (arrays (N, n)), as (I, lg): the integral is I exp(lg), lg = 2 L except in
+    the thick evanescent entries, whose integral comes from both faces in the
+    two-exponential form: ``bottom(rows)`` gives (V1, L1) at the bottom faces of those
+    layers; with ``bottom`` None, V, P and L hold the N+1 faces of one shot.  Closed
+    forms: sinc and sinh series of the layer solution.
     """
     op = terms.op
     nL = op.n_layers
-    if V1 is None:
-        V, V1, L, L1, P = V[:-1], V[1:], L[:-1], L[1:], P[:nL]
-    pk = P / op.k[:, None]
-    integral = terms.alpha * V * V
-    integral += terms.gamma * pk * pk
-    integral += terms.beta * V * pk
+    if bottom is None:
+        Vf, Lf = V, L
+        V, P, L = V[:nL], P[:nL], L[:nL]
+
+        def bottom(rows):
+            return Vf[rows + 1], Lf[rows + 1]
+    pk = P / terms.prep.k
+    integral = terms.alpha * V
+    integral *= V
+    tmp = terms.gamma * pk
+    tmp *= pk
+    integral += tmp
+    np.multiply(terms.beta, V, out=tmp)
+    tmp *= pk
+    integral += tmp
     lg = 2.0 * L
     if terms.hcols.size:
         endpoint = (~terms.trig) & (terms.x > ENDPOINT_FORM_MIN)
@@ -391,10 +428,11 @@ def layer_integrals(terms: LayerTerms, V, P, L, V1=None, L1=None):
         if rows.size:
             l = op.thickness[rows][:, None]
             e_ = endpoint[rows]
-            L0, L1r = L[rows], L1[rows]
+            V1r, L1r = bottom(rows)
+            L0 = L[rows]
             lm = np.maximum(L0, L1r)
             V0 = V[rows] * np.exp(L0 - lm)
-            V1r = V1[rows] * np.exp(L1r - lm)
+            V1r = V1r * np.exp(L1r - lm)
             xr = terms.x[rows]
             e = np.exp(-xr)
             det = -np.expm1(-2 * xr)
