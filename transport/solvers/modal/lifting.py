@@ -63,6 +63,23 @@ class SteadyResponses:
         return u, op.k[lay][:, None] * du
 
 
+    def layer_sums(self, z, w):
+        """sum of w_q u(z_q) over the depths z_q in each layer: (N, K), without forming
+        u at every depth (u is c1 f1 + c2 f2 plus the source's particular solution on
+        each layer)."""
+        op = self.op
+        N = op.n_layers
+        z = np.atleast_1d(np.asarray(z, dtype=float))
+        lay = np.clip(np.searchsorted(op.z, z, side="right") - 1, 0, N - 1)
+        f1, _, f2, _, pp, _ = _basis(self, lay, z - op.z[lay])
+        s1 = np.bincount(lay, weights=w * f1, minlength=N)
+        s2 = np.bincount(lay, weights=w * f2, minlength=N)
+        sp = np.bincount(lay, weights=w * pp, minlength=N)
+        out = self.c1 * s1[:, None] + self.c2 * s2[:, None]
+        out[np.arange(N), 2 + np.arange(N)] += op.source * sp
+        return out
+
+
 def _roots(op, m_eff):
     q, k = op.q, op.k
     sq = np.sqrt(q * q + 4.0 * k * m_eff)

@@ -383,27 +383,42 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
     u0 = initial_profile(column, initial, zq) / op.kappa[lq]
     proj0 = np.zeros(lam.size)
     mass_modes = np.zeros((op.n_layers, lam.size))
+    # e^{2A} at the nodes turns psi e^{-A} into psi e^{A} (one evaluation for both) where
+    # it cannot overflow
+    A_q = op.A[lq] + op.alpha[lq] * (zq - op.z[lq])
+    shared = np.max(np.abs(A_q)) < 300.0
     chunk = max(1, 4_000_000 // max(lam.size, 1))
     for start in range(0, zq.size, chunk):
         sl = slice(start, start + chunk)
         psi_m, _ = md.evaluate(zq[sl], exp_sign=-1)
         wa = wq[sl] * op.a[lq[sl]]
         proj0 += (wa * u0[sl]) @ psi_m
-        for i in np.unique(lq[sl]):
-            if op.source[i] != 0.0:
-                sel = lq[sl] == i
+        for i in np.flatnonzero(op.source):
+            sel = lq[sl] == i
+            if sel.any():
                 green[2 + i] += (wq[sl][sel] * op.source[i]) @ psi_m[sel]
-        psi_p, _ = md.evaluate(zq[sl], exp_sign=+1)
-        np.add.at(mass_modes, lq[sl], wa[:, None] * psi_p)
+        if shared:
+            psi_m *= (wa * np.exp(2.0 * A_q[sl]))[:, None]
+        else:
+            psi_m = wa[:, None] * md.evaluate(zq[sl], exp_sign=+1)[0]
+        _add_by_layer(mass_modes, lq[sl], psi_m)
     lift_coef = green / (lam + eps)[None, :]
-    u_lift, _ = lift.evaluate(zq)
-    mass_lift = np.zeros((op.n_layers, K))
-    np.add.at(mass_lift, lq, (wq * op.a[lq])[:, None] * u_lift)
+    mass_lift = lift.layer_sums(zq, wq * op.a[lq])
     initial_mass = float(np.sum(wq * op.a[lq] * u0))
     return ModalSeries(column=column, op=op, modes=md, lifting=lift, signals=signals,
                        proj0=proj0, lift_coef=lift_coef, mass_modes=mass_modes,
                        mass_lift=mass_lift, initial=initial, initial_mass=initial_mass,
                        breaks=tuple(breaks), extra_rate=extra_rate)
+
+
+def _add_by_layer(out, lay, rows):
+    """out[lay[i]] += rows[i] for a nondecreasing ``lay`` (quadrature nodes in depth
+    order), one sum per run of equal layers."""
+    if np.any(np.diff(lay) < 0):
+        np.add.at(out, lay, rows)
+        return
+    layers, first = np.unique(lay, return_index=True)
+    out[layers] += np.add.reduceat(rows, first, axis=0)
 
 
 def solve(column: Column, times, depths, *, initial=None, tolerance: float = None,
