@@ -372,8 +372,11 @@ def second_site(folder: Path, borings=BORINGS):
 
 
 SITE_FAULTS = {
-    "solve": ("transport.site.batch.solve_chunk", None),  # fails at the second chunk
-    "netcdf chunk": ("transport.io.site_netcdf.SiteNetCDFWriter.write_chunk", None),
+    # the workers' solve (packed chunks) fails at the second chunk
+    "solve": ("transport.site.batch.solve_packed", None, 2),
+    # the NetCDF writer takes blocks of chunks: this small site is one block, so the
+    # first write fails
+    "netcdf chunk": ("transport.io.site_netcdf.SiteNetCDFWriter.write_chunk", None, 1),
     "station table": ("transport.site.run.station_table", raiser),
     "geopackage": ("transport.site.run.write_geopackage", raiser),
     "geojson": ("transport.site.run.write_geojson", raiser),
@@ -392,7 +395,7 @@ def test_site_failure_at_each_step_keeps_previous_files(site_baseline, tmp_path,
     before = snapshot(out)
     site = second_site(tmp_path)
     spec = SITE_FAULTS[step]
-    if spec[1] is None:  # a method or function failing on its second call
+    if spec[1] is None:  # a method or function failing on its n-th call (spec[2])
         module_path, name = spec[0].rsplit(".", 1)
         import importlib
 
@@ -401,7 +404,7 @@ def test_site_failure_at_each_step_keeps_previous_files(site_baseline, tmp_path,
         except ImportError:
             mod, cls = module_path.rsplit(".", 1)
             owner = getattr(importlib.import_module(mod), cls)
-        monkeypatch.setattr(owner, name, fail_on_call(getattr(owner, name), 2))
+        monkeypatch.setattr(owner, name, fail_on_call(getattr(owner, name), spec[2]))
     else:
         _inject(monkeypatch, spec)
     with pytest.raises((Injected, PermissionError)):

@@ -269,6 +269,13 @@ def assert_station_equals_column_run(site, result, boring_id, scenario):
                 tolerance=site.tolerance)
     for name in ("concentration", "cumulative_mass"):
         got, want = result.fields[name][k][:, inside], getattr(ref, name)
+        if name == "concentration":
+            # the site, as solve_column, moves a value below the physical lower bound
+            # (C >= 0 for a non-negative source and initial state: the maximum
+            # principle, Protter & Weinberger 1967, ch. 3) onto it when it lies within
+            # its error bound; a rounding-level negative of the raw series becomes 0
+            scale = np.max(np.abs(want))
+            want = np.where((want < 0) & (want >= -site.tolerance * scale), 0.0, want)
         assert np.max(np.abs(got - want)) <= 1e-12 * np.max(np.abs(want)), name
     return ref, inside
 
