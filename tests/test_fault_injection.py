@@ -21,6 +21,7 @@ import signal
 import subprocess
 import sys
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import netCDF4
@@ -33,6 +34,7 @@ from matplotlib.figure import Figure
 from test_site import BORINGS, SITE_TOML, write_small_site
 from test_site_outputs import MC
 from transport.cli.main import main
+from transport.io import netcdf_file
 from transport.io.atomic import TEMP_PATTERN, OutputSet, clean_stale
 from transport.site.config import load_site
 from transport.site.run import run_site
@@ -126,6 +128,17 @@ def replace_failing_for(suffix):
     return replace
 
 
+def partial_write_layout():
+    """The single run's NetCDF writer (netCDF4-python) writing part of the file, then
+    reporting a full disk."""
+    real = netcdf_file.write_layout
+
+    def write_layout(layout, target):
+        real(replace(layout, metrics={}), target)
+        raise OSError(28, "No space left on device (injected)", os.fspath(target))
+    return write_layout
+
+
 def partial_to_netcdf():
     """Dataset.to_netcdf that writes part of the file, then reports a full disk."""
     real = xr.Dataset.to_netcdf
@@ -178,7 +191,7 @@ RUN_FAULTS = {
     "solve": ("transport.cli.common.solve_scenario", raiser),
     "summary": ("transport.cli.run.summary_lines", raiser),
     "netcdf writer": ("transport.cli.run.write_column_netcdf", raiser),
-    "netcdf disk full": (xr.Dataset, "to_netcdf", partial_to_netcdf),
+    "netcdf disk full": (netcdf_file, "write_layout", partial_write_layout),
     "profiles figure": ("transport.plot.column.plot_profiles", raiser),
     "breakthrough figure": ("transport.plot.column.plot_breakthrough", raiser),
     "second savefig": (Figure, "savefig", lambda: partial_savefig(2)),

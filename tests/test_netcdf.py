@@ -26,10 +26,10 @@ from pathlib import Path
 import netCDF4
 import numpy as np
 import pytest
-import xarray as xr
 from scipy.special import erfc
 
 from transport.caution import CAUTION
+from transport.io import netcdf_file
 from transport.io.netcdf import (
     column_dataset,
     elapsed_seconds,
@@ -280,15 +280,15 @@ def test_failure_mid_write_keeps_existing_file(tmp_path, monkeypatch):
     path = tmp_path / "out.nc"
     write_example(path, title="first run")
     before = path.read_bytes()
-    real_to_netcdf = xr.Dataset.to_netcdf
+    real_write = netcdf_file.write_layout
 
-    def crash_after_partial_write(self, target, *args, **kwargs):
-        real_to_netcdf(self.isel(time=slice(0, 1)), target, *args, **kwargs)
+    def crash_after_partial_write(layout, target):
+        real_write(replace(layout, metrics={}), target)
         with open(target, "ab") as handle:
             handle.write(b"\0" * 128)  # the disk filled up half-way
         raise OSError(28, "No space left on device", str(target))
 
-    monkeypatch.setattr(xr.Dataset, "to_netcdf", crash_after_partial_write)
+    monkeypatch.setattr(netcdf_file, "write_layout", crash_after_partial_write)
     with pytest.raises(OSError, match="No space left"):
         write_example(path, title="second run")
     assert path.read_bytes() == before
@@ -313,10 +313,10 @@ def test_interrupt_during_write_removes_temp_file(tmp_path, monkeypatch):
     """Ctrl-C (KeyboardInterrupt) during the write also cleans up."""
     path = tmp_path / "out.nc"
 
-    def interrupted(self, target, *args, **kwargs):
+    def interrupted(layout, target):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(xr.Dataset, "to_netcdf", interrupted)
+    monkeypatch.setattr(netcdf_file, "write_layout", interrupted)
     with pytest.raises(KeyboardInterrupt):
         write_example(path)
     assert _leftovers(tmp_path, set()) == []

@@ -11,9 +11,8 @@ from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
 from transport.cli.common import (UserError, echo_wrapped, progress, setting, solve,
                                   write_plots)
-from transport.cli.run_chain import run_chain
 from transport.io.atomic import OutputSet, terminate_as_exit
-from transport.io.netcdf import write_column_netcdf
+from transport.io.netcdf_file import write_column_netcdf
 from transport.scenario.schema import load_scenario
 
 __all__ = ["run"]
@@ -67,6 +66,8 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
         if engine not in ("auto", "laplace"):
             raise UserError(f"{scenario}: a decay chain is solved by the Laplace engine; "
                             f"use --engine auto or laplace, not {engine}")
+        # a chain's file is joined with xarray: loaded only for a chain (start-up time)
+        from transport.cli.run_chain import run_chain
         command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
         return run_chain(sc, scenario, output, plots_dir, engine, tolerance,
                          allow_unreliable, command)

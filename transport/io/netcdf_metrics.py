@@ -13,7 +13,6 @@ not vouch for) holds the fill value. Every variable carries the caution.
 from __future__ import annotations
 
 import numpy as np
-import xarray as xr
 
 from transport.caution import CAUTION
 from transport.units import DAY
@@ -64,10 +63,12 @@ def metric_variables(views) -> dict:
 
     Returns
     -------
-    dict of str to xarray.Variable
-        Each with ``long_name``, UDUNITS ``units`` (flags: ``flag_values`` and
-        ``flag_meanings``), the caution ``comment`` and its encoding set (float64 with
-        the fill value; the flags as bytes).
+    dict of str to tuple
+        ``(dims, value, attrs, encoding)`` as xarray takes a variable (and
+        :func:`transport.io.netcdf_file.write_layout` writes one): ``attrs`` with
+        ``long_name``, UDUNITS ``units`` (flags: ``flag_values`` and ``flag_meanings``)
+        and the caution ``comment``; ``encoding`` float64 with the fill value, the flags
+        as bytes.
     """
     if views is None:
         return {}
@@ -78,11 +79,11 @@ def metric_variables(views) -> dict:
             if field in ("first_exceedance", "time_above_level") and \
                     m.screening_level is None:
                 continue
-            out[f"{stem}_{suffix}"] = xr.Variable(
+            out[f"{stem}_{suffix}"] = (
                 (), _value(field, getattr(m, field)),
                 {"long_name": f"{long_name}, {window}", "units": units,
                  "coverage_content_type": "modelResult", "comment": CAUTION},
-                encoding={"dtype": "float64", "_FillValue": _FILL})
+                {"dtype": "float64", "_FillValue": _FILL})
     flags = (("peak_after_design_life", views.peak_after_design_life,
               "whether the peak concentration at the receptor lies after the design life "
               "(still rising at its end beyond twice the error bound of the concentration, "
@@ -92,8 +93,8 @@ def metric_variables(views) -> dict:
               "run (highest at the end and still rising there beyond twice the error "
               "bound of the concentration)"))
     for name, value, long_name in flags:
-        out[name] = xr.Variable((), np.int8(bool(value)), {
+        out[name] = ((), np.int8(bool(value)), {
             "long_name": long_name, "flag_values": np.array([0, 1], dtype=np.int8),
             "flag_meanings": "no yes", "coverage_content_type": "modelResult",
-            "comment": CAUTION}, encoding={"dtype": "int8", "_FillValue": None})
+            "comment": CAUTION}, {"dtype": "int8", "_FillValue": None})
     return out
