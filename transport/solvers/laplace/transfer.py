@@ -319,13 +319,26 @@ class LaplaceTransfer:
             ok = (col >= 0) & (col < n)
             ab[:, col[ok], 6 - j] = band[:, rows[ok], j]
         # each system is solved in place: rhs[j] becomes its solution
-        info = [zgbsv(2, 2, a.T, b, overwrite_ab=1, overwrite_b=1)[3]
-                for a, b in zip(ab, rhs)]
-        if info and max(info) > 0:
-            raise np.linalg.LinAlgError("singular matrix")
-        if info and min(info) < 0:  # pragma: no cover - the arguments are built above
-            raise ValueError(f"illegal value in argument {-min(info)} of gbsv")
-        return rhs.reshape(ns, self.n, 2).transpose(2, 1, 0)  # (2, nseg, ns)
+        info = np.array([zgbsv(2, 2, a.T, b, overwrite_ab=1, overwrite_b=1)[3]
+                         for a, b in zip(ab, rhs)], dtype=int)
+        if info.size and info.min() < 0:  # pragma: no cover - the arguments are built above
+            raise ValueError(f"illegal value in argument {-info.min()} of gbsv")
+        self.capped |= info > 0
+        rhs[info > 0] = 0.0
+        return self._unusable(rhs).reshape(ns, self.n, 2).transpose(2, 1, 0)
+
+    def _unusable(self, sol):
+        """Solutions (ns, n) with systems that were singular in floating point or gave
+        non-finite coefficients: those s are flagged like a capped exponent (their
+        inversions carry an infinite error estimate, so another contour or engine
+        serves, or the time is refused) and their coefficients set to 0.  This happens
+        far out on a contour in layers of very high Peclet number, where both
+        exponentials of a layer fall below the smallest double across it."""
+        bad = ~np.isfinite(sol).all(axis=1)
+        if bad.any():
+            self.capped |= bad
+            sol[bad] = 0.0
+        return sol
 
     def locate(self, depths):
         """Segment index and local depth of each output depth (the segment below a face)."""
