@@ -4,6 +4,8 @@ Tarjan 1972, "Depth-first search and linear graph algorithms", SIAM J. Comput. 1
 """
 from __future__ import annotations
 
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -65,6 +67,21 @@ def test_modules_stay_readable(graph):
     long = {m: n for m, p in graph.modules.items()
             if (n := len(p.read_text(encoding="utf-8").splitlines())) > MAX_LINES}
     assert long == {}
+
+
+def test_run_command_loads_only_what_a_single_run_needs():
+    """``stratiflux run`` (its modules, in a fresh interpreter) loads neither xarray,
+    pandas nor Dask, nor the finite-volume engine (scipy.integrate), the decay-chain
+    and staged-run solvers or matplotlib: they load when a run asks for them
+    (DEVELOPERS.md, start-up; benchmarks/bench_startup.py)."""
+    lazy = ("xarray", "pandas", "dask", "scipy.integrate", "matplotlib",
+            "transport.solvers.fv.engine", "transport.solvers.chain",
+            "transport.solvers.timeline", "transport.io.netcdf")
+    code = ("import sys, transport.cli.main, transport.cli.run;"
+            f"print(' '.join(m for m in {lazy!r} if m in sys.modules))")
+    loaded = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            check=True).stdout.split()
+    assert loaded == []
 
 
 def test_public_names_resolve():

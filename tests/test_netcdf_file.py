@@ -7,8 +7,6 @@ The CF checks of tests/test_netcdf.py run on files of the direct writer.
 from __future__ import annotations
 
 import datetime as dt
-import subprocess
-import sys
 from dataclasses import replace
 from pathlib import Path
 
@@ -121,13 +119,3 @@ def test_run_file_equals_the_xarray_file_of_the_same_run(tmp_path):
                                                  engine="netcdf4")
     assert differences(dump(tmp_path / "xr.nc", drop=WRITE_TIME),
                        dump(tmp_path / "run.nc", drop=WRITE_TIME)) == []
-
-
-def test_run_command_does_not_load_xarray():
-    """The modules of ``stratiflux run`` load neither xarray nor pandas (start-up time;
-    benchmarks/bench_startup.py): checked in a fresh interpreter."""
-    code = ("import sys, transport.cli.main, transport.cli.run, transport.io.netcdf_file;"
-            "print(' '.join(m for m in ('xarray', 'pandas') if m in sys.modules))")
-    loaded = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                            check=True).stdout.split()
-    assert loaded == []

@@ -11,9 +11,8 @@ import numpy as np
 
 from transport.model.column import Column, InitialState, InputError
 from transport.scenario.schema import Scenario
-from transport.solvers.chain import solve_chain
 from transport.solvers.engines import FV_TOLERANCE, solve_column
-from transport.solvers.timeline import Timeline, solve_timeline
+from transport.solvers.stages import Timeline
 
 __all__ = ["solve", "solve_scenario"]
 
@@ -77,6 +76,7 @@ def solve(target, times=None, depths=None, *, initial: InitialState = None,
     depths = np.asarray(depths, dtype=float)
     tol = _tolerance(tolerance, engine, default=None)
     if isinstance(target, Timeline):
+        from transport.solvers.timeline import solve_timeline  # staged runs: when asked for
         extra = {} if tol is None else {"tolerance": tol}
         return solve_timeline(target, times, depths, initial=initial, engine=engine,
                               on_unreliable=on_unreliable, **extra)
@@ -130,10 +130,12 @@ def _solve_scenario(scenario, depths, times, engine, tolerance, on_unreliable, i
         if engine not in ("auto", "laplace"):
             raise InputError(f"a decay chain is solved by the Laplace engine; use engine "
                              f"auto or laplace, not {engine!r}")
+        from transport.solvers.chain import solve_chain  # a decay chain: when asked for
         initials = (initial,) + (InitialState.clean(),) * (len(scenario.chain.columns) - 1)
         return solve_chain(scenario.chain, times, depths, initials=initials, tolerance=tol,
                            on_unreliable=on_unreliable)
     if scenario.timeline is not None and len(scenario.timeline.stages) > 1:
+        from transport.solvers.timeline import solve_timeline  # staged runs: when asked for
         return solve_timeline(scenario.timeline, times, depths, initial=initial,
                               tolerance=tol, engine=engine, on_unreliable=on_unreliable)
     return solve_column(scenario.column, times, depths, initial=initial, engine=engine,

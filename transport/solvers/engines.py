@@ -27,8 +27,7 @@ from transport.model.column import Column, InitialState, InputError, has_source_
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
                                       clip_to_bounds, concentration_bounds, describe_refusal,
                                       own_errors, quantities)
-from transport.solvers.fv.engine import DEFAULT_TOLERANCE as FV_TOLERANCE
-from transport.solvers.fv.engine import solve_fv_result
+from transport.solvers.fv.defaults import DEFAULT_TOLERANCE as FV_TOLERANCE
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.laplace.contour import companion_nodes, default_nodes
 from transport.solvers.modal import series as modal
@@ -299,6 +298,8 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
                     "engine alone, vouched for by its own bound (two node counts), the "
                     "physical bounds and the mass budget")
     elif engine == "finite-volume":
+        # loaded when asked for: the engine brings scipy.integrate (start-up time)
+        from transport.solvers.fv.engine import solve_fv_result
         fv = solve_fv_result(column, times, depths, initial=initial, tolerance=tolerance,
                              cells_per_layer=cells_per_layer)
         cands = [("finite-volume", _expand(fv, everything, nt)), ("laplace", lap_c)]

@@ -38,6 +38,7 @@ import numpy as np
 
 from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.fv.assembly import face_values, initial_at, initial_cells
+from transport.solvers.fv.defaults import DEFAULT_TOLERANCE, MAX_CELLS
 from transport.solvers.fv.mesh import fixed_plan, plan_mesh
 from transport.solvers.fv.richardson import estimate
 from transport.solvers.fv.stepping import DEFAULT_RTOL, integrate
@@ -45,11 +46,6 @@ from transport.solvers.result import Solution
 
 __all__ = ["solve_fv", "solve_fv_result", "FVAccuracyWarning", "DEFAULT_TOLERANCE",
            "MAX_CELLS"]
-
-#: Default relative tolerance of C (of the largest |C| in the column at each time).
-DEFAULT_TOLERANCE = 1e-3
-#: Default cap on the cells of the finest mesh of the refinement.
-MAX_CELLS = 20000
 
 
 class FVAccuracyWarning(UserWarning):
