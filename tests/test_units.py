@@ -1,4 +1,5 @@
 """Unit parsing: SI definitions and error messages (transport.units)."""
+import importlib.util
 import math
 
 import pytest
@@ -128,3 +129,22 @@ def test_percent_for_fractions():
     """1 % = 1e-2 (ISO 80000-1)."""
     assert to_si("0.4 %", "dimensionless", "foc") == pytest.approx(0.004, rel=1e-15)
     assert to_si("35 %", "dimensionless", "n") == pytest.approx(0.35, rel=1e-15)
+
+
+def test_pint_loads_without_dask_and_dask_still_imports():
+    """transport.units imports pint without letting it load Dask (start-up time,
+    benchmarks/bench_startup.py), converts as before, and leaves Dask importable
+    afterwards (site runs use it). Checked in a fresh interpreter."""
+    import subprocess
+    import sys
+
+    code = ("import sys, transport.units as u;"
+            "print('dask' in sys.modules, 'dask' in sys.modules and sys.modules['dask'] is None);"
+            "print(u.to_si('5 cm/d', 'velocity'));"
+            "import importlib.util; print(importlib.util.find_spec('dask') is not None)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.split("\n")
+    assert out[0] == "False False"
+    assert float(out[1]) == pytest.approx(0.05 / 86400.0, rel=1e-15)
+    if importlib.util.find_spec("dask") is not None:  # installed: found again afterwards
+        assert out[2] == "True"
