@@ -4,7 +4,6 @@ modal path would cost far more, is served by the Laplace engine with its own err
 bound, checked against the independent mpmath solution of tests/reference.py (the
 layered problem solved exactly in the Laplace domain, inverted with mpmath's Talbot
 rule, Abate & Valko 2004)."""
-import time
 
 import numpy as np
 import pytest
@@ -42,17 +41,14 @@ def test_estimate_prefers_laplace_for_a_thousand_thin_layers_only():
     assert not estimate_costs(few, TIMES, 1e-8, n_depths=401, reads=0).laplace_only
 
 
-def test_thousand_thin_layers_solved_by_laplace_alone_and_fast():
+def test_thousand_thin_layers_solved_by_laplace_alone():
     col = thin_column(1000)
     depths = np.linspace(0.0, col.length, 21)
-    t0 = time.perf_counter()
     sol = solve_column(col, TIMES, depths, reads=0)
-    took = time.perf_counter() - t0
     assert set(sol.engine_by_time) == {"laplace"} and sol.reliable.all()
     assert "Laplace chosen" in sol.diagnostics["engine_choice"]
     assert np.all(sol.error_estimate <= 1e-8 * sol.scale["concentration"])
-    # the modal path alone took 6-17 s on this column (benchmarks/bench_engines.py)
-    assert took < 6.0
+    # the cost of either path on this column: python benchmarks/bench_engines.py thin
 
 
 def test_laplace_choice_matches_the_mpmath_reference(monkeypatch):

@@ -341,16 +341,14 @@ def _stepped(n_steps):
     return parse_scenario(with_("count = 20", "count = 10", text))
 
 
-def test_metrics_of_a_monthly_stepped_source_take_seconds_not_minutes():
-    """24 monthly steps served by the Laplace engine: each curve sample inverts 25
-    switch-on groups.  Measured on the development machine: 5.0 s with scipy's
-    solve_banded per system, 0.9 s with the direct LAPACK call."""
+def test_metrics_of_a_monthly_stepped_source_served_by_laplace():
+    """24 monthly steps served by the Laplace engine (each curve sample inverts 25
+    switch-on groups): the receptor metrics come out, the first exceedance inside the
+    run.  Its cost is measured by benchmarks/bench_checks.py, not here."""
     sc = _stepped(24)
     sol, _ = solve_scenario(sc, engine="laplace")
-    t0 = time.perf_counter()
     m = receptor_metrics(sol, sc.output.receptor_depth, sc.output.screening_level,
                          sc.output.design_life)
-    assert time.perf_counter() - t0 < 4.0
     assert 1.0 < m.first_exceedance / (365.25 * 86400) < 30.0
 
 
