@@ -75,10 +75,17 @@ def format_layer_table(rows) -> str:
 def check(scenario):
     """Validate SCENARIO and print the derived per-layer properties.
 
+    A site file (the one `stratiflux site` reads) is validated too, with the two CSV
+    files it names, before a long run: every problem of both files in one message.
+
     \b
     Example:
       stratiflux check scenarios/spill-layered-column.toml
+      stratiflux check data/site-demo/site.toml
     """
+    if _is_site_file(scenario):
+        _check_site(scenario)
+        return
     sc = load_scenario(scenario)
     click.echo(f"Scenario: {sc.title}")
     table = sc.derived_table()
@@ -92,3 +99,55 @@ def check(scenario):
             click.echo(f"{end.capitalize()}: {describe_zone(getattr(sc.column, end))}")
     click.echo(f"OK: {scenario} is valid ({len(sc.column.layers)} layer(s), "
                f"{sc.column.length:g} m).")
+
+
+#: Keys only a site file has (a scenario file refuses them as unknown).
+_SITE_ONLY = ("crs", "borings_file", "log_file", "materials")
+
+
+def _is_site_file(path) -> bool:
+    """Whether ``path`` holds TOML with a key only a site file has (anything that cannot
+    be read or parsed goes to the scenario reader, whose message names the problem)."""
+    import tomllib
+
+    from transport.scenario.reader import read_text_file
+
+    try:
+        data = tomllib.loads(read_text_file(path))
+    except (ValueError, OSError):
+        return False
+    return isinstance(data, dict) and any(k in data for k in _SITE_ONLY)
+
+
+def _check_site(path):
+    """Load and validate a site file and its CSVs; print what a run would do."""
+    from transport.site.config import load_site
+    from transport.units import UG_PER_L
+
+    site = load_site(path)
+    click.echo(f"Site: {site.title}")
+    crs = site.crs
+    click.echo(f"CRS: {crs.name}" + (f" (EPSG:{site.epsg})" if site.epsg else ""))
+    n = len(site.borings)
+    layers = [len(b.intervals) for b in site.borings]
+    depths = [b.intervals[-1][1] for b in site.borings]
+    used = sorted({m for b in site.borings for _, _, m in b.intervals})
+    click.echo(f"Borings: {n}; {min(layers)} to {max(layers)} interval(s) each, logs "
+               f"{min(depths):g} to {max(depths):g} m deep; "
+               f"{sum(bool(b.initial) for b in site.borings)} with a measured initial "
+               "profile")
+    click.echo(f"Materials: {len(site.materials)} defined ({', '.join(site.materials)}); "
+               f"used by the logs: {', '.join(used)}")
+    unused = [m for m in site.materials if m not in used]
+    if unused:
+        click.echo(f"Note: material(s) defined but not used by any log: {', '.join(unused)}")
+    click.echo(f"Output: {site.times.size} time(s) to {site.times.max() / YEAR:.4g} yr, "
+               f"{site.depths.size} depth(s) to {site.depths.max():g} m; screening level "
+               f"{site.screening_level / UG_PER_L:.4g} ug/L, design life "
+               f"{site.design_life / YEAR:.4g} yr, tolerance {site.tolerance:g}")
+    if site.distributions:
+        click.echo(f"Monte Carlo: {site.realizations} realization(s) per boring of "
+                   f"{len(site.distributions)} uncertain parameter(s), {site.sampling} "
+                   "sampling")
+    click.echo(f"OK: {path} is valid ({n} boring(s); column solves of a run: "
+               f"{n * (1 + (site.realizations if site.distributions else 0))}).")

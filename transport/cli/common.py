@@ -39,8 +39,15 @@ class UserError(click.ClickException):
     exit_code = EXIT_INPUT
 
     def format_message(self):
-        return textwrap.fill(self.message, width=WIDTH, break_long_words=False,
-                             break_on_hyphens=False)
+        # each line wrapped on its own: a list in the message (the problems of every
+        # boring, one per line) stays a list; a wrapped line keeps its indent
+        out = []
+        for line in self.message.split("\n"):
+            indent = line[:len(line) - len(line.lstrip())]
+            out.append(textwrap.fill(line.strip(), width=WIDTH, initial_indent=indent,
+                                     subsequent_indent=indent + "  ",
+                                     break_long_words=False, break_on_hyphens=False))
+        return "\n".join(out)
 
 
 class Refused(UserError):

@@ -366,13 +366,33 @@ class Reader:
             else:
                 return path, text
         raise self.error(key, raw, f"cannot read {path} as {what}: {problem}",
-                         fix="check the path (relative to the file that names it)")
+                         fix=_fix_for(problem, "check the path (relative to the file "
+                                               "that names it)"))
 
 
 def _reason(exc) -> str:
+    if isinstance(exc, UnicodeDecodeError) and isinstance(exc.object, (bytes, bytearray)):
+        data = bytes(exc.object)
+        line = data.count(b"\n", 0, exc.start) + 1
+        latin = data.decode("latin-1")
+        accents = [c for c in latin if ord(c) > 127][:6]
+        guess = (" (read as Latin-1 it would hold " + " ".join(repr(c) for c in accents)
+                 + ": a file saved as Latin-1 / Windows-1252, as some spreadsheets do)"
+                 if accents and all(c.isprintable() for c in accents) else "")
+        return (f"it is not UTF-8 text: byte 0x{data[exc.start]:02X} on line {line} "
+                f"cannot be read{guess}")
     if isinstance(exc, UnicodeError):
         return "it is not UTF-8 text"
     return exc.strerror or type(exc).__name__
+
+
+#: The fix for a file that is not UTF-8.
+ENCODING_FIX = ("save it as UTF-8 (a spreadsheet's 'CSV UTF-8' format, or a text editor's "
+                "UTF-8 encoding), or convert it, e.g. iconv -f latin1 -t utf-8 old > new")
+
+
+def _fix_for(problem: str, default: str) -> str:
+    return ENCODING_FIX if problem.startswith("it is not UTF-8") else default
 
 
 def _file_problem(path: Path, limit: int):
@@ -413,7 +433,7 @@ def read_input_file(path, limit: int = MAX_TOML_BYTES, what: str = "a scenario f
         except (OSError, UnicodeError) as exc:
             problem = _reason(exc)
     raise ScenarioError(str(path), "(file)", problem=f"cannot read it as {what}: {problem}",
-                        fix="check the path")
+                        fix=_fix_for(problem, "check the path"))
 
 
 def read_text_file(path) -> str:

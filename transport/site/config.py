@@ -47,7 +47,7 @@ from transport.scenario.layers import LAYER_KEYS, layer_detail, read_chemical, r
 from transport.scenario.output import (DEFAULT_TOLERANCE, MAX_DEPTHS, MEMORY_BUDGET, OutputSpec,
                                        check_advection, depth_grid, read_times,
                                        run_memory_bytes)
-from transport.scenario.reader import Reader, parse_toml, read_text_file
+from transport.scenario.reader import Reader, ScenarioError, parse_toml, read_text_file
 from transport.scenario.schema import FLOW_KEYS, Scenario, read_boundary
 from transport.site.batch import solve_site
 from transport.site.columns import (boring_column, derive_material, material_layers,
@@ -233,6 +233,38 @@ def _common_grid(r, out, max_depth):
     return grid
 
 
+def _read_both_tables(r, data, crs, materials):
+    """The borings and layer-log CSVs; when either has problems, ONE ScenarioError with
+    the problems of both (the log is still checked on its own when the borings file
+    cannot be read).  Returns (borings path, text, rows, log text, logs)."""
+    errors, bpath, braw = [], None, None
+    try:
+        bpath, btext, braw = read_borings(r, data, crs)
+    except ScenarioError as exc:
+        errors.append(exc)
+        raw = data.get("borings_file")
+        bpath = Path(raw if isinstance(raw, str) and raw.strip() else "borings.csv")
+    ids = (None if braw is None else
+           {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()})
+    try:
+        _, ltext, logs = read_log(r, data, materials, ids, bpath)
+    except ScenarioError as exc:
+        errors.append(exc)
+    if len(errors) == 1:
+        raise errors[0]
+    if errors:
+        both = ScenarioError(
+            r.file, "borings_file",
+            problem="problems in both CSV files, borings_file and log_file (each with "
+                    "its fix):\n" + "\n".join(
+                f"({i}) " + str(e).replace("\n", "\n  ") for i, e in enumerate(errors, 1)),
+            fix="correct both files")
+        both.borings = tuple(dict.fromkeys(b for e in errors
+                                           for b in getattr(e, "borings", ())))
+        raise both
+    return bpath, btext, braw, ltext, logs
+
+
 def parse_site(text: str, path: str | Path = "<string>") -> Site:
     """Parse and validate site TOML text (relative file names from ``path``'s folder)."""
     file = str(path)
@@ -287,10 +319,7 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
     rec_elev = r.optional(out, "receptor_elevation", "length", "output")
     dists, n_real, seed, sampling = _uncertainty(r, data)
 
-    bpath, btext, braw = read_borings(r, data, crs)
-    lpath, ltext, logs = read_log(r, data, materials,
-                                   {b: f"{bpath.name} line {v[0]}" for b, v in braw.items()},
-                                   bpath)
+    bpath, btext, braw, ltext, logs = _read_both_tables(r, data, crs, materials)
     itext, initial = "", {}
     if data.get("initial_file") is not None:
         _, itext, initial = read_initial(

@@ -61,6 +61,17 @@ def _read_table(r, key: str, raw, required: dict):
     if not numbered:
         raise r.error(key, raw, f"{path.name} is empty", fix="add a header and rows")
     header = next(csv.reader([numbered[0][1]]))
+    for sep, name, why in ((";", "semicolons", " (as a spreadsheet set to a decimal comma "
+                            "saves CSV)"), ("\t", "tabs", "")):
+        if len(header) == 1 and sep in numbered[0][1]:
+            raise ScenarioError(str(path), "header", problem=f"the columns of {path.name} "
+                                f"are separated by {name}{why}; stratiflux reads "
+                                "comma-separated values with a decimal point",
+                                fix="save it as comma-separated values with decimal points "
+                                "(in a spreadsheet: 'CSV UTF-8 (comma delimited)' with the "
+                                "decimal separator set to '.'), or replace each "
+                                f"{'semicolon' if sep == ';' else 'tab'} by a comma and each "
+                                "decimal comma by a point")
     columns = {}
     for j, cell in enumerate(header):
         m = re.match(r"^\s*([^\[]+?)\s*(?:\[(.+)\])?\s*$", cell)
@@ -259,8 +270,9 @@ def read_log(r, data, materials, boring_ids, borings_path):
         The parsed site file.
     materials : dict
         The site's materials (a log may name only these).
-    boring_ids : dict
-        {boring id: where it is listed ("borings.csv line 3")}.
+    boring_ids : dict or None
+        {boring id: where it is listed ("borings.csv line 3")}; None when the borings
+        file could not be read (the log's own problems are still all found).
     borings_path : pathlib.Path
         The borings CSV, for messages.
 
@@ -283,7 +295,7 @@ def read_log(r, data, materials, boring_ids, borings_path):
         bid = row[id_col][0]
         where = f"{path.name} line {line}"
         top, bot, mat = _number(row["top"][0]), _number(row["bottom"][0]), row["material"][0]
-        if bid not in boring_ids:
+        if boring_ids is not None and bid not in boring_ids:
             problems.setdefault(bid or "(empty id)", []).append(
                 f"{where}: no such boring in {borings_path.name}")
             continue
@@ -305,7 +317,7 @@ def read_log(r, data, materials, boring_ids, borings_path):
                                                 f"what the model represents ({bad[0]})")
             continue
         logs.setdefault(bid, []).append((top, bot, mat, line))
-    for bid in boring_ids:
+    for bid in (boring_ids if boring_ids is not None else dict.fromkeys(logs)):
         if bid not in logs:
             if bid not in problems:
                 problems.setdefault(bid, []).append(f"{boring_ids[bid]}: no rows in "
@@ -368,7 +380,7 @@ def read_initial(r, data, boring_ids, bottoms, borings_path):
     for line, row in rows:
         bid = row[id_col][0]
         where = f"{path.name} line {line}"
-        if bid not in boring_ids:
+        if boring_ids is not None and bid not in boring_ids:
             problems.setdefault(bid or "(empty id)", []).append(
                 f"{where}: no such boring in {borings_path.name}")
             continue
