@@ -15,11 +15,17 @@ WRITE_TIME = ("history", "date_created")
 
 
 def _attr(value):
+    """An attribute as (type, value); NaN as the text "nan", so that two NaN compare
+    equal."""
     if isinstance(value, np.ndarray):
-        return ("array", value.dtype.str, value.tolist())
+        return ("array", value.dtype.str, [_nan_text(v) for v in value.ravel().tolist()])
     if isinstance(value, np.generic):
-        return (type(value).__name__, value.item())
-    return (type(value).__name__, value)
+        return (type(value).__name__, _nan_text(value.item()))
+    return (type(value).__name__, _nan_text(value))
+
+
+def _nan_text(value):
+    return "nan" if isinstance(value, float) and np.isnan(value) else value
 
 
 def dump(path, *, drop=()) -> dict:
