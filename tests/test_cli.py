@@ -316,3 +316,25 @@ def test_help_has_an_example(command):
     result = invoke(command, "--help")
     assert result.exit_code == 0
     assert "Example:" in result.output and f"stratiflux {command}" in result.output
+
+
+def test_console_script_entry_behaves_as_the_group(tmp_path):
+    """The console script's entry (transport.cli.program.run: collector off while the
+    modules load, frozen objects) prints what the group prints and exits with its
+    status: 0 for the demo run, 2 for a missing scenario file. Reference: the group
+    itself through click's CliRunner."""
+    import subprocess
+    import sys
+
+    entry = "import sys; from transport.cli.program import run; sys.exit(run())"
+    scenario = Path(__file__).resolve().parent.parent / "scenarios" / "spill-layered-column.toml"
+    out = tmp_path / "entry.nc"
+    done = subprocess.run([sys.executable, "-c", entry, "run", str(scenario), "-o", str(out)],
+                          capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    direct = CliRunner().invoke(main, ["run", str(scenario), "-o", str(out)])
+    assert direct.exit_code == 0
+    assert done.stdout == direct.stdout
+    missing = subprocess.run([sys.executable, "-c", entry, "run", str(tmp_path / "no.toml")],
+                             capture_output=True, text=True)
+    assert missing.returncode == 2 and "no.toml" in missing.stderr
