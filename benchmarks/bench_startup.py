@@ -45,14 +45,14 @@ CLI_IMPORT = "import transport.cli.main, transport.cli.run"
 
 
 def run_command(out_dir: Path) -> list:
-    """The ``stratiflux`` console script next to this interpreter, else the same entry
-    point through ``-c``."""
+    """The ``stratiflux`` console script next to this interpreter, else its entry point
+    (:func:`transport.cli.program.run`) through ``-c``."""
     args = ["run", str(DEMO), "-o", str(out_dir / "demo.nc")]
     script = Path(sys.executable).with_name("stratiflux")
     if script.exists():
         return [str(script), *args]
-    return [sys.executable, "-c", "import sys; from transport.cli.main import main; "
-            "sys.exit(main())", *args]
+    return [sys.executable, "-c", "import sys; from transport.cli.program import run; "
+            "sys.exit(run())", *args]
 
 
 def wall(command: list, env=None) -> tuple:
