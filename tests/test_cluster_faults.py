@@ -49,6 +49,30 @@ def test_closed_port_is_one_error_within_the_timeout(monkeypatch):
     assert "--scheduler" in str(err.value)
 
 
+def test_a_client_that_never_returns_is_one_error_in_bounded_time(monkeypatch):
+    """Creating the Dask client hung once in CI (its own timeout never fired); the run
+    gives up after SCHEDULER_TIMEOUT + CONNECT_GRACE seconds with the usual paragraph."""
+    import distributed
+
+    release = threading.Event()
+
+    class Stuck:
+        def __init__(self, *args, **kwargs):
+            release.wait(60)
+
+    monkeypatch.setattr(distributed, "Client", Stuck)
+    monkeypatch.setattr(site_batch, "SCHEDULER_TIMEOUT", 1)
+    monkeypatch.setattr(site_batch, "CONNECT_GRACE", 1)
+    t0 = time.monotonic()
+    try:
+        with pytest.raises(ClusterError, match="cannot reach a Dask scheduler") as err:
+            list(iter_chunks(_site(), [(0, 2)], scheduler="tcp://127.0.0.1:9"))
+        assert time.monotonic() - t0 < 15
+        assert "within 2 s" in str(err.value) and "--scheduler" in str(err.value)
+    finally:
+        release.set()
+
+
 def test_port_speaking_another_protocol_is_refused(monkeypatch):
     """A server that answers with HTTP text made the client try to allocate exabytes."""
     monkeypatch.setattr(site_batch, "SCHEDULER_TIMEOUT", 2)

@@ -176,6 +176,35 @@ def _cluster_failure(scheduler, exc, started):
     return ClusterError(f"{what} {scheduler!r} ({reason}); {fix}.")
 
 
+#: Seconds beyond SCHEDULER_TIMEOUT that creating the Dask client may take before the
+#: run gives up on it (the client enforces its own timeout; this bounds the rare case
+#: where it does not return at all, e.g. its event-loop thread starved on a busy machine)
+CONNECT_GRACE = 20
+
+
+def _connect(Client, scheduler):
+    """``Client(scheduler)`` (not the process default), created in a helper thread so
+    that the run never waits longer than SCHEDULER_TIMEOUT + CONNECT_GRACE seconds for
+    it: a TimeoutError (an OSError) then, the thread left behind as a daemon."""
+    box = {}
+
+    def connect():
+        try:
+            box["client"] = Client(scheduler, timeout=f"{SCHEDULER_TIMEOUT}s",
+                                   set_as_default=False)
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller below
+            box["error"] = exc
+    thread = threading.Thread(target=connect, daemon=True, name="stratiflux-dask-connect")
+    thread.start()
+    thread.join(SCHEDULER_TIMEOUT + CONNECT_GRACE)
+    if thread.is_alive():
+        raise TimeoutError(f"no connection and no error from the Dask client within "
+                           f"{SCHEDULER_TIMEOUT + CONNECT_GRACE} s")
+    if "error" in box:
+        raise box["error"]
+    return box["client"]
+
+
 def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
     """The chunks on a dask.distributed cluster; a scheduler that cannot be reached, or
     that speaks another protocol, or dies during the run becomes one ClusterError
@@ -201,7 +230,7 @@ def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
         # not the process's default client: a client left behind by a failed connection
         # would otherwise be picked up by every later dask or xarray call in the process
         # (xarray's NetCDF writer asks for a distributed lock and times out)
-        client = Client(scheduler, timeout=f"{SCHEDULER_TIMEOUT}s", set_as_default=False)
+        client = _connect(Client, scheduler)
     except (OSError, MemoryError, ValueError, TypeError) as exc:
         restore()
         raise _cluster_failure(scheduler, exc, started) from None
