@@ -293,3 +293,22 @@ def test_curve_colours_never_take_the_screening_level_colour():
         rgb = np.array(to_rgb(curve_style(i)["color"]))
         assert np.abs(rgb - level).max() > 0.2
     assert LEVEL_COLOUR not in CURVE_COLOURS
+
+
+def test_breakthrough_draws_rounding_level_negatives_as_zero():
+    """As the printed values (solvers.checks.clip_to_bounds): a negative within the error
+    the run allows (tolerance x scale) is drawn as 0 -- the footer names no negative
+    concentration; a larger negative is kept and named (C >= 0 for a clean column with a
+    non-negative source: the maximum principle, Protter & Weinberger 1967, ch. 3)."""
+    import dataclasses
+
+    base = fake_solution()
+    for dip, named in ((-1e-13, False), (-1e-6, True)):
+        def conc_at(depth, times, dip=dip):
+            c = np.asarray(base.concentration_at(depth, times), float)
+            return np.where(np.arange(c.size) < 20, dip, c)  # the first 20 samples
+        sol = dataclasses.replace(base, tolerance=1e-8, scale={"concentration": 0.01},
+                                  evaluator=conc_at, series=None)
+        fig = breakthrough_figure(sol, receptor_depth=0.5, log_scale=True)
+        assert ("lowest -" in footer_texts(fig)) is named
+        assert "zero or negative" in footer_texts(fig)  # the dip is never dropped silently
