@@ -17,8 +17,9 @@ from matplotlib import colormaps
 from transport.analysis.metrics import unresolved_windows
 from transport.analysis.summary import format_time
 from transport.io.netcdf import elapsed_seconds
-from transport.plot.style import (CURVE_COLOURS, DPI, LEVEL_COLOUR, mark_design_life,
-                                  mark_level, new_figure, nonpositive_note, save, wrap)
+from transport.plot.style import (CURVE_COLOURS, DPI, LEVEL_COLOUR, allowed_error,
+                                  mark_design_life, mark_level, new_figure, nonpositive_note,
+                                  rounding_as_zero, save, wrap)
 from transport.units import DAY, MG_PER_L, YEAR
 
 __all__ = ["plot_profiles", "plot_breakthrough", "profile_figure", "breakthrough_figure",
@@ -88,17 +89,8 @@ def _extract(source):
         "title": "",
         "concentration_at": getattr(source, "concentration_at", None),
         "windows": _windows(source),
-        "bound": _bound(source),
+        "bound": allowed_error(source),
     }
-
-
-def _bound(source) -> float:
-    """The error the run allows C (tolerance x scale of a checked run), or 0."""
-    tol, scale = getattr(source, "tolerance", None), getattr(source, "scale", None)
-    try:
-        return float(tol) * float(scale["concentration"])
-    except (TypeError, KeyError, ValueError):
-        return 0.0
 
 
 def _windows(source):
@@ -262,10 +254,7 @@ def _breakthrough_curve(run, receptor_depth: float, n_samples: int):
                        np.geomspace(t0, times[-1], n_samples // 2))
     dense = np.union1d(dense, positive)
     conc = np.asarray(run["concentration_at"](receptor_depth, dense), float)
-    # as the printed values: a rounding-level negative, within the error the run allows,
-    # is drawn as 0 (C >= 0 for a non-negative source and initial state)
-    bound = run.get("bound", 0.0)
-    conc = np.where((conc < 0) & (conc >= -bound), 0.0, conc)
+    conc = rounding_as_zero(conc, run.get("bound", 0.0))
     for a, b in run.get("windows", ()):  # just after a change: not resolved, not drawn
         conc[(dense > a) & (dense < b)] = np.nan
     early = times < t0

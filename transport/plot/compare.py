@@ -20,9 +20,9 @@ from matplotlib import colormaps
 from transport.analysis.metrics import unresolved_windows
 from transport.io.atomic import OutputSet
 from transport.io.netcdf import elapsed_seconds
-from transport.plot.style import (DESIGN_LIFE_COLOUR, curve_style,
+from transport.plot.style import (DESIGN_LIFE_COLOUR, allowed_error, curve_style,
                                   mark_design_life, mark_level, new_figure,
-                                  nonpositive_note, save, wrap)
+                                  nonpositive_note, rounding_as_zero, save, wrap)
 from transport.units import MG_PER_L, MG_PER_M2, YEAR
 
 __all__ = ["ComparisonView", "view_of_alternatives", "view_of_dataset", "plot_comparison",
@@ -66,7 +66,8 @@ def view_of_alternatives(alts) -> ComparisonView:
     t = np.union1d(np.geomspace(t_lo, t_hi, 300), np.linspace(t_lo, t_hi, 300))
     curves = []
     for a in alts:
-        y = np.asarray(a.solution.concentration_at(a.metrics.receptor_depth, t), float)
+        y = rounding_as_zero(a.solution.concentration_at(a.metrics.receptor_depth, t),
+                             allowed_error(a.solution))
         for w0, w1 in unresolved_windows(a.solution):
             y[(t > w0) & (t < w1)] = np.nan
         curves.append((t, y))

@@ -20,7 +20,8 @@ from transport.io.atomic import stage_or_write
 
 __all__ = ["DPI", "LEVEL_COLOUR", "DESIGN_LIFE_COLOUR", "CURVE_COLOURS", "LINE_STYLES",
            "FOOTER_SIZE", "new_figure", "wrap", "save", "mark_level",
-           "mark_design_life", "nonpositive_note", "curve_style"]
+           "mark_design_life", "nonpositive_note", "curve_style", "allowed_error",
+           "rounding_as_zero"]
 
 DPI = 150
 #: Reserved for the screening level (Okabe-Ito vermillion); no curve gets it.
@@ -114,6 +115,25 @@ def mark_design_life(ax, t_end: float, unit: str):
                 xytext=(0, 4), textcoords="offset points", va="bottom", ha="center",
                 fontsize=7, color=DESIGN_LIFE_COLOUR)
     return line
+
+
+def allowed_error(source) -> float:
+    """The error a checked run allows its concentrations (tolerance x the scale of C,
+    kg m-3), or 0 for a result without them."""
+    tol, scale = getattr(source, "tolerance", None), getattr(source, "scale", None)
+    try:
+        return float(tol) * float(scale["concentration"])
+    except (TypeError, KeyError, ValueError):
+        return 0.0
+
+
+def rounding_as_zero(values, bound: float):
+    """``values`` with the negatives no larger than ``bound`` (the run's allowed error)
+    set to 0, as the printed values are (:func:`transport.solvers.checks.clip_to_bounds`;
+    C >= 0 for a non-negative source and initial state); larger negatives are kept, for
+    :func:`nonpositive_note` to name."""
+    values = np.asarray(values, dtype=float)
+    return np.where((values < 0) & (values >= -bound), 0.0, values)
 
 
 def nonpositive_note(values, axis_name: str) -> str:
