@@ -28,10 +28,13 @@ def _chain_figure(solutions, names, levels, receptor, design_life, title, plots_
     """Every species' receptor curve on one figure (400 samples of the continuous
     solution from the first output time)."""
     from transport.plot.chain import plot_chain_breakthrough  # matplotlib: lazily
+    from transport.plot.style import allowed_error, rounding_as_zero
 
     times = solutions[0].times
     t = np.linspace(float(times[times > 0].min()), float(times.max()), 400)
-    curves = [sol.concentration_at(receptor, t) for sol in solutions]
+    # rounding-level negatives (within each species' allowed error) drawn as 0
+    curves = [rounding_as_zero(sol.concentration_at(receptor, t), allowed_error(sol))
+              for sol in solutions]
     return plot_chain_breakthrough(t, curves, names,
                                    os.path.join(plots_dir, f"{stem}_chain_breakthrough.png"),
                                    stage=stage, receptor_depth=receptor, levels=levels,
