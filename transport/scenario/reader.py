@@ -358,16 +358,15 @@ class Reader:
                              fix=f'e.g. {key.rsplit(".", 1)[-1]} = "{example}"')
         path = Path(raw) if Path(raw).is_absolute() else self.base_dir / raw
         problem = _file_problem(path, limit)
+        fix = "check the path (relative to the file that names it)"
         if problem is None:
             try:
                 text = _read_limited(path, limit)
             except (OSError, UnicodeError) as exc:
-                problem = _reason(exc)
+                problem, fix = _reason(exc), _fix_for(exc, fix)
             else:
                 return path, text
-        raise self.error(key, raw, f"cannot read {path} as {what}: {problem}",
-                         fix=_fix_for(problem, "check the path (relative to the file "
-                                               "that names it)"))
+        raise self.error(key, raw, f"cannot read {path} as {what}: {problem}", fix=fix)
 
 
 def _reason(exc) -> str:
@@ -391,8 +390,10 @@ ENCODING_FIX = ("save it as UTF-8 (a spreadsheet's 'CSV UTF-8' format, or a text
                 "UTF-8 encoding), or convert it, e.g. iconv -f latin1 -t utf-8 old > new")
 
 
-def _fix_for(problem: str, default: str) -> str:
-    return ENCODING_FIX if problem.startswith("it is not UTF-8") else default
+def _fix_for(exc, default: str) -> str:
+    """The fix for a file that could not be read: re-encoding for text that is not
+    UTF-8, else ``default``."""
+    return ENCODING_FIX if isinstance(exc, UnicodeError) else default
 
 
 def _file_problem(path: Path, limit: int):
@@ -426,14 +427,14 @@ def read_input_file(path, limit: int = MAX_TOML_BYTES, what: str = "a scenario f
     """The UTF-8 text (a byte-order mark is dropped) of an input file, or a ScenarioError
     naming the path and what was expected.  Devices, FIFOs and folders are refused
     before they are opened, files larger than ``limit`` bytes before they are read."""
-    problem = _file_problem(Path(path), limit)
+    problem, fix = _file_problem(Path(path), limit), "check the path"
     if problem is None:
         try:
             return _read_limited(Path(path), limit)
         except (OSError, UnicodeError) as exc:
-            problem = _reason(exc)
+            problem, fix = _reason(exc), _fix_for(exc, fix)
     raise ScenarioError(str(path), "(file)", problem=f"cannot read it as {what}: {problem}",
-                        fix=_fix_for(problem, "check the path"))
+                        fix=fix)
 
 
 def read_text_file(path) -> str:
