@@ -299,7 +299,7 @@ def test_breakthrough_draws_rounding_level_negatives_as_zero():
     """As the printed values (solvers.checks.clip_to_bounds): a negative within the error
     the run allows (tolerance x scale) is drawn as 0 -- the footer names no negative
     concentration; a larger negative is kept and named (C >= 0 for a clean column with a
-    non-negative source: the maximum principle, Protter & Weinberger 1967, ch. 3)."""
+    non-negative source: the maximum principle, Protter & Weinberger 1967, ch. 3, from memory)."""
     import dataclasses
 
     base = fake_solution()

@@ -272,7 +272,7 @@ def assert_station_equals_column_run(site, result, boring_id, scenario):
         if name == "concentration":
             # the site, as solve_column, moves a value below the physical lower bound
             # (C >= 0 for a non-negative source and initial state: the maximum
-            # principle, Protter & Weinberger 1967, ch. 3) onto it when it lies within
+            # principle, Protter & Weinberger 1967, ch. 3, from memory) onto it when it lies within
             # its error bound; a rounding-level negative of the raw series becomes 0
             scale = np.max(np.abs(want))
             want = np.where((want < 0) & (want >= -site.tolerance * scale), 0.0, want)
