@@ -316,7 +316,9 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     time from the first positive one on was served by it)."""
     tol = site.tolerance
     t_all = np.append(times, t_end)
-    lap = solve_laplace(col, t_all, z, initial=initial)
+    bounds = concentration_bounds(col, initial, float(t_all.max()))
+    enough = good_enough(col, bounds.scale, tol)
+    lap = solve_laplace(col, t_all, z, initial=initial, enough=enough)
     lq = quantities(lap)
     le = own_errors(lap)
     # the last row of cum is the design life at every depth; C there is not asked for
@@ -328,7 +330,6 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     nan["budget"] = np.zeros(t_all.size)
     lq["budget"] = np.zeros((t_all.size, 0))
     le = dict(le, budget=np.zeros(t_all.size))
-    bounds = concentration_bounds(col, initial, float(t_all.max()))
     choice = choose(t_all, [("modal", mq, nan), ("laplace", lq, le)], tol, bounds, col, z)
     if not choice.reliable.all():
         raise UnreliableResultError(
@@ -341,48 +342,125 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     # bound (rounding-level negatives of a clean column) are moved onto the bounds
     conc = clip_to_bounds(col, bounds, z, conc, choice.error["concentration"][:-1])
     cum = np.where(modal[:, None], cum, lq["cumulative_mass"])
-    if modal[:-1][times > 0].all():
-        return conc, cum, modal_at
     depth = float(z[-1])
 
     def laplace_at(t):
         t = np.atleast_1d(np.asarray(t, float))
-        return solve_laplace(col, t, [depth], initial=initial).concentration[:, 0]
-    return conc, cum, laplace_at
+        return solve_laplace(col, t, [depth], initial=initial,
+                             enough=enough).concentration[:, 0]
+    # the receptor curve, as solve_column's (transport.solvers.engines.modal_evaluator):
+    # the modal series from the first output time after which it agreed with the Laplace
+    # engine AT THE RECEPTOR DEPTH at every output time, within the tolerance and the
+    # Laplace engine's bound (the curve is read there only; deeper rows of an advective
+    # column cancel to rounding at early times), the Laplace engine before it, the
+    # Laplace engine alone if no such tail exists
+    scale = choice.scale["concentration"]
+    gap = np.abs(mq["concentration"][:-1, -1] - lq["concentration"][:-1, -1])
+    with np.errstate(invalid="ignore"):
+        used = gap <= tol * scale + le["concentration"][:-1]
+    later = np.flatnonzero(~used & (times > 0))
+    cut = int(later.max()) + 1 if later.size else 0
+    if cut >= times.size:
+        return conc, cum, laplace_at
+    if cut == 0 or not later.size:
+        return conc, cum, modal_at
+    return conc, cum, _hybrid(modal_at, laplace_at, float(times[cut]))
+
+
+def _hybrid(modal_at, laplace_at, t_modal):
+    """C(t) from ``modal_at`` at t >= t_modal, from ``laplace_at`` before."""
+    def at(t):
+        t = np.atleast_1d(np.asarray(t, float))
+        out = np.empty(t.size)
+        late = t >= t_modal
+        if late.any():
+            out[late] = modal_at(t[late])
+        if (~late).any():
+            out[~late] = laplace_at(t[~late])
+        return out
+    return at
+
+
+def good_enough(col, scale, tol) -> dict:
+    """Absolute errors that suffice a site check: 1 % of the tolerance times each
+    quantity's least scale (:func:`transport.solvers.checks.scales`: C_s, C_s (|q| +
+    max theta D / L), C_s sum theta R L), for the ``enough`` of
+    :func:`transport.solvers.laplace.solve_laplace` (saves parabolic re-inversions
+    ahead of a front; every value keeps its own estimate)."""
+    if not scale:
+        return {}
+    c = 0.01 * tol * scale
+    mass = c * sum(l.water_content * l.retardation * l.thickness for l in col.layers)
+    flux = c * (abs(col.darcy_flux)
+                + max(l.water_content * l.diffusivity for l in col.layers) / col.length)
+    return {"concentration": c, "total_flux": flux, "cumulative_mass": mass,
+            "budget": mass}
 
 
 def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
                      scale):
     """Check a realization's breakthrough and peak against the Laplace engine; if the
-    modal curve is off there, read both metrics from the Laplace curve instead."""
+    curve is off there, read both metrics from the Laplace curve instead."""
     probe_t = [t for t in (bt, pk_t) if np.isfinite(t) and t > 0]
     if not probe_t:
         return bt, pk
-    lap = solve_laplace(col, probe_t, [depth], initial=initial)
+    enough = good_enough(col, scale, tol)
+    lap = solve_laplace(col, probe_t, [depth], initial=initial, enough=enough)
     c, e = lap.concentration[:, 0], own_errors(lap)["concentration"]
     want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
     if np.all(np.abs(c - np.array(want)) <= tol * scale + e):
         return bt, pk
 
     def laplace_at(t):
-        return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial).concentration[:, 0]
+        return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial,
+                             enough=enough).concentration[:, 0]
     bt2, _, pk2 = curve_metrics(laplace_at, t_start, t_end, level, SCAN_SAMPLES)
     return bt2, pk2
 
 
+def rounding_free_from(probe, t_start, t_end, limit):
+    """The first scan sample of the window from which the modal series' rounding bound
+    (:meth:`ModalSeries.roundoff_bound`) at the probe's depth stays within ``limit``
+    at every later sample; None if it does not at the last one."""
+    t = _scan_times(t_start, t_end, SCAN_SAMPLES)
+    over = np.flatnonzero(probe.roundoff_bound(t)[:, 0] > limit)
+    if not over.size:
+        return float(t[0])
+    return None if over[-1] == t.size - 1 else float(t[over[-1] + 1])
+
+
 def realization_metrics(site, col, depth, t_start, times, initial=None):
-    """(breakthrough time, peak concentration) of one Monte Carlo column, warnings."""
+    """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
+
+    The receptor curve is the modal series from the scan sample on which its rounding
+    bound stays within the tolerance, the Laplace engine before it (the early rows of
+    an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
+    1e-6 of the scale at the first sample of a plume that never arrives); the
+    breakthrough and the peak are then checked against the Laplace engine
+    (:func:`verified_metrics`)."""
+    initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
                              initial=initial)
     probe = _Probe(series, [depth])
-    bt, pk_t, pk = curve_metrics(lambda t: probe.concentration(t)[:, 0], t_start,
-                                  site.design_life, site.screening_level, SCAN_SAMPLES)
-    scale = concentration_bounds(col, initial, site.design_life).scale or max(abs(pk), 1e-300)
-    bt, pk = verified_metrics(col, initial or InitialState.clean(), depth, t_start,
-                              site.design_life, site.screening_level, site.tolerance, bt,
-                              pk_t, pk, scale)
+    tol, t_end = site.tolerance, site.design_life
+    scale = concentration_bounds(col, initial, t_end).scale
+
+    def modal_at(t):
+        return probe.concentration(t)[:, 0]
+    curve = modal_at
+    if scale:
+        t_modal = rounding_free_from(probe, t_start, t_end, tol * scale)
+        enough = good_enough(col, scale, tol)
+
+        def laplace_at(t):
+            return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial,
+                                 enough=enough).concentration[:, 0]
+        curve = (laplace_at if t_modal is None else
+                 _hybrid(modal_at, laplace_at, t_modal) if t_modal > t_start else modal_at)
+    bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES)
+    scale = scale or max(abs(pk), 1e-300)
+    bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
+                              tol, bt, pk_t, pk, scale)
     return bt, pk, tuple(str(w.message) for w in caught)
-
-

@@ -192,24 +192,30 @@ def _invert_parabola(transform, times, s0):
 _RETRY = 1e-10  # an estimate above this fraction of the quantity's scale: try the parabola
 
 
-def invert_best(transform, times, n, s0, groups):
+def invert_best(transform, times, n, s0, groups, floors=None):
     """Best of two contours.
 
     Talbot inversion (:func:`invert`); with advection (s0 > 0), the times where some
     estimate exceeds _RETRY times the scale of its quantity group are inverted again on
     the parabolic contour, and each value is taken from the contour with the smaller
     estimate.  The scale of a group is its largest value whose estimate is below 1e-3
-    of it (garbage values carry large estimates and do not count)."""
+    of it (garbage values carry large estimates and do not count).
+
+    ``floors`` (one absolute error per group, optional): estimates at or below it are
+    good enough for the caller and are not retried (a curve read only ahead of a front,
+    where every value is 1e-50 and the group's own scale would ask for 1e-60).  It only
+    saves work: every value keeps its own estimate."""
     f, err = invert(transform, times, n)
     if s0 <= 0:
         return f, err
+    floors = [0.0] * len(groups) if floors is None else list(floors)
     retry = np.zeros(times.size, bool)
     with np.errstate(invalid="ignore"):
-        for cols in groups:
+        for cols, floor in zip(groups, floors):
             fv, ev = np.abs(f[:, cols]), err[:, cols]
             ok = np.isfinite(fv) & (ev <= 1e-3 * fv)
             scale = fv[ok].max() if ok.any() else 0.0
-            retry |= ~(ev <= _RETRY * scale).all(axis=1)
+            retry |= ~(ev <= max(_RETRY * scale, floor)).all(axis=1)
     if retry.any():
         f2, e2 = _invert_parabola(transform, times[retry], s0)
         with np.errstate(invalid="ignore"):

@@ -68,7 +68,7 @@ def signals_for(group, s, nseg, with_initial):
 
 def solve_laplace(column: Column, times, depths, *, initial: InitialState = None,
                   tolerance: float = None, semi_infinite_bottom: bool = False,
-                  nodes: int = None) -> Solution:
+                  nodes: int = None, enough: dict = None) -> Solution:
     """Solve the layered column at ``times`` (s) and ``depths`` (m) in the Laplace domain.
 
     Parameters
@@ -85,6 +85,11 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
     nodes : Talbot nodes N (even), default :func:`default_nodes` (32 for column Peclet
         numbers up to 10, more above): N / 2 complex banded solves per time
         and per distinct switch-on time of the scheduled signals
+    enough : optional absolute errors that suffice the caller ({"concentration":
+        kg m-3, "total_flux": kg m-2 s-1, "cumulative_mass": kg m-2, "budget": kg m-2},
+        any subset): a time whose Talbot estimates are all within them is not inverted
+        again on the parabolic contour (:func:`transport.solvers.laplace.contour.
+        invert_best`); saves work only, every value keeps its own estimate
 
     Returns
     -------
@@ -114,6 +119,9 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
              np.arange(3 * nz, 3 * nz + 4))
     # growth parabola of the advective branch (widest over the layers); 0 without flow
     s0 = float(np.max(model.q ** 2 / (4 * g["k"] * g["c"])))
+    enough = enough or {}
+    floors = [float(enough.get(q, 0.0)) for q in ("concentration", "total_flux",
+                                                  "cumulative_mass", "budget")]
     for t0, group in sorted(signal_components(column, seg_layer).items()):
         tau = times - t0
         on = tau > 0
@@ -130,7 +138,7 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
                                   axis=1), model.capped.copy()
 
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            f, e = invert_best(transform, tau[on], n_nodes, s0, parts)
+            f, e = invert_best(transform, tau[on], n_nodes, s0, parts, floors)
         out[on] += f
         est[on] += e
     return laplace_solution(column, model, initial, times, depths, out, est,
