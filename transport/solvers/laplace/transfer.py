@@ -220,7 +220,8 @@ class LaplaceTransfer:
         over = x.real > _EXP_CAP
         if over.any():
             self.capped |= over.reshape(-1, x.shape[-1]).any(axis=0)
-        return np.exp(np.where(over, _EXP_CAP + 1j * x.imag, x))
+            return np.exp(np.where(over, _EXP_CAP + 1j * x.imag, x))
+        return np.exp(x)
 
     def _ends(self, r, anc, alpha, beta, k, i, zeta):
         """C and F rows at local depth zeta of segment i: (cC (2,ns), C0, cF, F0)."""
@@ -354,13 +355,19 @@ class LaplaceTransfer:
         e = self._exp(r * (zc - anc))
         if self.semi:  # the dropped exponential of the semi-infinite layer
             e[0, idx == self.n - 1] = 0.0
-        cf = coef[:, idx]
-        P, dP = _poly(self._alpha[:, idx], zc)
-        xC, xdC = self._forced(idx, zc)
-        P, dP = P + xC, dP + xdC
-        C = (cf * e).sum(axis=0) + P
-        dC = (cf * r * e).sum(axis=0) + dP
-        F = self.q * C - self._k[idx] * dC
+        e *= coef[:, idx]  # the two exponential terms of C^
+        C = e[0] + e[1]
+        # F = q C - k C' of the exponential terms: q - k r1 = k r2 and q - k r2 = k r1
+        # (the roots' sum is q / k), as in _ends: no cancellation
+        F = e[0] * r[1]
+        F += e[1] * r[0]
+        F *= self._k[idx]
+        if np.any(self._alpha) or self._xr.shape[0]:  # particular part (initial state,
+            P, dP = _poly(self._alpha[:, idx], zc)  # sources, a parent's forcing)
+            xC, xdC = self._forced(idx, zc)
+            P, dP = P + xC, dP + xdC
+            C += P
+            F += self.q * P - self._k[idx] * dP
         return C.T, F.T
 
     def stored(self, coef):
