@@ -125,3 +125,41 @@ def test_deterministic_boring_metrics_and_receptor_curve(monkeypatch):
     # samples of the curve
     assert asked[0].size == TIMES.size + 1
     assert max(t.max() for t in asked[1:]) < 20 * YEAR
+
+
+def test_a_realization_no_engine_can_vouch_for_is_refused(monkeypatch):
+    """Fault injection: the Laplace engine reports an error bound of 1e-3 of the scale
+    at every time (as it would where neither contour converges). The realization's
+    breakthrough and peak can then be vouched for by neither engine, and the run is
+    refused with a message naming the tolerance, not returned as a result (the rule of
+    transport.solvers.checks.choose: |difference| + the Laplace bound within the
+    tolerance)."""
+    from transport.solvers.checks import UnreliableResultError
+
+    real = site_boring.own_errors
+
+    def loose(sol):
+        out = dict(real(sol))
+        out["concentration"] = np.full_like(out["concentration"], 1e-3 * SCALE)
+        return out
+    monkeypatch.setattr(site_boring, "own_errors", loose)
+    col = column(0.4)
+    with pytest.raises(UnreliableResultError, match="tolerance 1e-08"):
+        realization_metrics(site(0.001), col, DEPTH, TIMES[0], TIMES)
+
+
+def test_a_refused_realization_names_its_boring(tmp_path, monkeypatch):
+    """The same fault on a whole (invented) site: the refusal names the boring and the
+    realization, so the user knows which column to look at."""
+    from transport.site.batch import solve_site
+    from transport.site.config import load_site
+    from transport.solvers.checks import UnreliableResultError
+    from test_site_paths import write_random_site
+
+    site_ = load_site(write_random_site(tmp_path, np.random.default_rng(3)))
+    def refuse(col, *a, **k):
+        raise UnreliableResultError("no engine vouches (injected)", ())
+    monkeypatch.setattr(site_boring, "verified_metrics", refuse)
+    with pytest.raises(UnreliableResultError,
+                       match=r"^boring R-0, Monte Carlo realization 1: no engine vouches"):
+        solve_site(site_, workers=1, chunk_size=6)

@@ -26,6 +26,7 @@ from transport.scenario.reader import ScenarioError
 from transport.site.boring import realization_metrics, solve_boring
 from transport.site.columns import boring_column, check_draws, material_layers
 from transport.site.uncertainty import sample_matrix
+from transport.solvers.checks import UnreliableResultError
 
 __all__ = ["QUANTILES", "METRIC_KEYS", "MC_KEYS", "draw_samples", "clear_caches",
            "solve_chunk", "PackedChunk", "pack_result", "unpack_result", "solve_packed"]
@@ -131,6 +132,23 @@ def _drawn_layers(site, samples) -> list:
     return drawn
 
 
+class _naming:
+    """Puts the boring (and realization) in front of a refusal's message: which column
+    of the site no engine could vouch for."""
+
+    def __init__(self, what):
+        self.what = what
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, exc, tb):
+        if isinstance(exc, UnreliableResultError):
+            raise UnreliableResultError(f"boring {self.what}: {exc}", exc.times,
+                                        exc.quantities) from None
+        return False
+
+
 def _one_blas_thread():
     """BLAS limited to one thread while a chunk is solved: the products are small
     (modes x depths), and one thread per worker process keeps the cores from being
@@ -174,7 +192,8 @@ def _solve_chunk(site, start, stop, samples):
         key = (col, boring.receptor_depth, boring.initial)
         found = _FIELDS_CACHE.get(key)
         if found is None:
-            found = solve_boring(site, col, boring.receptor_depth, times, grid, initial)
+            with _naming(boring.id):
+                found = solve_boring(site, col, boring.receptor_depth, times, grid, initial)
             _FIELDS_CACHE.put(key, found)
         keep, conc, cum, metrics, msgs = found
         notes += [(boring.id, m) for m in msgs]
@@ -191,8 +210,9 @@ def _solve_chunk(site, start, stop, samples):
             key = (col_j, boring.receptor_depth, boring.initial)
             found = _METRICS_CACHE.get(key)
             if found is None:
-                found = realization_metrics(site, col_j, boring.receptor_depth, t_start,
-                                             times, initial)
+                with _naming(f"{boring.id}, Monte Carlo realization {j + 1}"):
+                    found = realization_metrics(site, col_j, boring.receptor_depth,
+                                                t_start, times, initial)
                 _METRICS_CACHE.put(key, found)
             bt[j], pk[j], msgs = found
             notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]
