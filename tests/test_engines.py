@@ -8,7 +8,7 @@ from transport.solvers.engines import solve_column
 from transport.solvers.modal.series import solve
 from transport.model.column import Boundary, Column, InputError, Layer
 
-from reference import laplace_reference
+from reference import crank_slab_series, laplace_reference
 
 YEAR = 365.25 * 86400.0  # Julian year (IAU), s
 
@@ -106,3 +106,22 @@ def test_every_engine_serves_continuous_time_metrics():
     for engine, tol in (("laplace", 1e-7), ("auto", 1e-7), ("finite-volume", 1e-3)):
         got = solve_column(col, times, depths, engine=engine).concentration_at(0.9, probe)
         np.testing.assert_allclose(got, ref, atol=tol)
+
+
+def test_receptor_curve_is_modal_when_the_output_times_include_zero():
+    """Output times that start at t = 0 (the initial state itself, served as such): the
+    continuous curve is still the modal series from the first positive time on, and at
+    times between the output times it matches Crank (1975, ch. 4, plane sheet with a
+    held surface and a sealed face, ``tests/reference.py: crank_slab_series``) to 1e-8;
+    at t = 0 it is the initial state."""
+    L, th, D, R = 1.0, 0.3, 1e-9, 2.0
+    col = Column(layers=(Layer(L, th, D, R),), top=Boundary("concentration", 1.0),
+                 bottom=Boundary("sealed"))
+    year = 365.25 * 86400.0
+    times = np.array([0.0, 1.0, 5.0, 20.0]) * year
+    sol = solve_column(col, times, [0.0, 0.5, 1.0])
+    assert sol.series is not None  # the modal series serves the curve
+    t = np.array([2.5, 11.0]) * year
+    ref = crank_slab_series([0.5], t, L, D / R)[:, 0]
+    np.testing.assert_allclose(sol.concentration_at(0.5, t), ref, rtol=0, atol=1e-8)
+    assert sol.concentration_at(0.5, np.array([0.0]))[0] == 0.0

@@ -29,7 +29,8 @@ from transport.model.column import InitialState
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
-                                      describe_refusal, own_errors, quantities)
+                                      describe_refusal, input_scales, own_errors,
+                                      quantities, switched, vouched_from)
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
@@ -311,8 +312,9 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     values, moved onto the physical bounds where they lie outside them within their
     error bound (:func:`transport.solvers.checks.clip_to_bounds`, as solve_column does);
     a time neither can vouch for refuses the boring.  Returns the fields and
-    the receptor curve C(t) the metrics are read from (modal only where every output
-    time from the first positive one on was served by it)."""
+    the receptor curve C(t) the metrics are read from (the modal series from the output
+    time on which it agrees with the Laplace engine at the receptor at every later
+    output time, the Laplace engine before)."""
     tol = site.tolerance
     t_all = np.append(times, t_end)
     bounds = concentration_bounds(col, initial, float(t_all.max()))
@@ -357,41 +359,28 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     gap = np.abs(mq["concentration"][:-1, -1] - lq["concentration"][:-1, -1])
     with np.errstate(invalid="ignore"):  # the error of the modal value: |gap| + the
         used = gap + le["concentration"][:-1] <= tol * scale  # Laplace bound (as choose)
-    later = np.flatnonzero(~used & (times > 0))
-    cut = int(later.max()) + 1 if later.size else 0
+    cut = vouched_from(used, times)
     if cut >= times.size:
         return conc, cum, laplace_at
-    if cut == 0 or not later.size:
+    if cut == 0:
         return conc, cum, modal_at
-    return conc, cum, _hybrid(modal_at, laplace_at, float(times[cut]))
+    return conc, cum, _switched(laplace_at, modal_at, float(times[cut]))
 
 
-def _hybrid(modal_at, laplace_at, t_modal):
-    """C(t) from ``modal_at`` at t >= t_modal, from ``laplace_at`` before."""
-    def at(t):
-        t = np.atleast_1d(np.asarray(t, float))
-        out = np.empty(t.size)
-        late = t >= t_modal
-        if late.any():
-            out[late] = modal_at(t[late])
-        if (~late).any():
-            out[~late] = laplace_at(t[~late])
-        return out
-    return at
+def _switched(early, late, t_switch):
+    """The curve C(t): ``early`` before t_switch, ``late`` from it on."""
+    return lambda t: switched(t, t_switch, early, late)
 
 
 def good_enough(col, scale, tol) -> dict:
     """Absolute errors that suffice a site check: 1 % of the tolerance times each
-    quantity's least scale (:func:`transport.solvers.checks.scales`: C_s, C_s (|q| +
-    max theta D / L), C_s sum theta R L), for the ``enough`` of
+    quantity's least scale (C_s and :func:`transport.solvers.checks.input_scales`), for the ``enough`` of
     :func:`transport.solvers.laplace.solve_laplace` (saves parabolic re-inversions
     ahead of a front; every value keeps its own estimate)."""
     if not scale:
         return {}
     c = 0.01 * tol * scale
-    mass = c * sum(l.water_content * l.retardation * l.thickness for l in col.layers)
-    flux = c * (abs(col.darcy_flux)
-                + max(l.water_content * l.diffusivity for l in col.layers) / col.length)
+    flux, mass = input_scales(col, c)
     return {"concentration": c, "total_flux": flux, "cumulative_mass": mass,
             "budget": mass}
 
@@ -440,10 +429,8 @@ def rounding_free_from(probe, t_start, t_end, limit):
     (:meth:`ModalSeries.roundoff_bound`) at the probe's depth stays within ``limit``
     at every later sample; None if it does not at the last one."""
     t = _scan_times(t_start, t_end, SCAN_SAMPLES)
-    over = np.flatnonzero(probe.roundoff_bound(t)[:, 0] > limit)
-    if not over.size:
-        return float(t[0])
-    return None if over[-1] == t.size - 1 else float(t[over[-1] + 1])
+    cut = vouched_from(probe.roundoff_bound(t)[:, 0] <= limit, t)
+    return None if cut == t.size else float(t[cut])
 
 
 def realization_metrics(site, col, depth, t_start, times, initial=None):
@@ -475,7 +462,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None):
             return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial,
                                  enough=enough).concentration[:, 0]
         curve = (laplace_at if t_modal is None else
-                 _hybrid(modal_at, laplace_at, t_modal) if t_modal > t_start else modal_at)
+                 _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES)
     scale = scale or max(abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,

@@ -14,6 +14,7 @@ per process.
 """
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import io
 from collections import OrderedDict
@@ -132,21 +133,15 @@ def _drawn_layers(site, samples) -> list:
     return drawn
 
 
-class _naming:
+@contextlib.contextmanager
+def _naming(what):
     """Puts the boring (and realization) in front of a refusal's message: which column
     of the site no engine could vouch for."""
-
-    def __init__(self, what):
-        self.what = what
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, kind, exc, tb):
-        if isinstance(exc, UnreliableResultError):
-            raise UnreliableResultError(f"boring {self.what}: {exc}", exc.times,
-                                        exc.quantities) from None
-        return False
+    try:
+        yield
+    except UnreliableResultError as exc:
+        raise UnreliableResultError(f"boring {what}: {exc}", exc.times,
+                                    exc.quantities) from None
 
 
 def _one_blas_thread():

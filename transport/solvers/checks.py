@@ -42,7 +42,7 @@ from transport.units import YEAR
 
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
            "budget_residual", "QUANTITIES", "quantities", "choose",
-           "describe_refusal", "clip_to_bounds"]
+           "describe_refusal", "clip_to_bounds", "input_scales", "vouched_from", "switched"]
 
 #: The reported quantities and their names in messages.
 QUANTITIES = ("concentration", "total_flux", "cumulative_mass", "budget")
@@ -248,17 +248,45 @@ def scales(a: dict, b: dict | None, bounds: Bounds | None, column=None) -> dict:
     # largest budget term): a depth the plume has barely reached has no scale of its own
     out["cumulative_mass"] = max(out["cumulative_mass"], out["budget"])
     if column is not None:
-        c_s = out["concentration"]
-        length = column.length
-        f_in = c_s * (abs(column.darcy_flux)
-                      + max(l.water_content * l.diffusivity for l in column.layers) / length)
-        m_in = c_s * sum(l.water_content * l.retardation * l.thickness for l in column.layers)
+        f_in, m_in = input_scales(column, out["concentration"])
         out["total_flux"] = max(out["total_flux"], f_in)
         out["cumulative_mass"] = max(out["cumulative_mass"], m_in)
         out["budget"] = max(out["budget"], m_in)
     # fluxes and masses are never on a smaller scale than rounding allows
     for q in QUANTITIES:
         out[q] = max(out[q], 1e-300)
+    return out
+
+
+def input_scales(column, c_s: float) -> tuple:
+    """The flux and mass scales a concentration scale ``c_s`` sets in ``column``:
+    F_in = c_s (|q| + max theta D / L) and M_in = c_s sum theta R L."""
+    f_in = c_s * (abs(column.darcy_flux)
+                  + max(l.water_content * l.diffusivity for l in column.layers)
+                  / column.length)
+    m_in = c_s * sum(l.water_content * l.retardation * l.thickness for l in column.layers)
+    return f_in, m_in
+
+
+def vouched_from(ok, times) -> int:
+    """Index of the first time from which ``ok`` holds at every later positive time
+    (times <= 0 do not count): 0 if it holds everywhere, ``times.size`` if it fails at
+    the last one.  Where a curve may switch from the Laplace engine to the modal
+    series."""
+    bad = np.flatnonzero(~np.asarray(ok, bool) & (np.asarray(times, float) > 0))
+    return int(bad.max()) + 1 if bad.size else 0
+
+
+def switched(t, t_switch, early, late):
+    """``early(t)`` at t < t_switch and ``late(t)`` from t_switch on, each engine asked
+    only for its own times (a 1-D array of the size of t)."""
+    t = np.atleast_1d(np.asarray(t, dtype=float))
+    out = np.empty(t.size)
+    on = t >= t_switch
+    if on.any():
+        out[on] = late(t[on])
+    if (~on).any():
+        out[~on] = early(t[~on])
     return out
 
 

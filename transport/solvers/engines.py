@@ -26,7 +26,7 @@ import numpy as np
 from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
                                       clip_to_bounds, concentration_bounds, describe_refusal,
-                                      own_errors, quantities)
+                                      own_errors, quantities, switched, vouched_from)
 from transport.solvers.fv.defaults import DEFAULT_TOLERANCE as FV_TOLERANCE
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.laplace.contour import companion_nodes, default_nodes
@@ -199,14 +199,8 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom):
 def _auto_evaluator(series, t_modal, laplace_at):
     """Modal series from ``t_modal`` on (where it was vouched for), Laplace before."""
     def at(depth, t):
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        out = np.empty(t.size)
-        late = t >= t_modal
-        if late.any():
-            out[late] = series.concentration_at(depth, t[late])
-        if (~late).any():
-            out[~late] = laplace_at(depth, t[~late])
-        return out
+        return switched(t, t_modal, lambda s: laplace_at(depth, s),
+                        lambda s: series.concentration_at(depth, s))
     return at
 
 
@@ -369,11 +363,11 @@ def modal_evaluator(choice, times, series, fallback):
     """(series, C(depth, t)) for the continuous-time metrics: the modal series from the
     first output time after which it served every time (Laplace before), or (None,
     ``fallback``) when it serves no such tail."""
-    used = choice.engine == "modal"
-    later = np.flatnonzero(~used & (times > 0))
-    cut = later.max() + 1 if later.size else 0
-    if series is not None and cut < times.size and used[cut:].all():
-        return series, _auto_evaluator(series, float(times[cut]), fallback)
+    cut = vouched_from(choice.engine == "modal", times)
+    if series is not None and cut < times.size and (times > 0).any():
+        # from the first positive time on: at t = 0 the state itself (the fallback)
+        first = max(cut, int(np.argmax(times > 0)))
+        return series, _auto_evaluator(series, float(times[first]), fallback)
     return None, fallback
 
 

@@ -33,8 +33,9 @@ class TimeIntegrals:
         """Tail corrections of the truncated series at depths z (dict of arrays).
 
         Exact minus truncated 1/(lambda + eps) sums, for the initial state (column 0)
-        and each lifting (columns 1..K): "C" values (nz, 1+K) and "F" fluxes at z, and
-        "D" for the decayed mass (1+K,).  Modes beyond the truncation respond
+        and each lifting (columns 1..K): "C" values (nz, 1+K) and "F" fluxes at z; and
+        the exact sums themselves, "F_exact" (nz, 1+K) and "D_exact" for the decayed
+        mass (1+K,), for :meth:`integrated_rows`.  Modes beyond the truncation respond
         quasi-statically, a_n ~ c_kn (eps b_k - b_k') / (lambda_n + eps); these sums
         replace their slowly converging tails by Green's-function values."""
         op = self.op
@@ -58,11 +59,9 @@ class TimeIntegrals:
         stored_w = coef @ self.mass_modes.sum(axis=0)  # int a W, converges fast
         QD = Fe[0] - Fe[1] + integ - self.eps * stored_w
         c_modes, f_modes, _, _ = self.fields(z)
-        D = (op.decay[:, None] * self.mass_modes).sum(axis=0)
         lay = self.modes.layer_of(z)
         out = {"C": op.kappa[lay][:, None] * U[:z.size] - c_modes @ coef.T,
-               "F": Fz - f_modes @ coef.T, "D": QD - coef @ D,
-               "F_exact": Fz, "D_exact": QD}
+               "F": Fz - f_modes @ coef.T, "F_exact": Fz, "D_exact": QD}
         if len(cache) > 64:
             cache.clear()
         cache[key] = out
