@@ -29,7 +29,7 @@ from transport.model.column import InitialState
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
-                                      describe_refusal, input_scales, own_errors,
+                                      describe_refusal, good_enough, own_errors,
                                       quantities, switched, vouched_from)
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.modal.projection import initial_profile
@@ -370,19 +370,6 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
 def _switched(early, late, t_switch):
     """The curve C(t): ``early`` before t_switch, ``late`` from it on."""
     return lambda t: switched(t, t_switch, early, late)
-
-
-def good_enough(col, scale, tol) -> dict:
-    """Absolute errors that suffice a site check: 1 % of the tolerance times each
-    quantity's least scale (C_s and :func:`transport.solvers.checks.input_scales`), for the ``enough`` of
-    :func:`transport.solvers.laplace.solve_laplace` (saves parabolic re-inversions
-    ahead of a front; every value keeps its own estimate)."""
-    if not scale:
-        return {}
-    c = 0.01 * tol * scale
-    flux, mass = input_scales(col, c)
-    return {"concentration": c, "total_flux": flux, "cumulative_mass": mass,
-            "budget": mass}
 
 
 def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,

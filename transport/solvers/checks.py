@@ -42,7 +42,8 @@ from transport.units import YEAR
 
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
            "budget_residual", "QUANTITIES", "quantities", "choose",
-           "describe_refusal", "clip_to_bounds", "input_scales", "vouched_from", "switched"]
+           "describe_refusal", "clip_to_bounds", "input_scales", "good_enough", "vouched_from",
+           "switched"]
 
 #: The reported quantities and their names in messages.
 QUANTITIES = ("concentration", "total_flux", "cumulative_mass", "budget")
@@ -266,6 +267,21 @@ def input_scales(column, c_s: float) -> tuple:
                   / column.length)
     m_in = c_s * sum(l.water_content * l.retardation * l.thickness for l in column.layers)
     return f_in, m_in
+
+
+def good_enough(column, scale, tolerance) -> dict:
+    """Absolute errors that suffice a check at ``tolerance``: 1 % of it times each
+    quantity's least scale (the concentration scale ``scale`` and the flux and mass
+    scales it sets, :func:`input_scales`), the ``enough`` of
+    :func:`transport.solvers.laplace.solve_laplace` (saves re-inversions on other
+    contours, e.g. ahead of a front; every value keeps its own estimate).  Empty
+    without a scale."""
+    if not scale:
+        return {}
+    c = 0.01 * tolerance * scale
+    flux, mass = input_scales(column, c)
+    return {"concentration": c, "total_flux": flux, "cumulative_mass": mass,
+            "budget": mass}
 
 
 def vouched_from(ok, times) -> int:

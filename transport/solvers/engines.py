@@ -18,6 +18,7 @@ quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
 """
 from __future__ import annotations
 
+import math
 import warnings
 from dataclasses import dataclass
 
@@ -26,10 +27,12 @@ import numpy as np
 from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
                                       clip_to_bounds, concentration_bounds, describe_refusal,
-                                      own_errors, quantities, switched, vouched_from)
+                                      good_enough, own_errors, quantities, switched,
+                                      vouched_from)
 from transport.solvers.fv.defaults import DEFAULT_TOLERANCE as FV_TOLERANCE
 from transport.solvers.laplace import solve_laplace
-from transport.solvers.laplace.contour import companion_nodes, default_nodes
+from transport.solvers.laplace.contour import default_nodes
+from transport.solvers.laplace.inversion import evaluations
 from transport.solvers.modal import series as modal
 from transport.solvers.modal.operator import ZONE_NOT_MODAL, build_operator
 from transport.solvers.modal.projection import initial_profile
@@ -60,15 +63,16 @@ COST_FLOOR = 1.0
 _S_PER_MODE_LAYER = 1e-5  # root search: ~30 Pruefer passes of ~3e-7 s per mode x layer
 _NODES_PER_PANEL = 16  # Gauss-Legendre nodes of the projections (8 to 32 per panel)
 _S_PER_NODE_RESPONSE = 2e-7  # one steady response or mode at one quadrature node
-_S_PER_LAPLACE_SOLVE = 4e-6  # one time x contour node x (segment + 20 of overhead)
+_S_PER_LAPLACE_SOLVE = 4e-6  # one transform evaluation x (segment + 20 of overhead)
 #: Later C(depth, t) evaluations assumed by default: a receptor reading scans a curve
 #: served by Laplace inversion at about 240 times (160 uniform + 80 logarithmic), each
 #: one more inversion, where the modal series evaluates them almost for free.  A caller
 #: that reads no curve passes ``reads=0``.
 READS = 240
-#: Times x segments the Laplace evaluator inverts at once (bounds its memory: a column
-#: of 1,000 layers read at 240 times at once held 4 GB); smaller reads go in one call.
-READ_BLOCK = 20000
+#: Transform evaluations x segments the Laplace evaluator makes in one call (bounds its
+#: memory, ~270 bytes each: a column of 1,000 layers read at 240 times, one Talbot
+#: contour per time, made 15 million and held 4 GB); larger reads are split by time.
+READ_BLOCK = 1_000_000
 
 
 @dataclass(frozen=True)
@@ -83,8 +87,9 @@ class CostEstimate:
         of its N + 2 steady responses and its modes at ~16 Gauss nodes per panel (the
         panels break at every layer face and output depth).
     laplace : float
-        Laplace engine: (output times + later reads) x switch-on times x contour
-        nodes (its two node counts) x segments of the banded system.
+        Laplace engine: transform evaluations (windows of output times sharing a
+        hyperbola, lone times a Talbot contour each, and a read curve) x switch-on
+        times x segments of the banded system.
     modes : int
         Modes the modal path needs (Weyl estimate of the tail bound).
     laplace_only : bool
@@ -120,14 +125,19 @@ def _switch_on_times(column) -> int:
 
 def laplace_cost(column, times, initial=None, reads: int = 0) -> float:
     """Estimated seconds of :func:`transport.solvers.laplace.solve_laplace` on ``times``
-    and of ``reads`` later single-time evaluations (contour nodes of both node counts x
-    segments x times x switch-on times)."""
+    and of ``reads`` later evaluations of a curve over their span (transform
+    evaluations as planned, windows of times sharing a hyperbola, x segments x
+    switch-on times)."""
     n = default_nodes(column)
-    solves = (n + companion_nodes(n)) / 2
     segments = len(column.layers) + (len(initial.depths) if initial is not None
                                      and getattr(initial, "kind", "") == "profile" else 0)
-    positive = int(np.count_nonzero(np.asarray(times, float) > 0)) + int(reads)
-    return _S_PER_LAPLACE_SOLVE * positive * _switch_on_times(column) * solves * (segments + 20)
+    times = np.asarray(times, float).ravel()
+    positive = times[times > 0]
+    solves = evaluations(positive, n) if positive.size else 0
+    if reads and positive.size:  # a curve scanned over the span of the output times
+        span = np.geomspace(positive.min(), max(positive.max(), 2 * positive.min()), reads)
+        solves += evaluations(span, n)
+    return _S_PER_LAPLACE_SOLVE * solves * _switch_on_times(column) * (segments + 20)
 
 
 def modal_cost(column, modes: int, n_depths: int = 0) -> float:
@@ -177,19 +187,22 @@ def _weyl_modes(op, t, tolerance):
     return modal.required_modes(op, t, tolerance, 10 ** 9)
 
 
-def _laplace_evaluator(column, initial, semi_infinite_bottom):
-    """C(depth, t) at any times by Laplace inversion (the initial state at t = 0)."""
+def _laplace_evaluator(column, initial, semi_infinite_bottom, enough=None):
+    """C(depth, t) at any times by Laplace inversion (the initial state at t = 0);
+    ``enough`` as :func:`transport.solvers.laplace.solve_laplace`."""
     def at(depth, t):
         t = np.atleast_1d(np.asarray(t, dtype=float))
         out = np.empty(t.size)
         pos = t > 0
         idx = np.flatnonzero(pos)
-        step = max(1, READ_BLOCK // len(column.layers))
-        for start in range(0, idx.size, step):
-            sel = idx[start:start + step]
+        idx = idx[np.argsort(t[idx], kind="stable")]
+        work = evaluations(t[idx], default_nodes(column)) * len(column.layers) if idx.size else 0
+        for sel in np.array_split(idx, max(1, math.ceil(work / READ_BLOCK))):
+            if not sel.size:
+                continue
             out[sel] = solve_laplace(column, t[sel], [depth], initial=initial,
-                                     semi_infinite_bottom=semi_infinite_bottom
-                                     ).concentration[:, 0]
+                                     semi_infinite_bottom=semi_infinite_bottom,
+                                     enough=enough).concentration[:, 0]
         if (~pos).any():
             out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
         return out
@@ -275,13 +288,15 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
     if zone and engine in ("modal", "finite-volume"):
         raise InputError(ZONE_NOT_MODAL.replace("the modal engine", f"the {engine} engine"))
     nt = times.size
-    lap = solve_laplace(column, times, depths, initial=initial,
-                        semi_infinite_bottom=semi_infinite_bottom)
-    everything = np.arange(nt)
-    lap_c = _expand(lap, everything, nt)
-    laplace_at = _laplace_evaluator(column, initial, semi_infinite_bottom)
     bounds = None if semi_infinite_bottom else concentration_bounds(
         column, initial, float(times.max()) if nt else 0.0)
+    # errors that suffice the check: no re-inversion on another contour below them
+    enough = good_enough(column, bounds.scale, tolerance) if bounds is not None else {}
+    lap = solve_laplace(column, times, depths, initial=initial,
+                        semi_infinite_bottom=semi_infinite_bottom, enough=enough)
+    everything = np.arange(nt)
+    lap_c = _expand(lap, everything, nt)
+    laplace_at = _laplace_evaluator(column, initial, semi_infinite_bottom, enough)
     series, evaluator = None, laplace_at
     eig, n_modes = np.empty(0), 0
     note = ""

@@ -1,4 +1,5 @@
-"""Laplace-domain engine: exact layered transfer, numerical inversion on a Talbot contour.
+"""Laplace-domain engine: exact layered transfer, numerical inversion on Talbot,
+hyperbolic and parabolic contours.
 
 The second, independent path of the project (beside the modal and finite-volume
 engines).  It serves early times (where the modal series needs too many modes), high
@@ -6,8 +7,10 @@ column Peclet numbers (where the modal sum in v = e^{-A} u loses digits), a
 semi-infinite bottom layer, and cross-checks.
 
 Modules: :mod:`~transport.solvers.laplace.transfer` (the exact transformed solution of
-the layered column for a batch of s), :mod:`~transport.solvers.laplace.contour` (numerical
-inversion with error estimates), :mod:`~transport.solvers.laplace.engine`
+the layered column for a batch of s), :mod:`~transport.solvers.laplace.contour` (the
+contours, each sum with its error estimate), :mod:`~transport.solvers.laplace.inversion`
+(which contour serves which time: windows of times share a hyperbola),
+:mod:`~transport.solvers.laplace.engine`
 (:func:`solve_laplace`: signals, components and the outputs).
 """
 from transport.solvers.laplace.contour import (DEFAULT_NODES, companion_nodes, default_nodes,

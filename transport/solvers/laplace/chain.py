@@ -17,7 +17,8 @@ import numpy as np
 
 from transport.model.chain import Chain
 from transport.model.column import InitialState, InputError, check_output_grid
-from transport.solvers.laplace.contour import default_nodes, invert_best
+from transport.solvers.laplace.contour import default_nodes
+from transport.solvers.laplace.inversion import invert_best
 from transport.solvers.laplace.engine import (laplace_solution, signal_components,
                                               signals_for)
 from transport.solvers.laplace.transfer import LaplaceTransfer

@@ -1,4 +1,5 @@
-"""Numerical inversion of the Laplace transform on Talbot and parabolic contours.
+"""Numerical inversion of the Laplace transform on Talbot, parabolic and hyperbolic
+contours (which one serves which time: :mod:`transport.solvers.laplace.inversion`).
 
 Optimised Talbot contour (Trefethen, Weideman & Schmelzer 2006, BIT 46:653; analysis
 of such contours in Weideman & Trefethen 2007, Math. Comp. 76:1341):
@@ -26,6 +27,9 @@ contours), where every term is bounded, at ~12 sqrt(s0 t) + 24 solves per time; 
 value comes from the contour with the smaller estimate.
 Measured against mpmath (tests/test_laplace.py): column Peclet numbers 100 to 1000 are
 served to ~1e-12 of the inlet concentration ahead of and behind the front.
+
+Windows of times: a hyperbola serves every time of [t0, Lambda t0] with one node set
+(:func:`invert_window`, below), with the same two-node-count estimate.
 """
 from __future__ import annotations
 
@@ -36,7 +40,9 @@ import numpy as np
 from transport.model.column import Column, InputError
 
 __all__ = ["DEFAULT_NODES", "talbot_nodes", "default_nodes", "companion_nodes", "invert",
-           "parabola_nodes", "parabola_count", "invert_best"]
+           "parabola_nodes", "parabola_count", "invert_parabola", "pair_estimate",
+           "hyperbola_parameters", "hyperbola_nodes", "hyperbola_count", "invert_window",
+           "derive_hyperbola", "hyperbola_exponents", "WINDOW_RATIOS"]
 
 DEFAULT_NODES = 32
 # optimised Talbot contour (Trefethen, Weideman & Schmelzer 2006)
@@ -123,14 +129,23 @@ def invert(transform, times, n: int = DEFAULT_NODES):
     estimate.
     """
     times = np.asarray(times, dtype=float)
-    f1, size1, end1, cap1 = _invert_once(transform, times, n)
-    f2, size2, end2, cap2 = _invert_once(transform, times, companion_nodes(n))
+    return pair_estimate(_invert_once(transform, times, n),
+                         _invert_once(transform, times, companion_nodes(n)))
+
+
+def pair_estimate(one, two):
+    """Value and error estimate of :func:`invert` from two sums ``one`` and ``two`` of
+    the same integral with different node sets, each (value, sum of |terms|, |outermost
+    term|, capped): the second value, or the first where the two differ by no more than
+    their rounding; estimate 2 |f2 - f1| + 16 eps (S1 + S2) + 2 |outermost term|,
+    infinite where an exponent was capped."""
+    (f1, size1, end1, cap1), (f2, size2, end2, cap2) = one, two
     diff = np.abs(f2 - f1)
     rounding = 16 * np.finfo(float).eps * (size1 + size2)
     first = diff <= rounding
     f = np.where(first, f1, f2)
     err = 2 * diff + rounding + 2 * np.where(first, end1, end2)
-    err[cap1 | cap2] = np.inf
+    err[np.broadcast_to(cap1 | cap2, err.shape[:1])] = np.inf
     return f, err
 
 
@@ -165,9 +180,9 @@ def parabola_count(s0: float, t: float) -> int:
     return int(math.ceil(12 * math.sqrt(s0 * t))) + 24
 
 
-def _invert_parabola(transform, times, s0):
+def invert_parabola(transform, times, s0):
     """Like :func:`invert` on the parabolic contour, node counts m and 1.25 m + 2."""
-    f = []
+    f, e = [], []
     for t in times:
         m = parabola_count(s0, t)
         parts = []
@@ -176,50 +191,155 @@ def _invert_parabola(transform, times, s0):
             out = transform(s)
             vals, flags = out if isinstance(out, tuple) else (out, None)
             terms = w[:, None] * vals
-            parts.append((np.imag(terms).sum(axis=0), np.abs(terms).sum(axis=0),
-                          np.abs(terms[-1]), flags is not None and np.any(flags)))
-        (f1, s1, e1, c1), (f2, s2, e2, c2) = parts
-        diff = np.abs(f2 - f1)
-        rounding = 16 * np.finfo(float).eps * (s1 + s2)
-        first = diff <= rounding
-        err = 2 * diff + rounding + 2 * np.where(first, e1, e2)
-        if c1 or c2:
-            err[:] = np.inf
-        f.append((np.where(first, f1, f2), err))
-    return np.array([a for a, _ in f]), np.array([b for _, b in f])
+            parts.append((np.imag(terms).sum(axis=0)[None], np.abs(terms).sum(axis=0)[None],
+                          np.abs(terms[-1])[None],
+                          np.array([flags is not None and bool(np.any(flags))])))
+        fi, ei = pair_estimate(*parts)
+        f.append(fi[0])
+        e.append(ei[0])
+    return np.array(f), np.array(e)
 
 
-_RETRY = 1e-10  # an estimate above this fraction of the quantity's scale: try the parabola
+# Hyperbolic contour serving a window of times t in [t0, Lambda t0] with ONE node set
+# (Weideman & Trefethen 2007, Math. Comp. 76:1341, section 3):
+#     z(u) = mu (1 + sin(i u - alpha)),  u_k = (k + 1/2) h, k = 0 .. N - 1 (u > 0 half),
+#     f(t) = sum_k Im(W_k e^{z_k t} F(z_k)),  W_k = (h / pi) i mu cos(i u_k - alpha),
+# with h = a / N and mu = m N / t0.  In the strip -alpha' < Im u < pi/2 - alpha the
+# contour family stays right of the singularities (the negative real axis, reached at
+# Im u = pi/2 - alpha) and left of the vertical line Re z = mu, so the trapezoid error is
+# ~ e^{-2 pi (pi/2 - alpha) / h} (singularities) + e^{mu Lambda t0 (1 - sin(alpha - d))
+# - 2 pi d / h} (lower strip, worst at the latest time) + e^{-mu t0 (sin alpha cosh(N h)
+# - 1)} (truncation, worst at the earliest time).  :func:`derive_hyperbola` picks
+# alpha, d, a, m making all three equal, e^{-rate N}; the table holds its output on the
+# window ratios 2^(k/2) (a window uses the first ratio at least its own: a contour for a
+# wider window serves a narrower one).  Lambda = 1 gives alpha = 1.1721, a = 1.0818,
+# m = 4.4921, rate 2.3157 per node (e^{-1.16} per node of the full contour), the
+# single-time hyperbola of Weideman & Trefethen 2007 (tests/test_laplace_window.py).
+# Rounding: the terms at the latest time reach e^{m N Lambda (1 - sin alpha)} (<= e^6)
+# times the data, inside the estimate's 16 eps sum |terms|.
+WINDOW_RATIOS = tuple(2 ** (k / 2) for k in range(15))  # 1 .. 128
+# (alpha, a = N h, m = mu t0 / N, rate) for each ratio of WINDOW_RATIOS
+_HYPERBOLA = (
+    (1.172104, 1.081792, 4.49208, 2.315654),
+    (1.159557, 1.280898, 2.59559, 2.017249),
+    (1.143097, 1.528044, 1.47083, 1.758661),
+    (1.122093, 1.831466, 0.816775, 1.539360),
+    (1.096908, 2.194435, 0.445964, 1.356853),
+    (1.068933, 2.612207, 0.24112, 1.207141),
+    (1.040755, 3.068889, 0.130703, 1.085197),
+    (1.014644, 3.545115, 0.0718251, 0.985696),
+    (0.991700, 4.025947, 0.0402463, 0.903779),
+    (0.972151, 4.502159, 0.0230368, 0.835465),
+    (0.955647, 4.969938, 0.0134522, 0.777695),
+    (0.941705, 5.428165, 0.00799594, 0.728183),
+    (0.929861, 5.877027, 0.00482645, 0.685230),
+    (0.919703, 6.317422, 0.00295167, 0.647564),
+    (0.910618, 6.753302, 0.00182035, 0.614222),
+)
 
 
-def invert_best(transform, times, n, s0, groups, floors=None):
-    """Best of two contours.
+def hyperbola_exponents(ratio: float, alpha: float, a: float, m: float):
+    """The three error exponents per node (singularities, lower strip at its best
+    offset d, truncation) of the hyperbola (alpha, a, m) on windows of ``ratio``: its
+    discretisation error is ~ e^{-N min(...)}."""
+    from scipy.optimize import minimize_scalar
+    lower = minimize_scalar(lambda d: -(2 * math.pi * d / a
+                                        - m * ratio * (1 - math.sin(alpha - d))),
+                            bounds=(0.0, alpha), method="bounded",
+                            options={"xatol": 1e-12})
+    return (2 * math.pi * (math.pi / 2 - alpha) / a, float(-lower.fun),
+            m * (math.sin(alpha) * math.cosh(a) - 1))
 
-    Talbot inversion (:func:`invert`); with advection (s0 > 0), the times where some
-    estimate exceeds _RETRY times the scale of its quantity group are inverted again on
-    the parabolic contour, and each value is taken from the contour with the smaller
-    estimate.  The scale of a group is its largest value whose estimate is below 1e-3
-    of it (garbage values carry large estimates and do not count).
 
-    ``floors`` (one absolute error per group, optional): estimates at or below it are
-    good enough for the caller and are not retried (a curve read only ahead of a front,
-    where every value is 1e-50 and the group's own scale would ask for 1e-60).  It only
-    saves work: every value keeps its own estimate."""
-    f, err = invert(transform, times, n)
-    if s0 <= 0:
-        return f, err
-    floors = [0.0] * len(groups) if floors is None else list(floors)
-    retry = np.zeros(times.size, bool)
-    with np.errstate(invalid="ignore"):
-        for cols, floor in zip(groups, floors):
-            fv, ev = np.abs(f[:, cols]), err[:, cols]
-            ok = np.isfinite(fv) & (ev <= 1e-3 * fv)
-            scale = fv[ok].max() if ok.any() else 0.0
-            retry |= ~(ev <= max(_RETRY * scale, floor)).all(axis=1)
-    if retry.any():
-        f2, e2 = _invert_parabola(transform, times[retry], s0)
-        with np.errstate(invalid="ignore"):
-            better = ~(err[retry] <= e2)  # also where the Talbot estimate is NaN
-        f[retry] = np.where(better, f2, f[retry])
-        err[retry] = np.where(better, e2, err[retry])
-    return f, err
+def derive_hyperbola(ratio: float):
+    """(alpha, a, m, rate) of the hyperbola for windows [t0, ratio t0]: maximise the
+    smallest of the three error exponents above (Nelder-Mead from a few starts; m is
+    chosen to equalise the lower-strip and truncation exponents).  The source of the
+    table; slow (~0.1 s), not used by the solver.  The optimum is flat: at ratio 128,
+    parameters 0.3 % apart reach the same rate to 1e-5."""
+    from scipy.optimize import minimize
+
+    def exponents(p):
+        alpha, frac, a = p
+        d = frac * alpha
+        m = (2 * math.pi * d / a) / (math.sin(alpha) * math.cosh(a) - 1
+                                     + ratio * (1 - math.sin(alpha - d)))
+        return min(2 * math.pi * (math.pi / 2 - alpha) / a,
+                   m * (math.sin(alpha) * math.cosh(a) - 1)), m
+
+    def cost(p):
+        ok = 0 < p[0] < math.pi / 2 and 0 < p[1] < 1 and p[2] > 0
+        return -exponents(p)[0] if ok else 1e9
+
+    best = min((minimize(cost, [a0, 0.5, h0], method="Nelder-Mead",
+                         options=dict(xatol=1e-10, fatol=1e-12, maxiter=4000))
+                for a0 in (0.6, 0.9, 1.2) for h0 in (0.5, 1.0, 2.0, 4.0)),
+               key=lambda r: r.fun)
+    rate, m = exponents(best.x)
+    return float(best.x[0]), float(best.x[2]), float(m), float(rate)
+
+
+def hyperbola_parameters(ratio: float):
+    """(alpha, a, m, rate) of the tabulated hyperbola serving windows of ``ratio``
+    (t_last / t_first, 1 .. 128)."""
+    k = int(np.searchsorted(WINDOW_RATIOS, ratio * (1 - 1e-12)))
+    if k >= len(WINDOW_RATIOS):
+        raise ValueError(f"no hyperbola tabulated for a window ratio of {ratio:g} (> 128)")
+    return _HYPERBOLA[k]
+
+
+def hyperbola_count(ratio: float, n: int) -> int:
+    """Nodes N of the hyperbola for a window of ``ratio`` aiming at the discretisation
+    error of a Talbot inversion with n nodes, e^{-1.358 n}: N = 1.358 n / rate."""
+    return int(math.ceil(_RATE * n / hyperbola_parameters(ratio)[3]))
+
+
+def hyperbola_nodes(ratio: float, count: int, t0: float):
+    """Nodes z_k and weights W_k (without e^{z_k t}) of the hyperbola for the window
+    [t0, ratio t0] with ``count`` nodes."""
+    alpha, a, m, _ = hyperbola_parameters(ratio)
+    h = a / count
+    w = 1j * (np.arange(count) + 0.5) * h - alpha
+    mu = m * count / t0
+    return mu * (1 + np.sin(w)), (h / np.pi) * 1j * mu * np.cos(w)
+
+
+def _window_sums(vals, capped, z, w, times):
+    """(value, sum |terms|, |outermost term|, capped) of the hyperbola sums at ``times``
+    from the transform values (count, m) at its nodes: matrix products."""
+    e = w[None, :] * np.exp(z[None, :] * times[:, None])
+    f = e.real @ vals.imag + e.imag @ vals.real
+    size = np.abs(e) @ np.abs(vals)
+    end = np.abs(e[:, -1:]) * np.abs(vals[-1:, :])
+    return f, size, end, np.full(times.size, bool(np.any(capped)))
+
+
+def invert_window(transform, windows, n: int):
+    """Invert ``transform`` on each window of times (a list of arrays, each its times
+    > 0, t_last / t_first <= 128) with one hyperbola per window and node count: N =
+    :func:`hyperbola_count` and N2 = N + max(4, N / 4) nodes, all in ONE call of the
+    transform.  Returns [(value (nt, m), estimate (nt, m))] per window, the estimate as
+    :func:`invert` (:func:`pair_estimate`)."""
+    if not windows:
+        return []
+    sets = []
+    for times in windows:
+        t0 = float(times.min())
+        ratio = float(times.max()) / t0
+        count = hyperbola_count(ratio, n)
+        sets += [hyperbola_nodes(ratio, c, t0)
+                 for c in (count, count + max(4, round(count / 4)))]
+    s = np.concatenate([z for z, _ in sets])
+    out = transform(s)
+    vals, flags = out if isinstance(out, tuple) else (out, None)
+    vals = vals.reshape(s.size, -1)
+    flags = np.zeros(s.size, bool) if flags is None else np.asarray(flags).reshape(-1)
+    results, at = [], 0
+    for k, times in enumerate(windows):
+        sums = []
+        for z, w in sets[2 * k:2 * k + 2]:
+            part = slice(at, at + z.size)
+            sums.append(_window_sums(vals[part], flags[part], z, w, times))
+            at += z.size
+        results.append(pair_estimate(*sums))
+    return results

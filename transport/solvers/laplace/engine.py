@@ -10,7 +10,8 @@ import math
 import numpy as np
 
 from transport.model.column import Column, InitialState, InputError, check_output_grid
-from transport.solvers.laplace.contour import default_nodes, invert_best
+from transport.solvers.laplace.contour import default_nodes
+from transport.solvers.laplace.inversion import invert_best
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
@@ -83,13 +84,15 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
     semi_infinite_bottom : the last layer extends to infinity (its thickness and the
         bottom boundary are ignored)
     nodes : Talbot nodes N (even), default :func:`default_nodes` (32 for column Peclet
-        numbers up to 10, more above): N / 2 complex banded solves per time
-        and per distinct switch-on time of the scheduled signals
+        numbers up to 10, more above): N / 2 complex banded solves per lone time and
+        per distinct switch-on time of the scheduled signals; windows of times share
+        hyperbolas aiming at the same error, e^{-1.358 N}
+        (:mod:`transport.solvers.laplace.inversion`)
     enough : optional absolute errors that suffice the caller ({"concentration":
         kg m-3, "total_flux": kg m-2 s-1, "cumulative_mass": kg m-2, "budget": kg m-2},
-        any subset): a time whose Talbot estimates are all within them is not inverted
-        again on the parabolic contour (:func:`transport.solvers.laplace.contour.
-        invert_best`); saves work only, every value keeps its own estimate
+        any subset): a time whose estimates are all within them is not inverted again
+        on another contour (:func:`transport.solvers.laplace.inversion.invert_best`);
+        saves work only, every value keeps its own estimate
 
     Returns
     -------

@@ -1,0 +1,171 @@
+"""Windows of output times served by one hyperbolic contour each
+(transport.solvers.laplace.contour.invert_window, transport.solvers.laplace.inversion).
+
+Check values: closed-form transform pairs (Abramowitz & Stegun 1964, Handbook of
+Mathematical Functions, table 29.3), the mpmath Laplace-domain solution of the layered
+column (tests/reference.py, laplace_reference_full: Talbot inversion per Abate & Valko
+2004 in 20+ digits) across the regime matrix, and the single-time hyperbola of
+Weideman & Trefethen (2007, Math. Comp. 76:1341, section 3).
+"""
+from __future__ import annotations
+
+import math
+import multiprocessing
+from concurrent.futures import ProcessPoolExecutor
+
+import numpy as np
+import pytest
+from scipy.special import erfc
+
+from reference import laplace_reference_full
+from test_error_bound import _actual, draw
+from test_regime_matrix import build
+from transport.solvers.laplace import contour, inversion, solve_laplace
+from transport.solvers.laplace.contour import (WINDOW_RATIOS, derive_hyperbola,
+                                               hyperbola_exponents, hyperbola_parameters,
+                                               invert_window)
+from transport.solvers.laplace.inversion import invert_best, plan_windows
+
+EPS = np.finfo(float).eps
+
+
+def test_single_time_hyperbola_is_weideman_trefethen():
+    """Weideman & Trefethen (2007) section 3, one time (Lambda = 1): alpha = 1.1721,
+    h = 1.0818 / N, mu = 4.4921 N / t, error ~ 3.2^{-2N} for N nodes on the half
+    contour (numbers from memory; Liemert & Kienle 2015 quote 1.172104229, 1.081792140,
+    4.492075287, also from memory)."""
+    alpha, a, m, rate = hyperbola_parameters(1.0)
+    assert alpha == pytest.approx(1.172104229, abs=2e-6)
+    assert a == pytest.approx(1.081792140, abs=2e-6)
+    assert m == pytest.approx(4.492075287, abs=2e-5)
+    assert math.exp(rate / 2) == pytest.approx(3.2, abs=0.02)
+
+
+@pytest.mark.parametrize("k", [0, 5, 10, 14])
+def test_table_is_the_derivation(k):
+    """Each tabulated contour reaches the rate it states (its three error exponents,
+    hyperbola_exponents, at least that rate), and that rate is derive_hyperbola's
+    optimum (scipy Nelder-Mead, an independent run) to 1e-5; wider windows converge
+    more slowly."""
+    ratio = WINDOW_RATIOS[k]
+    alpha, a, m, rate = hyperbola_parameters(ratio)
+    assert min(hyperbola_exponents(ratio, alpha, a, m)) >= rate * (1 - 1e-5)
+    assert derive_hyperbola(ratio)[3] == pytest.approx(rate, rel=1e-5)
+    if k:
+        assert rate < hyperbola_parameters(WINDOW_RATIOS[k - 1])[3]
+
+
+PAIRS = {  # transform, inverse (Abramowitz & Stegun 1964, table 29.3)
+    # 29.3.83: e^{-k sqrt(s)} / s <-> erfc(k / (2 sqrt(t))), k = 1
+    "erfc": (lambda s: np.exp(-np.sqrt(s)) / s, lambda t: erfc(1 / (2 * np.sqrt(t)))),
+    # 29.3.8: 1 / (s + a) <-> e^{-a t}, a = 0.7 (a pole on the negative axis)
+    "exp": (lambda s: 1 / (s + 0.7), lambda t: np.exp(-0.7 * t)),
+    # 29.3.4: 1 / s^2 <-> t (the ramp atom of a schedule)
+    "ramp": (lambda s: 1 / s ** 2, lambda t: t),
+    # 29.3.84: e^{-k sqrt(s)} <-> k / (2 sqrt(pi t^3)) e^{-k^2 / (4 t)}, k = 1 (a pulse)
+    "pulse": (lambda s: np.exp(-np.sqrt(s)),
+              lambda t: np.exp(-1 / (4 * t)) / (2 * np.sqrt(np.pi * t ** 3))),
+}
+
+
+@pytest.mark.parametrize("name", sorted(PAIRS))
+@pytest.mark.parametrize("ratio", [1.3, 10.0, 100.0, 128.0])
+def test_window_of_times_is_exact_within_its_estimate(name, ratio):
+    """Every time of a window, 0.05 to 0.05 x ratio, within the estimate it reports, and
+    the estimate within 1e-11 of the largest value (n = 32, the Talbot default; the
+    narrowest windows round off most: 4e-12 at a ratio of 1.3 for e^{-0.7 t}, where
+    the actual error is 1.5e-13)."""
+    transform, exact = PAIRS[name]
+    times = np.geomspace(0.05, 0.05 * ratio, 25)
+    [(f, err)] = invert_window(lambda s: transform(s)[:, None], [times], 32)
+    want = exact(times)
+    scale = np.abs(want).max()
+    assert np.all(np.abs(f[:, 0] - want) <= err[:, 0] + 4 * EPS * scale)
+    assert np.all(err <= 1e-11 * scale)
+
+
+def test_windows_cover_wide_spans_in_equal_ratios_and_sparse_times_stay_lone():
+    """100 times over 6 decades: 3 windows of ratio 100 (no narrow remainder); 4 times
+    over 6 decades cost less on one Talbot contour each."""
+    dense = np.geomspace(1.0, 1e6, 100)
+    windows, lone = plan_windows(dense, 32)
+    assert len(windows) == 3 and lone.size == 0
+    assert sorted(np.concatenate(windows)) == list(range(100))
+    for w in windows:
+        assert dense[w].max() / dense[w].min() == pytest.approx(100.0, rel=0.15)
+    windows, lone = plan_windows(np.geomspace(1.0, 1e6, 4), 32)
+    assert windows == [] and sorted(lone) == [0, 1, 2, 3]
+
+
+def test_a_window_whose_estimate_fails_falls_back_to_talbot(monkeypatch):
+    """Fault injection: a hyperbola reporting garbage (an infinite estimate) leaves
+    every value to a Talbot contour per time, the same numbers as contour.invert."""
+    transform, exact = PAIRS["erfc"]
+    times = np.geomspace(0.05, 5.0, 30)
+
+    def broken(tr, windows, n):
+        return [(np.full((w.size, 1), 7.0), np.full((w.size, 1), np.inf)) for w in windows]
+    monkeypatch.setattr(inversion, "invert_window", broken)
+    f, err = invert_best(lambda s: transform(s)[:, None], times, 32, 0.0, [[0]])
+    ref, ref_err = contour.invert(lambda s: transform(s)[:, None], times, 32)
+    np.testing.assert_array_equal(f, ref)
+    np.testing.assert_array_equal(err, ref_err)
+    assert np.all(np.abs(f[:, 0] - exact(times)) <= err[:, 0] + 4 * EPS)
+
+
+N_CASES = 24
+SEED = 20261203
+WORKERS = 2
+
+
+def _window_cases():
+    """Random regime-matrix cells (tests/test_error_bound.py's draw, its own seed) at
+    12 log-spaced times over two decades, 3 depths."""
+    rng = np.random.default_rng(SEED)
+    out = []
+    for _ in range(N_CASES):
+        cell, _ = draw(rng)
+        col, times, depths, init = build(cell)
+        times = np.geomspace(0.03, 3.0, 12) * times[1] / 0.5
+        depths = depths[[0, len(depths) // 2, -1]] if depths.size > 3 else depths
+        out.append((cell, col, times, depths, init))
+    return out
+
+
+def test_windowed_values_are_within_their_estimates_across_the_regime_matrix(monkeypatch):
+    """The hyperbola's own values and estimates (no retry on another contour), against
+    the mpmath reference: concentration, total flux, cumulative mass and every budget
+    term within the reported estimate + 4 eps x the reference's largest value, at
+    Peclet numbers 0 to 1000 both ways, every boundary kind, depleting and stepped
+    sources, decay, layer sources and measured initial profiles.  Where a value is
+    served (finite estimate), most cells are served to 1e-10 of their scale."""
+    monkeypatch.setattr(inversion, "_WINDOW_LEVEL", math.inf)
+    monkeypatch.setattr(inversion, "_RETRY", math.inf)
+    drawn = _window_cases()
+    pool = ProcessPoolExecutor(WORKERS, mp_context=multiprocessing.get_context("spawn"))
+    served, tight, bad = 0, 0, []
+    try:
+        futures = [pool.submit(laplace_reference_full, col, depths, times, init, 20)
+                   for cell, col, times, depths, init in drawn]
+        for (cell, col, times, depths, init), fut in zip(drawn, futures):
+            windows, lone = plan_windows(times, contour.default_nodes(col))
+            assert lone.size == 0, cell.name  # every time is served by a hyperbola
+            sol = solve_laplace(col, times, depths, initial=init)
+            ref = fut.result()
+            for q in ("concentration", "total_flux", "cumulative_mass", "budget"):
+                actual, size = _actual(sol, ref, q)
+                est = sol.error[q]
+                ok = np.isfinite(est)
+                served += int(ok.sum())
+                scale = size.max()
+                tight += int(np.count_nonzero(est[ok] <= 1e-10 * scale))
+                over = ok & (actual > est + 4 * EPS * size)
+                if over.any():
+                    bad.append((cell.name, q, float((actual / est)[over].max())))
+    finally:
+        pool.shutdown(cancel_futures=True)
+    print(f"\nwindowed values: {served} served of {N_CASES * 12 * 4} (time x quantity), "
+          f"{tight} within 1e-10 of their scale; estimate exceeded: {bad}")
+    assert not bad, bad
+    assert served >= 0.8 * N_CASES * 12 * 4
+    assert tight >= 0.8 * served
