@@ -17,8 +17,9 @@ import numpy as np
 import pytest
 from scipy.special import erfc
 
-from reference import laplace_reference_full
+from reference import laplace_reference, laplace_reference_full
 from test_error_bound import _actual, draw
+from test_laplace import _advective_column
 from test_regime_matrix import build
 from transport.solvers.laplace import contour, inversion, solve_laplace
 from transport.solvers.laplace.contour import (WINDOW_RATIOS, derive_hyperbola,
@@ -169,3 +170,30 @@ def test_windowed_values_are_within_their_estimates_across_the_regime_matrix(mon
     assert not bad, bad
     assert served >= 0.8 * N_CASES * 12 * 4
     assert tight >= 0.8 * served
+
+
+@pytest.mark.parametrize("pe", [300, 1000])
+def test_dense_times_at_high_peclet_share_parabolas_within_their_estimates(pe, monkeypatch):
+    """Column Peclet numbers 300 and 1000 (tests/test_laplace.py's two-layer column,
+    inlet boundary), 8 times from 0.3 to 1.2 advective travel times: the times the
+    Talbot and hyperbolic contours cannot serve share parabolas (windows of up to 4x in
+    time), and every C at 5 depths, ahead of and behind the front, lies within its
+    estimate of the mpmath reference (tests/reference.py laplace_reference), every
+    estimate within 1e-8 of the inlet concentration."""
+    col, tau = _advective_column(pe)
+    t = np.geomspace(0.3, 1.2, 8) * tau
+    z = np.linspace(0.4, 2.0, 5)
+    shared = []
+    real = contour.plan_parabola
+
+    def spy(s0, times, limit=4.0):
+        plan = real(s0, times, limit)
+        shared.extend(w.size for w in plan if w.size > 1)
+        return plan
+    monkeypatch.setattr(contour, "plan_parabola", spy)
+    sol = solve_laplace(col, t, z)
+    assert shared  # some retried times shared a parabola
+    ref = laplace_reference(col, z, t, dps=20)
+    actual = np.abs(sol.concentration - ref).max(axis=1)
+    assert np.all(actual <= sol.error_estimate)
+    assert np.all(sol.error_estimate <= 1e-8)

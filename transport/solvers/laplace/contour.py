@@ -40,7 +40,8 @@ import numpy as np
 from transport.model.column import Column, InputError
 
 __all__ = ["DEFAULT_NODES", "talbot_nodes", "default_nodes", "companion_nodes", "invert",
-           "parabola_nodes", "parabola_count", "invert_parabola", "pair_estimate",
+           "parabola_nodes", "parabola_count", "plan_parabola", "invert_parabola",
+           "pair_estimate",
            "hyperbola_parameters", "hyperbola_nodes", "hyperbola_count", "invert_window",
            "derive_hyperbola", "hyperbola_exponents", "WINDOW_RATIOS"]
 
@@ -164,40 +165,80 @@ _PARA_SHIFT = 6.0
 _PARA_TAIL = 40.0
 
 
-def parabola_nodes(s0: float, t: float, m: int):
+def parabola_nodes(s0: float, t: float, m: int, t_last: float = None):
     """m nodes s_k and weights W_k (u > 0 half) of the parabolic contour for time t:
-    f(t) = sum_k Im(W_k F(s_k))."""
-    shift = _PARA_SHIFT / t
-    u_max = math.sqrt((_PARA_TAIL + _PARA_SHIFT) / (s0 * t))
+    f(t) = sum_k Im(W_k F(s_k)).  With ``t_last`` (> t) the contour serves every time
+    of [t, t_last] and the weights leave out e^{s_k t} (multiply by it per time): its
+    shift is _PARA_SHIFT / t_last (terms stay below e^{_PARA_SHIFT} at every time of
+    the window) and it runs to where e^{Re s t} < e^{-40} at t."""
+    last = t if t_last is None else t_last
+    shift = _PARA_SHIFT / last
+    u_max = math.sqrt((_PARA_TAIL + _PARA_SHIFT * t / last) / (s0 * t))
     h = u_max / m
     u = (np.arange(m) + 0.5) * h
     s = shift + s0 * ((1 + 1j * u) ** 2 - 1)
-    return s, (h / np.pi) * 2j * s0 * (1 + 1j * u) * np.exp(s * t)
+    w = (h / np.pi) * 2j * s0 * (1 + 1j * u)
+    return (s, w * np.exp(s * t)) if t_last is None else (s, w)
 
 
-def parabola_count(s0: float, t: float) -> int:
-    """Nodes of the parabolic contour for time t: 12 sqrt(s0 t) + 24."""
-    return int(math.ceil(12 * math.sqrt(s0 * t))) + 24
+def parabola_count(s0: float, t: float, t_last: float = None) -> int:
+    """Nodes of the parabolic contour for time t: 12 sqrt(s0 t) + 24; for the window
+    [t, t_last], the node spacing of t_last's contour (the pole at s = 0 lies
+    ~_PARA_SHIFT / (2 s0 t_last) from the path) out to t's end: about
+    sqrt(t_last / t) (12 sqrt(s0 t_last) + 24)."""
+    single = int(math.ceil(12 * math.sqrt(s0 * t))) + 24
+    if t_last is None or t_last <= t:
+        return single
+    last = parabola_count(s0, t_last)
+    h_last = math.sqrt((_PARA_TAIL + _PARA_SHIFT) / (s0 * t_last)) / last
+    u_max = math.sqrt((_PARA_TAIL + _PARA_SHIFT * t / t_last) / (s0 * t))
+    return int(math.ceil(u_max / h_last))
+
+
+def plan_parabola(s0: float, times, limit: float = 4.0):
+    """Windows (index arrays) of ``times`` for the parabolic contour: from the earliest
+    time not yet placed, the window up to ``limit`` times it that saves the most nodes
+    against one contour per time (a lone time when none saves)."""
+    times = np.asarray(times, float)
+    order = np.argsort(times, kind="stable")
+    ts = times[order]
+    single = np.array([parabola_count(s0, t) for t in ts])
+    out, i = [], 0
+    while i < ts.size:
+        best, best_j = 0, i
+        for j in range(i + 1, int(np.searchsorted(ts, ts[i] * limit, side="right"))):
+            saved = single[i:j + 1].sum() - parabola_count(s0, ts[i], ts[j])
+            if saved > best:
+                best, best_j = saved, j
+        out.append(order[i:best_j + 1])
+        i = best_j + 1
+    return out
 
 
 def invert_parabola(transform, times, s0):
-    """Like :func:`invert` on the parabolic contour, node counts m and 1.25 m + 2."""
-    f, e = [], []
-    for t in times:
-        m = parabola_count(s0, t)
-        parts = []
-        for mm in (m, int(1.25 * m) + 2):
-            s, w = parabola_nodes(s0, t, mm)
-            out = transform(s)
-            vals, flags = out if isinstance(out, tuple) else (out, None)
-            terms = w[:, None] * vals
-            parts.append((np.imag(terms).sum(axis=0)[None], np.abs(terms).sum(axis=0)[None],
-                          np.abs(terms[-1])[None],
-                          np.array([flags is not None and bool(np.any(flags))])))
-        fi, ei = pair_estimate(*parts)
-        f.append(fi[0])
-        e.append(ei[0])
-    return np.array(f), np.array(e)
+    """Like :func:`invert` on the parabolic contour, node counts m and 1.25 m + 2; the
+    times share contours in windows (:func:`plan_parabola`), one transform call per
+    window; a lone time gets its own contour."""
+    times = np.asarray(times, float)
+    f = e = None
+    for rows in plan_parabola(s0, times):
+        t = times[rows]
+        t0, t1 = float(t.min()), float(t.max())
+        m = parabola_count(s0, t0, t1 if t1 > t0 else None)
+        sets = [parabola_nodes(s0, t0, mm, t_last=t1) for mm in (m, int(1.25 * m) + 2)]
+        out = transform(np.concatenate([z for z, _ in sets]))
+        vals, flags = out if isinstance(out, tuple) else (out, None)
+        capped = flags is not None and bool(np.any(flags))
+        sums, at = [], 0
+        for z, w in sets:
+            v = vals[at:at + z.size]
+            at += z.size
+            sums.append(_window_sums(v, capped, z, w, t))
+        fi, ei = pair_estimate(*sums)
+        if f is None:
+            f, e = np.empty((times.size, fi.shape[1])), np.empty((times.size, fi.shape[1]))
+        f[rows], e[rows] = fi, ei
+    return f, e
 
 
 # Hyperbolic contour serving a window of times t in [t0, Lambda t0] with ONE node set

@@ -21,6 +21,8 @@ the smaller estimate is kept.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from transport.solvers.laplace.contour import (companion_nodes, hyperbola_count, invert,
@@ -30,7 +32,14 @@ __all__ = ["plan_windows", "invert_best", "WINDOW_LIMIT", "window_solves", "eval
 
 WINDOW_LIMIT = 128.0  # widest window t_last / t_first (the table's)
 _RETRY = 1e-10  # an estimate above this fraction of the quantity's scale: try the parabola
-_WINDOW_LEVEL = 1e-12  # ... a windowed value above it: try a Talbot contour at that time
+_WINDOW_LEVEL = 1e-12  # ... a windowed value above it (or above the rounding a Talbot
+# contour of n nodes shows anyway, ~16 eps e^{0.171 n}): try a Talbot contour at that time
+
+
+def _window_level(n: int) -> float:
+    """Fraction of a group's scale above which a windowed value is tried again on a
+    Talbot contour: 1e-12, or the Talbot contour's own rounding if larger."""
+    return max(_WINDOW_LEVEL, 16 * np.finfo(float).eps * math.exp(0.171 * n))
 
 
 def _talbot_solves(n: int) -> int:
@@ -109,8 +118,10 @@ def invert_best(transform, times, n, s0, groups, floors=None):
 
     1. Windows of times share one hyperbola each (:func:`plan_windows`); lone times get
        a Talbot contour each (:func:`transport.solvers.laplace.contour.invert`, n nodes).
-    2. Windowed times whose estimate of some group exceeds max(1e-12 x the group's
-       scale, its floor) are inverted again on Talbot contours.
+    2. Windowed times whose estimate of some group exceeds max(level x the group's
+       scale, its floor) are inverted again on Talbot contours; the level is 1e-12, or
+       the rounding a Talbot contour of n nodes shows anyway (16 eps e^{0.171 n},
+       2.6e-11 at n = 52) where that is larger.
     3. With advection (s0 > 0), times whose estimate exceeds max(1e-10 x the scale, the
        floor) are inverted again on the parabolic contour.
 
@@ -134,7 +145,7 @@ def invert_best(transform, times, n, s0, groups, floors=None):
         f[rows], err[rows] = fi, ei
     windowed = np.ones(times.size, bool)
     windowed[lone] = False
-    redo = windowed & _unsettled(f, err, groups, floors, _WINDOW_LEVEL)
+    redo = windowed & _unsettled(f, err, groups, floors, _window_level(n))
     if redo.any():
         _keep_better(f, err, redo, *invert(transform, times[redo], n))
     if s0 > 0:
