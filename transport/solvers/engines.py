@@ -134,8 +134,10 @@ def laplace_cost(column, times, initial=None, reads: int = 0) -> float:
     times = np.asarray(times, float).ravel()
     positive = times[times > 0]
     solves = evaluations(positive, n) if positive.size else 0
-    if reads and positive.size:  # a curve scanned over the span of the output times
-        span = np.geomspace(positive.min(), max(positive.max(), 2 * positive.min()), reads)
+    if reads and positive.size:  # a curve scanned over the span of the output times:
+        # its windows cost the same beyond a few samples per window (at most 4 READS)
+        span = np.geomspace(positive.min(), max(positive.max(), 2 * positive.min()),
+                            min(int(reads), 4 * READS))
         solves += evaluations(span, n)
     return _S_PER_LAPLACE_SOLVE * solves * _switch_on_times(column) * (segments + 20)
 
