@@ -197,3 +197,35 @@ def test_dense_times_at_high_peclet_share_parabolas_within_their_estimates(pe, m
     actual = np.abs(sol.concentration - ref).max(axis=1)
     assert np.all(actual <= sol.error_estimate)
     assert np.all(sol.error_estimate <= 1e-8)
+
+
+DENSE = [  # regime-matrix cells (tests/test_regime_matrix.py), indices into CELLS:
+    1,   # Pe 0, contrast, step-off, tol 1e-10
+    7,   # Pe 0, thin layer, mass transfer, depleting, decay
+    14,  # Pe 10 down, one layer, tol 1e-10
+    19,  # Pe 10 up, thin layer, measured profile
+    28,  # Pe 100 down, contrast, inlet, stepped table
+    32,  # Pe 300 down, inlet, measured profile
+    37,  # Pe 1000 up, inlet, depleting
+]
+
+
+@pytest.mark.parametrize("index", DENSE)
+def test_auto_runs_at_many_output_times_are_right_or_refused(index):
+    """solve_column(engine="auto") with 14 output times from 0.02 to 5 characteristic
+    times (windows of times share contours), against the mpmath reference: every
+    concentration, flux, cumulative mass and budget term within the cell's tolerance
+    times its scale, or refused (the rule of tests/test_regime_matrix.py)."""
+    from test_regime_matrix import CELLS, REF_DPS, RESULTS, record_and_check
+    from transport.solvers.engines import solve_column
+    cell = CELLS[index]
+    col, times, depths, init = build(cell)
+    times = np.geomspace(0.02, 5.0, 14) * times[1] / 0.5  # build()'s middle is 0.5 t_char
+    assert plan_windows(times, contour.default_nodes(col))[0]  # windows in use
+    record_and_check(
+        cell.name + "-dense",
+        lambda: solve_column(col, times, depths, initial=init, tolerance=cell.tol),
+        lambda: laplace_reference_full(col, depths, times, init, dps=REF_DPS),
+        cell.tol)
+    name, outcome, ratios, secs, why = RESULTS[-1]
+    print(f"\n{outcome} {name}: error / (tol x scale) {ratios} {why}")
