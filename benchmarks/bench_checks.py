@@ -15,6 +15,7 @@ import numpy as np
 
 from transport.solvers.checks import (assemble, choose, concentration_bounds, own_errors,
                               quantities)
+from transport.model.column import has_source_zone
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.modal.series import solve
 from transport.solvers.timeline import solve_timeline_modal
@@ -33,6 +34,9 @@ def main():
           f"{'checked s':>9s} {'checks/run':>10s} {'engines':>14s}")
     for path in sorted(glob.glob(os.path.join(HERE, "*.toml"))):
         sc = load_scenario(path)
+        if getattr(sc, "chain", None) is not None:
+            print(f"{os.path.basename(path):34s} (a decay chain: not timed here)")
+            continue
         if sc.timeline is not None and len(sc.timeline.stages) > 1:
             # staged: the whole checked run against the unchecked modal stages
             t_modal, _ = _best(lambda: solve_timeline_modal(
@@ -44,6 +48,11 @@ def main():
                   f"{'+'.join(sorted(set(sol.engine_by_time) - {'initial'})):>14s}")
             continue
         col, t, z, init = sc.column, sc.times, sc.depths, sc.initial
+        if has_source_zone(col):
+            t_run, (sol, _) = _best(lambda: solve_scenario(sc))
+            print(f"{os.path.basename(path):34s} {'(zone)':>8s} {'':>9s} {'':>8s} "
+                  f"{t_run:9.3f} {'':>10s} {'laplace alone':>14s}")
+            continue
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             t_modal, m = _best(lambda: solve(col, t, z, initial=init,
