@@ -1,7 +1,7 @@
 """Receptor metrics on the continuous solution vs brute-force sampling and closed forms."""
 import numpy as np
 import pytest
-from scipy.special import erfc, erfcinv
+from scipy.special import erfcinv
 
 from transport.analysis.metrics import receptor_metrics
 from transport.solvers.modal.series import solve

@@ -1,5 +1,4 @@
 """Scenario files with schedules and actions: parsing, errors with key paths, fuzzing."""
-import json
 import tomllib
 from pathlib import Path
 
@@ -10,7 +9,7 @@ from hypothesis import HealthCheck, example, given, settings, strategies as st
 from transport.scenario.schema import ScenarioError, parse_scenario
 from transport.model.schedules import Schedule
 
-from test_scenario import _paths, _to_toml, _values, mutate, parses_or_raises_scenario_error
+from test_scenario import _paths, _values, mutate, parses_or_raises_scenario_error
 
 ROOT = Path(__file__).resolve().parent.parent
 BASE = (ROOT / "scenarios" / "alternatives" / "3-clay-cap.toml").read_text(encoding="utf-8")

@@ -6,7 +6,7 @@ import pytest
 from scipy.integrate import quad
 
 from transport.solvers.modal.series import solve
-from transport.model.column import Boundary, Column, InitialState, InputError, Layer
+from transport.model.column import Boundary, Column, InputError, Layer
 from transport.model.schedules import Schedule
 from transport.solvers.timeline import (Timeline, amend_layer, excavate, place_cap, remove_source,
                                 set_boundary, set_flow, solve_timeline)
