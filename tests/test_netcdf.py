@@ -357,7 +357,7 @@ def test_source_counts_the_output_times_of_each_engine_of_a_mixed_run():
                        n_modes=0)
     source = column_dataset(solution, title="mixed").attrs["source"]
     assert "engine laplace+modal:" in source
-    assert "Talbot contour (at 1 of 4 output times)" in source
+    assert "Talbot or parabolic contours (at 1 of 4 output times)" in source
     assert ("eigenfunction expansion on the exact layered spectrum, confirmed by numerical "
             "Laplace inversion (at 3 of 4 output times)") in source
     assert "0 modes" not in source

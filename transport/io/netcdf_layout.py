@@ -105,8 +105,8 @@ _ERROR_VARS = (("concentration", "concentration_error_bound", "kg m-3"),
 #: What each engine is, in the ``source`` attribute.
 _ENGINE_METHODS = {
     "modal": "eigenfunction expansion on the exact layered spectrum",
-    "laplace": "exact layered Laplace-domain solution, numerically inverted on a Talbot "
-               "contour",
+    "laplace": "exact layered Laplace-domain solution, numerically inverted on "
+               "hyperbolic, Talbot or parabolic contours",
     "finite-volume": "finite-volume method of lines",
 }
 
