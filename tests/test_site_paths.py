@@ -3,7 +3,8 @@
 The optimised paths: chunks solved in local worker processes and handed over packed
 (the bytes of the chunk file with their checksum, made by the worker), written into the
 NetCDF file in blocks (:mod:`transport.site.run`), Monte Carlo material layers derived
-once per process, scan samples made once per window.
+once per process, scan samples made once per window, the eigenvalues of a boring's Monte
+Carlo columns solved in shared passes (:func:`transport.site.chunks.shared_eigenvalues`).
 
 References (outside the code under test):
 
@@ -34,7 +35,11 @@ import pytest
 
 from transport.site.batch import solve_site
 from transport.site.boring import realization_metrics
+from transport.model.column import Boundary, Column, Layer
+from transport.site import chunks
 from transport.site.chunks import METRIC_KEYS, MC_KEYS, QUANTILES, draw_samples
+from transport.solvers.modal import sizing
+from transport.solvers.modal.operator import SpectrumError
 from transport.site.config import boring_scenario, load_site
 from transport.site.run import run_site
 from transport.solvers import engines
@@ -217,3 +222,43 @@ def test_previous_implementation_gives_identical_numbers(runs):
         big = np.nanmax(np.abs(ref)) if np.isfinite(ref).any() else 0.0
         np.testing.assert_allclose(values, ref, rtol=0, atol=1e-12 * big, err_msg=name)
     assert memory.warnings == old.warnings
+
+
+def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
+    """The Monte Carlo columns of a boring take their eigenvalues from the shared solve:
+    no column of the chunk solves its own spectrum but the borings' deterministic
+    columns (so the summaries checked above against realizations solved alone come
+    from the shared path)."""
+    site, _, _ = runs
+    samples = draw_samples(site, site.realizations, site.seed, site.sampling)
+    alone = []
+    real = sizing.eigenvalues
+
+    def counted(op, n):
+        alone.append(n)
+        return real(op, n)
+    monkeypatch.setattr(sizing, "eigenvalues", counted)
+    chunks.clear_caches()
+    chunks.solve_chunk(site, 0, 2, samples)
+    chunks.clear_caches()
+    assert 1 <= len(alone) <= 2 * 2  # the two deterministic columns (one retry each)
+
+
+def test_shared_eigenvalues_leave_failures_to_each_column(monkeypatch):
+    """A column the shared solve cannot size (a Peclet number beyond the modal engine)
+    gets None, and so solves alone and reports its own error under its own name; if
+    the shared solve fails, every column gets None (fault injection)."""
+    good = [Column(layers=(Layer(1.0, 0.3, 1e-9 * f, 2.0), Layer(2.0, 0.4, 1e-10, 5.0)),
+                   top=Boundary("concentration", 1.0), bottom=Boundary("free-outflow"))
+            for f in (1.0, 2.0)]
+    steep = Column(layers=(Layer(1.0, 0.3, 1e-12, 1.0), Layer(2.0, 0.4, 1e-12, 1.0)),
+                   top=Boundary("concentration", 1.0), bottom=Boundary("free-outflow"),
+                   darcy_flux=1e-6)
+    times = np.array([0.0, 1e7, 1e8, 1e9])
+    out = chunks.shared_eigenvalues([good[0], steep, good[1]], times, 1e-8)
+    assert out[1] is None and out[0].size > 8 and out[2].size > 8
+
+    def fail(ops, ns):
+        raise SpectrumError("injected")
+    monkeypatch.setattr(chunks, "eigenvalues_many", fail)
+    assert chunks.shared_eigenvalues(good, times, 1e-8) == [None, None]

@@ -61,13 +61,14 @@ def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
 
 # ------------------------------------------------------------------------ series
 def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MODES,
-                initial=None):
+                initial=None, known=None):
     """The :class:`~transport.solvers.modal.series.ModalSeries` of a boring's column: for a clean
     column without the quadrature of the projections (zero) and of the layer masses (not
     written for sites): ``build_series(..., masses=False)``; with a measured ``initial``
-    state its projections are computed as in a single-column run."""
+    state its projections are computed as in a single-column run.  ``known``: the
+    column's eigenvalues from a shared solve (:func:`transport.site.chunks.shared_eigenvalues`)."""
     return build_series(column, initial or InitialState.clean(), t_min, tolerance,
-                        max_modes, masses=False)
+                        max_modes, masses=False, known_eigenvalues=known)
 
 
 class _Probe:
@@ -420,7 +421,7 @@ def rounding_free_from(probe, t_start, t_end, limit):
     return None if cut == t.size else float(t[cut])
 
 
-def realization_metrics(site, col, depth, t_start, times, initial=None):
+def realization_metrics(site, col, depth, t_start, times, initial=None, known=None):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 
     The receptor curve is the modal series from the scan sample on which its rounding
@@ -428,12 +429,13 @@ def realization_metrics(site, col, depth, t_start, times, initial=None):
     an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
     1e-6 of the scale at the first sample of a plume that never arrives); the
     breakthrough and the peak are then checked against the Laplace engine
-    (:func:`verified_metrics`)."""
+    (:func:`verified_metrics`).  ``known``: the column's eigenvalues from a shared
+    solve, or None."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
-                             initial=initial)
+                             initial=initial, known=known)
     probe = _Probe(series, [depth])
     tol, t_end = site.tolerance, site.design_life
     scale = concentration_bounds(col, initial, t_end).scale

@@ -9,8 +9,8 @@ from transport.solvers.modal.eigenfunctions import Modes, modes
 from transport.solvers.modal.operator import Operator, SpectrumError, build_operator
 from transport.solvers.modal.series import ModalSeries, build_series, solve
 from transport.solvers.modal.sizing import AccuracyWarning, ModeCapWarning
-from transport.solvers.modal.spectrum import count_below, eigenvalues
+from transport.solvers.modal.spectrum import count_below, eigenvalues, eigenvalues_many
 
 __all__ = ["Modes", "modes", "Operator", "SpectrumError", "build_operator", "count_below",
-           "eigenvalues", "AccuracyWarning", "ModalSeries",
+           "eigenvalues", "eigenvalues_many", "AccuracyWarning", "ModalSeries",
            "ModeCapWarning", "build_series", "solve"]

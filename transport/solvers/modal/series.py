@@ -269,7 +269,7 @@ class ModalSeries(TimeIntegrals):
 
 def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
                  max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0,
-                 masses: bool = True):
+                 masses: bool = True, known_eigenvalues=None):
     """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`.
 
     ``initial`` is an :class:`InitialState` or a callable C0(z) (then give its kinks in
@@ -277,6 +277,8 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
     ``masses=False`` a clean column without sources skips the quadrature (its
     projections are zero); concentrations and cumulative masses are unchanged, the
     layer masses (budget, decayed mass) are left NaN so they cannot be misread.
+    ``known_eigenvalues``: the column's first eigenvalues, already computed (see
+    :func:`~transport.solvers.modal.sizing.mode_count`).
     """
     initial = initial if initial is not None else InitialState.clean()
     op = build_operator(column)
@@ -288,7 +290,7 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
         rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
                  if kind == "decay"]
         floor = max(rates, default=0.0) / math.sqrt(tolerance)
-        lam = mode_count(op, t_min, tolerance, max_modes, floor)
+        lam = mode_count(op, t_min, tolerance, max_modes, floor, known_eigenvalues)
     else:
         lam = eigenvalues(op, n_modes)
     md = modes(op, lam)

@@ -65,11 +65,18 @@ def required_modes(op: Operator, t_min: float, tolerance: float, n_max: int) -> 
     return max(n, 8)
 
 
-def mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0):
+def mode_count(op, t_min, tolerance, max_modes, lam_floor=0.0, known=None):
     """Eigenvalues of enough modes that the tail bound meets ``tolerance`` at ``t_min``
-    and lambda_N >= ``lam_floor``; :class:`ModeCapWarning` when ``max_modes`` stops it."""
+    and lambda_N >= ``lam_floor``; :class:`ModeCapWarning` when ``max_modes`` stops it.
+
+    ``known``: the first eigenvalues of ``op`` already computed (by
+    :func:`~transport.solvers.modal.spectrum.eigenvalues_many`), used where they are
+    exactly the ``required_modes`` first ones."""
     n_modes = required_modes(op, t_min, tolerance, max_modes)
-    lam = eigenvalues(op, n_modes)
+    if known is not None and known.size == n_modes:
+        lam = known
+    else:
+        lam = eigenvalues(op, n_modes)
     target = max((math.log(1 / tolerance) + math.log(n_modes) + 2) / t_min, lam_floor)
     while lam[-1] < target and n_modes < max_modes:
         n_modes = min(max_modes, int(n_modes * 1.5) + 8)

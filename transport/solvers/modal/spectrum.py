@@ -40,7 +40,7 @@ from transport.solvers.modal.operator import Operator, SpectrumError
 from transport.solvers.modal.transfer import (AngleScales, LayerTerms, Prep, chunks,
                                               end_remap, increments, layer_integrals, shoot)
 
-__all__ = ["count_below", "eigenvalues"]
+__all__ = ["count_below", "eigenvalues", "eigenvalues_many"]
 
 # Root polish: stop when the bracket is this many ulps of lambda wide, or when a Newton
 # step is below _ROOT_REL of the eigenvalue (the next one would be at rounding level).
@@ -91,9 +91,10 @@ def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, pre
     m = lam.size
     G, dG, FACE = np.empty(m), np.empty(m), np.empty(m, dtype=np.int64)
     face = np.full(m, -1) if face is None else np.asarray(face)
-    prep = Prep(op) if prep is None else prep
-    rows = prep.rows
-    for sl in chunks(op.n_layers, m):
+    whole = Prep(op) if prep is None else prep
+    rows = whole.rows
+    for sl in chunks(whole.n_layers, m):
+        prep = whole.select(sl)
         terms = LayerTerms(prep, lam[sl], integrals=slopes)
         best = face[sl].copy()
         VL, PL, LL, VR, PR, LR = shoot(terms)
@@ -123,7 +124,8 @@ def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, pre
         # face), a smooth function of lambda, and its derivative
         lay = np.maximum(best - 1, 0)
         w2 = terms.w2[lay, cols]
-        nat = op.k[lay] * np.sqrt(np.abs(w2))
+        k_lay = prep.at(prep.k, lay, cols)
+        nat = k_lay * np.sqrt(np.abs(w2))
         sig = np.where(nat > 0, nat, S)
         if not slopes:
             # the scale that puts the top shot at 45 degrees: the most sensitive one
@@ -158,7 +160,8 @@ def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, pre
         np.exp(lg, out=lg)
         lg *= I
         lg *= prep.a
-        dsig = np.where(nat > 0, np.sign(w2) * op.k[lay] * op.a[lay], 0.0) / (2.0 * sig)
+        dsig = (np.where(nat > 0, np.sign(w2) * k_lay * prep.at(prep.a, lay, cols), 0.0)
+                / (2.0 * sig))
         dG[sl] = sig * lg.sum(axis=0) + dsig * (vl * pl / rl - vr * pr / rr)
     return G, dG, FACE
 
@@ -218,52 +221,96 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     of the same sign as f_j) at the better end of its bracket, or from the root of the
     cubic through both ends where they were matched at the same face.
     """
-    if n < 1:
-        return np.empty(0)
-    prep = Prep(op)
+    return eigenvalues_many([op], [n])[0]
+
+
+def eigenvalues_many(ops, ns) -> list:
+    """:func:`eigenvalues` of several operators: ``ns[r]`` eigenvalues of ``ops[r]``.
+
+    Operators with the same number of layers share every pass over the layers (their
+    grids, then their unconverged modes, side by side in one array: :meth:`Prep.stack`),
+    which costs about as much as one operator's pass when the layers are few (a boring's
+    Monte Carlo columns).  Each lambda is computed exactly as for its own operator.
+    """
+    out = [np.empty(0)] * len(ops)
+    groups = {}
+    for r, (op, n) in enumerate(zip(ops, ns)):
+        if n >= 1:
+            groups.setdefault(op.n_layers, []).append(r)
+    for members in groups.values():
+        lams = _solve_group([ops[r] for r in members], [ns[r] for r in members])
+        for r, lam in zip(members, lams):
+            out[r] = lam
+    return out
+
+
+def _solve_group(ops, ns):
+    """Eigenvalues of operators with the same number of layers (see
+    :func:`eigenvalues_many`)."""
+    preps = [Prep(op) for op in ops]
+    whole = preps[0] if len(ops) == 1 else Prep.stack(preps)
     with np.errstate(**_QUIET):
-        lo, hi, span = _lambda_guess(op, n)
-        for attempt in range(2):
-            # grid in sqrt(lambda - lo), where the angle grows about linearly; its two
-            # ends check the guessed bounds in the same pass (else search them, and redo)
-            grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
-            G, dG, face = _mismatch(op, grid, prep=prep)
-            raw = np.ceil(G / np.pi - 1e-12)
-            if (raw[0] <= 0 and raw[-1] >= n) or attempt:
-                break
-            lo, hi, span = _lambda_bounds(op, n)
-        counts = np.maximum.accumulate(np.maximum(raw, 0))
-        j = np.arange(n)
-        i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
-        i_hi = i_lo + 1
-        a, b = grid[i_lo], grid[i_hi]
-        # first Newton step from the better end of the bracket
-        jpi = j * np.pi
-        ga, gb = G[i_lo] - jpi, G[i_hi] - jpi
-        sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
-        sb, okb = _lambda_step(gb, dG[i_hi], b, lo)[:2]
-        xa, xb = a + sa, b + sb
-        oka &= (xa > a) & (xa < b) & (ga <= 0)
-        okb &= (xb > a) & (xb < b) & (gb >= 0)
-        use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
-        x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
-        # where both ends matched at the same face, G is one smooth function over the
-        # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
-        same = (face[i_lo] == face[i_hi]) & (ga < 0) & (gb > 0)
-        if same.any():
-            sel = np.flatnonzero(same)
-            xh = _hermite_root(a[sel], b[sel], ga[sel], gb[sel], dG[i_lo[sel]],
-                               dG[i_hi[sel]], lo)
-            x[sel] = np.where((xh > a[sel]) & (xh < b[sel]), xh, x[sel])
-            use_a[sel] = np.abs(ga[sel]) <= np.abs(gb[sel])
-        # the end the start came from: its face and slope give the curvature at the
-        # first pass if that pass matches at the same face
-        end = np.where(use_a, i_lo, i_hi)
-        mu_end = np.sqrt(np.maximum(grid[end] - lo, 0.0))
-        known = (oka | okb | same)
-        start = (np.where(known, face[end], -1), np.where(known, mu_end, np.nan),
-                 dG[end] * 2.0 * mu_end)
-        return _polish(op, a, b, x, j, span, lo, prep, start)
+        # grid in sqrt(lambda - lo), where the angle grows about linearly; its two ends
+        # check the guessed bounds in the same pass (else search them, and redo alone)
+        guess = [_lambda_guess(op, n) for op, n in zip(ops, ns)]
+        grids = [lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+                 for (lo, hi, _), n in zip(guess, ns)]
+        owner = np.repeat(np.arange(len(ops)), [g.size for g in grids])
+        G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole.select(owner))
+        parts, start = [], 0
+        for r, (op, n) in enumerate(zip(ops, ns)):
+            sl = slice(start, start + grids[r].size)
+            start = sl.stop
+            lo, _, span = guess[r]
+            g = (grids[r], G[sl], dG[sl], face[sl])
+            raw = np.ceil(g[1] / np.pi - 1e-12)
+            if not (raw[0] <= 0 and raw[-1] >= n):
+                lo, hi, span = _lambda_bounds(op, n)
+                grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+                g = (grid,) + _mismatch(op, grid, prep=preps[r])
+            parts.append(_brackets(*g, n, lo) + (np.full(n, lo), np.full(n, _SPAN_FLOOR * span),
+                                               np.full(n, r)))
+        a, b, x, j, used, mu, slope, lo, floor, own = (np.concatenate(v) for v in zip(*parts))
+        lam = _polish(whole, own, a, b, x, j, floor, lo, (used, mu, slope))
+    return np.split(lam, np.cumsum(ns)[:-1])
+
+
+def _brackets(grid, G, dG, face, n, lo):
+    """Bracket (a, b), first iterate x and mode index j of each of the n smallest
+    eigenvalues from one pass over ``grid``; with the face, mu and slope in mu of the
+    grid point the iterate was reached from (see :func:`_polish`)."""
+    raw = np.ceil(G / np.pi - 1e-12)
+    counts = np.maximum.accumulate(np.maximum(raw, 0))
+    j = np.arange(n)
+    i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
+    i_hi = i_lo + 1
+    a, b = grid[i_lo], grid[i_hi]
+    # first Newton step from the better end of the bracket
+    jpi = j * np.pi
+    ga, gb = G[i_lo] - jpi, G[i_hi] - jpi
+    sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
+    sb, okb = _lambda_step(gb, dG[i_hi], b, lo)[:2]
+    xa, xb = a + sa, b + sb
+    oka &= (xa > a) & (xa < b) & (ga <= 0)
+    okb &= (xb > a) & (xb < b) & (gb >= 0)
+    use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
+    x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
+    # where both ends matched at the same face, G is one smooth function over the
+    # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
+    same = (face[i_lo] == face[i_hi]) & (ga < 0) & (gb > 0)
+    if same.any():
+        sel = np.flatnonzero(same)
+        xh = _hermite_root(a[sel], b[sel], ga[sel], gb[sel], dG[i_lo[sel]],
+                           dG[i_hi[sel]], lo)
+        x[sel] = np.where((xh > a[sel]) & (xh < b[sel]), xh, x[sel])
+        use_a[sel] = np.abs(ga[sel]) <= np.abs(gb[sel])
+    # the end the start came from: its face and slope give the curvature at the
+    # first pass if that pass matches at the same face
+    end = np.where(use_a, i_lo, i_hi)
+    mu_end = np.sqrt(np.maximum(grid[end] - lo, 0.0))
+    known = (oka | okb | same)
+    return (a, b, x, j, np.where(known, face[end], -1), np.where(known, mu_end, np.nan),
+            dG[end] * 2.0 * mu_end)
 
 
 #: floating-point conditions that the iterations handle themselves (overflowing
@@ -306,11 +353,13 @@ def _lambda_step(f, df, x, lo):
     return step * (2.0 * mu + step), good, mu, dmu, step
 
 
-def _polish(op, a, b, x, j, span, lo, prep, start):
+def _polish(prep, owner, a, b, x, j, floor, lo, start):
     """Safeguarded Newton-Halley iteration on the mismatch f_j, vectorised over modes.
 
     Start: x inside the bracket (a, b), and ``start`` = (face, mu, slope in mu) of the
-    grid point it was reached from.  Each pass evaluates the two-shot mismatch
+    grid point it was reached from; mode i belongs to operator ``owner[i]`` of ``prep``
+    (:meth:`Prep.stack`), whose lower bound is ``lo[i]`` and eigenvalue scale floor
+    ``floor[i]`` (per mode).  Each pass evaluates the two-shot mismatch
     (:func:`_mismatch`); a mode keeps its matching face from one pass to the next, so
     that the change of the slope between two passes gives the curvature, and the
     Halley step (Halley 1694; the cubically convergent correction of Newton's step,
@@ -336,7 +385,6 @@ def _polish(op, a, b, x, j, span, lo, prep, start):
     # grid end the start came from
     used, mu_old, d_old = (np.array(v) for v in start)
     jpi = j * np.pi
-    floor = _SPAN_FLOOR * span
     idx = np.arange(n)
     for _ in range(_MAX_ROOT_ITER):
         if idx.size == 0:
@@ -349,18 +397,19 @@ def _polish(op, a, b, x, j, span, lo, prep, start):
             pts = a[srch, None] + (b - a)[srch, None] * (np.arange(1, K + 1) / (K + 1))
             lam = np.concatenate([x[newt], pts.ravel()])
             fc = np.concatenate([face[newt], np.full(pts.size, -1)])
+            own = np.concatenate([owner[newt], np.repeat(owner[srch], K)])
         else:
             srch, newt = idx[:0], idx
-            lam, fc = x[newt], face[newt]
+            lam, fc, own = x[newt], face[newt], owner[newt]
         nn = newt.size
-        G, df, fc = _mismatch(op, lam, fc, prep=prep)
+        G, df, fc = _mismatch(None, lam, fc, prep=prep.select(own))
         # Newton modes
         f, xi, d = G[:nn] - jpi[newt], lam[:nn], df[:nn]
         A = np.where(f < 0, xi, a[newt])
         B = np.where(f > 0, xi, b[newt])
         a[newt], b[newt] = A, B
-        _, good, mu, dmu, smu = _lambda_step(f, d, xi, lo)
-        scale = np.maximum(np.abs(xi), floor)
+        _, good, mu, dmu, smu = _lambda_step(f, d, xi, lo[newt])
+        scale = np.maximum(np.abs(xi), floor[newt])
         # curvature in mu from the slopes at the last two points of the same face
         mo = mu_old[newt]
         same = (fc[:nn] == used[newt]) & (mo != mu)  # mo is NaN where there is none
@@ -395,7 +444,8 @@ def _polish(op, a, b, x, j, span, lo, prep, start):
         face[newt] = np.where(bad, -1, fc[:nn])
         if srch.size:
             done_s = _search_update(srch, pts, K, G[nn:] - np.repeat(jpi[srch], K), df[nn:],
-                                    a, b, x, out, search, f_prev, dx_prev, face, mu_old, lo)
+                                    a, b, x, out, search, f_prev, dx_prev, face, mu_old,
+                                    lo[srch])
             idx = np.concatenate([newt[~done_n], srch[~done_s]])
         else:
             idx = newt[~done_n]

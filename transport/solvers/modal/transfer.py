@@ -63,11 +63,23 @@ def _series(y2, sign):
 
 class Prep:
     """Per-operator constants shared by every pass over a set of lambdas: layer
-    coefficients as columns (N, 1), the end states of both shots, the boundary angles."""
+    coefficients as columns (N, 1), the end states of both shots, the boundary angles.
 
-    def __init__(self, op: Operator):
-        self.op = op
-        nL = op.n_layers
+    :meth:`stack` holds several operators with the same number of layers, one column
+    (and one entry of each end constant) per operator; :meth:`select` then gives the
+    constants of any list of lambdas, one column per lambda, so that one pass over the
+    layers serves the lambdas of every operator (a boring's Monte Carlo columns).  The
+    arithmetic of each lambda is the same as with its own operator's ``Prep``.
+    """
+
+    _COLUMNS = ("k", "l", "a", "s", "kl", "lk", "mkl", "hl", "hl3", "l2")
+    _ENDS = ("kl_last", "kl0", "theta0", "d_v", "d_p")
+
+    def __init__(self, op: Operator = None):
+        self.op, self.stacked = op, False
+        if op is None:
+            return
+        nL = self.n_layers = op.n_layers
         self.k, self.l = op.k[:, None], op.thickness[:, None]
         self.a, self.s = op.a[:, None], op.s[:, None]
         self.kl = self.k / self.l
@@ -88,6 +100,44 @@ class Prep:
         self.theta0 = float(bc_angle(c_v, c_p, self.kl0, right=False))
         self.d_v, self.d_p, _ = op.v_condition("bottom")
 
+    @classmethod
+    def stack(cls, preps) -> "Prep":
+        """The constants of several operators' ``Prep`` (same number of layers) side
+        by side: column r (entry r of the end constants) is operator r."""
+        out = cls()
+        first = preps[0]
+        out.stacked, out.n_layers, out.rows = True, first.n_layers, first.rows
+        if any(p.n_layers != first.n_layers for p in preps):
+            raise ValueError("stacked operators must have the same number of layers")
+        for name in cls._COLUMNS:
+            setattr(out, name, np.concatenate([getattr(p, name) for p in preps], axis=1))
+        for name in cls._ENDS:
+            setattr(out, name, np.array([float(getattr(p, name)) for p in preps]))
+        out.ends = np.concatenate([p.ends for p in preps], axis=2)
+        return out
+
+    def select(self, owner) -> "Prep":
+        """The constants of lambdas whose operators are ``owner`` (indices or a slice
+        into the stack); a single operator's ``Prep`` serves any lambdas as it is."""
+        if not self.stacked:
+            return self
+        out = Prep()
+        out.stacked, out.n_layers, out.rows = True, self.n_layers, self.rows
+        for name in self._COLUMNS:
+            setattr(out, name, getattr(self, name)[:, owner])
+        for name in self._ENDS:
+            setattr(out, name, getattr(self, name)[owner])
+        out.ends = self.ends[:, :, owner]
+        return out
+
+    def cols(self, values, cols):
+        """``values`` (one column, or one per lambda) at the lambda columns ``cols``."""
+        return values[:, cols] if self.stacked else values
+
+    def at(self, values, rows, cols):
+        """``values`` at (row, lambda column) pairs."""
+        return values[rows, cols] if self.stacked else values[rows, 0]
+
 
 class LayerTerms:
     """Per-layer quantities at the lambdas ``lam``: arrays (N, n), row i = layer i.
@@ -103,7 +153,7 @@ class LayerTerms:
     def __init__(self, prep: Prep, lam, integrals: bool = True):
         lam = np.asarray(lam, dtype=float)
         self.prep, self.op, self.lam = prep, prep.op, lam
-        nL, n = prep.op.n_layers, lam.size
+        nL, n = prep.n_layers, lam.size
         w2 = np.multiply(lam, prep.a)
         w2 -= prep.s
         w2 /= prep.k
@@ -151,8 +201,8 @@ class LayerTerms:
         xh, th = self.x[:, h], ~self.trig[:, h]
         B = self.B
         self.c[:, h] = np.where(th, 1.0, cos[:, h])
-        B[:, 0, h] = np.where(th, prep.lk * tanhc(xh), B[:, 0, h])
-        B[:, 1, h] = np.where(th, prep.kl * xh * np.tanh(xh), B[:, 1, h])
+        B[:, 0, h] = np.where(th, prep.cols(prep.lk, h) * tanhc(xh), B[:, 0, h])
+        B[:, 1, h] = np.where(th, prep.cols(prep.kl, h) * xh * np.tanh(xh), B[:, 1, h])
         self.logc = np.zeros_like(self.x)
         big = th & (xh > 1.0)
         logc = np.where(th, xh + np.log1p(np.exp(-2 * xh)) - _LOG2, 0.0)
@@ -185,7 +235,8 @@ class LayerTerms:
         self.beta = sincx * sincx
         self.beta *= prep.l2
         if self.hcols.size:
-            h, l = self.hcols, prep.l
+            h = self.hcols
+            l = prep.cols(prep.l, h)
             th = ~self.trig[:, h]
             xh = np.minimum(self.x[:, h], ENDPOINT_FORM_MIN)
             xs = np.where(xh < 1e-8, 1.0, xh)
@@ -210,7 +261,7 @@ def _shoot(terms, direction, every):
     """One shot: (v1, p1) = c (v, p) +- (b12 p, b21 v) across each layer, three row
     operations per layer."""
     prep = terms.prep
-    nL = prep.op.n_layers
+    nL = prep.n_layers
     n = terms.lam.size
     VP = np.empty((nL + 1, 2, n))
     L = np.empty((nL + 1, n))
@@ -220,7 +271,7 @@ def _shoot(terms, direction, every):
     combine = np.add if down else np.subtract
     mul = np.multiply
     Cl, Bl, VPl, Ll = list(terms.c), list(terms.B), list(VP), list(L)
-    scl = prep.kl[:, 0].tolist()
+    scl = list(prep.kl) if prep.stacked else prep.kl[:, 0].tolist()
     big_rows = terms.big_rows
     logc = terms.logc
     tmp = np.empty((2, n))
@@ -259,8 +310,8 @@ def _big_step(terms, i, st, out, direction):
     """Thick evanescent entries of row i, in growing/decaying components: scaling the
     cosh/sinh matrix by cosh makes it rank one in floating point (tanh x = 1), losing a
     state that is (almost) pure decaying; the components keep it exactly."""
-    k = terms.op.k[i]
     big = terms.big[i]
+    k = terms.prep.k[i][big] if terms.prep.stacked else terms.prep.k[i, 0]
     kb = k * np.sqrt(np.abs(terms.w2[i, big]))
     vb, pb, xb = st[0, big], st[1, big], terms.x[i, big]
     g = 0.5 * (vb + pb / kb)  # grows like e^{+beta s} in the shooting direction
@@ -299,7 +350,7 @@ class AngleScales:
 
     def __init__(self, terms: LayerTerms):
         prep = terms.prep
-        nL = prep.op.n_layers
+        nL = prep.n_layers
         x = terms.x
         n = terms.lam.size
         if terms.all_trig and x.min() >= SMALL_X:
@@ -365,8 +416,7 @@ def end_remap(sc: AngleScales, v, p):
 
 def _slow_increments(terms, sc, v, p, cols, inc, up=None):
     """Angle increments of the hyperbolic and small-x entries (columns ``cols``)."""
-    op = terms.op
-    kl = (op.k / op.thickness)[:, None]
+    kl = terms.prep.cols(terms.prep.kl, cols)
     x, trig = terms.x[:, cols], terms.trig[:, cols]
     tr = sc.tr[:, cols]
     X, Y = kl * v, p  # direction in the scale k/l
@@ -404,8 +454,7 @@ def layer_integrals(terms: LayerTerms, V, P, L, bottom=None):
     layers; with ``bottom`` None, V, P and L hold the N+1 faces of one shot.  Closed
     forms: sinc and sinh series of the layer solution.
     """
-    op = terms.op
-    nL = op.n_layers
+    nL = terms.prep.n_layers
     if bottom is None:
         Vf, Lf = V, L
         V, P, L = V[:nL], P[:nL], L[:nL]
@@ -426,7 +475,7 @@ def layer_integrals(terms: LayerTerms, V, P, L, bottom=None):
         endpoint = (~terms.trig) & (terms.x > ENDPOINT_FORM_MIN)
         rows = np.flatnonzero(endpoint.any(axis=1))
         if rows.size:
-            l = op.thickness[rows][:, None]
+            l = terms.prep.l[rows]
             e_ = endpoint[rows]
             V1r, L1r = bottom(rows)
             L0 = L[rows]

@@ -1,0 +1,177 @@
+"""Eigenvalues of several columns in shared passes (``eigenvalues_many``, used for a
+boring's Monte Carlo columns): against independent references, and equal to the
+one-column solve to 1e-12 across regimes."""
+import mpmath
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+
+from transport.model.column import Boundary, Column, InputError, Layer
+from transport.solvers import modal as sp
+from transport.solvers.modal import spectrum
+
+from reference import carslaw_jaeger_two_layer_eigenvalues
+
+KINDS_TOP = ["concentration", "sealed", "mass-transfer", "flux", "inlet"]
+KINDS_BOTTOM = ["concentration", "sealed", "mass-transfer", "free-outflow"]
+
+
+def _bc(kind):
+    return Boundary(kind, 0.0 if kind in ("mass-transfer", "sealed") else 1.0,
+                    2e-7 if kind == "mass-transfer" else 0.0)
+
+
+def _same(many, single, ops):
+    """Equal to 1e-12 of each eigenvalue, or of the column's diffusive rate
+    max(D/R) / L^2 for an eigenvalue near zero (sealed ends without decay: lambda_0 = 0,
+    which each solve holds to rounding of that scale; in exp(-lambda t) the difference
+    is then 1e-12 at the diffusion time L^2 / D)."""
+    for a, b, op in zip(many, single, ops):
+        assert a.shape == b.shape
+        rate = np.max(op.k / op.a) / np.sum(op.thickness) ** 2
+        scale = np.maximum(np.abs(b), rate)
+        assert np.all(np.abs(a - b) <= 1e-12 * scale), np.max(np.abs(a - b) / scale)
+
+
+def test_two_layer_stack_matches_carslaw_jaeger():
+    """Six two-layer slabs of different contrast and both bottom kinds, solved in one
+    stack: first 15 eigenvalues of each vs the composite-slab eigenvalue equation of
+    Carslaw & Jaeger (1959, Conduction of Heat in Solids, composite solids), roots with
+    mpmath to 30 digits; agreement 1e-10 relative."""
+    cols = []
+    for i, (d2, r2, bottom) in enumerate([(3e-11, 6.0, "concentration"), (3e-11, 6.0, "sealed"),
+                                          (1e-12, 20.0, "concentration"), (5e-9, 1.0, "sealed"),
+                                          (8e-10, 1.8, "concentration"), (2e-13, 50.0, "sealed")]):
+        layers = (Layer(0.6 + 0.1 * i, 0.35, 8e-10, 1.8), Layer(1.4, 0.45, d2, r2))
+        cols.append(Column(layers=layers, top=_bc("concentration"), bottom=_bc(bottom)))
+    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [15] * len(cols))
+    for col, lam in zip(cols, lams):
+        ref = np.array([float(x) for x in carslaw_jaeger_two_layer_eigenvalues(col, 15)])
+        np.testing.assert_allclose(lam, ref, rtol=1e-10)
+
+
+def test_advective_stack_matches_brenner():
+    """Single layers from column Peclet number 0.1 to 300 in one stack, flux inlet and free
+    outflow: eigenvalues from Brenner (1962, Chem. Eng. Sci. 17:229),
+    beta cot beta - beta^2/P + P/4 = 0, lambda = (D/R)(beta^2 + P^2/4)/L^2, roots with
+    mpmath; agreement 1e-10 relative."""
+    L, th, D, R = 1.5, 0.3, 1e-9, 2.0
+    peclets = [0.1, 3.0, 40.0, 300.0]
+    cols = [Column(layers=(Layer(L, th, D, R),), top=Boundary("inlet", 1.0),
+                   bottom=Boundary("free-outflow"), darcy_flux=P * th * D / L) for P in peclets]
+    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [10, 12, 8, 10])
+    mpmath.mp.dps = 40
+    for P, lam in zip(peclets, lams):
+        f = lambda b: b * mpmath.cot(b) - b * b / P + P / 4  # noqa: E731
+
+        def bisect(lo, hi):  # f decreases from +inf to -inf on (n pi, (n+1) pi)
+            for _ in range(120):
+                mid = (lo + hi) / 2
+                lo, hi = (mid, hi) if f(mid) > 0 else (lo, mid)
+            return (lo + hi) / 2
+        roots = [bisect(n * mpmath.pi + mpmath.mpf("1e-30"),
+                        (n + 1) * mpmath.pi - mpmath.mpf("1e-30")) for n in range(lam.size)]
+        ref = np.array([float((D / R) * (b * b + P * P / 4) / L ** 2) for b in roots])
+        np.testing.assert_allclose(lam, ref, rtol=1e-10)
+
+
+HARD = [
+    # 1e4 contrast and a 1 mm layer in a 5 m column
+    [Layer(1.0, 0.3, 1e-9, 1.0), Layer(1e-3, 0.4, 1e-13, 3.0), Layer(1.5, 0.5, 1e-10, 5.0),
+     Layer(0.5, 0.3, 1e-9, 1.0), Layer(1.999, 0.35, 1e-11, 2.0)],
+    # polymer sheet with partition 80 on both faces
+    [Layer(0.3, 0.4, 5e-10, 1.0, partition_to_next=80.0),
+     Layer(2e-3, 1.0, 3e-13, 1.0, partition_to_next=1 / 80), Layer(0.9, 0.35, 3e-10, 1.5)],
+]
+
+
+@pytest.mark.parametrize("layers", HARD)
+def test_hard_stacks_equal_single_solves(layers):
+    """Thin, high-contrast and partitioned layers, every end kind and downward and upward
+    flow up to a column Peclet number of about 1000, all in one stack: each operator's
+    eigenvalues equal its own solve to 1e-12 (the optimised path against the single-column
+    path, issue 12)."""
+    length = sum(lay.thickness for lay in layers)
+    cols = []
+    for top in KINDS_TOP:
+        for bottom in KINDS_BOTTOM:
+            for pe in (0.0, 30.0, -200.0, 1000.0):
+                k_min = min(lay.water_content * lay.diffusivity for lay in layers)
+                q = pe * k_min / length
+                try:  # no flow through partition jumps (refused, tested elsewhere)
+                    cols.append(Column(layers=tuple(layers), top=_bc(top),
+                                       bottom=_bc(bottom), darcy_flux=q))
+                except InputError:
+                    continue
+    ops = [sp.build_operator(c) for c in cols]
+    ns = [40 + 7 * (i % 5) for i in range(len(ops))]
+    assert len(ops) >= 20
+    single = [sp.eigenvalues(op, n) for op, n in zip(ops, ns)]
+    _same(sp.eigenvalues_many(ops, ns), single, ops)
+
+
+layer_st = st.builds(
+    Layer,
+    thickness=st.floats(1e-3, 2.0),
+    water_content=st.floats(0.05, 1.0),
+    diffusivity=st.floats(1e-13, 1e-8),
+    retardation=st.floats(1.0, 100.0),
+    decay_rate=st.sampled_from([0.0, 1e-10, 1e-8]),
+)
+
+
+@settings(max_examples=25, deadline=None)
+@given(layers=st.lists(layer_st, min_size=1, max_size=6),
+       members=st.lists(st.tuples(st.sampled_from(KINDS_TOP), st.sampled_from(KINDS_BOTTOM),
+                                  st.floats(-300.0, 300.0), st.floats(0.3, 3.0),
+                                  st.integers(1, 90)), min_size=2, max_size=8))
+def test_random_stacks_equal_single_solves(layers, members):
+    """Property: operators with the same layer count but different coefficients (each
+    member scales every diffusivity), ends, flows (Peclet -300 to 300) and mode counts,
+    solved together, give each operator's own eigenvalues to 1e-12."""
+    length = sum(lay.thickness for lay in layers)
+    ops, ns = [], []
+    for top, bottom, pe, scale, n in members:
+        lays = tuple(Layer(lay.thickness, lay.water_content, lay.diffusivity * scale,
+                           lay.retardation, decay_rate=lay.decay_rate) for lay in layers)
+        k_min = min(lay.water_content * lay.diffusivity for lay in lays)
+        ops.append(sp.build_operator(Column(layers=lays, top=_bc(top), bottom=_bc(bottom),
+                                            darcy_flux=pe * k_min / length)))
+        ns.append(n)
+    _same(sp.eigenvalues_many(ops, ns), [sp.eigenvalues(op, n) for op, n in zip(ops, ns)],
+          ops)
+
+
+def test_mixed_layer_counts_and_empty_requests():
+    """Operators of different layer counts are grouped; a request for no eigenvalue
+    gives an empty array in its place."""
+    a = sp.build_operator(Column(layers=(Layer(1.0, 0.3, 1e-9, 2.0),),
+                                 top=_bc("concentration"), bottom=_bc("sealed")))
+    b = sp.build_operator(Column(layers=tuple(HARD[0]), top=_bc("concentration"),
+                                 bottom=_bc("free-outflow")))
+    out = sp.eigenvalues_many([a, b, a, b], [20, 30, 0, 25])
+    assert [x.size for x in out] == [20, 30, 0, 25]
+    _same([out[0], out[1], out[3]],
+          [sp.eigenvalues(a, 20), sp.eigenvalues(b, 30), sp.eigenvalues(b, 25)], [a, b, b])
+    # Crank (1975), The Mathematics of Diffusion, eq. 4.18: Dirichlet / no flux
+    exact = ((np.arange(20) + 0.5) * np.pi / 1.0) ** 2 * 1e-9 / 2.0
+    np.testing.assert_allclose(out[0], exact, rtol=1e-12)
+
+
+def test_failed_guess_is_redone_alone(monkeypatch):
+    """Fault injection: where the first guess of an operator's spectrum bounds is wrong
+    (upper bound too low), that operator's grid is redone alone on searched bounds and
+    its eigenvalues still equal the single solve (which searches the same way)."""
+    ops = [sp.build_operator(Column(layers=tuple(HARD[0]), top=_bc("concentration"),
+                                    bottom=_bc(b))) for b in KINDS_BOTTOM]
+    single = [sp.eigenvalues(op, 50) for op in ops]
+    real = spectrum._lambda_guess
+    calls = []
+
+    def bad_guess(op, n):
+        lo, hi, span = real(op, n)
+        calls.append(op)
+        return (lo, lo + 1e-3 * (hi - lo), span) if op is ops[1] else (lo, hi, span)
+    monkeypatch.setattr(spectrum, "_lambda_guess", bad_guess)
+    _same(sp.eigenvalues_many(ops, [50] * 4), single, ops)
+    assert sum(c is ops[1] for c in calls) >= 2  # guessed, then searched
