@@ -794,3 +794,26 @@ def assert_relative(c, ref, scale, rtol):
     assert mask.any()
     err = np.abs(c - ref)[mask] / np.abs(ref[mask])
     assert err.max() <= rtol, f"max relative error {err.max():.3g}"
+
+
+def brenner_eigenvalues(peclet: float, length: float, water_content: float,
+                        diffusivity: float, retardation: float, n: int, dps: int = 40):
+    """First ``n`` decay rates lambda (s-1) of one layer with a flux inlet on top and a
+    free outflow at the bottom, column Peclet number P = q L / (theta D): Brenner (1962,
+    Chem. Eng. Sci. 17:229), beta cot beta - beta^2/P + P/4 = 0 with one root beta_n in
+    each (n pi, (n+1) pi), lambda = (D/R)(beta^2 + P^2/4)/L^2; roots by bisection in
+    mpmath (f decreases from +inf to -inf on each branch), about dps - 5 digits."""
+    P = mp.mpf(peclet)
+    with mp.workdps(dps):
+        def f(b):
+            return b * mp.cot(b) - b * b / P + P / 4
+
+        def bisect(lo, hi):
+            for _ in range(int(3.5 * dps) + 20):
+                mid = (lo + hi) / 2
+                lo, hi = (mid, hi) if f(mid) > 0 else (lo, mid)
+            return (lo + hi) / 2
+        tiny = mp.mpf(10) ** (-dps + 10)
+        roots = [bisect(k * mp.pi + tiny, (k + 1) * mp.pi - tiny) for k in range(n)]
+        return [float((diffusivity / retardation) * (b * b + P * P / 4) / length ** 2)
+                for b in roots]

@@ -1,5 +1,4 @@
 """Layered eigen-solver: eigenvalues, counting, orthogonality, against independent sources."""
-import mpmath
 import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
@@ -7,7 +6,7 @@ from hypothesis import given, settings, strategies as st
 from transport.solvers import modal as sp
 from transport.model.column import Boundary, Column, Layer
 
-from reference import carslaw_jaeger_two_layer_eigenvalues
+from reference import brenner_eigenvalues, carslaw_jaeger_two_layer_eigenvalues
 
 
 def _column(layers, top="concentration", bottom="concentration", q=0.0, h=1e-7):
@@ -64,17 +63,7 @@ def test_advection_single_layer_matches_brenner():
     L, th, D, R, q = 1.5, 0.3, 1e-9, 2.0, 2e-9
     col = Column(layers=(Layer(L, th, D, R),), top=Boundary("inlet", 1.0),
                  bottom=Boundary("free-outflow"), darcy_flux=q)
-    P = q * L / (th * D)
-    mpmath.mp.dps = 30
-    f = lambda b: b * mpmath.cot(b) - b * b / P + P / 4  # noqa: E731
-    def bisect(lo, hi):  # f decreases from +inf to -inf on (n pi, (n+1) pi)
-        for _ in range(110):
-            mid = (lo + hi) / 2
-            lo, hi = (mid, hi) if f(mid) > 0 else (lo, mid)
-        return (lo + hi) / 2
-    roots = [bisect(n * mpmath.pi + mpmath.mpf("1e-25"), (n + 1) * mpmath.pi - mpmath.mpf("1e-25"))
-             for n in range(12)]
-    ref = np.array([float((D / R) * (b * b + P * P / 4) / L ** 2) for b in roots])
+    ref = brenner_eigenvalues(q * L / (th * D), L, th, D, R, 12)
     lam = sp.eigenvalues(sp.build_operator(col), 12)
     np.testing.assert_allclose(lam, ref, rtol=1e-10)
 

@@ -1,7 +1,6 @@
 """Eigenvalues of several columns in shared passes (``eigenvalues_many``, used for a
 boring's Monte Carlo columns): against independent references, and equal to the
 one-column solve to 1e-12 across regimes."""
-import mpmath
 import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
@@ -10,7 +9,8 @@ from transport.model.column import Boundary, Column, InputError, Layer
 from transport.solvers import modal as sp
 from transport.solvers.modal import spectrum
 
-from reference import carslaw_jaeger_two_layer_eigenvalues
+from reference import brenner_eigenvalues, carslaw_jaeger_two_layer_eigenvalues
+from test_spectrum import HARD, layer_st  # the hard stacks and random layers used there
 
 KINDS_TOP = ["concentration", "sealed", "mass-transfer", "flux", "inlet"]
 KINDS_BOTTOM = ["concentration", "sealed", "mass-transfer", "free-outflow"]
@@ -60,29 +60,9 @@ def test_advective_stack_matches_brenner():
     cols = [Column(layers=(Layer(L, th, D, R),), top=Boundary("inlet", 1.0),
                    bottom=Boundary("free-outflow"), darcy_flux=P * th * D / L) for P in peclets]
     lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [10, 12, 8, 10])
-    mpmath.mp.dps = 40
     for P, lam in zip(peclets, lams):
-        f = lambda b: b * mpmath.cot(b) - b * b / P + P / 4  # noqa: E731
-
-        def bisect(lo, hi):  # f decreases from +inf to -inf on (n pi, (n+1) pi)
-            for _ in range(120):
-                mid = (lo + hi) / 2
-                lo, hi = (mid, hi) if f(mid) > 0 else (lo, mid)
-            return (lo + hi) / 2
-        roots = [bisect(n * mpmath.pi + mpmath.mpf("1e-30"),
-                        (n + 1) * mpmath.pi - mpmath.mpf("1e-30")) for n in range(lam.size)]
-        ref = np.array([float((D / R) * (b * b + P * P / 4) / L ** 2) for b in roots])
+        ref = brenner_eigenvalues(P, L, th, D, R, lam.size)
         np.testing.assert_allclose(lam, ref, rtol=1e-10)
-
-
-HARD = [
-    # 1e4 contrast and a 1 mm layer in a 5 m column
-    [Layer(1.0, 0.3, 1e-9, 1.0), Layer(1e-3, 0.4, 1e-13, 3.0), Layer(1.5, 0.5, 1e-10, 5.0),
-     Layer(0.5, 0.3, 1e-9, 1.0), Layer(1.999, 0.35, 1e-11, 2.0)],
-    # polymer sheet with partition 80 on both faces
-    [Layer(0.3, 0.4, 5e-10, 1.0, partition_to_next=80.0),
-     Layer(2e-3, 1.0, 3e-13, 1.0, partition_to_next=1 / 80), Layer(0.9, 0.35, 3e-10, 1.5)],
-]
 
 
 @pytest.mark.parametrize("layers", HARD)
@@ -108,16 +88,6 @@ def test_hard_stacks_equal_single_solves(layers):
     assert len(ops) >= 20
     single = [sp.eigenvalues(op, n) for op, n in zip(ops, ns)]
     _same(sp.eigenvalues_many(ops, ns), single, ops)
-
-
-layer_st = st.builds(
-    Layer,
-    thickness=st.floats(1e-3, 2.0),
-    water_content=st.floats(0.05, 1.0),
-    diffusivity=st.floats(1e-13, 1e-8),
-    retardation=st.floats(1.0, 100.0),
-    decay_rate=st.sampled_from([0.0, 1e-10, 1e-8]),
-)
 
 
 @settings(max_examples=25, deadline=None)
