@@ -178,7 +178,7 @@ def count_below(op: Operator, lam) -> np.ndarray:
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
     with np.errstate(**_QUIET):
         G = _mismatch(op, lam.ravel(), slopes=False)[0].reshape(lam.shape)
-    n = np.ceil(G / np.pi - 1e-12)
+    n = _raw_counts(G)
     return np.maximum(n, 0).astype(np.int64)
 
 
@@ -253,8 +253,7 @@ def _solve_group(ops, ns):
         # grid in sqrt(lambda - lo), where the angle grows about linearly; its two ends
         # check the guessed bounds in the same pass (else search them, and redo alone)
         guess = [_lambda_guess(op, n) for op, n in zip(ops, ns)]
-        grids = [lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
-                 for (lo, hi, _), n in zip(guess, ns)]
+        grids = [_grid(lo, hi, n) for (lo, hi, _), n in zip(guess, ns)]
         owner = np.repeat(np.arange(len(ops)), [g.size for g in grids])
         G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole.select(owner))
         parts, start = [], 0
@@ -263,10 +262,10 @@ def _solve_group(ops, ns):
             start = sl.stop
             lo, _, span = guess[r]
             g = (grids[r], G[sl], dG[sl], face[sl])
-            raw = np.ceil(g[1] / np.pi - 1e-12)
+            raw = _raw_counts(g[1])
             if not (raw[0] <= 0 and raw[-1] >= n):
                 lo, hi, span = _lambda_bounds(op, n)
-                grid = lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+                grid = _grid(lo, hi, n)
                 g = (grid,) + _mismatch(op, grid, prep=preps[r])
             parts.append(_brackets(*g, n, lo) + (np.full(n, lo), np.full(n, _SPAN_FLOOR * span),
                                                np.full(n, r)))
@@ -275,12 +274,22 @@ def _solve_group(ops, ns):
     return np.split(lam, np.cumsum(ns)[:-1])
 
 
+def _grid(lo, hi, n):
+    """n + _GRID_EXTRA points from lo to hi, uniform in sqrt(lambda - lo)."""
+    return lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
+
+
+def _raw_counts(G):
+    """ceil(G / pi): the eigenvalue count below each grid point (before monotone
+    clean-up)."""
+    return np.ceil(G / np.pi - 1e-12)
+
+
 def _brackets(grid, G, dG, face, n, lo):
     """Bracket (a, b), first iterate x and mode index j of each of the n smallest
     eigenvalues from one pass over ``grid``; with the face, mu and slope in mu of the
     grid point the iterate was reached from (see :func:`_polish`)."""
-    raw = np.ceil(G / np.pi - 1e-12)
-    counts = np.maximum.accumulate(np.maximum(raw, 0))
+    counts = np.maximum.accumulate(np.maximum(_raw_counts(G), 0))
     j = np.arange(n)
     i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
     i_hi = i_lo + 1

@@ -104,11 +104,11 @@ class Prep:
     def stack(cls, preps) -> "Prep":
         """The constants of several operators' ``Prep`` (same number of layers) side
         by side: column r (entry r of the end constants) is operator r."""
-        out = cls()
         first = preps[0]
-        out.stacked, out.n_layers, out.rows = True, first.n_layers, first.rows
         if any(p.n_layers != first.n_layers for p in preps):
             raise ValueError("stacked operators must have the same number of layers")
+        out = cls()
+        out.stacked, out.n_layers, out.rows = True, first.n_layers, first.rows
         for name in cls._COLUMNS:
             setattr(out, name, np.concatenate([getattr(p, name) for p in preps], axis=1))
         for name in cls._ENDS:
