@@ -3,8 +3,8 @@
 The optimised paths: chunks solved in local worker processes and handed over packed
 (the bytes of the chunk file with their checksum, made by the worker), written into the
 NetCDF file in blocks (:mod:`transport.site.run`), Monte Carlo material layers derived
-once per process, scan samples made once per window, the eigenvalues of a boring's Monte
-Carlo columns solved in shared passes (:func:`transport.site.chunks.shared_eigenvalues`).
+once per process, scan samples made once per window, the eigenvalues and eigenfunctions
+of a boring's Monte Carlo columns solved in shared passes (:func:`transport.site.chunks.shared_modes`).
 
 References (outside the code under test):
 
@@ -38,6 +38,7 @@ from transport.site.boring import realization_metrics
 from transport.model.column import Boundary, Column, Layer
 from transport.site import chunks
 from transport.site.chunks import METRIC_KEYS, MC_KEYS, QUANTILES, draw_samples
+from transport.solvers.modal import series as series_module
 from transport.solvers.modal import sizing
 from transport.solvers.modal.operator import SpectrumError
 from transport.site.config import boring_scenario, load_site
@@ -225,26 +226,32 @@ def test_previous_implementation_gives_identical_numbers(runs):
 
 
 def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
-    """The Monte Carlo columns of a boring take their eigenvalues from the shared solve:
-    no column of the chunk solves its own spectrum but the borings' deterministic
-    columns (so the summaries checked above against realizations solved alone come
-    from the shared path)."""
+    """The Monte Carlo columns of a boring take their eigenvalues and eigenfunctions
+    from the shared solve: no column of the chunk solves its own spectrum or shoots its
+    own modes but the borings' deterministic columns (so the summaries checked above
+    against realizations solved alone come from the shared path)."""
     site, _, _ = runs
     samples = draw_samples(site, site.realizations, site.seed, site.sampling)
-    alone = []
-    real = sizing.eigenvalues
+    alone, shot = [], []
+    real, real_modes = sizing.eigenvalues, series_module.modes
 
     def counted(op, n):
         alone.append(n)
         return real(op, n)
+
+    def counted_modes(op, lam):
+        shot.append(lam.size)
+        return real_modes(op, lam)
     monkeypatch.setattr(sizing, "eigenvalues", counted)
+    monkeypatch.setattr(series_module, "modes", counted_modes)
     chunks.clear_caches()
     chunks.solve_chunk(site, 0, 2, samples)
     chunks.clear_caches()
     assert 1 <= len(alone) <= 2 * 2  # the two deterministic columns (one retry each)
+    assert len(shot) == 2  # the two deterministic columns
 
 
-def test_shared_eigenvalues_leave_failures_to_each_column(monkeypatch):
+def test_shared_modes_leave_failures_to_each_column(monkeypatch):
     """A column the shared solve cannot size (a Peclet number beyond the modal engine)
     gets None, and so solves alone and reports its own error under its own name; if
     the shared solve fails, every column gets None (fault injection)."""
@@ -255,10 +262,10 @@ def test_shared_eigenvalues_leave_failures_to_each_column(monkeypatch):
                    top=Boundary("concentration", 1.0), bottom=Boundary("free-outflow"),
                    darcy_flux=1e-6)
     times = np.array([0.0, 1e7, 1e8, 1e9])
-    out = chunks.shared_eigenvalues([good[0], steep, good[1]], times, 1e-8)
-    assert out[1] is None and out[0].size > 8 and out[2].size > 8
+    out = chunks.shared_modes([good[0], steep, good[1]], times, 1e-8)
+    assert out[1] is None and out[0].lam.size > 8 and out[2].lam.size > 8
 
     def fail(ops, ns):
         raise SpectrumError("injected")
     monkeypatch.setattr(chunks, "eigenvalues_many", fail)
-    assert chunks.shared_eigenvalues(good, times, 1e-8) == [None, None]
+    assert chunks.shared_modes(good, times, 1e-8) == [None, None]

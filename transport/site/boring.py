@@ -66,9 +66,9 @@ def site_series(column, t_min: float, tolerance: float, max_modes: int = MAX_MOD
     column without the quadrature of the projections (zero) and of the layer masses (not
     written for sites): ``build_series(..., masses=False)``; with a measured ``initial``
     state its projections are computed as in a single-column run.  ``known``: the
-    column's eigenvalues from a shared solve (:func:`transport.site.chunks.shared_eigenvalues`)."""
+    column's modes from a shared solve (:func:`transport.site.chunks.shared_modes`)."""
     return build_series(column, initial or InitialState.clean(), t_min, tolerance,
-                        max_modes, masses=False, known_eigenvalues=known)
+                        max_modes, masses=False, known_modes=known)
 
 
 class _Probe:
@@ -429,8 +429,8 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
     1e-6 of the scale at the first sample of a plume that never arrives); the
     breakthrough and the peak are then checked against the Laplace engine
-    (:func:`verified_metrics`).  ``known``: the column's eigenvalues from a shared
-    solve, or None."""
+    (:func:`verified_metrics`).  ``known``: the column's modes from a shared solve,
+    or None."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

@@ -32,6 +32,7 @@ from transport.solvers.checks import UnreliableResultError
 from transport.solvers.modal.operator import SpectrumError, build_operator
 from transport.solvers.modal.series import earliest_time_after_change
 from transport.solvers.modal.sizing import required_modes
+from transport.solvers.modal.eigenfunctions import modes_many
 from transport.solvers.modal.spectrum import eigenvalues_many
 
 __all__ = ["QUANTILES", "METRIC_KEYS", "MC_KEYS", "draw_samples", "clear_caches",
@@ -138,14 +139,15 @@ def _drawn_layers(site, samples) -> list:
     return drawn
 
 
-def shared_eigenvalues(cols, times, tolerance: float) -> list:
-    """The eigenvalues each Monte Carlo column's series will ask for (the
-    ``required_modes`` first ones), computed for all the columns in shared passes over
-    the layers (:func:`~transport.solvers.modal.spectrum.eigenvalues_many`: the same
-    numbers as one column at a time, about 3x cheaper for five-layer columns).  None for
-    a column this cannot size (no positive output time, an operator that cannot be
-    built): its own solve then reports why, under its own name; all None if the shared
-    solve fails, so that each column fails or succeeds on its own."""
+def shared_modes(cols, times, tolerance: float) -> list:
+    """The modes each Monte Carlo column's series will ask for (the ``required_modes``
+    first ones), computed for all the columns in shared passes over the layers
+    (:func:`~transport.solvers.modal.spectrum.eigenvalues_many`, then
+    :func:`~transport.solvers.modal.eigenfunctions.modes_many`: the same numbers as
+    one column at a time, 2-3x cheaper for five-layer columns).  None for a column this
+    cannot size (no positive output time, an operator that cannot be built): its own
+    solve then reports why, under its own name; all None if the shared solve fails, so
+    that each column fails or succeeds on its own."""
     ops, ns, where = [], [], []
     for i, col in enumerate(cols):
         t_min = earliest_time_after_change(col, times)
@@ -162,11 +164,11 @@ def shared_eigenvalues(cols, times, tolerance: float) -> list:
     if len(ops) < 2:
         return out
     try:
-        lams = eigenvalues_many(ops, ns)
+        found = modes_many(ops, eigenvalues_many(ops, ns))
     except SpectrumError:
         return out
-    for i, lam in zip(where, lams):
-        out[i] = lam
+    for i, md in zip(where, found):
+        out[i] = md
     return out
 
 
@@ -241,8 +243,8 @@ def _solve_chunk(site, start, stop, samples):
         keys = [(col_j, boring.receptor_depth, boring.initial) for col_j in cols]
         found_all = [_METRICS_CACHE.get(key) for key in keys]
         todo = [j for j, f in enumerate(found_all) if f is None]
-        known = dict(zip(todo, shared_eigenvalues([cols[j] for j in todo], times,
-                                                  site.tolerance)))
+        known = dict(zip(todo, shared_modes([cols[j] for j in todo], times,
+                                            site.tolerance)))
         for j, col_j in enumerate(cols):
             found = found_all[j]
             if found is None:

@@ -5,12 +5,12 @@ angle) and ``eigenfunctions`` (two-sided shooting) -> ``lifting`` (steady respon
 ``projection`` (quadrature, Green's-function integrals) -> ``sizing`` (mode count) ->
 ``series`` (the solution).
 """
-from transport.solvers.modal.eigenfunctions import Modes, modes
+from transport.solvers.modal.eigenfunctions import Modes, modes, modes_many
 from transport.solvers.modal.operator import Operator, SpectrumError, build_operator
 from transport.solvers.modal.series import ModalSeries, build_series, solve
 from transport.solvers.modal.sizing import AccuracyWarning, ModeCapWarning
 from transport.solvers.modal.spectrum import count_below, eigenvalues, eigenvalues_many
 
-__all__ = ["Modes", "modes", "Operator", "SpectrumError", "build_operator", "count_below",
-           "eigenvalues", "eigenvalues_many", "AccuracyWarning", "ModalSeries",
+__all__ = ["Modes", "modes", "modes_many", "Operator", "SpectrumError", "build_operator",
+           "count_below", "eigenvalues", "eigenvalues_many", "AccuracyWarning", "ModalSeries",
            "ModeCapWarning", "build_series", "solve"]

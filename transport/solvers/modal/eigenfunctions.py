@@ -18,7 +18,7 @@ from transport.solvers.modal.operator import ENDPOINT_FORM_MIN, Operator
 from transport.solvers.modal.transfer import (LayerTerms, Prep, chunks, layer_integrals,
                                               normalise, shc, shoot)
 
-__all__ = ["Modes", "modes"]
+__all__ = ["Modes", "modes", "modes_many"]
 
 #: Elements (points x modes) per block of :meth:`Modes.evaluate`.
 _EVAL_ELEMENTS = 1 << 16
@@ -119,18 +119,46 @@ def _layer_values(op, lay, z, lam, V, P, L, exp_sign):
 
 def modes(op: Operator, lam) -> Modes:
     """Normalised eigenfunctions for the eigenvalues ``lam``."""
-    lam = np.asarray(lam, dtype=float)
-    nL = op.n_layers
+    return modes_many([op], [lam])[0]
+
+
+def modes_many(ops, lams) -> list:
+    """:func:`modes` of several operators: the eigenfunctions of ``ops[r]`` for the
+    eigenvalues ``lams[r]``.  Operators with the same number of layers are shot in
+    shared passes over the layers (their modes side by side: :meth:`Prep.stack`), each
+    mode with the same arithmetic as for its own operator alone."""
+    lams = [np.asarray(lam, dtype=float) for lam in lams]
+    out = [None] * len(ops)
+    groups = {}
+    for r, op in enumerate(ops):
+        groups.setdefault(op.n_layers, []).append(r)
+    for members in groups.values():
+        preps = [Prep(ops[r]) for r in members]
+        whole = preps[0] if len(members) == 1 else Prep.stack(preps)
+        owner = np.repeat(np.arange(len(members)), [lams[r].size for r in members])
+        V, P, Ls = _shot_modes(whole.select(owner),
+                               np.concatenate([lams[r] for r in members]))
+        cut = np.cumsum([lams[r].size for r in members])[:-1]
+        for r, v, p, ls in zip(members, *(np.split(x, cut, axis=1) for x in (V, P, Ls))):
+            out[r] = Modes(op=ops[r], lam=lams[r], v=v, p=p, logs=ls)
+    return out
+
+
+def _shot_modes(prep: Prep, lam):
+    """Normalised face states (v, p) and log-scales of the modes ``lam`` (one column of
+    ``prep`` per mode, or one column for all)."""
+    nL = prep.n_layers
     shape = (nL + 1, lam.size)
     V, P, Ls = np.empty(shape), np.empty(shape), np.empty(shape)
-    # scale used to compare directions at face j
-    lay = np.minimum(np.arange(nL + 1), nL - 1)
-    sc = (op.k[lay] / op.thickness[lay])[:, None]
-    la = np.log(op.a)[:, None]
+    # scale used to compare directions at face j: k / l of the layer below it (of the
+    # last layer at the bottom)
+    sc_all = np.concatenate([prep.kl, prep.kl[-1:]])
+    la_all = np.log(prep.a)
     faces = np.arange(nL + 1)[:, None]
-    prep = Prep(op)
     for cs in chunks(nL, lam.size):
-        terms = LayerTerms(prep, lam[cs])
+        sub = prep.select(cs)
+        sc, la = prep.cols(sc_all, cs), prep.cols(la_all, cs)
+        terms = LayerTerms(sub, lam[cs])
         VL, PL, LL, VR, PR, LR = shoot(terms)
         # face where both shots agree best: least |sin| of the angle between them
         XL, XR = sc * VL, sc * VR
@@ -163,4 +191,4 @@ def modes(op: Operator, lam) -> Modes:
         log_norm = top + np.log(np.sum(np.exp(parts, out=parts), axis=0))
         V[:, cs], P[:, cs] = Vc, Pc
         np.subtract(Lc, 0.5 * log_norm, out=Ls[:, cs])
-    return Modes(op=op, lam=lam, v=V, p=P, logs=Ls)
+    return V, P, Ls

@@ -269,7 +269,7 @@ class ModalSeries(TimeIntegrals):
 
 def build_series(column: Column, initial=None, t_min: float = None, tolerance: float = 1e-8,
                  max_modes: int = 4000, n_modes: int = None, breaks=(), extra_rate=0.0,
-                 masses: bool = True, known_eigenvalues=None):
+                 masses: bool = True, known_modes=None):
     """Eigen-solve, lifting and projections for ``column``: a :class:`ModalSeries`.
 
     ``initial`` is an :class:`InitialState` or a callable C0(z) (then give its kinks in
@@ -277,8 +277,9 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
     ``masses=False`` a clean column without sources skips the quadrature (its
     projections are zero); concentrations and cumulative masses are unchanged, the
     layer masses (budget, decayed mass) are left NaN so they cannot be misread.
-    ``known_eigenvalues``: the column's first eigenvalues, already computed (see
-    :func:`~transport.solvers.modal.sizing.mode_count`).
+    ``known_modes``: the column's first modes (:class:`Modes`), already computed in a
+    shared solve; used where their eigenvalues are the ones
+    :func:`~transport.solvers.modal.sizing.mode_count` asks for.
     """
     initial = initial if initial is not None else InitialState.clean()
     op = build_operator(column)
@@ -290,10 +291,12 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
         rates = [r for sig in column_signals(column, op) for kind, _, _, r in sig.atoms
                  if kind == "decay"]
         floor = max(rates, default=0.0) / math.sqrt(tolerance)
-        lam = mode_count(op, t_min, tolerance, max_modes, floor, known_eigenvalues)
+        lam = mode_count(op, t_min, tolerance, max_modes, floor,
+                         None if known_modes is None else known_modes.lam)
     else:
         lam = eigenvalues(op, n_modes)
-    md = modes(op, lam)
+    shared = known_modes is not None and lam is known_modes.lam
+    md = known_modes if shared else modes(op, lam)
     lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
     eps = abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
     lift = steady_responses(op, eps)

@@ -325,10 +325,8 @@ def _big_step(terms, i, st, out, direction):
 def normalise(terms: LayerTerms, V, P, L):
     """Unit states at the faces (in the scale k/l of the layer below each face, of the
     last layer at the bottom), the log-scales taking up the size."""
-    op = terms.op
-    kl = op.k / op.thickness
-    sc = np.append(kl, kl[-1])[:, None]
-    X = sc * V
+    kl = terms.prep.kl
+    X = np.concatenate([kl, kl[-1:]]) * V
     nrm = X * X
     nrm += P * P
     np.sqrt(nrm, out=nrm)
