@@ -23,9 +23,10 @@ import pytest
 
 from reference import laplace_reference
 from transport.model.column import Boundary, Column, Layer
+from transport.model.schedules import Schedule
 from transport.site import boring as site_boring
 from transport.site.boring import realization_metrics, solve_boring
-from transport.solvers.modal.series import build_series
+from transport.solvers.modal.series import build_series, earliest_time_after_change
 from transport.site.boring import _Probe
 
 YEAR = 365.25 * 86400.0
@@ -166,3 +167,78 @@ def test_a_refused_realization_names_its_boring(tmp_path, monkeypatch):
     with pytest.raises(UnreliableResultError,
                        match=r"^boring R-0, Monte Carlo realization 1: no engine vouches"):
         solve_site(site_, workers=1, chunk_size=6)
+
+
+# ------------------------------------------------------- early samples by the bounds
+def _previous_path(col, level):
+    """A realization's breakthrough and peak as computed before the early samples could
+    be settled by the modal bounds: the switched curve scanned in full (the Laplace
+    engine before t_modal), then checked as usual."""
+    t_min = earliest_time_after_change(col, TIMES)
+    probe = _Probe(build_series(col, None, t_min, TOL, masses=False), [DEPTH])
+    t_modal, _ = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
+    enough = site_boring.good_enough(col, SCALE, TOL)
+
+    def laplace_at(t):
+        return site_boring.solve_laplace(col, np.atleast_1d(t), [DEPTH],
+                                         enough=enough).concentration[:, 0]
+    curve = site_boring._switched(laplace_at, lambda t: probe.concentration(t)[:, 0],
+                                  t_modal)
+    bt, pk_t, pk = site_boring.curve_metrics(curve, TIMES[0], LIFE, level,
+                                             site_boring.SCAN_SAMPLES)
+    return site_boring.verified_metrics(col, None, DEPTH, TIMES[0], LIFE, level, TOL, bt,
+                                        pk_t, pk, SCALE)
+
+
+def test_quiet_early_samples_are_not_asked_of_the_laplace_engine(monkeypatch):
+    """A mildly advective column (q = 0.15 m/yr): before about 3.7 yr the modal rounding
+    bound at the receptor exceeds the tolerance, but the modal value plus sqrt(n) times
+    that bound is far below the screening level and the later peak, so no crossing or
+    peak can lie there. The Laplace engine is then not asked for those scan samples
+    (only for the check at the peak), the metrics equal the previous path (the whole
+    switched curve scanned) exactly, and the peak matches the mpmath reference."""
+    col, level = column(0.15), 1e-3 * SCALE
+    probe = _Probe(build_series(col, None, TIMES[0], TOL, masses=False), [DEPTH])
+    t_modal, scan = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
+    assert scan is not None and t_modal > TIMES[0]  # the case exercises the shortcut
+    asked = []
+    real = site_boring.solve_laplace
+
+    def counting(col_, t, z, **kw):
+        asked.append(np.atleast_1d(t).size)
+        return real(col_, t, z, **kw)
+    monkeypatch.setattr(site_boring, "solve_laplace", counting)
+    bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
+    assert asked and max(asked) <= 2  # the check at the breakthrough and the peak only
+    monkeypatch.setattr(site_boring, "solve_laplace", real)
+    old_bt, old_pk = _previous_path(col, level)
+    assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
+    assert pk == old_pk
+    ref = laplace_reference(col, [DEPTH], [LIFE], dps=20)[0, 0]
+    assert math.isnan(bt) and abs(pk - ref) <= 2 * TOL * SCALE
+
+
+@pytest.mark.parametrize("q, level, step", [(0.4, 1e-3, None), (0.15, 1e-9, None),
+                                            (0.15, 1e-3, 2.0)])
+def test_early_samples_that_may_matter_go_to_the_laplace_engine(q, level, step):
+    """The early samples are left to the Laplace engine where the bounds cannot settle
+    them: a strongly advective column (q = 0.4 m/yr, the modal rounding there exceeds
+    the scale by orders of magnitude), a screening level below the bound (1e-9 of the
+    scale), and a source switched off inside the early samples (at 2 yr: the series is
+    sized for the times after each change only). The metrics then equal the previous
+    path."""
+    col = column(q)
+    if step is not None:
+        col = Column(layers=col.layers, top=Boundary("concentration", SCALE,
+                                                     schedule=Schedule.steps(
+                                                         [0.0, step * YEAR], [1.0, 0.5])),
+                     bottom=col.bottom, darcy_flux=col.darcy_flux)
+    level *= SCALE
+    t_min = earliest_time_after_change(col, TIMES)
+    probe = _Probe(build_series(col, None, t_min, TOL, masses=False), [DEPTH])
+    t_modal, scan = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
+    assert t_modal is not None and t_modal > TIMES[0] and scan is None
+    bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
+    old_bt, old_pk = _previous_path(col, level)
+    assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
+    assert pk == old_pk

@@ -124,7 +124,7 @@ class _Probe:
         return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
 
 
-def curve_metrics(conc, t_start, t_end, level, n_scan):
+def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None):
     """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
 
     Parameters
@@ -138,6 +138,8 @@ def curve_metrics(conc, t_start, t_end, level, n_scan):
     n_scan : int
         Uniform scan samples (plus half as many log-spaced) that bracket the
         crossing and the peak before Brent's method polishes them.
+    scan : array, optional
+        The curve at those samples, if at hand (:func:`modal_scan`).
 
     Returns
     -------
@@ -147,7 +149,7 @@ def curve_metrics(conc, t_start, t_end, level, n_scan):
         return float(conc(np.array([s]))[0])
 
     t = _scan_times(t_start, t_end, n_scan)
-    c = conc(t)
+    c = conc(t) if scan is None else scan
     above = np.flatnonzero(c >= level)
     if above.size == 0:
         t_cross = math.nan
@@ -412,13 +414,43 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     return bt2, pk2
 
 
-def rounding_free_from(probe, t_start, t_end, limit):
-    """The first scan sample of the window from which the modal series' rounding bound
-    (:meth:`ModalSeries.roundoff_bound`) at the probe's depth stays within ``limit``
-    at every later sample; None if it does not at the last one."""
+def modal_scan(probe, t_start, t_end, tol, scale, level):
+    """Where the modal series serves a realization's receptor curve, and the scan of
+    that curve when the Laplace engine is not needed for it: (t_modal, scan).
+
+    t_modal: the first scan sample of the window from which the modal series' rounding
+    bound (:meth:`ModalSeries.roundoff_bound`) at the probe's depth stays within
+    ``tol * scale`` at every later sample; None if it does not at the last one.
+
+    scan: the curve at the scan samples when the samples before t_modal cannot matter
+    for the metrics, else None (the caller then scans the switched curve, the Laplace
+    engine before t_modal).  They cannot matter when at each of them the concentration,
+    bounded by |modal value| + sqrt(n) x the rounding bound (16 n eps times the sum of
+    the terms' moduli, above the worst-case rounding of a sum of n terms, Higham 2002,
+    *Accuracy and Stability of Numerical Algorithms*, eq. 4.4) + the truncation
+    tolerance, is below half the screening level and half the largest later sample:
+    no crossing and no peak can lie there, so the breakthrough, the peak and their
+    polish (which still read the switched curve) are those of the full scan.  Those
+    samples then hold the modal values, which are not used otherwise.  Not used when a
+    signal changes inside the early samples (the series is sized for the times from
+    the earliest output time after each change)."""
     t = _scan_times(t_start, t_end, SCAN_SAMPLES)
-    cut = vouched_from(probe.roundoff_bound(t)[:, 0] <= limit, t)
-    return None if cut == t.size else float(t[cut])
+    rb = probe.roundoff_bound(t)[:, 0]
+    cut = vouched_from(rb <= tol * scale, t)
+    if cut == t.size:
+        return None, None
+    if cut == 0:
+        return float(t[0]), None
+    late = probe.concentration(t[cut:])[:, 0]
+    early = probe.concentration(t[:cut])[:, 0]
+    t_modal = float(t[cut])
+    if any(0.0 < c < t_modal for c in probe.series.change_times()):  # the series is sized for the times
+        return t_modal, None  # after each change from the earliest output time on only
+    n = max(probe.series.modes.lam.size, 1)
+    upper = np.abs(early) + math.sqrt(n) * rb[:cut] + tol * scale
+    with np.errstate(invalid="ignore"):
+        quiet = bool(np.all(upper <= 0.5 * min(level, float(np.max(late)))))
+    return t_modal, (np.concatenate([early, late]) if quiet else None)
 
 
 def realization_metrics(site, col, depth, t_start, times, initial=None, known=None):
@@ -427,8 +459,10 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     The receptor curve is the modal series from the scan sample on which its rounding
     bound stays within the tolerance, the Laplace engine before it (the early rows of
     an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
-    1e-6 of the scale at the first sample of a plume that never arrives); the
-    breakthrough and the peak are then checked against the Laplace engine
+    1e-6 of the scale at the first sample of a plume that never arrives), which is not
+    asked where the modal bounds show those samples cannot hold the crossing or the
+    peak (:func:`modal_scan`); the breakthrough and the peak are then checked against
+    the Laplace engine
     (:func:`verified_metrics`).  ``known``: the column's modes from a shared solve,
     or None."""
     initial = initial or InitialState.clean()
@@ -442,9 +476,9 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
 
     def modal_at(t):
         return probe.concentration(t)[:, 0]
-    curve = modal_at
+    curve, scan = modal_at, None
     if scale:
-        t_modal = rounding_free_from(probe, t_start, t_end, tol * scale)
+        t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level)
         enough = good_enough(col, scale, tol)
 
         def laplace_at(t):
@@ -452,7 +486,8 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
                                  enough=enough).concentration[:, 0]
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
-    bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES)
+    bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
+                                 scan)
     scale = scale or max(abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
