@@ -37,6 +37,7 @@ from __future__ import annotations
 import numpy as np
 
 from transport.solvers.modal.operator import Operator, SpectrumError
+from transport.solvers.modal.brackets import brackets, brackets_many, lambda_step, raw_counts
 from transport.solvers.modal.transfer import (AngleScales, LayerTerms, Prep, chunks,
                                               end_remap, increments, layer_integrals, shoot)
 
@@ -58,6 +59,9 @@ _SPAN_FLOOR = 1e-6
 _HALLEY_REL = 1e-14
 # Grid points for the bracketing pass: n + _GRID_EXTRA.
 _GRID_EXTRA = 64
+#: floating-point conditions that the iterations handle themselves (overflowing
+#: states of exponentially small modes give a NaN slope, which sends the mode to search)
+_QUIET = dict(invalid="ignore", divide="ignore", over="ignore")
 
 
 def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, prep=None):
@@ -178,7 +182,7 @@ def count_below(op: Operator, lam) -> np.ndarray:
     lam = np.atleast_1d(np.asarray(lam, dtype=float))
     with np.errstate(**_QUIET):
         G = _mismatch(op, lam.ravel(), slopes=False)[0].reshape(lam.shape)
-    n = _raw_counts(G)
+    n = raw_counts(G)
     return np.maximum(n, 0).astype(np.int64)
 
 
@@ -256,19 +260,32 @@ def _solve_group(ops, ns):
         grids = [_grid(lo, hi, n) for (lo, hi, _), n in zip(guess, ns)]
         owner = np.repeat(np.arange(len(ops)), [g.size for g in grids])
         G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole.select(owner))
-        parts, start = [], 0
+        # members whose guessed bounds hold are bracketed together, the others on
+        # their own grid between searched bounds
+        sizes = np.array([g.size for g in grids])
+        start = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+        los, spans, redo = [], [], {}
         for r, (op, n) in enumerate(zip(ops, ns)):
-            sl = slice(start, start + grids[r].size)
-            start = sl.stop
             lo, _, span = guess[r]
-            g = (grids[r], G[sl], dG[sl], face[sl])
-            raw = _raw_counts(g[1])
+            raw = raw_counts(G[start[r]:start[r] + sizes[r]])
             if not (raw[0] <= 0 and raw[-1] >= n):
                 lo, hi, span = _lambda_bounds(op, n)
                 grid = _grid(lo, hi, n)
-                g = (grid,) + _mismatch(op, grid, prep=preps[r])
-            parts.append(_brackets(*g, n, lo) + (np.full(n, lo), np.full(n, _SPAN_FLOOR * span),
-                                               np.full(n, r)))
+                redo[r] = (grid,) + _mismatch(op, grid, prep=preps[r])
+            los.append(lo)
+            spans.append(span)
+        keep = [r for r in range(len(ops)) if r not in redo]
+        found = {}
+        if keep:
+            pick = np.concatenate([np.arange(start[r], start[r] + sizes[r]) for r in keep])
+            grid = np.concatenate(grids)[pick]
+            found.update(zip(keep, brackets_many(grid, G[pick], dG[pick], face[pick],
+                                                  [ns[r] for r in keep],
+                                                  [los[r] for r in keep], sizes[keep])))
+        for r, g in redo.items():
+            found[r] = brackets(*g, ns[r], los[r])
+        parts = [found[r] + (np.full(n, los[r]), np.full(n, _SPAN_FLOOR * spans[r]),
+                             np.full(n, r)) for r, n in enumerate(ns)]
         a, b, x, j, used, mu, slope, lo, floor, own = (np.concatenate(v) for v in zip(*parts))
         lam = _polish(whole, own, a, b, x, j, floor, lo, (used, mu, slope))
     return np.split(lam, np.cumsum(ns)[:-1])
@@ -279,87 +296,6 @@ def _grid(lo, hi, n):
     return lo + np.linspace(0.0, np.sqrt(hi - lo), n + _GRID_EXTRA) ** 2
 
 
-def _raw_counts(G):
-    """ceil(G / pi): the eigenvalue count below each grid point (before monotone
-    clean-up)."""
-    return np.ceil(G / np.pi - 1e-12)
-
-
-def _brackets(grid, G, dG, face, n, lo):
-    """Bracket (a, b), first iterate x and mode index j of each of the n smallest
-    eigenvalues from one pass over ``grid``; with the face, mu and slope in mu of the
-    grid point the iterate was reached from (see :func:`_polish`)."""
-    counts = np.maximum.accumulate(np.maximum(_raw_counts(G), 0))
-    j = np.arange(n)
-    i_lo = np.clip(np.searchsorted(counts, j, side="right") - 1, 0, grid.size - 2)
-    i_hi = i_lo + 1
-    a, b = grid[i_lo], grid[i_hi]
-    # first Newton step from the better end of the bracket
-    jpi = j * np.pi
-    ga, gb = G[i_lo] - jpi, G[i_hi] - jpi
-    sa, oka = _lambda_step(ga, dG[i_lo], a, lo)[:2]
-    sb, okb = _lambda_step(gb, dG[i_hi], b, lo)[:2]
-    xa, xb = a + sa, b + sb
-    oka &= (xa > a) & (xa < b) & (ga <= 0)
-    okb &= (xb > a) & (xb < b) & (gb >= 0)
-    use_a = oka & (~okb | (np.abs(ga) <= np.abs(gb)))
-    x = np.where(use_a, xa, np.where(okb, xb, 0.5 * (a + b)))
-    # where both ends matched at the same face, G is one smooth function over the
-    # bracket: the root of its cubic Hermite interpolant (in mu) is a better start
-    same = (face[i_lo] == face[i_hi]) & (ga < 0) & (gb > 0)
-    if same.any():
-        sel = np.flatnonzero(same)
-        xh = _hermite_root(a[sel], b[sel], ga[sel], gb[sel], dG[i_lo[sel]],
-                           dG[i_hi[sel]], lo)
-        x[sel] = np.where((xh > a[sel]) & (xh < b[sel]), xh, x[sel])
-        use_a[sel] = np.abs(ga[sel]) <= np.abs(gb[sel])
-    # the end the start came from: its face and slope give the curvature at the
-    # first pass if that pass matches at the same face
-    end = np.where(use_a, i_lo, i_hi)
-    mu_end = np.sqrt(np.maximum(grid[end] - lo, 0.0))
-    known = (oka | okb | same)
-    return (a, b, x, j, np.where(known, face[end], -1), np.where(known, mu_end, np.nan),
-            dG[end] * 2.0 * mu_end)
-
-
-#: floating-point conditions that the iterations handle themselves (overflowing
-#: states of exponentially small modes give a NaN slope, which sends the mode to search)
-_QUIET = dict(invalid="ignore", divide="ignore", over="ignore")
-
-
-def _hermite_root(a, b, ga, gb, da, db, lo):
-    """Root in (a, b) of the cubic Hermite interpolant of g (values ga < 0 < gb,
-    lambda slopes da, db) in mu = sqrt(lambda - lo), by safeguarded Newton steps on
-    the cubic from the secant root."""
-    ma, mb = np.sqrt(np.maximum(a - lo, 0.0)), np.sqrt(np.maximum(b - lo, 0.0))
-    h = mb - ma
-    pa, pb = da * 2.0 * ma * h, db * 2.0 * mb * h  # slopes in t = (mu - ma) / h
-    # p(t) = ga + pa t + c2 t^2 + c3 t^3
-    c2 = 3.0 * (gb - ga) - 2.0 * pa - pb
-    c3 = 2.0 * (ga - gb) + pa + pb
-    t = np.clip(-ga / (gb - ga), 0.0, 1.0)
-    for _ in range(5):
-        p = ga + t * (pa + t * (c2 + t * c3))
-        dp = pa + t * (2.0 * c2 + 3.0 * t * c3)
-        t = np.clip(t - p / np.where(dp > 0, dp, np.inf), 0.0, 1.0)
-    mu = ma + t * h
-    return lo + mu * mu
-
-
-def _newton_step(f, df):
-    """Newton step -f / f' and its validity (a finite, positive slope)."""
-    good = np.isfinite(df) & (df > 0)
-    return -f / np.where(good, df, 1.0), good
-
-
-def _lambda_step(f, df, x, lo):
-    """Newton step of f_j in mu = sqrt(lambda - lo), in which the angles grow about
-    linearly (exactly, in a uniform layer), returned as a lambda step
-    d_mu (2 mu + d_mu); with its validity, mu, df/dmu and d_mu."""
-    mu = np.sqrt(np.maximum(x - lo, 0.0))
-    dmu = df * 2.0 * mu
-    step, good = _newton_step(f, dmu)
-    return step * (2.0 * mu + step), good, mu, dmu, step
 
 
 def _polish(prep, owner, a, b, x, j, floor, lo, start):
@@ -417,7 +353,7 @@ def _polish(prep, owner, a, b, x, j, floor, lo, start):
         A = np.where(f < 0, xi, a[newt])
         B = np.where(f > 0, xi, b[newt])
         a[newt], b[newt] = A, B
-        _, good, mu, dmu, smu = _lambda_step(f, d, xi, lo[newt])
+        _, good, mu, dmu, smu = lambda_step(f, d, xi, lo[newt])
         scale = np.maximum(np.abs(xi), floor[newt])
         # curvature in mu from the slopes at the last two points of the same face
         mo = mu_old[newt]
@@ -476,7 +412,7 @@ def _search_update(srch, pts, K, f_all, df, a, b, x, out, search, f_prev, dx_pre
     use_l = (kneg > 0) & ((kneg == K) | (np.abs(fs[r, kl]) < np.abs(fs[r, kr])))
     kk = np.where(use_l, kl, kr)
     fx = fs[r, kk]
-    step, good = _lambda_step(fx, ds[r, kk], pts[r, kk], lo)[:2]
+    step, good = lambda_step(fx, ds[r, kk], pts[r, kk], lo)[:2]
     xn = pts[r, kk] + step
     ok = good & (xn > A) & (xn < B)
     zero = fx == 0
