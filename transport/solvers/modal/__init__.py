@@ -1,7 +1,8 @@
 """Modal engine: the exact spectrum of the layered operator and the modal superposition.
 
 ``operator`` (coefficients, boundary rows) -> ``spectrum`` (eigenvalues by the Pruefer
-angle; ``brackets``: their brackets and first iterates from a grid pass) and ``eigenfunctions`` (two-sided shooting) -> ``lifting`` (steady responses) and
+angle; ``brackets``: their brackets and first iterates from a grid pass) and
+``eigenfunctions`` (two-sided shooting) -> ``lifting`` (steady responses) and
 ``projection`` (quadrature, Green's-function integrals) -> ``sizing`` (mode count) ->
 ``series`` (the solution).
 """
