@@ -140,13 +140,12 @@ def test_a_realization_no_engine_can_vouch_for_is_refused(monkeypatch):
     tolerance)."""
     from transport.solvers.checks import UnreliableResultError
 
-    real = site_boring.own_errors
+    real = site_boring.laplace_concentration
 
-    def loose(sol):
-        out = dict(real(sol))
-        out["concentration"] = np.full_like(out["concentration"], 1e-3 * SCALE)
-        return out
-    monkeypatch.setattr(site_boring, "own_errors", loose)
+    def loose(*args, **kw):
+        conc, err = real(*args, **kw)
+        return conc, np.full_like(err, 1e-3 * SCALE)
+    monkeypatch.setattr(site_boring, "laplace_concentration", loose)
     col = column(0.4)
     with pytest.raises(UnreliableResultError, match="tolerance 1e-08"):
         realization_metrics(site(0.001), col, DEPTH, TIMES[0], TIMES)
@@ -179,7 +178,7 @@ def _previous_path(col, level):
     t_modal, _ = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
     enough = site_boring.good_enough(col, SCALE, TOL)
 
-    def laplace_at(t):
+    def laplace_at(t):  # the full Laplace solution, as before
         return site_boring.solve_laplace(col, np.atleast_1d(t), [DEPTH],
                                          enough=enough).concentration[:, 0]
     curve = site_boring._switched(laplace_at, lambda t: probe.concentration(t)[:, 0],
@@ -202,15 +201,15 @@ def test_quiet_early_samples_are_not_asked_of_the_laplace_engine(monkeypatch):
     t_modal, scan = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
     assert scan is not None and t_modal > TIMES[0]  # the case exercises the shortcut
     asked = []
-    real = site_boring.solve_laplace
+    real = site_boring.laplace_concentration
 
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t).size)
         return real(col_, t, z, **kw)
-    monkeypatch.setattr(site_boring, "solve_laplace", counting)
+    monkeypatch.setattr(site_boring, "laplace_concentration", counting)
     bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
     assert asked and max(asked) <= 2  # the check at the breakthrough and the peak only
-    monkeypatch.setattr(site_boring, "solve_laplace", real)
+    monkeypatch.setattr(site_boring, "laplace_concentration", real)
     old_bt, old_pk = _previous_path(col, level)
     assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
     assert pk == old_pk

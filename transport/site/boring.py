@@ -32,6 +32,7 @@ from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       describe_refusal, good_enough, own_errors,
                                       quantities, switched, vouched_from)
 from transport.solvers.laplace import solve_laplace
+from transport.solvers.laplace.engine import laplace_concentration
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
                                             earliest_time_after_change)
@@ -387,21 +388,20 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     if not probe_t:
         return bt, pk
     enough = good_enough(col, scale, tol)
-    lap = solve_laplace(col, probe_t, [depth], initial=initial, enough=enough)
-    c, e = lap.concentration[:, 0], own_errors(lap)["concentration"]
+    c, e = laplace_concentration(col, probe_t, [depth], initial=initial, enough=enough)
+    c = c[:, 0]
     want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
     with np.errstate(invalid="ignore"):
         if np.all(np.abs(c - np.array(want)) + e <= tol * scale):
             return bt, pk
 
     def laplace_at(t):
-        return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial,
-                             enough=enough).concentration[:, 0]
+        return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
+                                     enough=enough)[0][:, 0]
     bt2, pk2_t, pk2 = curve_metrics(laplace_at, t_start, t_end, level, SCAN_SAMPLES)
     at = [t for t in (bt2, pk2_t) if np.isfinite(t) and t > 0]
     if at:
-        err = own_errors(solve_laplace(col, at, [depth], initial=initial,
-                                       enough=enough))["concentration"]
+        err = laplace_concentration(col, at, [depth], initial=initial, enough=enough)[1]
         with np.errstate(invalid="ignore"):
             vouched = np.all(err <= tol * scale)
         if not vouched:
@@ -482,8 +482,8 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
         enough = good_enough(col, scale, tol)
 
         def laplace_at(t):
-            return solve_laplace(col, np.atleast_1d(t), [depth], initial=initial,
-                                 enough=enough).concentration[:, 0]
+            return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
+                                         enough=enough)[0][:, 0]
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,

@@ -15,7 +15,7 @@ from transport.solvers.laplace.inversion import invert_best
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
-__all__ = ["solve_laplace", "laplace_solution", "signal_components", "signals_for"]
+__all__ = ["solve_laplace", "laplace_concentration", "laplace_solution", "signal_components", "signals_for"]
 
 
 def _atom_hat(kind, amp, rate, s):
@@ -105,6 +105,29 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
     produced are NaN when the last layer holds initial mass or a source: infinite).
     """
     initial = initial if initial is not None else InitialState.clean()
+    model, times, depths, out, est = _inverted(column, times, depths, initial,
+                                               semi_infinite_bottom, nodes, enough)
+    return laplace_solution(column, model, initial, times, depths, out, est,
+                            semi_infinite_bottom)
+
+
+def laplace_concentration(column: Column, times, depths, *, initial: InitialState = None,
+                          enough: dict = None):
+    """The concentration of :func:`solve_laplace` and its error estimate alone:
+    ``(concentration (nt, nz), error (nt,))``, the same numbers as its ``concentration``
+    and ``error["concentration"]`` (the same inversion, with the same contours chosen
+    for every quantity), without the other outputs and the budget.  For a curve read at
+    one depth (a Monte Carlo realization's receptor)."""
+    initial = initial if initial is not None else InitialState.clean()
+    model, times, depths, out, est = _inverted(column, times, depths, initial, False, None,
+                                               enough)
+    return _concentration(column, model, initial, times, depths, out, est)
+
+
+def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enough):
+    """The inverted outputs of :func:`solve_laplace` and their estimates: (model,
+    times, depths, out, est), out and est (nt, 3 nz + 4) as :func:`laplace_solution`
+    takes them."""
     n_nodes = default_nodes(column) if nodes is None else int(nodes)
     times, depths = check_output_grid(column, times, depths, semi_infinite_bottom)
     if callable(initial) or not isinstance(initial, (InitialState, PiecewiseCubic)):
@@ -144,8 +167,25 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
             f, e = invert_best(transform, tau[on], n_nodes, s0, parts, floors)
         out[on] += f
         est[on] += e
-    return laplace_solution(column, model, initial, times, depths, out, est,
-                            semi_infinite_bottom)
+    return model, times, depths, out, est
+
+
+def _concentration(column, model, initial, times, depths, out, est):
+    """Concentration (nt, nz) and its error (nt,) from the inverted outputs (as in
+    :func:`laplace_solution`): NaN with an infinite error at a time where a value or an
+    estimate is not finite; the initial state at t = 0."""
+    nz = depths.size
+    conc, e = out[:, :nz], est[:, :nz]
+    with np.errstate(invalid="ignore"):
+        bad = ~(np.isfinite(conc).all(axis=1) & np.isfinite(e).all(axis=1))
+    conc[bad] = np.nan
+    error = np.where(bad, np.inf, e.max(axis=1, initial=0.0))
+    zero = times == 0
+    if zero.any():
+        c0 = initial_values(column, initial, depths)
+        conc[zero] = c0
+        error[zero] = 16 * np.finfo(float).eps * np.abs(c0).max()
+    return conc.copy(), error
 
 
 def laplace_solution(column, model, initial, times, depths, out, est,
@@ -159,19 +199,19 @@ def laplace_solution(column, model, initial, times, depths, out, est,
     nz, nt = depths.size, times.size
     # error estimate per quantity and time; a group with any non-finite value or
     # estimate at a time is refused there: NaN values, infinite estimate
-    groups = {"concentration": np.arange(nz), "total_flux": np.arange(nz, 2 * nz),
-              "cumulative_mass": np.arange(2 * nz, 3 * nz),
+    groups = {"total_flux": np.arange(nz, 2 * nz), "cumulative_mass": np.arange(2 * nz, 3 * nz),
               "budget": np.arange(3 * nz, 3 * nz + 4)}
     if semi_infinite_bottom:  # nothing leaves through the bottom at infinity
         out[:, 3 * nz + 1] = 0.0
         est[:, 3 * nz + 1] = 0.0
-    error = {}
+    conc, err_c = _concentration(column, model, initial, times, depths, out, est)
+    error = {"concentration": err_c}
     with np.errstate(invalid="ignore"):
         for name, cols in groups.items():
             bad = ~(np.isfinite(out[:, cols]).all(axis=1) & np.isfinite(est[:, cols]).all(axis=1))
             out[np.ix_(bad, cols)] = np.nan
             error[name] = np.where(bad, np.inf, est[:, cols].max(axis=1, initial=0.0))
-    conc, flux, cum = out[:, :nz], out[:, nz:2 * nz], out[:, 2 * nz:3 * nz]
+    flux, cum = out[:, nz:2 * nz], out[:, 2 * nz:3 * nz]
     cum_ends, stored, decayed = out[:, 3 * nz:3 * nz + 2], out[:, -2], out[:, -1]
     gl = g["l"]
     init_mass = float(np.sum(g["c"] * gl * (g["a"] + gl * (g["b"] / 2 + gl * (
@@ -191,8 +231,7 @@ def laplace_solution(column, model, initial, times, depths, out, est,
             produced = np.full(nt, math.nan)
     zero = times == 0
     if zero.any():
-        c0 = initial_values(column, initial, depths)
-        conc[zero] = c0
+        c0 = conc[zero][0]  # the initial state (set by _concentration)
         # flux of the initial profile: q C0 - theta D dC0/dz (piecewise-linear slope)
         idx, zeta0 = model.locate(depths)
         slope = g["b"][idx] + zeta0 * (2 * g["a2"][idx] + 3 * zeta0 * g["a3"][idx])
@@ -200,7 +239,6 @@ def laplace_solution(column, model, initial, times, depths, out, est,
         stored[zero] = init_mass
         # exact up to the rounding of the interpolation and of the sums
         eps16 = 16 * np.finfo(float).eps
-        error["concentration"][zero] = eps16 * np.abs(c0).max()
         error["total_flux"][zero] = eps16 * np.abs(np.abs(model.q * c0)
                                                    + np.abs(g["k"][idx] * slope)).max()
         error["budget"][zero] = eps16 * float(np.sum(g["c"] * (np.abs(g["a"]) * g["l"] + np.abs(

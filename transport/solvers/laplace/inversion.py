@@ -147,9 +147,10 @@ def invert_best(transform, times, n, s0, groups, floors=None):
         f[rows], err[rows] = fi, ei
     windowed = np.ones(times.size, bool)
     windowed[lone] = False
-    redo = windowed & _unsettled(f, err, groups, floors, _window_level(n))
-    if redo.any():
-        _keep_better(f, err, redo, *invert(transform, times[redo], n))
+    if windowed.any():  # (lone times were inverted on Talbot contours already)
+        redo = windowed & _unsettled(f, err, groups, floors, _window_level(n))
+        if redo.any():
+            _keep_better(f, err, redo, *invert(transform, times[redo], n))
     if s0 > 0:
         retry = _unsettled(f, err, groups, floors, _RETRY)
         if retry.any():
