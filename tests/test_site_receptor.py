@@ -241,3 +241,42 @@ def test_early_samples_that_may_matter_go_to_the_laplace_engine(q, level, step):
     old_bt, old_pk = _previous_path(col, level)
     assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
     assert pk == old_pk
+
+
+def test_a_peak_within_the_tolerance_of_zero_is_not_polished(monkeypatch):
+    """A plume that decays before it reaches the receptor (half-life about 80 days,
+    q = 0.6 m/yr): the realization's peak is within the tolerance of zero (mpmath
+    reference: below 1e-11 of the scale over the whole life), so it is read from the scan
+    and not polished (the polish of such a peak chases rounding, at the switch from the
+    Laplace engine to the modal series up to 30 Laplace solves). The value is within
+    the tolerance of the reference and of the polished one."""
+    mu = 1e-7
+    silt, clay = dict(SILT, decay_rate=mu), dict(CLAY, decay_rate=mu)
+    col = Column(layers=(Layer(0.87, 0.24, 3.4e-9, 3.6, decay_rate=mu), Layer(1.194, **silt),
+                         Layer(1.2, **clay), Layer(0.87, **silt), Layer(1.186, **clay)),
+                 top=Boundary("concentration", SCALE), bottom=Boundary("free-outflow"),
+                 darcy_flux=0.6 / YEAR)
+    level = 1e-3 * SCALE
+    seen = {"polish": 0}
+    real, real_min = site_boring.curve_metrics, site_boring.minimize_scalar
+
+    def spy(*args, **kw):
+        seen["out"] = real(*args, **kw)
+        seen["polished"] = real(*args[:6])  # the same curve and scan, no floor
+        return seen["out"]
+
+    def counting(*args, **kw):
+        seen["polish"] += 1
+        return real_min(*args, **kw)
+    monkeypatch.setattr(site_boring, "curve_metrics", spy)
+    monkeypatch.setattr(site_boring, "minimize_scalar", counting)
+    bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
+    assert math.isnan(bt) and 0 <= pk <= TOL * SCALE
+    # the peak lies inside the window (so it would be polished) but is not: the only
+    # polish is the one of the comparison run without the floor
+    scan_t = site_boring._scan_times(TIMES[0], LIFE, site_boring.SCAN_SAMPLES)
+    assert scan_t[0] < seen["out"][1] < scan_t[-1] and seen["out"][1] in scan_t
+    assert seen["polish"] == 1
+    assert abs(seen["polished"][2] - pk) <= TOL * SCALE
+    ref = laplace_reference(col, [DEPTH], np.geomspace(TIMES[0], LIFE, 8), dps=20)[:, 0]
+    assert np.all(np.abs(ref) <= 1e-11 * SCALE) and abs(pk - ref.max()) <= TOL * SCALE

@@ -125,7 +125,7 @@ class _Probe:
         return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
 
 
-def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None):
+def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0):
     """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
 
     Parameters
@@ -141,6 +141,11 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None):
         crossing and the peak before Brent's method polishes them.
     scan : array, optional
         The curve at those samples, if at hand (:func:`modal_scan`).
+    floor : float, optional
+        A peak at or below it (kg m-3; a realization's tolerance, absolute) is the
+        largest scan sample, not polished: it is within the tolerance of zero already,
+        and the polish of such a peak chases rounding (where the modal series takes
+        over from the Laplace engine, the two differ by up to the tolerance).
 
     Returns
     -------
@@ -164,7 +169,7 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None):
             raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
     i = int(np.argmax(c))
     t_peak, c_peak = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1:
+    if 0 < i < t.size - 1 and c_peak > floor:
         res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
                               method="bounded", options={"xatol": TIME_RTOL * t_end})
         if res.success and -res.fun > c_peak:
@@ -461,10 +466,10 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
     1e-6 of the scale at the first sample of a plume that never arrives), which is not
     asked where the modal bounds show those samples cannot hold the crossing or the
-    peak (:func:`modal_scan`); the breakthrough and the peak are then checked against
-    the Laplace engine
-    (:func:`verified_metrics`).  ``known``: the column's modes from a shared solve,
-    or None."""
+    peak (:func:`modal_scan`); a peak within the tolerance of zero is the largest scan
+    sample, not polished (:func:`curve_metrics`); the breakthrough and the peak are then
+    checked against the Laplace engine (:func:`verified_metrics`).  ``known``: the
+    column's modes from a shared solve, or None."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -487,7 +492,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
-                                 scan)
+                                 scan, tol * scale)
     scale = scale or max(abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
