@@ -431,8 +431,9 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
     for the metrics, else None (the caller then scans the switched curve, the Laplace
     engine before t_modal).  They cannot matter when at each of them the concentration,
     bounded by |modal value| + sqrt(n) x the rounding bound (16 n eps times the sum of
-    the terms' moduli, above the worst-case rounding of a sum of n terms, Higham 2002,
-    *Accuracy and Stability of Numerical Algorithms*, eq. 4.4) + the truncation
+    the terms' moduli, above the worst-case rounding (n - 1) eps of a sum of n terms,
+    Higham 2002, *Accuracy and Stability of Numerical Algorithms*, ch. 4, equation
+    number from memory) + the truncation
     tolerance, is below half the screening level and half the largest later sample:
     no crossing and no peak can lie there, so the breakthrough, the peak and their
     polish (which still read the switched curve) are those of the full scan.  Those
