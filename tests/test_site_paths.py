@@ -4,7 +4,8 @@ The optimised paths: chunks solved in local worker processes and handed over pac
 (the bytes of the chunk file with their checksum, made by the worker), written into the
 NetCDF file in blocks (:mod:`transport.site.run`), Monte Carlo material layers derived
 once per process, scan samples made once per window, the eigenvalues and eigenfunctions
-of a boring's Monte Carlo columns solved in shared passes (:func:`transport.site.chunks.shared_modes`).
+of a boring's Monte Carlo columns solved in shared passes
+(:func:`transport.site.chunks.shared_modes`).
 
 References (outside the code under test):
 

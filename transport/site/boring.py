@@ -450,8 +450,10 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
     late = probe.concentration(t[cut:])[:, 0]
     early = probe.concentration(t[:cut])[:, 0]
     t_modal = float(t[cut])
-    if any(0.0 < c < t_modal for c in probe.series.change_times()):  # the series is sized for the times
-        return t_modal, None  # after each change from the earliest output time on only
+    # the series is sized for the times after each change from the earliest output
+    # time on only
+    if any(0.0 < c < t_modal for c in probe.series.change_times()):
+        return t_modal, None
     n = max(probe.series.modes.lam.size, 1)
     upper = np.abs(early) + math.sqrt(n) * rb[:cut] + tol * scale
     with np.errstate(invalid="ignore"):

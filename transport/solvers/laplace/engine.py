@@ -15,7 +15,8 @@ from transport.solvers.laplace.inversion import invert_best
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
-__all__ = ["solve_laplace", "laplace_concentration", "laplace_solution", "signal_components", "signals_for"]
+__all__ = ["solve_laplace", "laplace_concentration", "laplace_solution", "signal_components",
+           "signals_for"]
 
 
 def _atom_hat(kind, amp, rate, s):
