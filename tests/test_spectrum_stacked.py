@@ -229,3 +229,33 @@ def test_modes_of_mixed_layer_counts():
     assert [m.op for m in many] == ops and [m.n_modes for m in many] == [20, 25, 7]
     _same_modes(many, [sp.modes(op, lam) for op, lam in zip(ops, lams)],
                 np.linspace(0.0, min(a.z[-1], b.z[-1]), 17))
+
+
+def test_grid_brackets_of_a_stack_equal_each_members_own():
+    """The grid brackets of a stack's members, found in one call, equal each member's
+    own (the optimised path against the single path, issue 12), also when one
+    member's grid holds a non-finite mismatch (an overflowing state): then each member
+    is bracketed on its own, so the NaN cannot reach the others."""
+    from transport.solvers.modal import brackets as br
+    ops = [sp.build_operator(Column(layers=tuple(HARD[0]), top=_bc(top), bottom=_bc(bottom)))
+           for top, bottom in (("concentration", "free-outflow"), ("sealed", "concentration"),
+                               ("flux", "sealed"))]
+    ns = [30, 25, 40]
+    members = []
+    for op, n in zip(ops, ns):
+        lo, hi, _ = spectrum._lambda_guess(op, n)
+        grid = spectrum._grid(lo, hi, n)
+        with np.errstate(**spectrum._QUIET):
+            members.append(((grid,) + spectrum._mismatch(op, grid)[:3], lo))
+    for poison in (False, True):
+        parts = [list(g) for g, _ in members]
+        if poison:
+            parts[0][1] = parts[0][1].copy()
+            parts[0][1][3] = np.nan
+        arrays = [np.concatenate(v) for v in zip(*parts)]
+        many = br.brackets_many(*arrays, ns, [lo for _, lo in members],
+                                [p[0].size for p in parts])
+        for r, (p, (_, lo)) in enumerate(zip(parts, members)):
+            alone = br.brackets(*p, ns[r], lo)
+            for x, y in zip(many[r], alone):
+                np.testing.assert_array_equal(x, y)

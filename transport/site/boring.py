@@ -381,6 +381,15 @@ def _switched(early, late, t_switch):
     return lambda t: switched(t, t_switch, early, late)
 
 
+def _laplace_curve(col, depth, initial, enough):
+    """The Laplace engine's concentration at ``depth`` as a curve C(t) (a realization's
+    receptor; its concentration alone, :func:`laplace_concentration`)."""
+    def laplace_at(t):
+        return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
+                                     enough=enough)[0][:, 0]
+    return laplace_at
+
+
 def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
                      scale):
     """Check a realization's breakthrough and peak against the Laplace engine: the
@@ -400,10 +409,7 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
         if np.all(np.abs(c - np.array(want)) + e <= tol * scale):
             return bt, pk
 
-    def laplace_at(t):
-        return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
-                                     enough=enough)[0][:, 0]
-    bt2, pk2_t, pk2 = curve_metrics(laplace_at, t_start, t_end, level, SCAN_SAMPLES)
+    bt2, pk2_t, pk2 = curve_metrics(_laplace_curve(col, depth, initial, enough), t_start, t_end, level, SCAN_SAMPLES)
     at = [t for t in (bt2, pk2_t) if np.isfinite(t) and t > 0]
     if at:
         err = laplace_concentration(col, at, [depth], initial=initial, enough=enough)[1]
@@ -447,18 +453,20 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
         return None, None
     if cut == 0:
         return float(t[0]), None
-    late = probe.concentration(t[cut:])[:, 0]
-    early = probe.concentration(t[:cut])[:, 0]
     t_modal = float(t[cut])
     # the series is sized for the times after each change from the earliest output
     # time on only
     if any(0.0 < c < t_modal for c in probe.series.change_times()):
         return t_modal, None
+    early = probe.concentration(t[:cut])[:, 0]
     n = max(probe.series.modes.lam.size, 1)
-    upper = np.abs(early) + math.sqrt(n) * rb[:cut] + tol * scale
-    with np.errstate(invalid="ignore"):
-        quiet = bool(np.all(upper <= 0.5 * min(level, float(np.max(late)))))
-    return t_modal, (np.concatenate([early, late]) if quiet else None)
+    upper = float(np.max(np.abs(early) + math.sqrt(n) * rb[:cut])) + tol * scale
+    if not upper <= 0.5 * level:  # (the later samples are then not evaluated here)
+        return t_modal, None
+    late = probe.concentration(t[cut:])[:, 0]
+    if not upper <= 0.5 * float(np.max(late)):
+        return t_modal, None
+    return t_modal, np.concatenate([early, late])
 
 
 def realization_metrics(site, col, depth, t_start, times, initial=None, known=None):
@@ -489,9 +497,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
         t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level)
         enough = good_enough(col, scale, tol)
 
-        def laplace_at(t):
-            return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
-                                         enough=enough)[0][:, 0]
+        laplace_at = _laplace_curve(col, depth, initial, enough)
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,

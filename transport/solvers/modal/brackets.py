@@ -34,8 +34,8 @@ def brackets_many(grid, G, dG, face, ns, los, sizes):
     raw = np.maximum(raw_counts(G), 0)
     if m > 1 and not np.isfinite(raw).all():  # keep each operator's own NaN handling
         cut = np.cumsum(sizes)[:-1]
-        return [brackets(*(np.split(v, cut)[r] for v in (grid, G, dG, face)), ns[r],
-                          los[r]) for r in range(m)]
+        split = [np.split(v, cut) for v in (grid, G, dG, face)]
+        return [brackets(*(v[r] for v in split), ns[r], los[r]) for r in range(m)]
     # each operator's running maximum of the counts, all at once: operator r's counts
     # are offset by r x (largest count + 1), exactly (integers far below 2^53)
     off = np.repeat(np.arange(m), sizes) * (raw.max() + 1.0 if m > 1 else 0.0)

@@ -37,7 +37,7 @@ from __future__ import annotations
 import numpy as np
 
 from transport.solvers.modal.operator import Operator, SpectrumError
-from transport.solvers.modal.brackets import brackets, brackets_many, lambda_step, raw_counts
+from transport.solvers.modal.brackets import brackets_many, lambda_step, raw_counts
 from transport.solvers.modal.transfer import (AngleScales, LayerTerms, Prep, chunks,
                                               end_remap, increments, layer_integrals, shoot)
 
@@ -260,30 +260,24 @@ def _solve_group(ops, ns):
         grids = [_grid(lo, hi, n) for (lo, hi, _), n in zip(guess, ns)]
         owner = np.repeat(np.arange(len(ops)), [g.size for g in grids])
         G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole.select(owner))
-        # members whose guessed bounds hold are bracketed together, the others on
-        # their own grid between searched bounds
-        sizes = np.array([g.size for g in grids])
-        start = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-        los, spans, redo = [], [], {}
+        # every member bracketed in one call; a member whose guessed bounds fail is
+        # redone on its own grid between searched bounds first
+        members, los, spans, start = [], [], [], 0
         for r, (op, n) in enumerate(zip(ops, ns)):
             lo, _, span = guess[r]
-            raw = raw_counts(G[start[r]:start[r] + sizes[r]])
+            sl = slice(start, start + grids[r].size)
+            start = sl.stop
+            g = (grids[r], G[sl], dG[sl], face[sl])
+            raw = raw_counts(g[1])
             if not (raw[0] <= 0 and raw[-1] >= n):
                 lo, hi, span = _lambda_bounds(op, n)
                 grid = _grid(lo, hi, n)
-                redo[r] = (grid,) + _mismatch(op, grid, prep=preps[r])
+                g = (grid,) + _mismatch(op, grid, prep=preps[r])
+            members.append(g)
             los.append(lo)
             spans.append(span)
-        keep = [r for r in range(len(ops)) if r not in redo]
-        found = {}
-        if keep:
-            pick = np.concatenate([np.arange(start[r], start[r] + sizes[r]) for r in keep])
-            grid = np.concatenate(grids)[pick]
-            found.update(zip(keep, brackets_many(grid, G[pick], dG[pick], face[pick],
-                                                  [ns[r] for r in keep],
-                                                  [los[r] for r in keep], sizes[keep])))
-        for r, g in redo.items():
-            found[r] = brackets(*g, ns[r], los[r])
+        found = brackets_many(*(np.concatenate(v) for v in zip(*members)), ns, los,
+                              [g[0].size for g in members])
         parts = [found[r] + (np.full(n, los[r]), np.full(n, _SPAN_FLOOR * spans[r]),
                              np.full(n, r)) for r, n in enumerate(ns)]
         a, b, x, j, used, mu, slope, lo, floor, own = (np.concatenate(v) for v in zip(*parts))
