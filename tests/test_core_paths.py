@@ -211,3 +211,49 @@ def test_eigenvalues_of_a_hard_stack_match_mpmath():
     lam = sp.eigenvalues(op, 151)
     for j in (0, 1, 2, 3, 4, 150):
         assert _mp_brackets(op, lam[j], 2e-13), j
+
+
+def test_decay_skips_only_what_underflows():
+    """e^{-lambda t} of the series with the underflowing entries not evaluated equals
+    numpy's own exponential of every entry, to the bit: around the underflow threshold
+    (e^-745.13 is the last nonzero double, IEEE 754 subnormals), at t = 0, for a
+    negative eigenvalue (growth), and with NaN and infinite entries."""
+    from transport.solvers.modal.series import _decay
+    rng = np.random.default_rng(5)
+    lam = np.sort(np.concatenate([rng.uniform(0, 1e-4, 300), [-1e-9, 0.0, 1e-12]]))
+    t = np.concatenate([[0.0], np.linspace(744.0, 747.0, 40) / 1e-4, rng.uniform(0, 1e9, 100)])
+    for lam_, t_ in ((lam, t), (np.append(lam, [np.nan, np.inf]), t),
+                     (lam[:5], t[:9])):  # the last: small, evaluated whole
+        with np.errstate(invalid="ignore", over="ignore"):
+            want = np.exp(-lam_[:, None] * t_[None, :])
+            got = _decay(lam_, t_)
+        assert got.shape == want.shape
+        assert np.array_equal(got, want, equal_nan=True)
+        real = ~np.isnan(want)  # (the sign of a NaN carries nothing)
+        assert np.array_equal(np.signbit(got[real]), np.signbit(want[real]))
+
+
+def test_long_series_concentration_equals_its_plain_sum(monkeypatch):
+    """C of a 600-mode series at 300 times (summed in place, the underflowing decay
+    factors not evaluated) equals the plain form c_modes @ a(t) + c_lift @ b(t) +
+    tail @ drive(t) with every decay factor from numpy's exponential, to the bit, for a
+    source that ramps up, holds and is removed (a nonzero drive: the tail term)."""
+    from transport.model.schedules import Schedule
+    from transport.solvers.modal import series as series_module
+    yr = 3.15576e7
+    ramp = Schedule.table([0.0, 2 * yr, 5 * yr, 5.5 * yr], [0.0, 1.0, 1.0, 0.0])
+    base = _column(20, 11, "concentration", "free-outflow", 30)
+    col = Column(layers=base.layers, top=Boundary("concentration", 1.0, schedule=ramp),
+                 bottom=base.bottom, darcy_flux=base.darcy_flux)
+    s = build_series(col, n_modes=600)
+    z = np.linspace(0.0, col.length, 50)
+    t = np.linspace(0.01, 60.0, 300) * yr
+    got = s.concentration(z, t)
+    forcing = s.drive(t)
+    assert np.any(forcing)
+    monkeypatch.setattr(series_module, "_decay",
+                        lambda lam, tt: np.exp(-lam[:, None] * tt[None, :]))
+    c_modes, _, c_lift, _ = s.fields(z)
+    want = (c_modes @ s.coefficients(t) + c_lift @ s.signal_values(t)
+            + s.tail_corrections(z)["C"][:, 1:] @ forcing)
+    assert np.array_equal(got, want.T)

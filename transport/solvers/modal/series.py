@@ -49,6 +49,24 @@ __all__ = ["solve", "ModalSeries", "ModeCapWarning", "AccuracyWarning", "build_s
            "DEFAULT_TOLERANCE"]
 
 
+#: Below -746 the exponential is 0 in double precision (e^-746 is under half the
+#: smallest subnormal, 4.9e-324); such entries are not evaluated.
+_UNDERFLOW = -746.0
+
+
+def _decay(lam, t):
+    """e^{-lambda_n t_j}, shape (lam.size, t.size): the same numbers as
+    ``np.exp(-lam[:, None] * t[None, :])``, with the exponential evaluated only where it
+    does not underflow to 0 (most entries of a long series at late times: the high
+    modes have died out)."""
+    x = np.multiply.outer(lam, t)
+    np.negative(x, out=x)
+    if x.size < 4096:  # small: the mask costs more than it saves
+        return np.exp(x, out=x)
+    out = np.zeros_like(x)
+    return np.exp(x, out=out, where=~(x < _UNDERFLOW))  # NaN is evaluated (stays NaN)
+
+
 @dataclass(frozen=True)
 class ModalSeries(TimeIntegrals):
     """Everything needed to evaluate the solution at any depth and time."""
@@ -121,7 +139,7 @@ class ModalSeries(TimeIntegrals):
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam
         initial, groups = self._atom_groups()
-        out = np.exp(-lam[:, None] * t[None, :])
+        out = _decay(lam, t)
         out *= initial[:, None]
         for (kind, t0, rate), w in groups.items():
             unit = Schedule(((kind, t0, 1.0, rate),))
@@ -191,12 +209,12 @@ class ModalSeries(TimeIntegrals):
     def concentration(self, z, t):
         """C (kg m-3), shape (t.size, z.size)."""
         c_modes, _, c_lift, _ = self.fields(z)
-        out = (c_modes @ self.coefficients(t) + c_lift @ self.signal_values(t)).T
+        out = c_modes @ self.coefficients(t)  # the sums in place: no (z, t) temporaries
+        out += c_lift @ self.signal_values(t)
         forcing = self.drive(t)
         if np.any(forcing):
-            corr = self.tail_corrections(z)["C"][:, 1:]
-            out = out + (corr @ forcing).T
-        return out
+            out += self.tail_corrections(z)["C"][:, 1:] @ forcing
+        return out.T
 
     def concentration_at(self, depth, times):
         """C at one depth for any times: 1-D array (continuous in time)."""
