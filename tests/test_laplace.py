@@ -378,3 +378,56 @@ def test_concentration_alone_equals_the_full_solution(name):
         np.testing.assert_array_equal(err, full.error["concentration"])
     ref = laplace_reference(col, z, t, initial=init, dps=20)
     assert np.all(np.abs(conc - ref) <= err[:, None] + 1e-12)
+
+
+def _per_system(ab, rhs):
+    """Reference for the stacked banded solve: each s system through scipy's own banded
+    solver (scipy.linalg.solve_banded, LAPACK gbsv), one call per system; a singular one
+    is flagged (info 1) and left as it was."""
+    from scipy.linalg import LinAlgError, solve_banded
+    out, info = rhs.copy(), np.zeros(rhs.shape[0], dtype=int)
+    for j in range(rhs.shape[0]):
+        try:
+            out[j] = solve_banded((2, 2), ab[j, :, 2:].T, rhs[j], check_finite=False)
+        except (LinAlgError, ValueError):
+            info[j] = 1
+    return out, info
+
+
+@pytest.mark.parametrize("name", list(_regime_columns()) + ["pe8000", "semi"])
+def test_stacked_banded_solve_equals_one_solve_per_s(name, monkeypatch):
+    """All s systems of a transform are solved as one block-diagonal banded system
+    (transfer._solve_banded). Every output and every error estimate of solve_laplace
+    equals, to the bit, the run with each system solved on its own by scipy's banded
+    solver: in every regime above, in the very-high-Peclet column whose far contour
+    systems are singular in floating point, and with a semi-infinite bottom."""
+    from transport.solvers.laplace import transfer
+    cols = dict(_regime_columns())
+    q, theta = 0.25 / YEAR, 0.4
+    cols["pe8000"] = (Column(layers=tuple(Layer(1.0, theta, q / (theta * 2000), 10.0)
+                                          for _ in range(4)), darcy_flux=q,
+                             top=Boundary("concentration", 1.0),
+                             bottom=Boundary("concentration", 0.0)), None)
+    cols["semi"] = (cols["pe0"][0], InitialState.uniform([0.25, 0.1]))
+    col, init = cols[name]
+    t = np.array([0.0, 0.05, 0.4, 2.0, 7.0, 30.0]) * YEAR
+    z = np.linspace(0.0, col.length, 9)
+    semi = name == "semi"
+    calls = []
+    real = transfer._solve_banded
+
+    def counted(ab, rhs):
+        calls.append(rhs.shape[0])
+        return real(ab, rhs)
+    monkeypatch.setattr(transfer, "_solve_banded", counted)
+    with np.errstate(all="ignore"):
+        new = solve_laplace(col, t, z, initial=init, semi_infinite_bottom=semi)
+        monkeypatch.setattr(transfer, "_solve_banded", _per_system)
+        old = solve_laplace(col, t, z, initial=init, semi_infinite_bottom=semi)
+    assert max(calls) > 1  # the stacked path was taken
+    for q in ("concentration", "total_flux", "cumulative_mass"):
+        np.testing.assert_array_equal(getattr(new, q), getattr(old, q))
+    for key in old.budget:
+        np.testing.assert_array_equal(new.budget[key], old.budget[key])
+    for key in old.error:
+        np.testing.assert_array_equal(new.error[key], old.error[key])

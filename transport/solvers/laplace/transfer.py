@@ -130,6 +130,29 @@ def _expm1_over(x):
     return np.where(small, 1 + x / 2 + x * x / 6, np.expm1(xs) / xs)
 
 
+def _solve_banded(ab, rhs):
+    """Solve the ns banded (2, 2) systems ab[j] (n, 7) in gbsv storage: (solutions
+    (ns, n), gbsv info per system).
+
+    The systems are solved as ONE block-diagonal system of ns n rows in a single gbsv
+    call: its band is the same (the entries coupling neighbouring blocks are zero), a
+    zero candidate is never chosen as a pivot over a nonzero one, and every update a
+    block receives from another is a zero multiple, so each block's LU and solution are
+    those of its own call, to the bit (checked against the per-system calls in the
+    tests).  A zero pivot (info > 0, the solve is then skipped) or a non-finite
+    solution (0 x inf would spread to the neighbouring blocks) sends every system
+    through its own call, which flags the bad ones alone."""
+    ns, n = rhs.shape
+    if ns > 1 and np.isfinite(ab).all() and np.isfinite(rhs).all():
+        x, info = zgbsv(2, 2, ab.reshape(ns * n, 7).T, rhs.reshape(ns * n))[2:]
+        if info == 0 and np.isfinite(x).all():
+            return x.reshape(ns, n), np.zeros(ns, dtype=int)
+    # each system on its own, in place: rhs[j] becomes its solution
+    info = np.array([zgbsv(2, 2, a.T, b, overwrite_ab=1, overwrite_b=1)[3]
+                     for a, b in zip(ab, rhs)], dtype=int)
+    return rhs, info
+
+
 class LaplaceTransfer:
     """Exact Laplace-domain solution of the layered column for a batch of s values."""
 
@@ -319,9 +342,7 @@ class LaplaceTransfer:
             col = rows - 2 + j
             ok = (col >= 0) & (col < n)
             ab[:, col[ok], 6 - j] = band[:, rows[ok], j]
-        # each system is solved in place: rhs[j] becomes its solution
-        info = np.array([zgbsv(2, 2, a.T, b, overwrite_ab=1, overwrite_b=1)[3]
-                         for a, b in zip(ab, rhs)], dtype=int)
+        rhs, info = _solve_banded(ab, rhs)
         if info.size and info.min() < 0:  # pragma: no cover - the arguments are built above
             raise ValueError(f"illegal value in argument {-info.min()} of gbsv")
         self.capped |= info > 0
