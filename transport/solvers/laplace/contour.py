@@ -33,6 +33,7 @@ Windows of times: a hyperbola serves every time of [t0, Lambda t0] with one node
 """
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -52,10 +53,16 @@ _RATE = 1.358  # discretisation error ~ exp(-1.358 N)
 
 
 def talbot_nodes(n: int = DEFAULT_NODES):
-    """Contour shape phi_k and weights W_k for the nodes with theta > 0.
+    """Contour shape phi_k and weights W_k for the nodes with theta > 0 (read-only
+    arrays, made once per n).
 
     For a time t the nodes are s_k = phi_k n / t and f(t) = sum_k Im(W_k F(s_k)) / t.
     """
+    return _talbot_nodes(n)
+
+
+@functools.lru_cache(maxsize=32)
+def _talbot_nodes(n):
     if n < 4 or n % 2:
         raise InputError(f"the number of Talbot nodes must be even and >= 4, got {n!r}")
     h = 2 * np.pi / n
@@ -64,7 +71,9 @@ def talbot_nodes(n: int = DEFAULT_NODES):
     phi = _SIGMA + _MU * theta * cot + 1j * _NU * theta
     dphi = _MU * (cot - _ALPHA * theta * (1.0 + cot * cot)) + 1j * _NU
     weights = (h / np.pi) * n * dphi * np.exp(n * phi)
-    return n * phi, weights
+    shape = n * phi
+    shape.flags.writeable = weights.flags.writeable = False
+    return shape, weights
 
 
 def default_nodes(column: Column) -> int:

@@ -219,6 +219,9 @@ class LaplaceTransfer:
             if np.any(np.abs(den) <= 1e-10 * scale):
                 raise InputError(RESONANT)
             self._xr, self._xanc, self._xp = rho, np.broadcast_to(xanc, rho.shape), amp / den
+        # no particular part at all (a clean column without sources or forcing): its
+        # values and slopes are 0 and are not evaluated
+        self._none = self._xr.shape[0] == 0 and not np.any(alpha)
         coef = self._linear_system(s[0], r, anc, alpha, beta, k, l)
         return coef
 
@@ -250,9 +253,12 @@ class LaplaceTransfer:
         """C and F rows at local depth zeta of segment i: (cC (2,ns), C0, cF, F0)."""
         e = self._exp(r[:, i] * (zeta - anc[:, i]))
         cC = e
-        C0, dC0 = _poly(alpha[:, i], zeta)
-        xC, xdC = self._forced(i, zeta)
-        C0, dC0 = C0 + xC, dC0 + xdC
+        if self._none:
+            C0 = dC0 = 0.0
+        else:
+            C0, dC0 = _poly(alpha[:, i], zeta)
+            xC, xdC = self._forced(i, zeta)
+            C0, dC0 = C0 + xC, dC0 + xdC
         cF = k[i] * r[::-1, i] * e  # q - k r1 = k r2 and q - k r2 = k r1: no cancellation
         F0 = self.q * C0 - k[i] * dC0
         return cC, C0, cF, F0
@@ -270,7 +276,8 @@ class LaplaceTransfer:
             target = {"flux": val, "inlet": self.q * val, "sealed": 0.0 * val}[kind]
             return cF, target - F0
         if kind == "free-outflow":
-            return r[:, i] * cC, -(_poly(alpha[:, i], zeta)[1] + self._forced(i, zeta)[1]) + 0 * val
+            slope = 0.0 if self._none else _poly(alpha[:, i], zeta)[1] + self._forced(i, zeta)[1]
+            return r[:, i] * cC, -slope + 0 * val
         if kind == "mass-transfer":
             h = bc.transfer_coefficient
             sign = 1.0 if end == "top" else -1.0
@@ -400,7 +407,7 @@ class LaplaceTransfer:
         x = np.where(at_bottom, -r * l, r * l)
         integ = l * _expm1_over(np.where(x.real > _EXP_CAP, _EXP_CAP + 1j * x.imag, x))
         p = self._alpha
-        lin = l * (p[0] + l * (p[1] / 2 + l * (p[2] / 3 + l * p[3] / 4)))
+        lin = 0.0 if self._none else l * (p[0] + l * (p[1] / 2 + l * (p[2] / 3 + l * p[3] / 4)))
         if self._xr.shape[0]:  # int_0^l e^{rho (zeta - a)} dzeta of the forcing's part
             xr, xa = self._xr, self._xanc
             lo, hi = self._exp(-xr * xa), self._exp(xr * (l - xa))
