@@ -229,3 +229,44 @@ def test_auto_runs_at_many_output_times_are_right_or_refused(index):
         cell.tol)
     name, outcome, ratios, secs, why = RESULTS[-1]
     print(f"\n{outcome} {name}: error / (tol x scale) {ratios} {why}")
+
+
+def test_unsettled_times_follow_the_rule_group_by_group():
+    """inversion._unsettled (which times are inverted again) against the rule written
+    out group by group: a time is unsettled when some estimate of a group exceeds
+    max(level x the group's scale, its floor), the scale being the group's largest
+    value whose estimate is below 1e-3 of it, 0 if there is none.  Random values with
+    NaN and infinite entries, zero columns, overlapping groups and a column in no
+    group (ignored)."""
+    def rule(f, err, groups, floors, level):
+        bad = np.zeros(f.shape[0], bool)
+        with np.errstate(invalid="ignore"):
+            for cols, floor in zip(groups, floors):
+                fv, ev = np.abs(f[:, cols]), err[:, cols]
+                ok = np.isfinite(fv) & (ev <= 1e-3 * fv)
+                scale = fv[ok].max() if ok.any() else 0.0
+                bad |= ~(ev <= max(level * scale, floor)).all(axis=1)
+        return bad
+
+    rng = np.random.default_rng(11)
+    for trial in range(300):
+        nt, m = int(rng.integers(1, 9)), int(rng.integers(2, 9))
+        f = rng.normal(size=(nt, m)) * 10.0 ** rng.integers(-20, 3, size=(nt, m))
+        err = np.abs(f) * 10.0 ** rng.uniform(-16, 0, size=(nt, m))
+        for arr in (f, err):
+            hit = rng.random((nt, m))
+            arr[hit < 0.05] = np.nan
+            arr[(hit > 0.05) & (hit < 0.08)] = np.inf
+        if trial % 5 == 0:
+            f[:, 0] = 0.0
+        cut = sorted(rng.choice(np.arange(1, m), size=min(2, m - 1), replace=False))
+        groups = [np.arange(0, cut[0])] + [np.arange(a, b) for a, b in
+                                            zip(cut, cut[1:] + [m])]
+        if trial % 3 == 0:
+            groups = groups[:-1] if len(groups) > 1 else groups  # a column in no group
+        if trial % 4 == 0:
+            groups.append(np.array([0, m - 1]))  # overlapping
+        floors = list(rng.choice([0.0, 1e-12, 1e-3], size=len(groups)))
+        level = float(rng.choice([1e-12, 1e-10]))
+        np.testing.assert_array_equal(inversion._unsettled(f, err, groups, floors, level),
+                                      rule(f, err, groups, floors, level))

@@ -96,14 +96,16 @@ def _unsettled(f, err, groups, floors, level):
     """Times (bool, nt) where some estimate of a group exceeds max(level x the group's
     scale, its floor); the scale of a group is its largest value whose estimate is below
     1e-3 of it (garbage values carry large estimates and do not count)."""
-    bad = np.zeros(f.shape[0], bool)
     with np.errstate(invalid="ignore"):
-        for cols, floor in zip(groups, floors):
-            fv, ev = np.abs(f[:, cols]), err[:, cols]
-            ok = np.isfinite(fv) & (ev <= 1e-3 * fv)
-            scale = fv[ok].max() if ok.any() else 0.0
-            bad |= ~(ev <= max(level * scale, floor)).all(axis=1)
-    return bad
+        fv = np.abs(f)
+        ok = np.isfinite(fv) & (err <= 1e-3 * fv)
+        # the largest trusted value of each column (0 where none), then of each group
+        col_max = np.where(ok, fv, 0.0).max(axis=0, initial=0.0)
+        limits = [max(level * float(col_max[cols].max(initial=0.0)), floor)
+                  for cols, floor in zip(groups, floors)]
+        cols = np.concatenate([np.asarray(c, int) for c in groups])
+        limit = np.repeat(limits, [len(c) for c in groups])
+        return ~(err[:, cols] <= limit).all(axis=1)
 
 
 def _keep_better(f, err, rows, f2, e2):
