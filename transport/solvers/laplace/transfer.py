@@ -28,6 +28,7 @@ one that decays with depth) in the last layer; the bottom boundary is then unuse
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -128,6 +129,24 @@ def _expm1_over(x):
     small = np.abs(x) < 1e-6
     xs = np.where(small, 1.0, x)
     return np.where(small, 1 + x / 2 + x * x / 6, np.expm1(xs) / xs)
+
+
+@functools.lru_cache(maxsize=64)
+def _band_rows(n):
+    """Index arrays of the gbsv storage ab (ns, n, 7) of n rows: ``gather`` (n, 5), the
+    flat positions of each row's five band entries (a position beyond the matrix
+    points at a slot of the LU's extra rows, zero when assembled), and ``row_of`` (n,
+    7), the row of each slot (n, pointing at a divisor 1, for slots of no row)."""
+    rows = np.arange(n)[:, None]
+    col = rows - 2 + np.arange(5)[None, :]
+    inside = (col >= 0) & (col < n)
+    gather = np.where(inside, col * 7 + 4 + rows - col, 0)
+    slot_col, slot = np.meshgrid(np.arange(n), np.arange(7), indexing="ij")
+    row = slot_col + slot - 4
+    row_of = np.where((slot >= 2) & (row >= 0) & (row < n), row, n)
+    for a in (gather, row_of):
+        a.flags.writeable = False
+    return gather, row_of
 
 
 def _solve_banded(ab, rhs):
@@ -294,11 +313,16 @@ class LaplaceTransfer:
 
     def _linear_system(self, s, r, anc, alpha, beta, k, l):
         n, ns = 2 * self.n, s.size
-        band = np.zeros((ns, n, 5), dtype=complex)  # band[:, row, col - row + 2]
+        # LAPACK gbsv storage with the 2 extra rows its LU needs: entry (row, col) at row
+        # 4 + row - col of a (7, n) Fortran-ordered array per s, i.e. ab[:, col, 4 + row
+        # - col] here.  This is exactly what scipy.linalg.solve_banded((2, 2), ...) hands
+        # to gbsv; calling the LAPACK routine directly gives the same numbers without
+        # the wrapper's per-call checks (a tenth of the cost of a small system).
+        ab = np.zeros((ns, n, 7), dtype=complex)
         rhs = np.zeros((ns, n), dtype=complex)
 
         def put(row, col, val):
-            band[:, row, col - row + 2] = val
+            ab[:, col, 4 + row - col] = val
 
         top, rt = self._boundary("top", r, anc, alpha, beta, k, l, s)
         put(0, 0, top[0])
@@ -311,7 +335,8 @@ class LaplaceTransfer:
             K = self.seg["K"][i][:, None]
 
             def put_faces(row, offset, val):  # val (m, ns): entries at col = 2i + offset
-                band[:, row, 2 * i + offset - row + 2] = val.T
+                col = 2 * i + offset
+                ab[:, col, 4 + row - col] = val.T
 
             row = 2 * i + 1  # C_below - K C_above = 0
             put_faces(row, 0, -K * cA[0])
@@ -334,21 +359,11 @@ class LaplaceTransfer:
             put(row, n - 1, bot[1])
             rhs[:, row] = rb
         # row equilibration: entries far from an exponential's anchor can be tiny
-        big = np.abs(band).max(axis=2)
+        gather, row_of = _band_rows(n)
+        big = np.abs(ab.reshape(ns, 7 * n)[:, gather]).max(axis=2)  # (ns, n)
         big = np.where(big > 0, big, 1.0)
-        band /= big[:, :, None]
+        ab /= np.concatenate([big, np.ones((ns, 1))], axis=1)[:, row_of]
         rhs /= big
-        # LAPACK gbsv storage with the 2 extra rows its LU needs: row 4 + row - col of a
-        # (7, n) Fortran-ordered array per s, i.e. ab[:, col, 4 + row - col] here.  This
-        # is exactly what scipy.linalg.solve_banded((2, 2), ...) hands to gbsv; calling
-        # the LAPACK routine directly gives the same numbers without the wrapper's
-        # per-call checks (a tenth of the cost of a small system).
-        ab = np.zeros((ns, n, 7), dtype=complex)
-        rows = np.arange(n)
-        for j in range(5):
-            col = rows - 2 + j
-            ok = (col >= 0) & (col < n)
-            ab[:, col[ok], 6 - j] = band[:, rows[ok], j]
         rhs, info = _solve_banded(ab, rhs)
         if info.size and info.min() < 0:  # pragma: no cover - the arguments are built above
             raise ValueError(f"illegal value in argument {-info.min()} of gbsv")
