@@ -257,3 +257,34 @@ def test_long_series_concentration_equals_its_plain_sum(monkeypatch):
     want = (c_modes @ s.coefficients(t) + c_lift @ s.signal_values(t)
             + s.tail_corrections(z)["C"][:, 1:] @ forcing)
     assert np.array_equal(got, want.T)
+
+
+@pytest.mark.parametrize("which", ["clean", "measured", "stepped"])
+def test_roundoff_bound_is_its_formula(which):
+    """ModalSeries.roundoff_bound (the terms of a clean column's initial part not
+    evaluated, underflowing decay factors skipped) equals its formula written out with
+    numpy's exponential everywhere, to the bit: 16 sqrt(n) eps |C_modes| @ (|P_n|
+    e^{-lambda t} + sum_k |c_kn| sum|amplitudes| e^{-lambda (t - last change)})."""
+    from transport.model.schedules import Schedule
+    yr = 3.15576e7
+    base = _column(4, 21, "concentration", "free-outflow", 60)
+    sched = Schedule.steps([0.0, 3 * yr], [1.0, 0.2]) if which == "stepped" else None
+    col = Column(layers=base.layers, top=Boundary("concentration", 1.0, schedule=sched),
+                 bottom=base.bottom, darcy_flux=base.darcy_flux)
+    init = InitialState.uniform([0.4, 0.1, 0.0, 0.2]) if which == "measured" else None
+    s = build_series(col, init, n_modes=300)
+    z = np.linspace(0.0, col.length, 11)
+    t = np.concatenate([[0.0], np.geomspace(1e-3, 80.0, 200) * yr])
+    lam = s.modes.lam[:, None]
+    size = np.abs(s.proj0)[:, None] * np.exp(-lam * t[None, :])
+    for k, sig in enumerate(s.signals):
+        if not sig.atoms:
+            continue
+        amp = sum(abs(a) for _, _, a, _ in sig.atoms)
+        changes = np.sort(np.asarray(sig.change_times, dtype=float))
+        i = np.searchsorted(changes, t, side="right")
+        last = np.where(i > 0, changes[np.maximum(i - 1, 0)] if changes.size else 0.0, 0.0)
+        size = size + np.abs(s.lift_coef[k])[:, None] * amp * np.exp(
+            -lam * np.maximum(t - last, 0.0)[None, :])
+    want = 16 * math.sqrt(lam.size) * np.finfo(float).eps * (np.abs(s.fields(z)[0]) @ size).T
+    np.testing.assert_array_equal(s.roundoff_bound(z, t), want)

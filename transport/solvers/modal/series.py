@@ -239,8 +239,10 @@ class ModalSeries(TimeIntegrals):
         if c_modes is None:
             c_modes = self.fields(z)[0]
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        lam = self.modes.lam[:, None]
-        size = np.abs(self.proj0)[:, None] * np.exp(-lam * t[None, :])
+        lam = self.modes.lam
+        size = None  # a clean column: 0 x e^{-lambda t} (<= 1) is 0, not evaluated
+        if np.any(self.proj0) or lam.min(initial=0.0) < 0:
+            size = np.abs(self.proj0)[:, None] * _decay(lam, t)
         for k in self._active():
             sched = self.signals[k]
             amp = sum(abs(a) for _, _, a, _ in sched.atoms)
@@ -249,8 +251,11 @@ class ModalSeries(TimeIntegrals):
             i = np.searchsorted(changes, t, side="right")
             last = np.where(i > 0, changes[np.maximum(i - 1, 0)] if changes.size else 0.0,
                             0.0)
-            size = size + np.abs(self.lift_coef[k])[:, None] * amp * np.exp(
-                -lam * np.maximum(t - last, 0.0)[None, :])
+            term = np.abs(self.lift_coef[k])[:, None] * amp * _decay(
+                lam, np.maximum(t - last, 0.0))
+            size = term if size is None else size + term  # (0 + term is term: >= 0)
+        if size is None:
+            size = np.zeros((lam.size, t.size))
         n = max(self.modes.lam.size, 1)
         return 16 * math.sqrt(n) * np.finfo(float).eps * (np.abs(c_modes) @ size).T
 

@@ -99,9 +99,10 @@ def earliest_time_after_change(column: Column, times) -> float | None:
                   *(lay.source_schedule for lay in column.layers)):
         if sched is not None:
             changes.update(sched.change_times)
-    gaps = [t - c for t in times for c in changes if t - c > 0]
-    if not gaps:
+    gaps = (times[:, None] - np.array(sorted(changes))[None, :]).ravel()
+    gaps = gaps[gaps > 0]
+    if not gaps.size:
         return None
     # resolve every change as finely as the run's start, so that continuous-time
     # metrics are accurate after each change, not only at the output times
-    return min(min(gaps), float(times[times > 0].min()))
+    return min(float(gaps.min()), float(times[times > 0].min()))
