@@ -288,3 +288,17 @@ def test_roundoff_bound_is_its_formula(which):
             -lam * np.maximum(t - last, 0.0)[None, :])
     want = 16 * math.sqrt(lam.size) * np.finfo(float).eps * (np.abs(s.fields(z)[0]) @ size).T
     np.testing.assert_array_equal(s.roundoff_bound(z, t), want)
+
+
+def test_earliest_time_after_change_by_hand():
+    """The smallest positive gap between an output time and a change time (0 and the
+    schedule's switch times), and never later than the earliest positive output time;
+    None without a positive gap.  Values worked by hand."""
+    from transport.model.schedules import Schedule
+    from transport.solvers.modal.sizing import earliest_time_after_change
+    base = _column(2, 3, "concentration", "free-outflow", 0)
+    col = Column(layers=base.layers, bottom=base.bottom, top=Boundary(
+        "concentration", 1.0, schedule=Schedule.steps([0.0, 3.9], [1.0, 0.0])))
+    assert earliest_time_after_change(col, np.array([4.0, 8.0])) == pytest.approx(0.1, rel=1e-12)
+    assert earliest_time_after_change(col, np.array([0.0, 1.0, 5.0])) == 1.0
+    assert earliest_time_after_change(col, np.array([0.0])) is None
