@@ -6,6 +6,7 @@ of runs streamed to disk as the borings grow.
     python benchmarks/bench_site.py                  # about 15 minutes on 2 cores
     python benchmarks/bench_site.py --borings 64 --realizations 32
     python benchmarks/bench_site.py --memory 1000 10000 20000 --no-dask --no-previous
+    python benchmarks/bench_site.py --phases            # where a run's time goes
 
 The site is the invented demo yard (data/site-demo/site.toml) on a regular 10 m grid of
 borings, each with a FIVE-layer log (made ground, silty sand, clay, silty sand, clay)
@@ -256,6 +257,64 @@ def measure_memory(n: int, chunk: int, work: Path) -> dict:
 
 
 # --------------------------------------------------------------------------- main
+#: Steps of a site run timed by --phases (module, function, what it is); indented steps
+#: run inside the ones above them, so their times overlap.
+PHASES = (
+    ("transport.site.chunks", "solve_boring", "a boring's deterministic column"),
+    ("transport.site.chunks", "shared_modes", "a boring's realizations: shared eigen-solve"),
+    ("transport.site.chunks", "realization_metrics", "a Monte Carlo realization (the rest)"),
+    ("transport.site.boring", "site_series", "  series set-up"),
+    ("transport.site.boring", "modal_scan", "  modal scan and rounding bound"),
+    ("transport.site.boring", "curve_metrics", "  receptor curve: scan and polish"),
+    ("transport.site.boring", "verified_metrics", "  Laplace check of breakthrough, peak"),
+    ("transport.site.boring", "laplace_concentration", "  Laplace engine, receptor curves"),
+    ("transport.site.boring", "solve_laplace", "  Laplace engine, fields and curves"),
+    ("transport.plot.site_map", "plot_site_map", "the site map (drawn after the chunks)"),
+)
+
+
+def phases(site, out, realizations, chunk):
+    """Where the time of one site run in this process goes: each step of
+    :data:`PHASES` timed with time.perf_counter around every call (a profiler would
+    inflate the many small calls of these steps several times over)."""
+    import importlib
+
+    totals, calls, saved = {}, {}, []
+    for module, name, _ in PHASES:
+        mod = importlib.import_module(module)
+        if not hasattr(mod, name):
+            continue
+        fn = getattr(mod, name)
+
+        def timed(*a, _fn=fn, _key=(module, name), **k):
+            start = time.perf_counter()
+            try:
+                return _fn(*a, **k)
+            finally:
+                totals[_key] = totals.get(_key, 0.0) + time.perf_counter() - start
+                calls[_key] = calls.get(_key, 0) + 1
+        saved.append((mod, name, fn))
+        setattr(mod, name, timed)
+    try:
+        clear_caches()
+        start = time.perf_counter()
+        from transport.site.run import run_site
+
+        run_site(site, out, realizations=realizations, seed=SEED,
+                 sampling="latin-hypercube", workers=1, chunk_size=chunk)
+        wall = time.perf_counter() - start
+    finally:
+        for mod, name, fn in saved:
+            setattr(mod, name, fn)
+    print(f"where the time goes (one process, {wall:.2f} s wall, steps timed around each "
+          "call):")
+    for module, name, label in PHASES:
+        key = (module, name)
+        if key in calls:
+            print(f"  {label:44s} {calls[key]:6d} calls {1e3 * totals[key] / calls[key]:8.3f} "
+                  f"ms each {totals[key]:7.3f} s {totals[key] / wall:5.0%}")
+
+
 def _row(label, results, columns):
     """One configuration: rate (column solves per wall second), wall and CPU ms per
     column solve, for the current and the previous implementation, and the speed-up."""
@@ -286,6 +345,8 @@ def main():
     parser.add_argument("--no-dask", action="store_true")
     parser.add_argument("--no-previous", action="store_true",
                         help="skip the previous implementation")
+    parser.add_argument("--phases", action="store_true",
+                        help="only time the steps of one run in this process")
     parser.add_argument("--memory-child", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--work", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
@@ -296,7 +357,7 @@ def main():
     work = Path(tempfile.mkdtemp(prefix="bench-site-"))
     chunk, nw, real = args.chunk_size, args.workers, args.realizations
     impls = _implementations()
-    if args.no_previous:
+    if args.no_previous or args.phases:
         impls.pop("previous")
     try:
         site = make_site(work, args.borings, distinct=distinct)
@@ -313,6 +374,9 @@ def main():
             t_cold, _ = timed_run(run, clear, small, warm / name, 2, workers=1)
             print(f"first run in the process ({name}, 4 borings, imports included): "
                   f"{t_cold:.2f} s")
+        if args.phases:
+            phases(site, work / "phases", real, chunk)
+            return
         results = {}
         labels = {"one": "1 process", "local": f"{nw} local processes",
                   "dask": f"{nw}-worker command-line Dask cluster"}
