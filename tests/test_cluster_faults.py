@@ -234,9 +234,28 @@ def _same_numbers(a, b):
 
 
 def _site_command(path, out, *options):
+    # faulthandler on: a run that outlives its test's limit is stopped with SIGABRT,
+    # which prints every thread's stack (see _finish)
     return subprocess.Popen(["stratiflux", "site", str(path), "-o", str(out),
                              "--chunk-size", "1", *options],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            env=dict(os.environ, PYTHONFAULTHANDLER="1"))
+
+
+def _finish(run, timeout):
+    """(stdout, stderr) of a finished run; a run still going after ``timeout`` seconds
+    fails the test with the stacks of all its threads (where it hangs)."""
+    try:
+        return run.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        run.send_signal(signal.SIGABRT)
+        try:
+            _, err = run.communicate(timeout=30)
+        except subprocess.TimeoutExpired:
+            run.kill()
+            _, err = run.communicate()
+        pytest.fail(f"the site run did not end within {timeout} s; its threads:\n"
+                    f"{(err or '')[-6000:]}")
 
 
 def _kill_after_first_chunk(run, out, victims, limit=120):
@@ -269,12 +288,12 @@ def test_worker_killed_mid_run_completes_or_resumes_identically(tmp_path, fault_
         run = _site_command(path, out, "--scheduler", address, "--worker-wait", "20")
         stored = _kill_after_first_chunk(run, out, procs[1:2])
         assert stored < FAULT_BORINGS  # the kill came mid-run
-        _, err = run.communicate(timeout=180)
+        _, err = _finish(run, 180)
         if run.returncode != 0:
             assert run.returncode == 2 and "Traceback" not in err
             assert _said(err, "run the same command again"), err
             again = _site_command(path, out)
-            _, err = again.communicate(timeout=180)
+            _, err = _finish(again, 180)
             assert again.returncode == 0, err
             assert "Resumed" in err
         assert "Traceback" not in err
@@ -300,14 +319,14 @@ def test_cluster_without_workers_stops_and_resumes_locally(tmp_path, fault_refer
         run = _site_command(path, out, "--scheduler", address, "--worker-wait", "3")
         _kill_after_first_chunk(run, out, procs[1:])
         t_kill = time.monotonic()
-        _, err = run.communicate(timeout=120)
+        _, err = _finish(run, 120)
         assert run.returncode == 2, err
         assert time.monotonic() - t_kill < 60
         assert "Traceback" not in err
         assert _said(err, "no Dask worker has been connected", "run the same command"), err
         assert not (out / "site.nc").exists() and (out / "site.nc.progress.json").exists()
         again = _site_command(path, out, "--workers", "1")
-        _, err = again.communicate(timeout=180)
+        _, err = _finish(again, 180)
         assert again.returncode == 0, err
         assert "Resumed" in err
         _same_numbers(out / "site.nc", reference)
