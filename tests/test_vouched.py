@@ -122,6 +122,34 @@ def test_bounds_follow_the_physics_of_each_end():
     assert b.hi == 3.0 and b.lo == 0.0
 
 
+def test_lower_bound_zero_holds_where_water_leaves_through_a_held_flux_end():
+    """Upward flow out of a sealed top piles solute up under it (no upper bound), but C
+    stays >= 0: the negative part of C cannot grow when no end withdraws solute at a
+    prescribed rate (Evans 2010, PDE, sec. 7.1, energy method; here in L1).  An inlet
+    that water leaves through holds F = q C_in < 0: it withdraws solute at a fixed rate
+    and C goes negative, so no lower bound is claimed.  Both against the independent
+    mpmath Laplace solution (tests/reference.py)."""
+    up = _two_layers(-0.5, top=Boundary("sealed"), bottom=Boundary("concentration", 0.01))
+    b = concentration_bounds(up, None, YEAR)
+    assert b.lo == 0.0 and b.hi is None and b.lo_needs_nonnegative_start
+    t = np.array([0.05, 1.0, 10.0]) * YEAR
+    z = np.linspace(0.0, 1.5, 16)
+    ref = laplace_reference_full(up, z, t, None, dps=20)
+    assert ref.concentration.min() >= -1e-15 * ref.concentration.max()
+    assert ref.concentration[-1, 0] > 0.01  # piled up above the bottom value
+    sol = solve_column(up, t, z)
+    assert sol.reliable.all() and sol.concentration.min() >= 0.0
+    _check_against_reference(sol, up, t, z, 1e-8)
+
+    drawn = _two_layers(-0.5, top=Boundary("inlet", 0.01),
+                        bottom=Boundary("concentration", 0.0))
+    assert concentration_bounds(drawn, None, YEAR).lo is None
+    ref = laplace_reference_full(drawn, z, t[1:], None, dps=20)
+    assert ref.concentration.min() < -1e-4  # withdrawn below zero: a bound would be false
+    negative = InitialState.uniform([-0.01, 0.0])
+    assert concentration_bounds(up, negative, YEAR).lo is None
+
+
 def test_refusal_names_what_each_engine_failed_when_no_single_engine_vouches():
     """Each quantity vouched for by some engine, but no engine for all of them: the
     message must say which engine failed which quantity (it once said "()")."""

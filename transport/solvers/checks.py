@@ -76,6 +76,9 @@ class Bounds:
     lo: float | None
     hi: float | None
     kappa: np.ndarray
+    #: ``lo`` (then 0) rests on positivity alone: it holds only while the state a stage
+    #: starts from is >= 0 (see :func:`concentration_bounds`)
+    lo_needs_nonnegative_start: bool = False
 
     @property
     def scale(self) -> float | None:
@@ -106,11 +109,22 @@ def _kappa(column) -> np.ndarray:
 
 
 def concentration_bounds(column, initial, t_end: float) -> Bounds:
-    """Bounds of u = C / kappa over [0, t_end] from the inputs (maximum principle)."""
+    """Bounds of u = C / kappa over [0, t_end] from the inputs.
+
+    Where water enters or stands still at both ends, the maximum principle bounds u by
+    the range of its data.  Where water leaves through an end that holds the solute's
+    total flux (sealed, flux, an inlet, or a slow mass transfer), mass piles up and
+    there is no upper bound; the lower bound 0 still holds when every datum is >= 0 and
+    no end withdraws solute at a prescribed rate (positivity: the negative part
+    N = int R max(-C, 0) dz cannot grow, since at its edges F = -theta D dC/dz points out
+    of it and at an end the flux into the column is >= 0; Evans 2010, sec. 7.1, the
+    energy method, here in L1).
+    """
     kappa = _kappa(column)
     q = column.darcy_flux
     vals = [0.0]
     lo_ok = hi_ok = True
+    positivity_only = False  # the lower bound 0 holds by positivity, not from the data
     if initial is not None and getattr(initial, "kind", "clean") != "clean":
         if initial.kind == "uniform":
             vals += list(np.asarray(initial.values, float) / kappa[:len(initial.values)])
@@ -133,15 +147,22 @@ def concentration_bounds(column, initial, t_end: float) -> Bounds:
             vals += [bc.value / kap]
         elif bc.kind == "inlet":
             if q == 0 or not inward:
-                lo_ok = hi_ok = False  # water leaves through an inlet: no bound
+                # water leaves through an inlet: F = q C_in is held, mass piles up (no
+                # upper bound); a C_in > 0 withdraws solute at a fixed rate (no lower)
+                hi_ok = False
+                positivity_only = True
+                if hi_v > 0 and q != 0:
+                    lo_ok = False
             vals += [lo_v / kap, hi_v / kap]
         elif bc.kind == "mass-transfer":
             if not inward and bc.transfer_coefficient < abs(q):
-                lo_ok = hi_ok = False  # outflow faster than the transfer: mass piles up
+                hi_ok = False  # outflow faster than the transfer: mass piles up
+                positivity_only = True  # F = h (C_ext - C) >= 0 wherever C < 0
             vals += [lo_v / kap, hi_v / kap]
         elif bc.kind in ("flux", "sealed"):
             if not inward and q != 0:
-                lo_ok = hi_ok = False  # water leaves, the total flux is held: mass piles up
+                hi_ok = False  # water leaves, the total flux is held: mass piles up
+                positivity_only = True
             if bc.kind == "flux":
                 # top: value enters downward; bottom: value leaves downward
                 into = (lo_v, hi_v) if end == "top" else (-hi_v, -lo_v)
@@ -157,7 +178,11 @@ def concentration_bounds(column, initial, t_end: float) -> Bounds:
                 hi_ok = False
             if min(rates) < 0:
                 lo_ok = False
-    return Bounds(min(vals) if lo_ok else None, max(vals) if hi_ok else None, kappa)
+    lo = min(vals)
+    if positivity_only and lo < 0:
+        lo_ok = False  # a negative datum: positivity says nothing
+    return Bounds(lo if lo_ok else None, max(vals) if hi_ok else None, kappa,
+                  lo_needs_nonnegative_start=lo_ok and positivity_only)
 
 
 def bound_violation(column, bounds: Bounds, depths, conc) -> np.ndarray:

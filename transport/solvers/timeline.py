@@ -225,6 +225,9 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
     if all(np.all(b.kappa == 1.0) for b in stage_bounds):
         lo = [b.lo for b in stage_bounds]
         hi = [b.hi for b in stage_bounds]
+        if None not in lo and min(lo) < 0 and any(b.lo_needs_nonnegative_start
+                                                   for b in stage_bounds):
+            lo = [None]  # a stage's lower bound 0 needs a start >= 0, not assured here
         bounds = Bounds(None if None in lo else min(lo), None if None in hi else max(hi),
                         np.ones(len(timeline.stages[0].column.layers)))
     cands, series, modal_sol = [], None, None
