@@ -70,7 +70,7 @@ def signals_for(group, s, nseg, with_initial):
 
 def solve_laplace(column: Column, times, depths, *, initial: InitialState = None,
                   tolerance: float = None, semi_infinite_bottom: bool = False,
-                  nodes: int = None, enough: dict = None) -> Solution:
+                  nodes: int = None, enough: dict = None, compiled: bool = False) -> Solution:
     """Solve the layered column at ``times`` (s) and ``depths`` (m) in the Laplace domain.
 
     Parameters
@@ -94,6 +94,9 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
         any subset): a time whose estimates are all within them is not inverted again
         on another contour (:func:`transport.solvers.laplace.inversion.invert_best`);
         saves work only, every value keeps its own estimate
+    compiled : evaluate the transforms with the compiled transfer
+        (:mod:`transport.solvers.laplace.kernel`) where it is available: the same
+        numbers to rounding, faster on small batches (a site run's many columns)
 
     Returns
     -------
@@ -107,13 +110,13 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
     """
     initial = initial if initial is not None else InitialState.clean()
     model, times, depths, out, est = _inverted(column, times, depths, initial,
-                                               semi_infinite_bottom, nodes, enough)
+                                               semi_infinite_bottom, nodes, enough, compiled)
     return laplace_solution(column, model, initial, times, depths, out, est,
                             semi_infinite_bottom)
 
 
 def laplace_concentration(column: Column, times, depths, *, initial: InitialState = None,
-                          enough: dict = None):
+                          enough: dict = None, compiled: bool = False):
     """The concentration of :func:`solve_laplace` and its error estimate alone:
     ``(concentration (nt, nz), error (nt,))``, the same numbers as its ``concentration``
     and ``error["concentration"]`` (the same inversion, with the same contours chosen
@@ -121,11 +124,12 @@ def laplace_concentration(column: Column, times, depths, *, initial: InitialStat
     one depth (a Monte Carlo realization's receptor)."""
     initial = initial if initial is not None else InitialState.clean()
     model, times, depths, out, est = _inverted(column, times, depths, initial, False, None,
-                                               enough)
+                                               enough, compiled)
     return _concentration(column, model, initial, times, depths, out, est)
 
 
-def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enough):
+def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enough,
+              compiled=False):
     """The inverted outputs of :func:`solve_laplace` and their estimates: (model,
     times, depths, out, est), out and est (nt, 3 nz + 4) as :func:`laplace_solution`
     takes them."""
@@ -134,7 +138,7 @@ def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enoug
     if callable(initial) or not isinstance(initial, (InitialState, PiecewiseCubic)):
         raise InputError("the Laplace engine takes an InitialState (clean, uniform or "
                          "profile); project other initial fields onto a profile first")
-    model = LaplaceTransfer(column, initial, semi_infinite_bottom)
+    model = LaplaceTransfer(column, initial, semi_infinite_bottom, compiled)
     g = model.seg
     seg_layer = np.clip(np.searchsorted(column.interfaces, g["top"], side="right") - 1, 0,
                         len(column.layers) - 1)
@@ -156,13 +160,12 @@ def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enoug
             continue
 
         def transform(s, group=group, first=(t0 == 0.0)):
-            coef = model.solve(s, signals_for(group, s, model.n, first))
-            C, F = model.fields(coef, np.concatenate([depths, ends]))
-            st = model.stored(coef)  # (nseg, ns)
-            decayed = (g["mu"][:, None] * st).sum(axis=0) / s
+            C, F, st, capped = model.evaluate(s, signals_for(group, s, model.n, first),
+                                              np.concatenate([depths, ends]))
+            decayed = (g["mu"][:, None] * st).sum(axis=0) / s  # st: (nseg, ns)
             return np.concatenate([C[:, :nz], F[:, :nz], F / s[:, None],
                                    st.sum(axis=0)[:, None], decayed[:, None]],
-                                  axis=1), model.capped.copy()
+                                  axis=1), capped
 
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             f, e = invert_best(transform, tau[on], n_nodes, s0, parts, floors)

@@ -35,6 +35,7 @@ import numpy as np
 from scipy.linalg.lapack import zgbsv
 
 from transport.model.column import Column, InitialState, InputError
+from transport.solvers.laplace import kernel
 
 __all__ = ["PiecewiseCubic", "LaplaceTransfer", "initial_values", "RESONANT"]
 
@@ -175,12 +176,29 @@ def _solve_banded(ab, rhs):
 class LaplaceTransfer:
     """Exact Laplace-domain solution of the layered column for a batch of s values."""
 
-    def __init__(self, column: Column, initial: InitialState, semi_infinite: bool = False):
+    def __init__(self, column: Column, initial: InitialState, semi_infinite: bool = False,
+                 compiled: bool = False):
         self.column = column
         self.q = float(column.darcy_flux)
         self.seg = _segments(column, initial)
         self.semi = bool(semi_infinite)
         self.n = self.seg["l"].size
+        # the compiled transfer (kernel.py) serves evaluate() where it covers the case:
+        # an initial state linear on each segment (a decay chain's forcing is not passed
+        # to evaluate)
+        self.compiled = (compiled and not np.any(self.seg["a2"]) and not np.any(self.seg["a3"])
+                         and kernel.available())
+
+    def evaluate(self, s, signals, depths):
+        """C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment (nseg,
+        ns) and the capped flags (ns,) for s (ns,): :meth:`solve`, :meth:`fields` and
+        :meth:`stored` in one, compiled where the transfer was built with
+        ``compiled`` and the case allows (the same numbers to rounding)."""
+        if not self.compiled:
+            coef = self.solve(s, signals)
+            C, F = self.fields(coef, depths)
+            return C, F, self.stored(coef), self.capped.copy()
+        return kernel.evaluate(self, s, signals, depths)
 
     def solve(self, s, signals, forcing=None):
         """Per-segment roots, anchors, particular parts and coefficients for s (ns,).

@@ -1,0 +1,124 @@
+"""The Laplace-domain transfer of :class:`~transport.solvers.laplace.transfer.LaplaceTransfer`
+compiled to machine code (numba): one loop over the s values, per s the roots and
+anchors of every segment, the banded system, its LU with partial pivoting, the fields
+at the asked depths and the stored mass per segment.
+
+The same equations as the array code of transfer.py, in the same order, for the cases
+the site's Monte Carlo columns need (an initial state linear on each segment, layer
+sources, every boundary kind, a semi-infinite bottom); a decay chain's forcing and a
+piecewise-cubic carried state take the array code.  The numbers agree with the array
+code to rounding (the LU is LAPACK's unblocked gbtf2/gbtrs algorithm written out, with
+its pivot choice |re| + |im|; the elementary functions are those of LLVM's math library
+instead of numpy's), checked on the regime-matrix columns and more in
+tests/test_laplace_kernel.py.
+
+It serves the many small transforms of a site run, where the array code spends most of
+its time in numpy's per-call overhead on arrays of a few dozen s values (measured: 8x
+on a five-layer column's 52 values).  numba is imported the first time it is asked for
+(0.2-0.3 s, never in a single-column run); its compiled code is kept in numba's on-disk
+cache (beside this file; NUMBA_CACHE_DIR moves it), so only the first run on a machine
+compiles it (about 3 s).  ``STRATIFLUX_JIT=0`` in the environment, or numba failing to
+import or to compile, leaves every transform to the array code.
+"""
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+__all__ = ["available", "evaluate", "END_CODES"]
+
+#: boundary row kinds: 0 C = target, 1 F = target, 2 dC/dz = target, 3 F + h C = target
+#: (an unknown kind raises KeyError; model.Boundary validates kinds)
+END_CODES = {"concentration": 0, "flux": 1, "inlet": 1, "sealed": 1, "free-outflow": 2,
+             "mass-transfer": 3, "source-zone": 3}
+
+_STATE = {}
+
+
+def available() -> bool:
+    """True when the compiled transfer can be used (numba imports, not switched off)."""
+    if "kernel" not in _STATE:
+        _STATE["kernel"] = None
+        if os.environ.get("STRATIFLUX_JIT", "1").strip() not in ("0", "no", "off", "false"):
+            try:
+                from transport.solvers.laplace._compiled import transfer
+
+                _warm(transfer)
+                _STATE["kernel"] = transfer
+            except Exception:  # noqa: BLE001 - numba missing, broken or unable to
+                _STATE["kernel"] = None  # compile here: the array code serves
+    return _STATE["kernel"] is not None
+
+
+def evaluate(model, s, signals, depths):
+    """:meth:`~transport.solvers.laplace.transfer.LaplaceTransfer.evaluate`, compiled: C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment
+    (nseg, ns) and capped (ns,) bool (an exponent cut at 600, a singular system or
+    non-finite coefficients: those s carry no value)."""
+    s = np.asarray(s, dtype=complex)
+    top_hat, bot_hat, src_hat, with_initial = signals
+    g, ns, n, q = model.seg, s.size, model.n, model.q
+    # each boundary row as F + h C, C, F or dC/dz = target (transfer.LaplaceTransfer._boundary)
+    kinds = np.zeros(2, np.int64)
+    h = np.zeros((2, ns), complex)
+    target = np.zeros((2, ns), complex)
+    for end, val in ((0, top_hat), (1, bot_hat)):
+        bc = model.column.top if end == 0 else model.column.bottom
+        kinds[end] = END_CODES[bc.kind]
+        sign = 1.0 if end == 0 else -1.0
+        if bc.kind == "concentration":
+            target[end] = val
+        elif bc.kind in ("flux", "inlet", "sealed"):
+            target[end] = {"flux": val, "inlet": q * val, "sealed": 0.0 * val}[bc.kind]
+        elif bc.kind == "free-outflow":
+            target[end] = 0 * val
+        elif bc.kind == "mass-transfer":
+            h[end] = sign * bc.transfer_coefficient
+            target[end] = sign * bc.transfer_coefficient * val
+        else:  # source-zone: F +/- (Gamma (s + lambda) + q_out) C = +/- Gamma C_s(0)
+            h[end] = sign * (bc.capacity * (s + bc.decay_rate)
+                             + bc.zone_outflow(q, "top" if end == 0 else "bottom"))
+            target[end] = sign * bc.capacity * bc.value * with_initial
+    a0 = np.broadcast_to((g["a"] * with_initial)[:, None], (n, ns))
+    b0 = np.broadcast_to((g["b"] * with_initial)[:, None], (n, ns))
+    src = np.broadcast_to(np.asarray(src_hat, complex), (n, ns))
+    idx, zeta = model.locate(depths)
+    C = np.empty((ns, idx.size), np.complex128)
+    F = np.empty((ns, idx.size), np.complex128)
+    st = np.empty((n, ns), np.complex128)
+    capped = np.zeros(ns, np.bool_)
+    f = _arg
+    _STATE["kernel"](f(s, np.complex128), f(g["k"], float), f(g["c"], float),
+                     f(g["mu"], float), f(g["l"], float), f(g["K"], float), f(a0, np.complex128),
+                     f(b0, np.complex128), f(src, np.complex128), float(q),
+                     bool(model.semi), bool(_last_clean(g)), kinds, h, target,
+                     f(idx, np.int64), f(zeta, float), C, F, st, capped)
+    return C, F, st, capped
+
+
+def _arg(x, dtype):
+    """x as a C-contiguous, writable array of dtype: the one argument type the kernel is
+    compiled for (a read-only or strided array would compile another)."""
+    return np.require(x, dtype, ["C", "W"])
+
+
+def _warm(transfer):
+    """Compile (or load from numba's cache) and run the kernel once on a one-layer
+    column with the argument types evaluate() passes: a failure shows here, where the
+    array code can still take over, and a site run's parent does this before it starts
+    its worker processes (they inherit the compiled code)."""
+    one, c1 = np.ones(1), np.ones((1, 1), np.complex128)
+    C, F, st = (np.empty((1, 1), np.complex128) for _ in range(3))
+    capped = np.zeros(1, np.bool_)
+    transfer(np.array([1.0 + 1.0j]), one, one, 0 * one, one, one, 0 * c1, 0 * c1, 0 * c1,
+             0.0, False, True, np.array([0, 2], np.int64), np.zeros((2, 1), np.complex128),
+             np.ones((2, 1), np.complex128), np.zeros(1, np.int64), 0.5 * one, C, F, st,
+             capped)
+    if not (np.isfinite(C).all() and not capped.any()):
+        raise RuntimeError("the compiled Laplace transfer gave no value on its check column")
+
+
+def _last_clean(seg) -> bool:
+    """A semi-infinite last segment holds no initial mass and no source (as
+    LaplaceTransfer.stored: else its stored mass is infinite, NaN)."""
+    return seg["a"][-1] == 0 and seg["b"][-1] == 0 and seg["sigma"][-1] == 0
