@@ -328,7 +328,7 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     t_all = np.append(times, t_end)
     bounds = concentration_bounds(col, initial, float(t_all.max()))
     enough = good_enough(col, bounds.scale, tol)
-    lap = solve_laplace(col, t_all, z, initial=initial, enough=enough)
+    lap = solve_laplace(col, t_all, z, initial=initial, enough=enough, compiled=True)
     lq = quantities(lap)
     le = own_errors(lap)
     # the last row of cum is the design life at every depth; C there is not asked for
@@ -356,8 +356,8 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
 
     def laplace_at(t):
         t = np.atleast_1d(np.asarray(t, float))
-        return solve_laplace(col, t, [depth], initial=initial,
-                             enough=enough).concentration[:, 0]
+        return solve_laplace(col, t, [depth], initial=initial, enough=enough,
+                             compiled=True).concentration[:, 0]
     # the receptor curve, as solve_column's (transport.solvers.engines.modal_evaluator):
     # the modal series from the first output time after which it agreed with the Laplace
     # engine AT THE RECEPTOR DEPTH at every output time, within the tolerance and the
@@ -386,7 +386,7 @@ def _laplace_curve(col, depth, initial, enough):
     receptor; its concentration alone, :func:`laplace_concentration`)."""
     def laplace_at(t):
         return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
-                                     enough=enough)[0][:, 0]
+                                     enough=enough, compiled=True)[0][:, 0]
     return laplace_at
 
 
@@ -402,7 +402,8 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     if not probe_t:
         return bt, pk
     enough = good_enough(col, scale, tol)
-    c, e = laplace_concentration(col, probe_t, [depth], initial=initial, enough=enough)
+    c, e = laplace_concentration(col, probe_t, [depth], initial=initial, enough=enough,
+                                 compiled=True)
     c = c[:, 0]
     want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
     with np.errstate(invalid="ignore"):
@@ -412,7 +413,8 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     bt2, pk2_t, pk2 = curve_metrics(_laplace_curve(col, depth, initial, enough), t_start, t_end, level, SCAN_SAMPLES)
     at = [t for t in (bt2, pk2_t) if np.isfinite(t) and t > 0]
     if at:
-        err = laplace_concentration(col, at, [depth], initial=initial, enough=enough)[1]
+        err = laplace_concentration(col, at, [depth], initial=initial, enough=enough,
+                                    compiled=True)[1]
         with np.errstate(invalid="ignore"):
             vouched = np.all(err <= tol * scale)
         if not vouched:
