@@ -362,20 +362,73 @@ def _regime_columns():
 
 
 @pytest.mark.parametrize("name", list(_regime_columns()))
-def test_concentration_alone_equals_the_full_solution(name):
-    """laplace_concentration (the receptor curve of a Monte Carlo realization) gives the
-    concentration and its error estimate of solve_laplace exactly, at t = 0, early, late
-    and lone times, in every regime above; and (outside reference) the values agree with
+def test_concentration_alone_agrees_with_the_full_solution(name):
+    """laplace_concentration (the receptor curve of a Monte Carlo realization) chooses
+    its contours by the concentration's own estimates: where solve_laplace inverted a
+    time again for the sake of another quantity the two values differ, each within its
+    own estimate; elsewhere they are the same numbers (to 1e-12 relative: the contour
+    sums are matrix products of another width, rounded differently).  At t = 0, early,
+    late and lone times, in every regime above; and (outside reference) the values agree with
     the mpmath solution of tests/reference.py (Talbot 1979 rule, Abate & Valko 2004)
     within the engine's own estimate plus 1e-12 of the scale."""
+    from transport.solvers.laplace import inversion
     from transport.solvers.laplace.engine import laplace_concentration
     col, init = _regime_columns()[name]
     z = np.array([0.3, 0.8, 1.7])
+    real = inversion._unsettled
     for t in (np.array([0.0, 0.05, 0.4, 2.0, 7.0, 30.0]) * YEAR, np.array([5.0]) * YEAR):
-        full = solve_laplace(col, t, z, initial=init)
+        retried = []
+
+        def spy(f, err, groups, floors, level):  # which times the full solution redoes
+            out = real(f, err, groups, floors, level)
+            if len(groups) > 1:
+                retried.append(out & ~real(f, err, groups[:1], floors[:1], level))
+            return out
+        inversion._unsettled = spy
+        try:
+            full = solve_laplace(col, t, z, initial=init)
+        finally:
+            inversion._unsettled = real
         conc, err = laplace_concentration(col, t, z, initial=init)
-        np.testing.assert_array_equal(conc, full.concentration)
-        np.testing.assert_array_equal(err, full.error["concentration"])
+        # times inverted again for another quantity alone (per switch-on component, on
+        # the times after its switch-on: compared where no component did so)
+        other = np.zeros(t.size, bool)
+        for r in retried:
+            other[t.size - r.size:] |= r
+        same = ~other  # the same contours: equal but for the matrix products' rounding
+        np.testing.assert_allclose(conc[same], full.concentration[same], rtol=1e-12, atol=0)
+        np.testing.assert_allclose(err[same], full.error["concentration"][same], rtol=1e-12,
+                                   atol=0)
+        fe = full.error["concentration"]
+        assert np.all(np.abs(conc - full.concentration) <= (err + fe)[:, None] + 1e-12)
+    ref = laplace_reference(col, z, t, initial=init, dps=20)
+    assert np.all(np.abs(conc - ref) <= err[:, None] + 1e-12)
+
+
+def test_concentration_alone_is_not_inverted_again_for_other_quantities(monkeypatch):
+    """A Monte Carlo check of a breakthrough and a peak at Peclet 100: solve_laplace
+    inverts the first time again on a parabola because the budget's estimate (4e-8 kg
+    m-2) is above its floor; the concentration alone (estimate 1e-12) is not, so
+    laplace_concentration evaluates the transform at fewer s values (measured: 130
+    against 357), and its value is within its own estimate of the mpmath reference."""
+    from transport.solvers.checks import concentration_bounds, good_enough
+    from transport.solvers.laplace import transfer
+    from transport.solvers.laplace.engine import laplace_concentration
+    col, init = _regime_columns()["pe100"]
+    t, z = np.array([3.0, 9.0]) * YEAR, np.array([1.0])
+    enough = good_enough(col, concentration_bounds(col, init, 100 * YEAR).scale, 1e-8)
+    count = []
+    real = transfer.LaplaceTransfer.evaluate
+
+    def counted(self, s, signals, depths):
+        count.append(np.size(s))
+        return real(self, s, signals, depths)
+    monkeypatch.setattr(transfer.LaplaceTransfer, "evaluate", counted)
+    solve_laplace(col, t, z, initial=init, enough=enough)
+    full, count[:] = sum(count), []
+    conc, err = laplace_concentration(col, t, z, initial=init, enough=enough)
+    assert sum(count) < full
+    assert np.all(err <= enough["concentration"])
     ref = laplace_reference(col, z, t, initial=init, dps=20)
     assert np.all(np.abs(conc - ref) <= err[:, None] + 1e-12)
 

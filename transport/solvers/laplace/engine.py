@@ -117,22 +117,24 @@ def solve_laplace(column: Column, times, depths, *, initial: InitialState = None
 
 def laplace_concentration(column: Column, times, depths, *, initial: InitialState = None,
                           enough: dict = None, compiled: bool = False):
-    """The concentration of :func:`solve_laplace` and its error estimate alone:
-    ``(concentration (nt, nz), error (nt,))``, the same numbers as its ``concentration``
-    and ``error["concentration"]`` (the same inversion, with the same contours chosen
-    for every quantity), without the other outputs and the budget.  For a curve read at
-    one depth (a Monte Carlo realization's receptor)."""
+    """The concentration and its error estimate alone: ``(concentration (nt, nz),
+    error (nt,))``.  The same inversion as :func:`solve_laplace`, but its contours are
+    chosen by the concentration's own estimates (the fluxes, masses and budget are not
+    computed), so a time that solve_laplace inverts again for the sake of another
+    quantity keeps its first value here; each value keeps its own estimate.  For a
+    curve read at one depth (a Monte Carlo realization's receptor)."""
     initial = initial if initial is not None else InitialState.clean()
     model, times, depths, out, est = _inverted(column, times, depths, initial, False, None,
-                                               enough, compiled)
+                                               enough, compiled, concentration_only=True)
     return _concentration(column, model, initial, times, depths, out, est)
 
 
 def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enough,
-              compiled=False):
+              compiled=False, concentration_only=False):
     """The inverted outputs of :func:`solve_laplace` and their estimates: (model,
     times, depths, out, est), out and est (nt, 3 nz + 4) as :func:`laplace_solution`
-    takes them."""
+    takes them; with ``concentration_only`` (nt, nz), the concentration alone, its
+    contours chosen by its own estimates."""
     n_nodes = default_nodes(column) if nodes is None else int(nodes)
     times, depths = check_output_grid(column, times, depths, semi_infinite_bottom)
     if callable(initial) or not isinstance(initial, (InitialState, PiecewiseCubic)):
@@ -144,15 +146,16 @@ def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enoug
                         len(column.layers) - 1)
     nz, nt = depths.size, times.size
     ends = np.array([0.0, column.length])
-    out = np.zeros((nt, 3 * nz + 4))
-    est = np.zeros((nt, 3 * nz + 4))
+    width = nz if concentration_only else 3 * nz + 4
+    out = np.zeros((nt, width))
+    est = np.zeros((nt, width))
     parts = (np.arange(nz), np.arange(nz, 2 * nz), np.arange(2 * nz, 3 * nz),
-             np.arange(3 * nz, 3 * nz + 4))
+             np.arange(3 * nz, 3 * nz + 4))[:1 if concentration_only else 4]
     # growth parabola of the advective branch (widest over the layers); 0 without flow
     s0 = float(np.max(model.q ** 2 / (4 * g["k"] * g["c"])))
     enough = enough or {}
     floors = [float(enough.get(q, 0.0)) for q in ("concentration", "total_flux",
-                                                  "cumulative_mass", "budget")]
+                                                  "cumulative_mass", "budget")][:len(parts)]
     for t0, group in sorted(signal_components(column, seg_layer).items()):
         tau = times - t0
         on = tau > 0
@@ -160,6 +163,10 @@ def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enoug
             continue
 
         def transform(s, group=group, first=(t0 == 0.0)):
+            if concentration_only:
+                C, _, _, capped = model.evaluate(s, signals_for(group, s, model.n, first),
+                                                 depths)
+                return C, capped
             C, F, st, capped = model.evaluate(s, signals_for(group, s, model.n, first),
                                               np.concatenate([depths, ends]))
             decayed = (g["mu"][:, None] * st).sum(axis=0) / s  # st: (nseg, ns)
