@@ -573,7 +573,7 @@ def test_damaged_sidecar_starts_afresh(site_reference, tmp_path):
 
 # --------------------------------------------------------------------- SIGKILL and resume
 N_KILL_BORINGS = 24
-KILL_MC = dict(realizations=360, seed=3)  # a run of several block flushes (BLOCK_SECONDS)
+KILL_MC = dict(realizations=480, seed=3)  # a run of several block flushes (BLOCK_SECONDS)
 
 
 def kill_site(folder: Path) -> Path:
