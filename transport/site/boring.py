@@ -36,6 +36,7 @@ from transport.solvers.laplace.engine import laplace_concentration
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
                                             earliest_time_after_change)
+from transport.solvers.result import checked_arithmetic
 
 __all__ = ["SCAN_SAMPLES", "MAX_MODES", "TIME_RTOL", "site_series", "receptor_metrics",
            "curve_metrics", "solve_boring", "window_views", "views_metrics", "checked_fields",
@@ -192,6 +193,7 @@ def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: 
     return m + (float(probe.cumulative_mass(np.array([t_end]))[0, 0]),)
 
 
+@checked_arithmetic
 def solve_boring(site, col, depth, times, grid, initial=None):
     """Fields on the grid (cut at the bottom), metrics and warnings of one column:
     the numbers of :func:`transport.solvers.modal.series.solve` on the same column and depths.
@@ -471,6 +473,7 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
     return t_modal, np.concatenate([early, late])
 
 
+@checked_arithmetic
 def realization_metrics(site, col, depth, t_start, times, initial=None, known=None):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 

@@ -18,7 +18,7 @@ from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError,
 from transport.solvers.engines import checked_fields
 from transport.solvers.laplace.chain import solve_chain_laplace
 from transport.solvers.modal.sizing import DEFAULT_TOLERANCE
-from transport.solvers.result import Solution
+from transport.solvers.result import Solution, checked_arithmetic
 
 __all__ = ["solve_chain"]
 
@@ -35,6 +35,7 @@ def _bounds(chain, initials, t_end):
     return out
 
 
+@checked_arithmetic
 def solve_chain(chain: Chain, times, depths, *, initials=None, tolerance: float = None,
                 on_unreliable: str = "raise") -> tuple:
     """Every species of ``chain`` on the (time, depth) grid, checked.

@@ -37,7 +37,7 @@ from transport.solvers.modal import series as modal
 from transport.solvers.modal.operator import ZONE_NOT_MODAL, build_operator
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.sizing import DEFAULT_TOLERANCE, earliest_time_after_change
-from transport.solvers.result import Solution
+from transport.solvers.result import Solution, checked_arithmetic
 
 __all__ = ["solve_column", "ENGINES", "ON_UNRELIABLE", "modal_evaluator", "checked_fields",
            "DEFAULT_TOLERANCE", "FV_TOLERANCE", "CostEstimate", "estimate_costs",
@@ -234,6 +234,7 @@ def _expand(sol, rows, nt):
     return full_v, full_e, budget
 
 
+@checked_arithmetic
 def solve_column(column: Column, times, depths, *, initial: InitialState = None,
                  tolerance: float = None, engine: str = "auto", max_modes: int = 4000,
                  semi_infinite_bottom: bool = False, cells_per_layer=None,

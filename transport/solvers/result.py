@@ -10,13 +10,29 @@ without modes has ``n_modes = 0`` and no eigenvalues.
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from transport.model.column import Column
 
-__all__ = ["Solution"]
+__all__ = ["Solution", "checked_arithmetic"]
+
+
+def checked_arithmetic(solve):
+    """Run ``solve`` with numpy's floating-point warnings off (overflow, underflow,
+    invalid, divide).  For the checked entry points only (solve_column, the staged and
+    chain runs, a site's columns): there an overflow is an expected, handled event (an
+    exponentially small mode's shot, an exponential far out on a contour), and every
+    returned number has passed the finiteness, bounds and cross-engine checks, or was
+    refused.  Without this a user saw numpy's "Warning: overflow encountered in
+    multiply", which says nothing about the results."""
+    @functools.wraps(solve)
+    def run(*args, **kwargs):
+        with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+            return solve(*args, **kwargs)
+    return run
 
 
 @dataclass(frozen=True)

@@ -29,7 +29,7 @@ from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import build_series
 from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
                                             earliest_time_after_change)
-from transport.solvers.result import Solution
+from transport.solvers.result import Solution, checked_arithmetic
 from transport.solvers.staged import solve_staged_laplace
 from transport.solvers.stages import (EXCAVATION_SOURCE, Stage, Timeline, amend_layer,
                                       clean_boundary, compose_carry, excavate, local_column,
@@ -185,6 +185,7 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
     return TimelineSeries(timeline, tuple(series), tuple(carried))
 
 
+@checked_arithmetic
 def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance=None,
                    engine: str = "auto", max_modes=4000,
                    on_unreliable: str = "raise") -> Solution:
