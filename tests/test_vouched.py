@@ -197,3 +197,24 @@ def test_no_numpy_arithmetic_warning_reaches_the_user(cell):
     assert sol.reliable.all()
     for q in ("concentration", "total_flux", "cumulative_mass"):
         assert np.all(np.isfinite(getattr(sol, q)))
+
+
+def test_an_inlet_without_flow_is_a_sealed_end():
+    """Without flow an inlet holds F = q C_in = 0: a sealed end, so the maximum principle
+    bounds C and its scale is the data's (once no bound was set, the scale fell to the
+    largest output, 5e-6 after 35 years of decay, and a 1e-13 error was refused).  A
+    uniformly contaminated column sealed at both ends only decays: C = C0 e^{-mu t}
+    (first-order decay, exact), here within 1e-12 of C0 (invented layers)."""
+    lay = (Layer(0.1, 0.39, 6.6e-10, 1.0, decay_rate=1e-8),
+           Layer(0.1, 0.43, 2.8e-11, 1.5, decay_rate=1e-8),
+           Layer(1.0, 0.42, 1.9e-11, 20.0, decay_rate=1e-8))
+    col = Column(lay, Boundary("free-outflow"), Boundary("inlet", 1.0), darcy_flux=0.0)
+    init = InitialState.uniform([0.3, 0.3, 0.3])
+    b = concentration_bounds(col, init, YEAR)
+    assert b.lo == 0.0 and b.hi == 1.0
+    t = np.array([34.9, 1743.0]) * YEAR
+    z = np.array([0.0, 0.3, 0.6, 1.2])
+    sol = solve_column(col, t, z, initial=init)
+    assert sol.reliable.all()
+    exact = 0.3 * np.exp(-1e-8 * t)[:, None] * np.ones(z.size)
+    assert np.all(np.abs(sol.concentration - exact) <= 1e-12 * 0.3)

@@ -146,13 +146,14 @@ def concentration_bounds(column, initial, t_end: float) -> Bounds:
             # it never leaves the range of its own start and the column's data
             vals += [bc.value / kap]
         elif bc.kind == "inlet":
-            if q == 0 or not inward:
+            if not inward and q != 0:
                 # water leaves through an inlet: F = q C_in is held, mass piles up (no
                 # upper bound); a C_in > 0 withdraws solute at a fixed rate (no lower)
                 hi_ok = False
                 positivity_only = True
-                if hi_v > 0 and q != 0:
+                if hi_v > 0:
                     lo_ok = False
+            # (without flow F = q C_in = 0: a sealed end, both bounds hold)
             vals += [lo_v / kap, hi_v / kap]
         elif bc.kind == "mass-transfer":
             if not inward and bc.transfer_coefficient < abs(q):
