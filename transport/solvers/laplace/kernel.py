@@ -17,7 +17,7 @@ its time in numpy's per-call overhead on arrays of a few dozen s values (measure
 on a five-layer column's 52 values).  numba is imported the first time it is asked for
 (0.2-0.3 s, never in a single-column run); its compiled code is kept in numba's on-disk
 cache (beside this file; NUMBA_CACHE_DIR moves it), so only the first run on a machine
-compiles it (about 3 s).  ``STRATIFLUX_JIT=0`` in the environment, or numba failing to
+compiles it (about 4 s).  ``STRATIFLUX_JIT=0`` in the environment, or numba failing to
 import or to compile, leaves every transform to the array code.
 """
 from __future__ import annotations
@@ -52,9 +52,10 @@ def available() -> bool:
 
 
 def evaluate(model, s, signals, depths):
-    """:meth:`~transport.solvers.laplace.transfer.LaplaceTransfer.evaluate`, compiled: C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment
-    (nseg, ns) and capped (ns,) bool (an exponent cut at 600, a singular system or
-    non-finite coefficients: those s carry no value)."""
+    """:meth:`~transport.solvers.laplace.transfer.LaplaceTransfer.evaluate`, compiled:
+    C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment (nseg, ns) and
+    capped (ns,) bool (an exponent cut at 600, a singular system or non-finite
+    coefficients: those s carry no value)."""
     s = np.asarray(s, dtype=complex)
     top_hat, bot_hat, src_hat, with_initial = signals
     g, ns, n, q = model.seg, s.size, model.n, model.q
