@@ -436,9 +436,10 @@ def test_concentration_alone_is_not_inverted_again_for_other_quantities(monkeypa
 @pytest.mark.parametrize("name", list(_regime_columns()))
 def test_no_negative_concentration_is_returned(name):
     """Every datum of these columns is >= 0 and no end withdraws solute at a prescribed
-    rate, so C >= 0 (positivity: Evans 2010, PDE, sec. 7.1).  solve_column moves
-    rounding-level negatives onto 0 (they lie within the stated error); the upward-flow
-    column once returned -1.6e-20 kg/m3 because its sealed top gave no lower bound."""
+    rate, so C >= 0 (positivity: Evans 2010, PDE, sec. 7.1, section from memory).
+    solve_column moves rounding-level negatives onto 0 (they lie within the stated
+    error); the upward-flow column once returned -1.6e-20 kg/m3 because its sealed top
+    gave no lower bound."""
     from transport.solvers.engines import solve_column
     col, init = _regime_columns()[name]
     t = np.array([0.05, 0.4, 2.0, 7.0, 30.0]) * YEAR

@@ -125,10 +125,10 @@ def test_bounds_follow_the_physics_of_each_end():
 def test_lower_bound_zero_holds_where_water_leaves_through_a_held_flux_end():
     """Upward flow out of a sealed top piles solute up under it (no upper bound), but C
     stays >= 0: the negative part of C cannot grow when no end withdraws solute at a
-    prescribed rate (Evans 2010, PDE, sec. 7.1, energy method; here in L1).  An inlet
-    that water leaves through holds F = q C_in < 0: it withdraws solute at a fixed rate
-    and C goes negative, so no lower bound is claimed.  Both against the independent
-    mpmath Laplace solution (tests/reference.py)."""
+    prescribed rate (Evans 2010, PDE, sec. 7.1, section from memory; energy method,
+    here in L1).  An inlet that water leaves through holds F = q C_in < 0: it withdraws
+    solute at a fixed rate and C goes negative, so no lower bound is claimed.  Both
+    against the independent mpmath Laplace solution (tests/reference.py)."""
     up = _two_layers(-0.5, top=Boundary("sealed"), bottom=Boundary("concentration", 0.01))
     b = concentration_bounds(up, None, YEAR)
     assert b.lo == 0.0 and b.hi is None and b.lo_needs_nonnegative_start

@@ -117,8 +117,9 @@ def concentration_bounds(column, initial, t_end: float) -> Bounds:
     there is no upper bound; the lower bound 0 still holds when every datum is >= 0 and
     no end withdraws solute at a prescribed rate (positivity: the negative part
     N = int R max(-C, 0) dz cannot grow, since at its edges F = -theta D dC/dz points out
-    of it and at an end the flux into the column is >= 0; Evans 2010, sec. 7.1, the
-    energy method, here in L1).
+    of it and at an end the flux into the column is >= 0; Evans 2010, Partial
+    Differential Equations, sec. 7.1 (section from memory), the energy method, here in
+    L1).
     """
     kappa = _kappa(column)
     q = column.darcy_flux
