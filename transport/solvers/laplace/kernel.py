@@ -26,12 +26,7 @@ import os
 
 import numpy as np
 
-__all__ = ["available", "evaluate", "END_CODES"]
-
-#: boundary row kinds: 0 C = target, 1 F = target, 2 dC/dz = target, 3 F + h C = target
-#: (an unknown kind raises KeyError; model.Boundary validates kinds)
-END_CODES = {"concentration": 0, "flux": 1, "inlet": 1, "sealed": 1, "free-outflow": 2,
-             "mass-transfer": 3, "source-zone": 3}
+__all__ = ["available", "evaluate"]
 
 _STATE = {}
 
@@ -59,27 +54,12 @@ def evaluate(model, s, signals, depths):
     s = np.asarray(s, dtype=complex)
     top_hat, bot_hat, src_hat, with_initial = signals
     g, ns, n, q = model.seg, s.size, model.n, model.q
-    # each boundary row as F + h C, C, F or dC/dz = target (transfer.LaplaceTransfer._boundary)
+    # each boundary row as C, F, dC/dz or F + h C = target (LaplaceTransfer.end_row)
     kinds = np.zeros(2, np.int64)
     h = np.zeros((2, ns), complex)
     target = np.zeros((2, ns), complex)
-    for end, val in ((0, top_hat), (1, bot_hat)):
-        bc = model.column.top if end == 0 else model.column.bottom
-        kinds[end] = END_CODES[bc.kind]
-        sign = 1.0 if end == 0 else -1.0
-        if bc.kind == "concentration":
-            target[end] = val
-        elif bc.kind in ("flux", "inlet", "sealed"):
-            target[end] = {"flux": val, "inlet": q * val, "sealed": 0.0 * val}[bc.kind]
-        elif bc.kind == "free-outflow":
-            target[end] = 0 * val
-        elif bc.kind == "mass-transfer":
-            h[end] = sign * bc.transfer_coefficient
-            target[end] = sign * bc.transfer_coefficient * val
-        else:  # source-zone: F +/- (Gamma (s + lambda) + q_out) C = +/- Gamma C_s(0)
-            h[end] = sign * (bc.capacity * (s + bc.decay_rate)
-                             + bc.zone_outflow(q, "top" if end == 0 else "bottom"))
-            target[end] = sign * bc.capacity * bc.value * with_initial
+    for row, (end, val) in enumerate((("top", top_hat), ("bottom", bot_hat))):
+        kinds[row], h[row], target[row] = model.end_row(end, val, s, with_initial)
     a0 = np.broadcast_to((g["a"] * with_initial)[:, None], (n, ns))
     b0 = np.broadcast_to((g["b"] * with_initial)[:, None], (n, ns))
     src = np.broadcast_to(np.asarray(src_hat, complex), (n, ns))

@@ -300,34 +300,47 @@ class LaplaceTransfer:
         F0 = self.q * C0 - k[i] * dC0
         return cC, C0, cF, F0
 
-    def _boundary(self, end, r, anc, alpha, beta, k, l, s):
+    def end_row(self, end, val, s, with_initial):
+        """The boundary row at ``end`` ("top" or "bottom") as (kind, h, target): the
+        transformed C (kind 0), F (1), dC/dz (2) or F + h C (3) equals ``target``;
+        ``val`` is the transformed boundary value (ns,).  The one description of the
+        boundary kinds that both forms of the transfer (:meth:`_boundary`, the compiled
+        :func:`transport.solvers.laplace.kernel.evaluate`) build their rows from."""
         bc = getattr(self.column, end)
-        i = 0 if end == "top" else self.n - 1
-        zeta = 0.0 if end == "top" else l[i]
-        cC, C0, cF, F0 = self._ends(r, anc, alpha, beta, k, i, zeta)
-        val = self._signals[0 if end == "top" else 1]
         kind = bc.kind
+        sign = 1.0 if end == "top" else -1.0
         if kind == "concentration":
-            return cC, val - C0
+            return 0, 0.0, val
         if kind in ("flux", "inlet", "sealed"):
-            target = {"flux": val, "inlet": self.q * val, "sealed": 0.0 * val}[kind]
-            return cF, target - F0
+            return 1, 0.0, {"flux": val, "inlet": self.q * val, "sealed": 0.0 * val}[kind]
         if kind == "free-outflow":
-            slope = 0.0 if self._none else _poly(alpha[:, i], zeta)[1] + self._forced(i, zeta)[1]
-            return r[:, i] * cC, -slope + 0 * val
+            return 2, 0.0, 0 * val
         if kind == "mass-transfer":
-            h = bc.transfer_coefficient
-            sign = 1.0 if end == "top" else -1.0
-            return cF + sign * h * cC, sign * h * val - F0 - sign * h * C0
+            h = sign * bc.transfer_coefficient
+            return 3, h, h * val
         if kind == "source-zone":
             # Gamma (s + lambda) C^_s - Gamma C_s(0) = -/+ F^ - q_out C^_s with C^_s = C^
             # at this end: F^ +/- h C^ = +/- Gamma C_s(0), h = Gamma (s + lambda) + q_out;
             # the zone's initial inventory belongs to the component holding the initial state
-            sign = 1.0 if end == "top" else -1.0
-            h = bc.capacity * (s + bc.decay_rate) + bc.zone_outflow(self.q, end)
-            inv = bc.capacity * bc.value * self._with_initial
-            return cF + sign * h * cC, sign * inv - F0 - sign * h * C0
+            h = sign * (bc.capacity * (s + bc.decay_rate) + bc.zone_outflow(self.q, end))
+            inv = bc.capacity * bc.value * with_initial
+            return 3, h, sign * inv
         raise InputError(f"unknown boundary kind {kind!r}")  # pragma: no cover
+
+    def _boundary(self, end, r, anc, alpha, beta, k, l, s):
+        i = 0 if end == "top" else self.n - 1
+        zeta = 0.0 if end == "top" else l[i]
+        cC, C0, cF, F0 = self._ends(r, anc, alpha, beta, k, i, zeta)
+        val = self._signals[0 if end == "top" else 1]
+        kind, h, target = self.end_row(end, val, s, self._with_initial)
+        if kind == 0:
+            return cC, target - C0
+        if kind == 1:
+            return cF, target - F0
+        if kind == 2:
+            slope = 0.0 if self._none else _poly(alpha[:, i], zeta)[1] + self._forced(i, zeta)[1]
+            return r[:, i] * cC, -slope + target
+        return cF + h * cC, target - F0 - h * C0
 
     def _linear_system(self, s, r, anc, alpha, beta, k, l):
         n, ns = 2 * self.n, s.size
