@@ -203,8 +203,10 @@ def test_an_inlet_without_flow_is_a_sealed_end():
     """Without flow an inlet holds F = q C_in = 0: a sealed end, so the maximum principle
     bounds C and its scale is the data's (once no bound was set, the scale fell to the
     largest output, 5e-6 after 35 years of decay, and a 1e-13 error was refused).  A
-    uniformly contaminated column sealed at both ends only decays: C = C0 e^{-mu t}
-    (first-order decay, exact), here within 1e-12 of C0 (invented layers)."""
+    uniformly contaminated column sealed at both ends only decays: C = C0 e^{-mu t},
+    the exact solution of dC/dt = -mu C (first-order decay, common practice), here within
+    1e-12 of C0 (invented layers).  The bounds [0, 1] are the data's range (maximum
+    principle, Protter & Weinberger 1967, ch. 3)."""
     lay = (Layer(0.1, 0.39, 6.6e-10, 1.0, decay_rate=1e-8),
            Layer(0.1, 0.43, 2.8e-11, 1.5, decay_rate=1e-8),
            Layer(1.0, 0.42, 1.9e-11, 20.0, decay_rate=1e-8))
