@@ -22,9 +22,9 @@ import or to compile, leaves every transform to the array code.
 """
 from __future__ import annotations
 
-import os
-
 import numpy as np
+
+from transport.solvers.jit import load
 
 __all__ = ["available", "evaluate"]
 
@@ -33,17 +33,14 @@ _STATE = {}
 
 def available() -> bool:
     """True when the compiled transfer can be used (numba imports, not switched off)."""
-    if "kernel" not in _STATE:
-        _STATE["kernel"] = None
-        if os.environ.get("STRATIFLUX_JIT", "1").strip() not in ("0", "no", "off", "false"):
-            try:
-                from transport.solvers.laplace._compiled import transfer
+    return load(_STATE, _load) is not None
 
-                _warm(transfer)
-                _STATE["kernel"] = transfer
-            except Exception:  # noqa: BLE001 - numba missing, broken or unable to
-                _STATE["kernel"] = None  # compile here: the array code serves
-    return _STATE["kernel"] is not None
+
+def _load():
+    from transport.solvers.laplace._compiled import transfer
+
+    _warm(transfer)
+    return transfer
 
 
 def evaluate(model, s, signals, depths):
