@@ -1,19 +1,30 @@
 """Eigenvalues and eigenfunctions of several columns in shared passes
 (``eigenvalues_many``, ``modes_many``, used for a boring's Monte Carlo columns): against
-independent references, and equal to the one-column solve to 1e-12 across regimes."""
+independent references, and equal to the one-column solve to 1e-12 across regimes, with
+the array code and with the compiled mismatch kernel (``compiled=True``, a site run's
+path)."""
 import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
 from transport.model.column import Boundary, Column, InputError, Layer
 from transport.solvers import modal as sp
-from transport.solvers.modal import spectrum
+from transport.solvers.modal import kernel, spectrum
 
 from reference import brenner_eigenvalues, carslaw_jaeger_two_layer_eigenvalues
 from test_spectrum import HARD, layer_st  # the hard stacks and random layers used there
 
 KINDS_TOP = ["concentration", "sealed", "mass-transfer", "flux", "inlet"]
 KINDS_BOTTOM = ["concentration", "sealed", "mass-transfer", "free-outflow"]
+
+
+@pytest.fixture(params=[False, True], ids=["array", "compiled"])
+def compiled(request):
+    """Both forms of the shared passes; the compiled one must load (numba is a
+    dependency), else it would silently test the array code twice."""
+    if request.param:
+        assert kernel.available(), "the compiled mismatch kernel did not load"
+    return request.param
 
 
 def _bc(kind):
@@ -33,7 +44,7 @@ def _same(many, single, ops):
         assert np.all(np.abs(a - b) <= 1e-12 * scale), np.max(np.abs(a - b) / scale)
 
 
-def test_two_layer_stack_matches_carslaw_jaeger():
+def test_two_layer_stack_matches_carslaw_jaeger(compiled):
     """Six two-layer slabs of different contrast and both bottom kinds, solved in one
     stack: first 15 eigenvalues of each vs the composite-slab eigenvalue equation of
     Carslaw & Jaeger (1959, Conduction of Heat in Solids, composite solids), roots with
@@ -44,13 +55,14 @@ def test_two_layer_stack_matches_carslaw_jaeger():
                                           (8e-10, 1.8, "concentration"), (2e-13, 50.0, "sealed")]):
         layers = (Layer(0.6 + 0.1 * i, 0.35, 8e-10, 1.8), Layer(1.4, 0.45, d2, r2))
         cols.append(Column(layers=layers, top=_bc("concentration"), bottom=_bc(bottom)))
-    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [15] * len(cols))
+    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [15] * len(cols),
+                               compiled)
     for col, lam in zip(cols, lams):
         ref = np.array([float(x) for x in carslaw_jaeger_two_layer_eigenvalues(col, 15)])
         np.testing.assert_allclose(lam, ref, rtol=1e-10)
 
 
-def test_advective_stack_matches_brenner():
+def test_advective_stack_matches_brenner(compiled):
     """Single layers from column Peclet number 0.1 to 300 in one stack, flux inlet and free
     outflow: eigenvalues from Brenner (1962, Chem. Eng. Sci. 17:229),
     beta cot beta - beta^2/P + P/4 = 0, lambda = (D/R)(beta^2 + P^2/4)/L^2, roots with
@@ -59,14 +71,15 @@ def test_advective_stack_matches_brenner():
     peclets = [0.1, 3.0, 40.0, 300.0]
     cols = [Column(layers=(Layer(L, th, D, R),), top=Boundary("inlet", 1.0),
                    bottom=Boundary("free-outflow"), darcy_flux=P * th * D / L) for P in peclets]
-    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [10, 12, 8, 10])
+    lams = sp.eigenvalues_many([sp.build_operator(c) for c in cols], [10, 12, 8, 10],
+                               compiled)
     for P, lam in zip(peclets, lams):
         ref = brenner_eigenvalues(P, L, th, D, R, lam.size)
         np.testing.assert_allclose(lam, ref, rtol=1e-10)
 
 
 @pytest.mark.parametrize("layers", HARD)
-def test_hard_stacks_equal_single_solves(layers):
+def test_hard_stacks_equal_single_solves(layers, compiled):
     """Thin, high-contrast and partitioned layers, every end kind and downward and upward
     flow up to a column Peclet number of about 1000, all in one stack: each operator's
     eigenvalues equal its own solve to 1e-12 (the optimised path against the single-column
@@ -87,18 +100,21 @@ def test_hard_stacks_equal_single_solves(layers):
     ns = [40 + 7 * (i % 5) for i in range(len(ops))]
     assert len(ops) >= 20
     single = [sp.eigenvalues(op, n) for op, n in zip(ops, ns)]
-    _same(sp.eigenvalues_many(ops, ns), single, ops)
+    _same(sp.eigenvalues_many(ops, ns, compiled), single, ops)
 
 
+@pytest.mark.parametrize("use_kernel", [False, True], ids=["array", "compiled"])
 @settings(max_examples=25, deadline=None)
 @given(layers=st.lists(layer_st, min_size=1, max_size=6),
        members=st.lists(st.tuples(st.sampled_from(KINDS_TOP), st.sampled_from(KINDS_BOTTOM),
                                   st.floats(-300.0, 300.0), st.floats(0.3, 3.0),
                                   st.integers(1, 90)), min_size=2, max_size=8))
-def test_random_stacks_equal_single_solves(layers, members):
+def test_random_stacks_equal_single_solves(use_kernel, layers, members):
     """Property: operators with the same layer count but different coefficients (each
     member scales every diffusivity), ends, flows (Peclet -300 to 300) and mode counts,
-    solved together, give each operator's own eigenvalues to 1e-12."""
+    solved together, give each operator's own eigenvalues to 1e-12 (the single solve
+    with the array code; the shared one with either)."""
+    assert not use_kernel or kernel.available()
     length = sum(lay.thickness for lay in layers)
     ops, ns = [], []
     for top, bottom, pe, scale, n in members:
@@ -108,8 +124,8 @@ def test_random_stacks_equal_single_solves(layers, members):
         ops.append(sp.build_operator(Column(layers=lays, top=_bc(top), bottom=_bc(bottom),
                                             darcy_flux=pe * k_min / length)))
         ns.append(n)
-    _same(sp.eigenvalues_many(ops, ns), [sp.eigenvalues(op, n) for op, n in zip(ops, ns)],
-          ops)
+    _same(sp.eigenvalues_many(ops, ns, use_kernel),
+          [sp.eigenvalues(op, n) for op, n in zip(ops, ns)], ops)
 
 
 def test_mixed_layer_counts_and_empty_requests():

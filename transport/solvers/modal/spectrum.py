@@ -37,6 +37,7 @@ from __future__ import annotations
 import numpy as np
 
 from transport.solvers.modal.operator import Operator, SpectrumError
+from transport.solvers.modal import kernel
 from transport.solvers.modal.brackets import brackets_many, lambda_step, raw_counts
 from transport.solvers.modal.transfer import (AngleScales, LayerTerms, Prep, chunks,
                                               end_remap, increments, layer_integrals, shoot)
@@ -64,7 +65,8 @@ _GRID_EXTRA = 64
 _QUIET = dict(invalid="ignore", divide="ignore", over="ignore")
 
 
-def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, prep=None):
+def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, prep=None,
+              compiled: bool = False, owner=None):
     """Angle mismatch of the two shots at a matching face, its lambda derivative and
     the face used.
 
@@ -90,12 +92,20 @@ def _mismatch(op: Operator, lam: np.ndarray, face=None, slopes: bool = True, pre
     Without ``slopes`` (counting) the mismatch is measured in the scale that puts the
     top shot at 45 degrees, where it is largest next to an eigenvalue.
 
+    ``owner``: lambda i belongs to operator ``owner[i]`` of the stacked ``prep``
+    (:meth:`Prep.select`).  With ``compiled`` (and the compiled kernel available) the
+    same arithmetic runs one lambda at a time in :mod:`~transport.solvers.modal.kernel`.
+
     Returns (G, dG, face), arrays of the size of lam (dG is NaN without ``slopes``).
     """
+    whole = Prep(op) if prep is None else prep
+    if compiled and kernel.available():
+        return kernel.mismatch(whole, lam, face, slopes, owner)
+    if owner is not None:
+        whole = whole.select(owner)
     m = lam.size
     G, dG, FACE = np.empty(m), np.empty(m), np.empty(m, dtype=np.int64)
     face = np.full(m, -1) if face is None else np.asarray(face)
-    whole = Prep(op) if prep is None else prep
     rows = whole.rows
     for sl in chunks(whole.n_layers, m):
         prep = whole.select(sl)
@@ -228,13 +238,15 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     return eigenvalues_many([op], [n])[0]
 
 
-def eigenvalues_many(ops, ns) -> list:
+def eigenvalues_many(ops, ns, compiled: bool = False) -> list:
     """:func:`eigenvalues` of several operators: ``ns[r]`` eigenvalues of ``ops[r]``.
 
     Operators with the same number of layers share every pass over the layers (their
     grids, then their unconverged modes, side by side in one array: :meth:`Prep.stack`),
     which costs about as much as one operator's pass when the layers are few (a boring's
     Monte Carlo columns).  Each lambda is computed exactly as for its own operator.
+    ``compiled``: the passes run in the compiled kernel where it is available (the
+    same eigenvalues to rounding; see :func:`_mismatch`).
     """
     out = [np.empty(0)] * len(ops)
     groups = {}
@@ -242,13 +254,13 @@ def eigenvalues_many(ops, ns) -> list:
         if n >= 1:
             groups.setdefault(op.n_layers, []).append(r)
     for members in groups.values():
-        lams = _solve_group([ops[r] for r in members], [ns[r] for r in members])
+        lams = _solve_group([ops[r] for r in members], [ns[r] for r in members], compiled)
         for r, lam in zip(members, lams):
             out[r] = lam
     return out
 
 
-def _solve_group(ops, ns):
+def _solve_group(ops, ns, compiled=False):
     """Eigenvalues of operators with the same number of layers (see
     :func:`eigenvalues_many`)."""
     preps = [Prep(op) for op in ops]
@@ -259,7 +271,8 @@ def _solve_group(ops, ns):
         guess = [_lambda_guess(op, n) for op, n in zip(ops, ns)]
         grids = [_grid(lo, hi, n) for (lo, hi, _), n in zip(guess, ns)]
         owner = np.repeat(np.arange(len(ops)), [g.size for g in grids])
-        G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole.select(owner))
+        G, dG, face = _mismatch(None, np.concatenate(grids), prep=whole, owner=owner,
+                                compiled=compiled)
         # every member bracketed in one call; a member whose guessed bounds fail is
         # redone on its own grid between searched bounds first
         members, los, spans, start = [], [], [], 0
@@ -272,7 +285,7 @@ def _solve_group(ops, ns):
             if not (raw[0] <= 0 and raw[-1] >= n):
                 lo, hi, span = _lambda_bounds(op, n)
                 grid = _grid(lo, hi, n)
-                g = (grid,) + _mismatch(op, grid, prep=preps[r])
+                g = (grid,) + _mismatch(op, grid, prep=preps[r], compiled=compiled)
             members.append(g)
             los.append(lo)
             spans.append(span)
@@ -281,7 +294,7 @@ def _solve_group(ops, ns):
         parts = [found[r] + (np.full(n, los[r]), np.full(n, _SPAN_FLOOR * spans[r]),
                              np.full(n, r)) for r, n in enumerate(ns)]
         a, b, x, j, used, mu, slope, lo, floor, own = (np.concatenate(v) for v in zip(*parts))
-        lam = _polish(whole, own, a, b, x, j, floor, lo, (used, mu, slope))
+        lam = _polish(whole, own, a, b, x, j, floor, lo, (used, mu, slope), compiled)
     return np.split(lam, np.cumsum(ns)[:-1])
 
 
@@ -292,7 +305,7 @@ def _grid(lo, hi, n):
 
 
 
-def _polish(prep, owner, a, b, x, j, floor, lo, start):
+def _polish(prep, owner, a, b, x, j, floor, lo, start, compiled=False):
     """Safeguarded Newton-Halley iteration on the mismatch f_j, vectorised over modes.
 
     Start: x inside the bracket (a, b), and ``start`` = (face, mu, slope in mu) of the
@@ -341,7 +354,7 @@ def _polish(prep, owner, a, b, x, j, floor, lo, start):
             srch, newt = idx[:0], idx
             lam, fc, own = x[newt], face[newt], owner[newt]
         nn = newt.size
-        G, df, fc = _mismatch(None, lam, fc, prep=prep.select(own))
+        G, df, fc = _mismatch(None, lam, fc, prep=prep, owner=own, compiled=compiled)
         # Newton modes
         f, xi, d = G[:nn] - jpi[newt], lam[:nn], df[:nn]
         A = np.where(f < 0, xi, a[newt])
