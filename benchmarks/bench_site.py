@@ -262,6 +262,9 @@ def measure_memory(n: int, chunk: int, work: Path) -> dict:
 PHASES = (
     ("transport.site.chunks", "solve_boring", "a boring's deterministic column"),
     ("transport.site.chunks", "shared_modes", "a boring's realizations: shared eigen-solve"),
+    ("transport.site.chunks", "required_modes", "  mode counts"),
+    ("transport.site.chunks", "eigenvalues_many", "  eigenvalues"),
+    ("transport.site.chunks", "modes_many", "  eigenfunctions"),
     ("transport.site.chunks", "realization_metrics", "a Monte Carlo realization (the rest)"),
     ("transport.site.boring", "site_series", "  series set-up"),
     ("transport.site.boring", "modal_scan", "  modal scan and rounding bound"),

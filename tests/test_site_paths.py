@@ -266,7 +266,7 @@ def test_shared_modes_leave_failures_to_each_column(monkeypatch):
     out = chunks.shared_modes([good[0], steep, good[1]], times, 1e-8)
     assert out[1] is None and out[0].lam.size > 8 and out[2].lam.size > 8
 
-    def fail(ops, ns):
+    def fail(ops, ns, compiled=False):
         raise SpectrumError("injected")
     monkeypatch.setattr(chunks, "eigenvalues_many", fail)
     assert chunks.shared_modes(good, times, 1e-8) == [None, None]

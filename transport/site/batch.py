@@ -39,6 +39,7 @@ import numpy as np
 from transport.site.chunks import (MC_KEYS, METRIC_KEYS, draw_samples, solve_chunk,
                                    solve_packed)
 from transport.solvers.laplace import kernel
+from transport.solvers.modal import kernel as modal_kernel
 
 __all__ = ["DEFAULT_CHUNK", "SCHEDULER_TIMEOUT", "WORKER_WAIT", "plan_chunks", "chunk_site",
            "iter_chunks", "solve_site", "SiteResult", "ClusterError"]
@@ -137,9 +138,10 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
         for i, (a, b) in enumerate(chunks):
             yield i, solve(site, a, b, samples)
         return
-    # the compiled Laplace transfer made (or loaded from numba's cache) once, here: the
-    # forked workers inherit it instead of each compiling or loading it
+    # the compiled kernels made (or loaded from numba's cache) once, here: the forked
+    # workers inherit them instead of each compiling or loading them
     kernel.available()
+    modal_kernel.available()
     try:
         with ProcessPoolExecutor(max_workers=min(workers, len(chunks)),
                                  initializer=_init_worker,

@@ -144,7 +144,8 @@ def shared_modes(cols, times, tolerance: float) -> list:
     first ones), computed for all the columns in shared passes over the layers
     (:func:`~transport.solvers.modal.spectrum.eigenvalues_many`, then
     :func:`~transport.solvers.modal.eigenfunctions.modes_many`: the same numbers as
-    one column at a time, 2-3x cheaper for five-layer columns).  None for a column this
+    one column at a time, 2-3x cheaper for five-layer columns; the eigenvalue passes in
+    the compiled kernel where it is available).  None for a column this
     cannot size (no positive output time, an operator that cannot be built): its own
     solve then reports why, under its own name; all None if the shared solve fails, so
     that each column fails or succeeds on its own."""
@@ -164,7 +165,7 @@ def shared_modes(cols, times, tolerance: float) -> list:
     if len(ops) < 2:
         return out
     try:
-        found = modes_many(ops, eigenvalues_many(ops, ns))
+        found = modes_many(ops, eigenvalues_many(ops, ns, compiled=True))
     except SpectrumError:
         return out
     for i, md in zip(where, found):
