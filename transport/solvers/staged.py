@@ -257,10 +257,11 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
     """
     stages, virtual = tuple(timeline.stages), frozenset()
     times = np.asarray(times, float)
-    best = None
+    initial = initial or InitialState.clean()
+    best, memo = None, {}
     for _ in range(RESTART_ROUNDS + 1):
         out = _solve_stages(type(timeline)(stages), virtual, times, depths, initial,
-                            tolerance, scale, local_column)
+                            tolerance, scale, local_column, memo)
         more, n_bad = _restarts(stages, times, out, tolerance, scale)
         if best is not None and n_bad >= best[1]:
             return best[0]  # the restarts did not help: the run without them
@@ -306,9 +307,12 @@ def _with_restarts(stages, virtual, more):
 
 
 def _solve_stages(timeline, virtual, times, depths, initial, tolerance, scale,
-                  local_column):
+                  local_column, memo=None):
     """One solve of :func:`solve_staged_laplace`; ``virtual``: indices of the stages
-    that restart the one before them (no mass removed there)."""
+    that restart the one before them (no mass removed there); ``memo``: hand-overs of
+    earlier rounds, reused where a stage, the one before it and that one's initial state
+    are the same objects (a round adds restarts after them and changes nothing before)."""
+    memo = {} if memo is None else memo
     stages = timeline.stages
     times = np.asarray(times, float)
     depths = np.asarray(depths, float)
@@ -323,8 +327,14 @@ def _solve_stages(timeline, virtual, times, depths, initial, tolerance, scale,
         if i > 0:
             prev, pcol = stages[i - 1], cols[i - 1]
             t_loc = st.start - prev.start
-            h = _handover(pcol, inits[i - 1], t_loc, prev.offset, st, cols[i], scale,
-                          tolerance)
+            key = (id(prev), id(st), id(inits[i - 1]))
+            hit = memo.get(key)
+            if hit is not None and hit[0] is prev and hit[1] is st and hit[2] is inits[i - 1]:
+                h = hit[3]
+            else:
+                h = _handover(pcol, inits[i - 1], t_loc, prev.offset, st, cols[i], scale,
+                              tolerance)
+                memo[key] = (prev, st, inits[i - 1], h)
             cols[i], zone_err = _carried_zones(stages[i - 1], st, cols[i], ends[-1])
             inits.append(h.initial)
             errs.append(errs[-1] + h.error + zone_err)
@@ -339,7 +349,11 @@ def _solve_stages(timeline, virtual, times, depths, initial, tolerance, scale,
             new_mass = float(solve_laplace(cols[i], [0.0], [0.0], initial=inits[i])
                              .budget["stored"][0])
             if i in virtual:
-                inits[i], extra = _same_mass(inits[i], float(b["stored"][0]), new_mass)
+                hit = memo.get(("same", id(h)))
+                if hit is None or hit[0] is not h:
+                    hit = memo[("same", id(h))] = (h, *_same_mass(
+                        inits[i], float(b["stored"][0]), new_mass))
+                inits[i], extra = hit[1], hit[2]
                 errs[-1] += extra
             else:
                 totals["removed"] += float(b["stored"][0]) - new_mass
