@@ -227,6 +227,14 @@ def budget_residual(budget: dict) -> tuple[np.ndarray, np.ndarray]:
 
 
 # ----------------------------------------------------------------- quantities & choice
+def _running_max(times, values):
+    """The largest of ``values`` at the times up to each one (times in any order)."""
+    order = np.argsort(np.asarray(times, float), kind="stable")
+    out = np.empty(np.size(values))
+    out[order] = np.fmax.accumulate(np.asarray(values, float)[order])
+    return out
+
+
 def quantities(sol: Solution) -> dict:
     """Every reported quantity of a solution as (nt, m) arrays."""
     nt = np.size(sol.times)
@@ -356,8 +364,8 @@ def choose(times, candidates, tolerance: float, bounds: Bounds | None, column, d
     The error of a candidate at a time is its own bound, or, where two candidates are
     given, |difference| + the other's bound when that is smaller (the agreement of two
     independent engines).  A candidate is also rejected where it breaks the physical
-    bounds or leaves the budget open by more than the tolerance x its largest term at
-    that time (the smoke alarm; ``budgets``: the candidates' budget dicts).  Only the
+    bounds or leaves the budget open by more than the tolerance x its largest term up
+    to that time (the smoke alarm; ``budgets``: the candidates' budget dicts).  Only the
     first ``selectable`` candidates (default all) may serve; the others only witness.
     ``witness[j]``: the error dict candidate j counts with when it confirms another
     (default: its own bound), e.g. the staged Laplace engine's inversion bound without
@@ -401,7 +409,9 @@ def choose(times, candidates, tolerance: float, bounds: Bounds | None, column, d
             errs["concentration"] = np.maximum(errs["concentration"], v)
         if budgets is not None and budgets[i] is not None:
             res, big = budget_residual(budgets[i])
-            # the budget must close to the tolerance at every time on its own terms
+            # the budget must close to the tolerance of its largest term up to that time
+            # (net integrals: mass in and out through one face nets to ~0, not its error)
+            big = _running_max(times, big)
             floor = 64 * _EPS * sc["budget"]
             open_ = res > np.maximum(tolerance * big, floor)
             errs["budget"] = np.where(open_, np.inf, np.maximum(errs["budget"], res))
