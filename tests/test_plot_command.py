@@ -137,6 +137,50 @@ def test_plot_a_site_file(files, tmp_path):
     assert_readable(fig)
 
 
+def _grid_table(n: int, spacing: float, mc: bool = True):
+    """A station table of ``n`` borings on a square grid (invented positions and values:
+    a drawing test, no result is checked here)."""
+    import pandas as pd
+
+    side = int(np.ceil(np.sqrt(n)))
+    k = np.arange(n)
+    table = pd.DataFrame({"x_m": 500000.0 + spacing * (k % side),
+                          "y_m": 5700000.0 + spacing * (k // side),
+                          "station_id": [f"BH-{i:05d}" for i in k],
+                          "breakthrough_yr": np.where(k % 7 == 0, np.nan, 5.0 + k % 40),
+                          "exceedance_probability": (k % 11) / 10.0})
+    table.attrs.update(realizations=16 if mc else 0, design_life_yr=50.0,
+                       title="Invented yard", screening_level_mg_L=0.005, crs_wkt="")
+    return table
+
+
+@pytest.mark.parametrize("n", [2500, 30])
+def test_site_map_stays_readable_as_borings_crowd(n):
+    """Markers never overlap their neighbours, and boring ids are drawn only where they
+    fit between the borings (else the title says where the ids are): overprinted
+    labels and merged discs cannot be read (common practice for report maps)."""
+    from matplotlib.collections import PathCollection
+
+    fig = site_map_figure(_grid_table(n, 10.0))
+    fig.canvas.draw()
+    ax = fig.axes[0]
+    metre = abs(ax.transData.transform((10.0, 0.0))[0] - ax.transData.transform((0.0, 0.0))[0])
+    metre *= 72.0 / fig.dpi / 10.0  # points per metre as drawn
+    discs = [c for c in ax.collections if isinstance(c, PathCollection)]
+    diameter = max(float(np.sqrt(c.get_sizes().max())) for c in discs)  # points
+    assert diameter <= 0.85 * 10.0 * metre
+    labels = [t for a in fig.axes for t in a.texts if t.get_text().startswith("BH-")]
+    title = " ".join(t.get_text() for t in fig.findobj(lambda a: hasattr(a, "get_text")))
+    if n > 100:
+        assert labels == []
+        assert "too close together" in title.replace("\n", " ")
+    else:
+        assert len(labels) == 2 * n  # both panels
+        widest = max(t.get_window_extent().width for t in labels) * 72.0 / fig.dpi
+        assert widest < 10.0 * metre  # a label fits between two borings
+    assert_readable(fig)
+
+
 def test_scale_bar_lengths_are_round():
     """1, 2 or 5 times a power of ten, at most a fifth of the span (common practice)."""
     for span, expected in ((180.0, 20.0), (1000.0, 200.0), (26.0, 5.0), (7.0, 1.0)):
