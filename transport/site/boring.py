@@ -34,6 +34,7 @@ from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.laplace.engine import laplace_concentration
 from transport.solvers.modal.projection import initial_profile
+from transport.solvers.monotone import nondecreasing_in_time
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
                                             earliest_time_after_change)
 from transport.solvers.result import checked_arithmetic
@@ -126,7 +127,8 @@ class _Probe:
         return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
 
 
-def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0):
+def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
+                  nondecreasing=False):
     """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
 
     Parameters
@@ -147,6 +149,9 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0):
         largest scan sample, not polished: it is within the tolerance of zero already,
         and the polish of such a peak chases rounding (where the modal series takes
         over from the Laplace engine, the two differ by up to the tolerance).
+    nondecreasing : bool, optional
+        The curve cannot fall (:func:`transport.solvers.monotone.nondecreasing_in_time`):
+        the peak is the window's end, not searched.
 
     Returns
     -------
@@ -168,7 +173,7 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0):
                                full_output=True)
         if not info.converged:  # pragma: no cover - a valid bracket always converges
             raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
-    i = int(np.argmax(c))
+    i = t.size - 1 if nondecreasing else int(np.argmax(c))
     t_peak, c_peak = float(t[i]), float(c[i])
     if 0 < i < t.size - 1 and c_peak > floor:
         res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
@@ -429,7 +434,7 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     return bt2, pk2
 
 
-def modal_scan(probe, t_start, t_end, tol, scale, level):
+def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
     """Where the modal series serves a realization's receptor curve, and the scan of
     that curve when the Laplace engine is not needed for it: (t_modal, scan).
 
@@ -449,7 +454,8 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
     polish (which still read the switched curve) are those of the full scan.  Those
     samples then hold the modal values, which are not used otherwise.  Not used when a
     signal changes inside the early samples (the series is sized for the times from
-    the earliest output time after each change)."""
+    the earliest output time after each change).  A ``nondecreasing`` curve peaks at
+    the window's end: its early samples need only stay below half the level."""
     t = _scan_times(t_start, t_end, SCAN_SAMPLES)
     rb = probe.roundoff_bound(t)[:, 0]
     cut = vouched_from(rb <= tol * scale, t)
@@ -468,7 +474,7 @@ def modal_scan(probe, t_start, t_end, tol, scale, level):
     if not upper <= 0.5 * level:  # (the later samples are then not evaluated here)
         return t_modal, None
     late = probe.concentration(t[cut:])[:, 0]
-    if not upper <= 0.5 * float(np.max(late)):
+    if not (nondecreasing or upper <= 0.5 * float(np.max(late))):
         return t_modal, None
     return t_modal, np.concatenate([early, late])
 
@@ -498,15 +504,16 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     def modal_at(t):
         return probe.concentration(t)[:, 0]
     curve, scan = modal_at, None
+    rising = nondecreasing_in_time(col, initial)
     if scale:
-        t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level)
+        t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level,
+                                   rising)
         enough = good_enough(col, scale, tol)
-
         laplace_at = _laplace_curve(col, depth, initial, enough)
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
-                                 scan, tol * scale)
+                                 scan, tol * scale, rising)
     scale = scale or max(abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
