@@ -227,10 +227,12 @@ def test_previous_implementation_gives_identical_numbers(runs):
 
 
 def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
-    """The Monte Carlo columns of a boring take their eigenvalues and eigenfunctions
-    from the shared solve: no column of the chunk solves its own spectrum or shoots its
-    own modes but the borings' deterministic columns (so the summaries checked above
-    against realizations solved alone come from the shared path)."""
+    """Every column of a boring takes its eigenvalues and eigenfunctions from the
+    shared (compiled) solve: the Monte Carlo columns side by side, the deterministic
+    column alone; no column solves its own spectrum or shoots its own modes but where
+    the computed spectrum asks for more modes than the estimate (none here); so the
+    summaries and fields checked above against columns
+    solved alone come from the shared path."""
     site, _, _ = runs
     samples = draw_samples(site, site.realizations, site.seed, site.sampling)
     alone, shot = [], []
@@ -248,8 +250,9 @@ def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
     chunks.clear_caches()
     chunks.solve_chunk(site, 0, 2, samples)
     chunks.clear_caches()
-    assert 1 <= len(alone) <= 2 * 2  # the two deterministic columns (one retry each)
-    assert len(shot) == 2  # the two deterministic columns
+    # the demo's estimates suffice: nothing solved alone (before the deterministic
+    # columns joined the compiled path, each solved its own spectrum here)
+    assert alone == [] and shot == []
 
 
 def test_shared_modes_leave_failures_to_each_column(monkeypatch):

@@ -199,7 +199,7 @@ def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: 
 
 
 @checked_arithmetic
-def solve_boring(site, col, depth, times, grid, initial=None):
+def solve_boring(site, col, depth, times, grid, initial=None, known=None):
     """Fields on the grid (cut at the bottom), metrics and warnings of one column:
     the numbers of :func:`transport.solvers.modal.series.solve` on the same column and depths.
 
@@ -215,6 +215,7 @@ def solve_boring(site, col, depth, times, grid, initial=None):
         Output times (s) and the site's common depth grid (m).
     initial : InitialState, optional
         Measured initial profile; default clean.
+    known : Modes, optional (the modes of :func:`transport.site.chunks.shared_modes`)
 
     Returns
     -------
@@ -229,7 +230,7 @@ def solve_boring(site, col, depth, times, grid, initial=None):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         t_min = earliest_time_after_change(col, times)
-        series = site_series(col, t_min, site.tolerance, initial=initial)
+        series = site_series(col, t_min, site.tolerance, initial=initial, known=known)
         probe = _Probe(series, np.append(z, depth))
         conc = probe.concentration(times)
         cum = probe.cumulative_mass(np.append(times, t_end))
@@ -484,14 +485,13 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 
     The receptor curve is the modal series from the scan sample on which its rounding
-    bound stays within the tolerance, the Laplace engine before it (the early rows of
-    an advective column, where the modal sum cancels to rounding: a spurious 'peak' of
-    1e-6 of the scale at the first sample of a plume that never arrives), which is not
-    asked where the modal bounds show those samples cannot hold the crossing or the
-    peak (:func:`modal_scan`); a peak within the tolerance of zero is the largest scan
-    sample, not polished (:func:`curve_metrics`); the breakthrough and the peak are then
-    checked against the Laplace engine (:func:`verified_metrics`).  ``known``: the
-    column's modes from a shared solve, or None."""
+    bound stays within the tolerance, the Laplace engine before it (an advective
+    column's modal sum cancels to rounding early: a spurious 'peak' of 1e-6 of the
+    scale at the first sample of a plume that never arrives), not asked where the modal
+    bounds show those samples cannot hold the crossing or the peak (:func:`modal_scan`;
+    a rising column peaks at the end); a peak within the tolerance of zero is not
+    polished (:func:`curve_metrics`); both are checked against the Laplace engine
+    (:func:`verified_metrics`).  ``known``: the column's modes from a shared solve."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

@@ -145,7 +145,7 @@ def shared_modes(cols, times, tolerance: float) -> list:
     (:func:`~transport.solvers.modal.spectrum.eigenvalues_many`, then
     :func:`~transport.solvers.modal.eigenfunctions.modes_many`: the same numbers as
     one column at a time, 2-3x cheaper for five-layer columns; the eigenvalue passes in
-    the compiled kernel where it is available).  None for a column this
+    the compiled kernel where it is available, also for a lone column: a boring's own).  None for a column this
     cannot size (no positive output time, an operator that cannot be built): its own
     solve then reports why, under its own name; all None if the shared solve fails, so
     that each column fails or succeeds on its own."""
@@ -162,7 +162,7 @@ def shared_modes(cols, times, tolerance: float) -> list:
         ns.append(required_modes(op, t_min, tolerance, MAX_MODES))
         where.append(i)
     out = [None] * len(cols)
-    if len(ops) < 2:
+    if not ops:
         return out
     try:
         found = modes_many(ops, eigenvalues_many(ops, ns, compiled=True))
@@ -228,7 +228,9 @@ def _solve_chunk(site, start, stop, samples):
         found = _FIELDS_CACHE.get(key)
         if found is None:
             with _naming(boring.id):
-                found = solve_boring(site, col, boring.receptor_depth, times, grid, initial)
+                own = shared_modes([col], times, site.tolerance)[0]
+                found = solve_boring(site, col, boring.receptor_depth, times, grid, initial,
+                                     known=own)
             _FIELDS_CACHE.put(key, found)
         keep, conc, cum, metrics, msgs = found
         notes += [(boring.id, m) for m in msgs]
