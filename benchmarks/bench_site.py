@@ -260,8 +260,8 @@ def measure_memory(n: int, chunk: int, work: Path) -> dict:
 #: Steps of a site run timed by --phases (module, function, what it is); indented steps
 #: run inside the ones above them, so their times overlap.
 PHASES = (
-    ("transport.site.chunks", "solve_boring", "a boring's deterministic column"),
-    ("transport.site.chunks", "shared_modes", "a boring's realizations: shared eigen-solve"),
+    ("transport.site.chunks", "solve_boring", "a boring's column (its eigen-solve below)"),
+    ("transport.site.chunks", "shared_modes", "eigen-solves (realizations, then the column)"),
     ("transport.site.chunks", "required_modes", "  mode counts"),
     ("transport.site.chunks", "eigenvalues_many", "  eigenvalues"),
     ("transport.site.chunks", "modes_many", "  eigenfunctions"),
