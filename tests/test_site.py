@@ -392,3 +392,10 @@ def test_dask_local_cluster_equals_local_path(small_site, deterministic):
         np.testing.assert_array_equal(result.fields[key], values)
     for key, values in deterministic.metrics.items():
         np.testing.assert_array_equal(result.metrics[key], values)
+
+
+def test_load_site_of_a_loaded_site_says_so(small_site):
+    """Passing a loaded site (not its path) is a TypeError that says what to pass, not
+    one from deep inside pathlib (common practice for an API)."""
+    with pytest.raises(TypeError, match="path of a site file, not a Site .*loaded already"):
+        load_site(small_site)

@@ -36,6 +36,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import math
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -364,6 +365,10 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
 
 def load_site(path: str | Path) -> Site:
     """Read and validate a site file and the CSV files it names."""
+    if not isinstance(path, (str, os.PathLike)):
+        raise TypeError(f"load_site takes the path of a site file, not a "
+                        f"{type(path).__name__}" + (" (this one is loaded already)"
+                                                    if isinstance(path, Site) else ""))
     text = read_text_file(path)
     return parse_site(text, path)
 
