@@ -513,7 +513,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
         curve = (laplace_at if t_modal is None else
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
-                                 scan, tol * scale, rising)
+                                 scan, tol * (scale or 0.0), rising)
     scale = scale or max(abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
