@@ -16,16 +16,15 @@ realizations need only the receptor curve (:func:`realization_metrics`).
 """
 from __future__ import annotations
 
-import functools
 import math
 import warnings
 
 import numpy as np
-from scipy.optimize import brentq, minimize_scalar
 
 from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_trend,
                                         time_above)
 from transport.model.column import InitialState
+from transport.site.curves import SCAN_SAMPLES, TIME_RTOL, scan_times, curve_metrics
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
@@ -43,23 +42,7 @@ __all__ = ["SCAN_SAMPLES", "MAX_MODES", "TIME_RTOL", "site_series", "receptor_me
            "curve_metrics", "solve_boring", "window_views", "views_metrics", "checked_fields",
            "verified_metrics", "realization_metrics"]
 
-#: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
-#: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
-#: and SCAN_SAMPLES // 2 log-spaced; 128 gives 0.4 yr steps over a 50 yr life, receptor
-#: curves of a metre-scale column vary over years). A spike narrower than
-#: the spacing can be missed (the series itself is continuous in time).
-SCAN_SAMPLES = 128
 MAX_MODES = 4000  # the mode cap of transport.solvers.modal.series.solve
-TIME_RTOL = 1e-10  # Brent tolerance on time, relative
-
-
-@functools.lru_cache(maxsize=64)
-def _scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
-    """The scan samples of a window, made once per window (every realization of a run
-    scans the same ones); read-only."""
-    t = np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
-    t.setflags(write=False)
-    return t
 
 
 # ------------------------------------------------------------------------ series
@@ -125,62 +108,6 @@ class _Probe:
         """:meth:`ModalSeries.roundoff_bound` at the probe's depths ``rows``, with the
         depth functions already evaluated."""
         return self.series.roundoff_bound(self.z[rows], t, c_modes=self.c_modes[rows])
-
-
-def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
-                  nondecreasing=False):
-    """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
-
-    Parameters
-    ----------
-    conc : callable
-        ``conc(times) -> array`` of concentrations (kg m-3) at the receptor.
-    t_start, t_end : float
-        The window, s.
-    level : float
-        Screening level, kg m-3.
-    n_scan : int
-        Uniform scan samples (plus half as many log-spaced) that bracket the
-        crossing and the peak before Brent's method polishes them.
-    scan : array, optional
-        The curve at those samples, if at hand (:func:`modal_scan`).
-    floor : float, optional
-        A peak at or below it (kg m-3; a realization's tolerance, absolute) is the
-        largest scan sample, not polished: it is within the tolerance of zero already,
-        and the polish of such a peak chases rounding (where the modal series takes
-        over from the Laplace engine, the two differ by up to the tolerance).
-    nondecreasing : bool, optional
-        The curve cannot fall (:func:`transport.solvers.monotone.nondecreasing_in_time`):
-        the peak is the window's end, not searched.
-
-    Returns
-    -------
-    tuple of float
-    """
-    def one(s):
-        return float(conc(np.array([s]))[0])
-
-    t = _scan_times(t_start, t_end, n_scan)
-    c = conc(t) if scan is None else scan
-    above = np.flatnonzero(c >= level)
-    if above.size == 0:
-        t_cross = math.nan
-    elif above[0] == 0:
-        t_cross = float(t[0])
-    else:
-        i = int(above[0])
-        t_cross, info = brentq(lambda s: one(s) - level, t[i - 1], t[i], rtol=TIME_RTOL,
-                               full_output=True)
-        if not info.converged:  # pragma: no cover - a valid bracket always converges
-            raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
-    i = t.size - 1 if nondecreasing else int(np.argmax(c))
-    t_peak, c_peak = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1 and c_peak > floor:
-        res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
-                              method="bounded", options={"xatol": TIME_RTOL * t_end})
-        if res.success and -res.fun > c_peak:
-            t_peak, c_peak = float(res.x), float(-res.fun)
-    return float(t_cross), t_peak, c_peak
 
 
 def receptor_metrics(series, depth: float, level: float, t_start: float, t_end: float,
@@ -384,8 +311,7 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     return conc, cum, _switched(laplace_at, modal_at, float(times[cut]))
 
 
-def _switched(early, late, t_switch):
-    """The curve C(t): ``early`` before t_switch, ``late`` from it on."""
+def _switched(early, late, t_switch):  # C(t): ``early`` before t_switch, then ``late``
     return lambda t: switched(t, t_switch, early, late)
 
 
@@ -457,7 +383,7 @@ def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
     signal changes inside the early samples (the series is sized for the times from
     the earliest output time after each change).  A ``nondecreasing`` curve peaks at
     the window's end: its early samples need only stay below half the level."""
-    t = _scan_times(t_start, t_end, SCAN_SAMPLES)
+    t = scan_times(t_start, t_end, SCAN_SAMPLES)
     rb = probe.roundoff_bound(t)[:, 0]
     cut = vouched_from(rb <= tol * scale, t)
     if cut == t.size:
@@ -491,15 +417,16 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     bounds show those samples cannot hold the crossing or the peak (:func:`modal_scan`;
     a rising column peaks at the end); a peak within the tolerance of zero is not
     polished (:func:`curve_metrics`); both are checked against the Laplace engine
-    (:func:`verified_metrics`).  ``known``: the column's modes from a shared solve."""
+    (:func:`verified_metrics`) on the scale the data allow, or where they allow none the
+    column's own largest C at the end or the peak.  ``known``: modes of a shared solve."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
                              initial=initial, known=known)
-    probe = _Probe(series, [depth])
-    tol, t_end = site.tolerance, site.design_life
-    scale = concentration_bounds(col, initial, t_end).scale
+    probe, tol, t_end = _Probe(series, [depth]), site.tolerance, site.design_life
+    bounded = concentration_bounds(col, initial, t_end).scale
+    scale = bounded or series.largest_vouched(t_end)
 
     def modal_at(t):
         return probe.concentration(t)[:, 0]
@@ -514,7 +441,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
                  _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
                                  scan, tol * (scale or 0.0), rising)
-    scale = scale or max(abs(pk), 1e-300)
+    scale = bounded or max(scale, abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
     return bt, pk, tuple(str(w.message) for w in caught)

@@ -216,6 +216,17 @@ class ModalSeries(TimeIntegrals):
             out += self.tail_corrections(z)["C"][:, 1:] @ forcing
         return out.T
 
+    def largest_vouched(self, t: float, n: int = 41) -> float:
+        """Largest |C| of the column at time ``t`` less the rounding bound (times
+        sqrt(modes), as a realization's early samples), at ``n`` evenly spaced depths and
+        the layer faces, or 0: a lower estimate of the largest C there, for the scale of
+        a column whose data bound nothing (a smaller scale only makes a check stricter)."""
+        z = np.union1d(np.linspace(0.0, float(self.op.z[-1]), n), self.op.z)
+        c_modes = self.fields(z)[0]
+        c = np.abs(self.concentration(z, [t])[0])
+        rb = self.roundoff_bound(z, [t], c_modes=c_modes)[0]
+        return float(max(np.max(c - math.sqrt(max(self.modes.lam.size, 1)) * rb), 0.0))
+
     def concentration_at(self, depth, times):
         """C at one depth for any times: 1-D array (continuous in time)."""
         return self.concentration(np.array([float(depth)]), times)[:, 0]
