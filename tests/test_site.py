@@ -401,23 +401,57 @@ def test_load_site_of_a_loaded_site_says_so(small_site):
         load_site(small_site)
 
 
-def test_monte_carlo_under_a_sealed_top_with_upward_flow(tmp_path):
-    """Water rising to a sealed top piles solute up there: the concentration has no
-    upper bound from the data (no scale). A Monte Carlo run of such a site used to stop
-    with a TypeError from the realization's peak floor; with zero-spread distributions
-    each realization is the deterministic column, so its peak quantiles equal the
-    boring's own peak within the tolerance of that peak (common practice: a degenerate
-    distribution reproduces the deterministic run), and every number is finite."""
-    toml = (SITE_TOML.replace('darcy_flux = "0.05 m/yr"', 'darcy_flux = "-0.02 m/yr"')
-            .replace('[top]\nkind = "concentration"\nconcentration = "10 mg/L"',
-                     '[top]\nkind = "sealed"')
-            .replace('[bottom]\nkind = "free-outflow"',
-                     '[bottom]\nkind = "concentration"\nconcentration = "10 mg/L"'))
-    assert 'kind = "sealed"' in toml and "-0.02 m/yr" in toml
+_TOP0 = '[top]\nkind = "concentration"\nconcentration = "10 mg/L"'
+_BOTTOM0 = '[bottom]\nkind = "free-outflow"'
+_KINDS = {"conc": 'kind = "concentration"\nconcentration = "10 mg/L"',
+          "conc0": 'kind = "concentration"\nconcentration = "0 mg/L"',
+          "step": 'kind = "concentration"\nconcentration = '
+                  '{ steps = [["0 yr", "10 mg/L"], ["8 yr", "0 mg/L"]] }',
+          "flux": 'kind = "flux"\nflux = "5 mg/m^2/d"',
+          "inlet0": 'kind = "inlet"\nconcentration = "0 mg/L"',
+          "mass-transfer": 'kind = "mass-transfer"\ntransfer_coefficient = "0.1 m/yr"\n'
+                           'outside_concentration = "0 mg/L"',
+          "sealed": 'kind = "sealed"', "free": 'kind = "free-outflow"',
+          "zone": 'kind = "source-zone"\nconcentration = "50 mg/L"\nthickness = "0.3 m"\n'
+                  'water_content = 0.22\nbulk_density = "1.65 g/cm^3"\n'
+                  'distribution_coefficient = "0.2 L/kg"'}
+
+
+@pytest.mark.parametrize("top, bottom, flux", [
+    ("sealed", "conc", "-0.02 m/yr"),  # water rising to a sealed top: no upper bound
+    ("flux", "inlet0", "-0.5 m/yr"),  # a front held back by upward flow
+    ("conc", "mass-transfer", "1.0 m/yr"),  # an exit slower than the flow
+    ("step", "mass-transfer", "1.0 m/yr"),  # the same with the source switched off
+    ("flux", "sealed", "0 m/yr"),  # diffusion into a closed column
+])
+def test_monte_carlo_across_boundary_kinds_reproduces_the_deterministic_peaks(
+        tmp_path, top, bottom, flux):
+    """Zero-spread draws make every realization the boring's deterministic column, so
+    the peak quantiles equal the boring's own peak within the tolerance of that peak
+    (common practice: a degenerate distribution reproduces the deterministic run), for
+    boundary kinds and flow directions where the data bound the concentration and where
+    they do not (mass piling up at an end). Before this was checked, the first set-up
+    stopped with a TypeError and the second was refused."""
+    toml = (SITE_TOML.replace('darcy_flux = "0.05 m/yr"', f'darcy_flux = "{flux}"')
+            .replace(_TOP0, "[top]\n" + _KINDS[top])
+            .replace(_BOTTOM0, "[bottom]\n" + _KINDS[bottom]))
+    assert _KINDS[top] in toml and _KINDS[bottom] in toml
     site = load_site(write_small_site(tmp_path, extra=DEGENERATE, toml=toml))
     out = solve_site(site, workers=1, chunk_size=2).metrics
     peak = out["peak_concentration"]
-    assert np.all(np.isfinite(peak)) and np.all(peak > 0)
+    assert np.all(np.isfinite(peak)) and np.all(peak >= 0)
     for q in ("p5", "p50", "p95"):
-        assert np.allclose(out[f"peak_concentration_{q}"], peak, rtol=2 * site.tolerance,
-                           atol=0)
+        assert np.allclose(out[f"peak_concentration_{q}"], peak,
+                           rtol=2 * site.tolerance, atol=1e-300)
+
+
+def test_a_source_zone_is_refused_when_the_site_is_read(tmp_path):
+    """A source zone cannot be solved by a site's engine: the site file is refused when
+    it is read (stratiflux check finds it), naming the key and the way out, instead of
+    stopping the run after it started with advice about engines a site does not have."""
+    toml = SITE_TOML.replace(_TOP0, "[top]\n" + _KINDS["zone"])
+    with pytest.raises(ScenarioError) as info:
+        load_site(write_small_site(tmp_path, toml=toml))
+    assert info.value.key == "top.kind" and "site runs" in str(info.value)
+    assert "stratiflux run" in str(info.value)
+

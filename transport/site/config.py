@@ -297,6 +297,13 @@ def parse_site(text: str, path: str | Path = "<string>") -> Site:
         props[name] = material_properties(r, name, mat)
     top_bc = read_boundary(r, data, "top", q)
     bottom_bc = read_boundary(r, data, "bottom", q)
+    for end, bc in (("top", top_bc), ("bottom", bottom_bc)):
+        if bc.kind == "source-zone":  # refused here, not after the run has started
+            raise r.error(f"{end}.kind", bc.kind, "a source zone is not solved in site "
+                          "runs (its condition depends on each mode's decay rate; a site "
+                          "solves every boring by modal superposition)",
+                          fix="run the borings that need one as scenarios (stratiflux run), "
+                          "or give the site a concentration with a schedule")
     out = r.table(data.get("output"), "output", required=True)
     r.keys(out, SITE_OUTPUT_KEYS, "output")
     times = read_times(r, out.get("times"))
