@@ -16,6 +16,7 @@ realizations need only the receptor curve (:func:`realization_metrics`).
 """
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 
@@ -176,7 +177,8 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
     conc[times == 0] = initial_profile(col, initial, np.append(z, depth))  # the state itself
     receptor = probe.rows(slice(-1, None))
     conc, cum, conc_at = checked_fields(site, col, initial, times, np.append(z, depth), t_end,
-                                  conc, cum, lambda t: receptor.concentration(t)[:, 0])
+                                        conc, cum, lambda t: receptor.concentration(t)[:, 0],
+                                        lambda t: series.resolved(t, times))
     t_start = float(times[positive].min())
     conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
     m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
@@ -249,7 +251,7 @@ def views_metrics(views):
             float(w.peak_beyond_horizon), w.horizon)
 
 
-def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
+def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at, resolved=None):
     """The modal fields of a boring vouched for by the Laplace engine (as
     :func:`transport.solvers.engines.solve_column`): per output time the modal values where the
     two agree within the tolerance for C and the cumulative mass, else the Laplace
@@ -297,8 +299,9 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     # the modal series from the first output time after which it agreed with the Laplace
     # engine AT THE RECEPTOR DEPTH at every output time, within the tolerance and the
     # Laplace engine's bound (the curve is read there only; deeper rows of an advective
-    # column cancel to rounding at early times), the Laplace engine before it, the
-    # Laplace engine alone if no such tail exists
+    # column cancel to rounding at early times), the Laplace engine before it and where
+    # ``resolved(t)`` is False (right after a signal change, where the truncated series
+    # rings), the Laplace engine alone if no such tail exists
     scale = choice.scale["concentration"]
     gap = np.abs(mq["concentration"][:-1, -1] - lq["concentration"][:-1, -1])
     with np.errstate(invalid="ignore"):  # the error of the modal value: |gap| + the
@@ -306,13 +309,15 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at):
     cut = vouched_from(used, times)
     if cut >= times.size:
         return conc, cum, laplace_at
-    if cut == 0:
+    if cut == 0 and resolved is None:
         return conc, cum, modal_at
-    return conc, cum, _switched(laplace_at, modal_at, float(times[cut]))
+    return conc, cum, _switched(laplace_at, modal_at, float(times[cut]) if cut else -np.inf,
+                                resolved)
 
 
-def _switched(early, late, t_switch):  # C(t): ``early`` before t_switch, then ``late``
-    return lambda t: switched(t, t_switch, early, late)
+def _switched(early, late, t_switch, keep=None):
+    """C(t): ``early`` before t_switch, then ``late`` where ``keep(t)``, else ``early``."""
+    return lambda t: switched(t, t_switch, early, late, keep)
 
 
 def _laplace_curve(col, depth, initial, enough):
@@ -380,8 +385,9 @@ def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
     no crossing and no peak can lie there, so the breakthrough, the peak and their
     polish (which still read the switched curve) are those of the full scan.  Those
     samples then hold the modal values, which are not used otherwise.  Not used when a
-    signal changes inside the early samples (the series is sized for the times from
-    the earliest output time after each change).  A ``nondecreasing`` curve peaks at
+    signal changes inside the window (the series is sized for the times from the
+    earliest output time after each change: right after one the curve is the Laplace
+    engine's, :meth:`ModalSeries.resolved`).  A ``nondecreasing`` curve peaks at
     the window's end: its early samples need only stay below half the level."""
     t = scan_times(t_start, t_end, SCAN_SAMPLES)
     rb = probe.roundoff_bound(t)[:, 0]
@@ -391,9 +397,8 @@ def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
     if cut == 0:
         return float(t[0]), None
     t_modal = float(t[cut])
-    # the series is sized for the times after each change from the earliest output
-    # time on only
-    if any(0.0 < c < t_modal for c in probe.series.change_times()):
+    # the series is resolved only from the earliest output time after each change
+    if any(0.0 < c < t_end for c in probe.series.change_times()):
         return t_modal, None
     early = probe.concentration(t[:cut])[:, 0]
     n = max(probe.series.modes.lam.size, 1)
@@ -437,8 +442,12 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
                                    rising)
         enough = good_enough(col, scale, tol)
         laplace_at = _laplace_curve(col, depth, initial, enough)
-        curve = (laplace_at if t_modal is None else
-                 _switched(laplace_at, modal_at, t_modal) if t_modal > t_start else modal_at)
+        # the Laplace engine right after a signal change (series.resolved)
+        keep = (functools.partial(series.resolved, times=times)
+                if any(c > 0 for c in series.change_times()) else None)
+        curve = (laplace_at if t_modal is None else modal_at
+                 if t_modal <= t_start and keep is None else
+                 _switched(laplace_at, modal_at, t_modal, keep))
     bt, pk_t, pk = curve_metrics(curve, t_start, t_end, site.screening_level, SCAN_SAMPLES,
                                  scan, tol * (scale or 0.0), rising)
     scale = bounded or max(scale, abs(pk), 1e-300)

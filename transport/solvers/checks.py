@@ -328,12 +328,12 @@ def vouched_from(ok, times) -> int:
     return int(bad.max()) + 1 if bad.size else 0
 
 
-def switched(t, t_switch, early, late):
-    """``early(t)`` at t < t_switch and ``late(t)`` from t_switch on, each engine asked
-    only for its own times (a 1-D array of the size of t)."""
+def switched(t, t_switch, early, late, keep=None):
+    """``early(t)`` at t < t_switch and ``late(t)`` from t_switch on where ``keep(t)``
+    (default everywhere), each engine asked only for its own times (1-D, as t)."""
     t = np.atleast_1d(np.asarray(t, dtype=float))
     out = np.empty(t.size)
-    on = t >= t_switch
+    on = (t >= t_switch) & (True if keep is None else keep(t))
     if on.any():
         out[on] = late(t[on])
     if (~on).any():

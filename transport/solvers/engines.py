@@ -18,6 +18,7 @@ quantity (``error``; ``error_estimate`` is that of C, kg m-3), and ``reliable``.
 """
 from __future__ import annotations
 
+import functools
 import math
 import warnings
 from dataclasses import dataclass
@@ -211,11 +212,15 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom, enough=None):
     return at
 
 
-def _auto_evaluator(series, t_modal, laplace_at):
-    """Modal series from ``t_modal`` on (where it was vouched for), Laplace before."""
+def _auto_evaluator(series, t_modal, laplace_at, times=None):
+    """Modal series from ``t_modal`` on (where it was vouched for) where it is resolved
+    after each signal change (:meth:`ModalSeries.resolved`), Laplace elsewhere."""
+    keep = (functools.partial(series.resolved, times=times)
+            if times is not None and hasattr(series, "resolved") else None)
+
     def at(depth, t):
         return switched(t, t_modal, lambda s: laplace_at(depth, s),
-                        lambda s: series.concentration_at(depth, s))
+                        lambda s: series.concentration_at(depth, s), keep)
     return at
 
 
@@ -379,13 +384,14 @@ def _cheaper_plan(column, times, depths, rows, tolerance, max_modes, initial, bo
 
 def modal_evaluator(choice, times, series, fallback):
     """(series, C(depth, t)) for the continuous-time metrics: the modal series from the
-    first output time after which it served every time (Laplace before), or (None,
-    ``fallback``) when it serves no such tail."""
+    first output time after which it served every time (Laplace before, and right after
+    a signal change: :func:`_auto_evaluator`), or (None, ``fallback``) when it serves no
+    such tail."""
     cut = vouched_from(choice.engine == "modal", times)
     if series is not None and cut < times.size and (times > 0).any():
         # from the first positive time on: at t = 0 the state itself (the fallback)
         first = max(cut, int(np.argmax(times > 0)))
-        return series, _auto_evaluator(series, float(times[first]), fallback)
+        return series, _auto_evaluator(series, float(times[first]), fallback, times)
     return None, fallback
 
 

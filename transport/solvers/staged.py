@@ -23,6 +23,7 @@ import numpy as np
 
 from transport.solvers.checks import QUANTITIES, budget_residual, own_errors, quantities
 from transport.solvers.laplace import PiecewiseCubic, solve_laplace
+from transport.solvers.laplace.contour import default_nodes
 from transport.model.column import InitialState
 from transport.solvers.modal.projection import initial_profile
 
@@ -164,6 +165,10 @@ def _same_mass(initial, stored, new_mass):
     return scaled, abs(f - 1.0) * cmax * (1 + 1e-6)
 
 
+READ_BLOCK = 1_000_000  # transform evaluations x segments per call of a long read (each
+#                        segment of a handed-over cubic state holds a value per s: 16 MB)
+
+
 @dataclass
 class StagedLaplace:
     """Per-stage initial states (local depth) and their hand-over error bounds."""
@@ -188,9 +193,15 @@ class StagedLaplace:
             tl = t[sel] - st.start
             vals = np.empty(tl.size)
             pos = tl > 0
-            if pos.any():
-                vals[pos] = solve_laplace(col, tl[pos], [max(zl, 0.0)],
-                                          initial=self.initials[i]).concentration[:, 0]
+            if pos.any():  # in blocks of about READ_BLOCK evaluations x segments
+                at = np.flatnonzero(pos)
+                at = at[np.argsort(tl[at], kind="stable")]
+                segments = len(getattr(self.initials[i], "tops", col.layers))
+                # the worst case: every time retried on a contour of its own
+                work = at.size * default_nodes(col) * segments
+                for part in np.array_split(at, max(1, int(np.ceil(work / READ_BLOCK)))):
+                    vals[part] = solve_laplace(col, tl[part], [max(zl, 0.0)],
+                                               initial=self.initials[i]).concentration[:, 0]
             if (~pos).any():
                 vals[~pos] = initial_profile(col, self.initials[i], np.array([max(zl, 0.0)]))[0]
             out[sel] = vals

@@ -63,6 +63,28 @@ class TimelineSeries:
     def concentration_at(self, depth, times):
         return self.concentration(np.array([float(depth)]), times)[:, 0]
 
+    def resolved(self, t, times) -> np.ndarray:
+        """True at the times ``t`` at which the stage series are sized to be accurate:
+        not between a stage start (or a signal change within a stage) and the first
+        output time or stage end after it (as :meth:`ModalSeries.resolved`; a stage's
+        series is sized for those gaps, and a handed-over state rings right after its
+        stage starts: 0.09 of the source 0.05 yr after a source removal)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        stages = self.timeline.stages
+        starts = [float(st.start) for st in stages]
+        marks = np.union1d(np.asarray(times, float), starts)
+        changes = set()
+        for i, (st, ser) in enumerate(zip(stages, self.series)):
+            end = starts[i + 1] if i + 1 < len(stages) else np.inf
+            changes.update(st.start + c for c in ser.change_times() if st.start + c < end)
+        ok = np.ones(t.size, bool)
+        for c in changes:
+            if c > 0:
+                later = marks[marks > c]
+                until = float(later.min()) if later.size else np.inf
+                ok &= ~((t > c) & (t < until))
+        return ok
+
     def _by_stage(self, z, t, fn):
         z = np.atleast_1d(np.asarray(z, float))
         t = np.atleast_1d(np.asarray(t, float))

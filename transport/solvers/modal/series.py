@@ -96,6 +96,24 @@ class ModalSeries(TimeIntegrals):
         lam = self.modes.lam
         return (math.log(1 / tolerance) + math.log(lam.size) + 2) / max(float(lam[-1]), 1e-300)
 
+    def resolved(self, t, times) -> np.ndarray:
+        """True at the times ``t`` at which the series is sized to be accurate: not
+        between a signal change and the first output time ``times`` after it (it is
+        sized for the gaps from each change to the output times, and the output times
+        are where another engine vouches for it).  Right after a change the truncated
+        sum rings: -30 mg/L under a 120 mg/L source 0.2 yr after it is switched off, and
+        in an advective column the tail bound (:meth:`resolved_after`) is still 170x off
+        0.65 yr after a change that the first output time follows by 12 yr."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        times = np.asarray(times, dtype=float)
+        ok = np.ones(t.size, bool)
+        for c in self.change_times():
+            if c > 0:
+                later = times[times > c]
+                until = float(later.min()) if later.size else np.inf
+                ok &= ~((t > c) & (t < until))
+        return ok
+
     def change_times(self):
         out = {0.0}
         for sig in self.signals:
