@@ -54,10 +54,12 @@ class _Memo:
 
 def unresolved_windows(solution, tolerance: float = 1e-8):
     """Intervals (c, c + tau) just after each signal change or stage start where the
-    truncated modal series does not meet the tolerance; metrics never sample inside."""
+    truncated modal series does not meet the tolerance; metrics never sample inside.
+    None for a checked solution (an ``evaluator``): its curve is served there by another
+    engine (``resolved`` of the series), so the metrics and plots sample it all."""
     series = solution.series
     out = []
-    if series is None:
+    if series is None or getattr(solution, "evaluator", None) is not None:
         return out
     if hasattr(series, "timeline"):
         for st, ser in zip(series.timeline.stages, series.series):
