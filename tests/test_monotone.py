@@ -45,7 +45,7 @@ def _col(top, bottom, q_m_yr=0.0, mu=1e-8, source=0.0):
 CASES = {
     "diffusion, fixed top": (_col(Boundary("concentration", C0),
                                   Boundary("concentration", 0.0)), True),
-    "downward Pe ~50, free outflow": (_col(Boundary("concentration", C0),
+    "downward Pe ~100, free outflow": (_col(Boundary("concentration", C0),
                                            Boundary("free-outflow"), 0.5), True),
     "upward flow, sealed top": (_col(Boundary("sealed"), Boundary("concentration", C0),
                                      -0.3), True),
