@@ -145,7 +145,7 @@ def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch):
     assert ref > 1e-3 * tol * C0  # the peak is not zero: the check has something to see
 
 
-# column Peclet number q L / (theta D) of the layers in series: 0, ~30 upward, ~300 down
+# column Peclet number q L / (theta D) of the layers in series: 0, ~60 upward, ~300 down
 REGIMES = {
     "diffusion": _col(Boundary("concentration", C0), Boundary("concentration", 0.0)),
     "upward, sealed top": _col(Boundary("sealed"), Boundary("concentration", C0), -0.3),
