@@ -4,7 +4,7 @@ The modal series is sized for the gaps from each signal change to the output tim
 (and vouched for there by the Laplace engine); between a change and the first output
 time after it the truncated sum rings: before this was handled, a top concentration
 switched off at 8 yr read, between the output times 5 and 20 yr, up to 7.7e5 times
-the source concentration at 4.32 m in an advective column (Peclet ~6), and 0.1-7 times
+the source concentration at 4.32 m in an advective column (Peclet ~50), and 0.1-7 times
 it in slower ones; after a source removal in a staged run, up to 0.09 of it. The curve
 is now the Laplace engine's there (``resolved`` of the modal and the staged series).
 
