@@ -54,3 +54,32 @@ def test_failed_connection_leaves_no_default_client(monkeypatch, tmp_path):
     # and a NetCDF write does not go looking for one
     xr.Dataset({"c": ("x", np.arange(3.0))}).to_netcdf(tmp_path / "after.nc")
     assert (tmp_path / "after.nc").stat().st_size > 0
+
+
+def test_a_result_lost_with_the_last_worker_stops_instead_of_hanging():
+    """A chunk reported finished whose worker dies before its result is fetched is
+    computed again, which needs a worker: fetching it waited forever when the last
+    worker went at that moment (seen once in a full test run, the site run hanging in
+    Future.result). The fetch is now watched like the wait: no worker for the
+    ``--worker-wait`` limit stops the run with a ClusterError (common practice: a wait
+    that cannot end must stop with a clear error). Fake client and future: the race
+    itself cannot be forced on a real cluster."""
+    import time
+
+    from transport.site.batch import _WorkerWatch
+
+    class Lost:
+        calls = 0
+
+        def result(self, timeout=None):
+            Lost.calls += 1
+            raise TimeoutError("the result is being recomputed")
+
+    class NoWorkers:
+        def nthreads(self):
+            return {}
+    watch = _WorkerWatch(NoWorkers(), wait=None, scheduler="tcp://127.0.0.1:1", limit=0.05)
+    start = time.monotonic()
+    with pytest.raises(ClusterError, match="no Dask worker has been connected"):
+        watch.result(Lost())
+    assert Lost.calls >= 2 and time.monotonic() - start < 5.0

@@ -252,8 +252,7 @@ def _on_cluster(site, chunks, samples, scheduler, window, solve, worker_wait):
             yield from _windowed(
                 lambda a, b: client.submit(solve, chunk_site(site, a, b), 0, b - a, draws,
                                            pure=False),
-                chunks, window, watch.done,
-                lambda fut: (fut.result(), fut.release())[0])
+                chunks, window, watch.done, lambda fut: (watch.result(fut), fut.release())[0])
     except KilledWorker as exc:
         raise ClusterError(
             f"a chunk of the run stopped every Dask worker that ran it at {scheduler!r} "
@@ -281,19 +280,32 @@ class _WorkerWatch:
             try:
                 return self.wait(pending, timeout=_POLL, return_when="FIRST_COMPLETED").done
             except TimeoutError:
-                pass
-            if self.client.nthreads():
-                self.alone_since = None
-                continue
-            now = time.monotonic()
-            self.alone_since = self.alone_since or now
-            if self.limit is not None and now - self.alone_since >= self.limit:
-                raise ClusterError(
-                    f"no Dask worker has been connected to the scheduler at "
-                    f"{self.scheduler!r} for {self.limit:g} s (workers lost, or none "
-                    "started); chunks already finished are kept: start workers (`dask "
-                    "worker ADDRESS`) and run the same command again to resume, or run "
-                    "it without --scheduler to use local worker processes") from None
+                self._check()
+
+    def result(self, fut):
+        """``fut.result()``, watched the same way: a finished chunk whose worker died
+        before its result was fetched is computed again, which needs a worker (this
+        waited forever when the last worker went at that moment)."""
+        while True:
+            try:
+                return fut.result(timeout=_POLL)
+            except TimeoutError:
+                self._check()
+
+    def _check(self):
+        """Raise ClusterError once no worker has been connected for ``limit`` s."""
+        if self.client.nthreads():
+            self.alone_since = None
+            return
+        now = time.monotonic()
+        self.alone_since = self.alone_since or now
+        if self.limit is not None and now - self.alone_since >= self.limit:
+            raise ClusterError(
+                f"no Dask worker has been connected to the scheduler at "
+                f"{self.scheduler!r} for {self.limit:g} s (workers lost, or none "
+                "started); chunks already finished are kept: start workers (`dask "
+                "worker ADDRESS`) and run the same command again to resume, or run "
+                "it without --scheduler to use local worker processes") from None
 
 
 def _windowed(submit, chunks, window, wait_done, result):
