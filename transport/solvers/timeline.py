@@ -26,7 +26,7 @@ from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError,
 from transport.solvers.engines import checked_fields, modal_evaluator
 from transport.solvers.modal.operator import ZONE_NOT_MODAL
 from transport.solvers.modal.projection import initial_profile
-from transport.solvers.modal.series import build_series
+from transport.solvers.modal.series import build_series, outside_change_windows
 from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
                                             earliest_time_after_change)
 from transport.solvers.result import Solution, checked_arithmetic
@@ -69,21 +69,14 @@ class TimelineSeries:
         output time or stage end after it (as :meth:`ModalSeries.resolved`; a stage's
         series is sized for those gaps, and a handed-over state rings right after its
         stage starts: 0.09 of the source 0.05 yr after a source removal)."""
-        t = np.atleast_1d(np.asarray(t, dtype=float))
         stages = self.timeline.stages
         starts = [float(st.start) for st in stages]
-        marks = np.union1d(np.asarray(times, float), starts)
         changes = set()
         for i, (st, ser) in enumerate(zip(stages, self.series)):
             end = starts[i + 1] if i + 1 < len(stages) else np.inf
             changes.update(st.start + c for c in ser.change_times() if st.start + c < end)
-        ok = np.ones(t.size, bool)
-        for c in changes:
-            if c > 0:
-                later = marks[marks > c]
-                until = float(later.min()) if later.size else np.inf
-                ok &= ~((t > c) & (t < until))
-        return ok
+        return outside_change_windows(t, sorted(changes),
+                                      np.union1d(np.asarray(times, float), starts))
 
     def _by_stage(self, z, t, fn):
         z = np.atleast_1d(np.asarray(z, float))

@@ -67,6 +67,21 @@ def _decay(lam, t):
     return np.exp(x, out=out, where=~(x < _UNDERFLOW))  # NaN is evaluated (stays NaN)
 
 
+def outside_change_windows(t, changes, marks) -> np.ndarray:
+    """True at the times ``t`` outside every interval from a change c > 0 to the first
+    of ``marks`` (output times, stage ends) after it: where a series sized for the gaps
+    from its changes to those marks is accurate."""
+    t = np.atleast_1d(np.asarray(t, dtype=float))
+    marks = np.asarray(marks, dtype=float)
+    ok = np.ones(t.size, bool)
+    for c in changes:
+        if c > 0:
+            later = marks[marks > c]
+            until = float(later.min()) if later.size else np.inf
+            ok &= ~((t > c) & (t < until))
+    return ok
+
+
 @dataclass(frozen=True)
 class ModalSeries(TimeIntegrals):
     """Everything needed to evaluate the solution at any depth and time."""
@@ -104,15 +119,7 @@ class ModalSeries(TimeIntegrals):
         sum rings: -30 mg/L under a 120 mg/L source 0.2 yr after it is switched off, and
         in an advective column the tail bound (:meth:`resolved_after`) is still 170x off
         0.65 yr after a change that the first output time follows by 12 yr."""
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        times = np.asarray(times, dtype=float)
-        ok = np.ones(t.size, bool)
-        for c in self.change_times():
-            if c > 0:
-                later = times[times > c]
-                until = float(later.min()) if later.size else np.inf
-                ok &= ~((t > c) & (t < until))
-        return ok
+        return outside_change_windows(t, self.change_times(), times)
 
     def change_times(self):
         out = {0.0}
