@@ -12,6 +12,7 @@ Conventions
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -199,10 +200,13 @@ class Column:
                         f"{lay.partition_to_next}) with a nonzero Darcy flux ({q} m/s) is not "
                         "physical in this 1-D model; set darcy_flux to 0 or the partition to 1")
 
-    @property
+    @functools.cached_property
     def interfaces(self) -> np.ndarray:
-        """Depths of the layer faces, 0 first, total thickness last (m)."""
-        return np.concatenate([[0.0], np.cumsum([lay.thickness for lay in self.layers])])
+        """Depths of the layer faces, 0 first, total thickness last (m); computed once
+        per column (read-only: the layers are frozen)."""
+        faces = np.concatenate([[0.0], np.cumsum([lay.thickness for lay in self.layers])])
+        faces.flags.writeable = False
+        return faces
 
     @property
     def length(self) -> float:

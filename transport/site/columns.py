@@ -16,6 +16,7 @@ The range of every drawn value is checked once for the whole sample matrix
 from __future__ import annotations
 
 import dataclasses
+import math
 
 import numpy as np
 
@@ -161,9 +162,21 @@ def boring_column(site, boring, layers=None, darcy_flux=None) -> Column:
     site's own values)."""
     if layers is None:
         layers, darcy_flux = material_layers(site)
-    stack = tuple(dataclasses.replace(layers[m], thickness=b - a)
-                  for a, b, m in boring.intervals)
+    stack = tuple(_with_thickness(layers[m], b - a) for a, b, m in boring.intervals)
     return Column(stack, site.top, site.bottom, darcy_flux)
+
+
+def _with_thickness(layer, thickness):
+    """``dataclasses.replace(layer, thickness=thickness)`` without validating the
+    layer's other properties again (a Monte Carlo run builds one layer per interval,
+    realization and boring); a thickness that is not a positive finite float goes
+    through ``replace`` and its checks."""
+    if not (isinstance(thickness, float) and 0.0 < thickness < math.inf):
+        return dataclasses.replace(layer, thickness=thickness)
+    new = object.__new__(type(layer))
+    new.__dict__.update(layer.__dict__)
+    new.__dict__["thickness"] = float(thickness)
+    return new
 
 
 _DRAW_DIMENSIONS = {**MATERIAL_DIMENSIONS, "free_water_diffusivity": "diffusivity",

@@ -137,7 +137,10 @@ class ModalSeries(TimeIntegrals):
     def signal_values(self, t):
         """Signal values b_k(t), (K, nt); at a change time the value just before it."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        return np.array([s.value(t, left=True) for s in self.signals])
+        out = np.zeros((len(self.signals), t.size))
+        for k in self._active():  # a signal without atoms is 0
+            out[k] = self.signals[k].value(t, left=True)
+        return out
 
     def signal_integrals(self, t):
         t = np.atleast_1d(np.asarray(t, dtype=float))
@@ -228,8 +231,11 @@ class ModalSeries(TimeIntegrals):
             yet responded to a change at that very instant).
         """
         t = np.atleast_1d(np.asarray(t, dtype=float))
-        return np.array([self.eps * s.value(t, left=True) - s.derivative(t)
-                         for s in self.signals])
+        out = np.zeros((len(self.signals), t.size))
+        for k in self._active():  # a signal without atoms drives nothing
+            s = self.signals[k]
+            out[k] = self.eps * s.value(t, left=True) - s.derivative(t)
+        return out
 
     def concentration(self, z, t):
         """C (kg m-3), shape (t.size, z.size)."""
@@ -341,7 +347,8 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
     :func:`~transport.solvers.modal.sizing.mode_count` asks for.
     """
     initial = initial if initial is not None else InitialState.clean()
-    op = build_operator(column)
+    # the operator of known modes is this column's (built by the shared solve)
+    op = build_operator(column) if known_modes is None else known_modes.op
     if n_modes is None:
         if t_min is None or t_min <= 0:
             raise InputError("give the earliest positive output time (t_min) or n_modes")
