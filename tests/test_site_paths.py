@@ -228,8 +228,8 @@ def test_previous_implementation_gives_identical_numbers(runs):
 
 def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
     """Every column of a boring takes its eigenvalues and eigenfunctions from the
-    shared (compiled) solve: the Monte Carlo columns side by side, the deterministic
-    column alone; no column solves its own spectrum or shoots its own modes but where
+    shared (compiled) solve (the Monte Carlo columns side by side, the deterministic
+    column alone), and every Monte Carlo column its series from the build side by side; no column solves its own spectrum or shoots its own modes but where
     the computed spectrum asks for more modes than the estimate (none here); so the
     summaries and fields checked above against columns
     solved alone come from the shared path."""
@@ -245,14 +245,24 @@ def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
     def counted_modes(op, lam):
         shot.append(lam.size)
         return real_modes(op, lam)
+    built_alone = []
+    real_metrics = chunks.realization_metrics
+
+    def metrics(*args):  # the last argument: the series built side by side, or None
+        built_alone.append(args[-1] is None)
+        return real_metrics(*args)
     monkeypatch.setattr(sizing, "eigenvalues", counted)
     monkeypatch.setattr(series_module, "modes", counted_modes)
+    monkeypatch.setattr(chunks, "realization_metrics", metrics)
     chunks.clear_caches()
     chunks.solve_chunk(site, 0, 2, samples)
     chunks.clear_caches()
     # the demo's estimates suffice: nothing solved alone (before the deterministic
     # columns joined the compiled path, each solved its own spectrum here)
     assert alone == [] and shot == []
+    # and every realization's series was built with the boring's others
+    # (clean_series_many; tests/test_batched_series.py: the same numbers to the bit)
+    assert len(built_alone) == 2 * site.realizations and not any(built_alone)
 
 
 def test_shared_modes_leave_failures_to_each_column(monkeypatch):

@@ -412,7 +412,8 @@ def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
 
 
 @checked_arithmetic
-def realization_metrics(site, col, depth, t_start, times, initial=None, known=None):
+def realization_metrics(site, col, depth, t_start, times, initial=None, known=None,
+                        series=None):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 
     The receptor curve is the modal series from the scan sample on which its rounding
@@ -423,12 +424,15 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     a rising column peaks at the end); a peak within the tolerance of zero is not
     polished (:func:`curve_metrics`); both are checked against the Laplace engine
     (:func:`verified_metrics`) on the scale the data allow, or where they allow none the
-    column's own largest C at the end or the peak.  ``known``: modes of a shared solve."""
+    column's own largest C at the end or the peak.  ``known``: modes of a shared solve;
+    ``series``: the column's series built with the boring's other columns
+    (:func:`transport.solvers.modal.series.clean_series_many`, the same numbers)."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        series = site_series(col, earliest_time_after_change(col, times), site.tolerance,
-                             initial=initial, known=known)
+        if series is None:
+            series = site_series(col, earliest_time_after_change(col, times),
+                                 site.tolerance, initial=initial, known=known)
     probe, tol, t_end = _Probe(series, [depth]), site.tolerance, site.design_life
     bounded = concentration_bounds(col, initial, t_end).scale
     scale = bounded or series.largest_vouched(t_end)

@@ -30,7 +30,7 @@ from transport.site.columns import boring_column, check_draws, material_layers
 from transport.site.uncertainty import sample_matrix
 from transport.solvers.checks import UnreliableResultError
 from transport.solvers.modal.operator import SpectrumError, build_operator
-from transport.solvers.modal.series import earliest_time_after_change
+from transport.solvers.modal.series import clean_series_many, earliest_time_after_change
 from transport.solvers.modal.sizing import required_modes
 from transport.solvers.modal.eigenfunctions import modes_many
 from transport.solvers.modal.spectrum import eigenvalues_many
@@ -173,6 +173,17 @@ def shared_modes(cols, times, tolerance: float) -> list:
     return out
 
 
+def _shared_series(site, cols, times, known, initial, depth) -> list:
+    """The series of a boring's Monte Carlo columns built side by side, with their
+    fields at the receptor (:func:`~transport.solvers.modal.series.clean_series_many`:
+    the numbers of each column's own build); None for a column built on its own (a
+    measured initial state: every column)."""
+    if initial is not None and initial.kind != "clean":
+        return [None] * len(cols)
+    t_mins = [earliest_time_after_change(col, times) for col in cols]
+    return clean_series_many(cols, t_mins, site.tolerance, MAX_MODES, known, [depth])
+
+
 @contextlib.contextmanager
 def _naming(what):
     """Puts the boring (and realization) in front of a refusal's message: which column
@@ -248,12 +259,16 @@ def _solve_chunk(site, start, stop, samples):
         todo = [j for j, f in enumerate(found_all) if f is None]
         known = dict(zip(todo, shared_modes([cols[j] for j in todo], times,
                                             site.tolerance)))
+        built = dict(zip(todo, _shared_series(site, [cols[j] for j in todo], times,
+                                              [known[j] for j in todo], initial,
+                                              boring.receptor_depth)))
         for j, col_j in enumerate(cols):
             found = found_all[j]
             if found is None:
                 with _naming(f"{boring.id}, Monte Carlo realization {j + 1}"):
                     found = realization_metrics(site, col_j, boring.receptor_depth,
-                                                t_start, times, initial, known[j])
+                                                t_start, times, initial, known[j],
+                                                built[j])
                 _METRICS_CACHE.put(keys[j], found)
             bt[j], pk[j], msgs = found
             notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]

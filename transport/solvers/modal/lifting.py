@@ -26,7 +26,7 @@ from scipy.linalg import solve_banded
 
 from transport.solvers.modal.operator import Operator
 
-__all__ = ["SteadyResponses", "steady_responses"]
+__all__ = ["SteadyResponses", "steady_responses", "steady_responses_many", "evaluate_many"]
 
 
 @dataclass(frozen=True)
@@ -51,17 +51,7 @@ class SteadyResponses:
 
     def evaluate(self, z):
         """u and k u' of each response at depths z: arrays (z.size, K), K = N + 2."""
-        op = self.op
-        z = np.atleast_1d(np.asarray(z, dtype=float))
-        lay = np.clip(np.searchsorted(op.z, z, side="right") - 1, 0, op.n_layers - 1)
-        f1, d1, f2, d2, pp, dp = _basis(self, lay, z - op.z[lay])
-        u = f1[:, None] * self.c1[lay] + f2[:, None] * self.c2[lay]
-        du = d1[:, None] * self.c1[lay] + d2[:, None] * self.c2[lay]
-        rows = np.arange(z.size)
-        u[rows, 2 + lay] += op.source[lay] * pp
-        du[rows, 2 + lay] += op.source[lay] * dp
-        return u, op.k[lay][:, None] * du
-
+        return evaluate_many([self], z)[0]
 
     def layer_sums(self, z, w):
         """sum of w_q u(z_q) over the depths z_q in each layer: (N, K), without forming
@@ -80,30 +70,37 @@ class SteadyResponses:
         return out
 
 
-def _roots(op, m_eff):
-    q, k = op.q, op.k
+def _roots(q, k, m_eff):
+    """(r-, r+) per layer: the roots of k r^2 - q r - m_eff = 0 in the forms without
+    cancellation for the flow direction; ``q`` a float or an array broadcasting
+    against k (one flux per column of a batch: both forms are computed, each column
+    takes its own, element by element as for a lone column)."""
     sq = np.sqrt(q * q + 4.0 * k * m_eff)
-    if q >= 0:
-        r_plus = (q + sq) / (2 * k)
-        r_minus = np.where(q + sq > 0, -2.0 * m_eff / np.where(q + sq > 0, q + sq, 1.0), 0.0)
-    else:
-        r_minus = (q - sq) / (2 * k)
-        r_plus = np.where(sq - q > 0, 2.0 * m_eff / np.where(sq - q > 0, sq - q, 1.0), 0.0)
-    return r_minus, r_plus
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        rp_down = (q + sq) / (2 * k)
+        rm_down = np.where(q + sq > 0, -2.0 * m_eff / np.where(q + sq > 0, q + sq, 1.0), 0.0)
+        rm_up = (q - sq) / (2 * k)
+        rp_up = np.where(sq - q > 0, 2.0 * m_eff / np.where(sq - q > 0, sq - q, 1.0), 0.0)
+    down = np.asarray(q) >= 0
+    return np.where(down, rm_down, rm_up), np.where(down, rp_down, rp_up)
 
 
 def _basis(resp, lay, s):
     """Basis functions, derivatives and the particular solution P (unit sigma) at local
     depths s in layers ``lay`` (an index array of the size of s, or one layer index)."""
-    op = resp.op
     s = np.asarray(s, dtype=float)
     lay = np.broadcast_to(np.asarray(lay), s.shape)
-    l = op.thickness[lay]
-    rm, rp = resp.r_minus[lay], resp.r_plus[lay]
+    op = resp.op
+    return _basis_of(op.thickness[lay], resp.r_minus[lay], resp.r_plus[lay],
+                     resp.exp_form[lay], resp.m_eff[lay], op.k[lay], op.q, s)
+
+
+def _basis_of(l, rm, rp, expo, me, k, q, s):
+    """:func:`_basis` from the layer values at each depth (arrays of the shape of s;
+    ``q`` a float or an array broadcasting against them, one flux per column)."""
     f1 = np.exp(rm * s)
     d1 = rm * f1
     delta = rp - rm
-    expo = resp.exp_form[lay]
     pos = delta > 0
     with np.errstate(over="ignore", invalid="ignore"):
         # e^{r+ (s - l)} where (r+ - r-) l > 1; elsewhere the bounded difference form
@@ -114,11 +111,10 @@ def _basis(resp, lay, s):
         d2_d = rm * f2_d + np.exp(np.where(expo, 0.0, rp * s))
     f2 = np.where(expo, f2_e, f2_d)
     d2 = np.where(expo, rp * f2_e, d2_d)
-    me, k = resp.m_eff[lay], op.k[lay]
-    if op.q != 0:
-        p_flow, dp_flow = s / op.q, np.full_like(s, 1.0 / op.q)
-    else:
-        p_flow, dp_flow = -s * s / (2 * k), -s / k
+    flow = np.asarray(q) != 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p_flow = np.where(flow, s / q, -s * s / (2 * k))
+        dp_flow = np.where(flow, np.full_like(s, 1.0) * (np.float64(1.0) / q), -s / k)
     react = me > 0
     pp = np.where(react, 1.0 / np.where(react, me, 1.0), p_flow)
     dp = np.where(react, 0.0, dp_flow)
@@ -127,64 +123,124 @@ def _basis(resp, lay, s):
 
 def steady_responses(op: Operator, eps: float = 0.0) -> SteadyResponses:
     """Steady responses to a unit top value, unit bottom value and the layer sources."""
-    N = op.n_layers
-    m_eff = op.m + eps * op.a
-    rm, rp = _roots(op, m_eff)
-    exp_form = (rp - rm) * op.thickness > 1.0
+    return steady_responses_many([op], [eps])[0]
+
+
+def _stack(ops, name):
+    return np.stack([getattr(op, name) for op in ops])
+
+
+def steady_responses_many(ops, eps) -> list:
+    """[:func:`steady_responses` (op, e) for op, e in zip(ops, eps)] for operators with
+    the same number of layers (a boring's Monte Carlo columns), computed side by side:
+    the same arithmetic element by element, and the banded systems solved as ONE
+    block-diagonal banded system in one LAPACK call (its band is the same, the entries
+    coupling neighbouring blocks are zero: a zero candidate is never chosen as a pivot
+    over a nonzero one and every update a block receives from another is a zero
+    multiple, so each block's LU and solution are those of its own call, to the bit;
+    as :func:`transport.solvers.laplace.transfer._solve_banded`).  A failed or
+    non-finite batch solve is redone one operator at a time: the first operator that
+    has no steady response raises the error of its own call."""
+    R = len(ops)
+    N = ops[0].n_layers
+    if any(op.n_layers != N for op in ops):
+        return [steady_responses_many([op], [e])[0] for op, e in zip(ops, eps)]
+    k, a, m, l, src = (_stack(ops, name) for name in ("k", "a", "m", "thickness", "source"))
+    q = np.array([op.q for op in ops])[:, None]
+    m_eff = m + np.asarray(eps, dtype=float)[:, None] * a
+    rm, rp = _roots(q, k, m_eff)
+    exp_form = (rp - rm) * l > 1.0
     K = N + 2
-    resp = SteadyResponses(op, eps, rm, rp, exp_form, np.zeros((N, K)), np.zeros((N, K)), m_eff)
     n = 2 * N
-    ab = np.zeros((5, n))  # bands: u=2, l=2 ; ab[2 + r - c, c] = A[r, c]
-    rhs = np.zeros((n, K))
+    # the basis at both ends of every layer (columns 2i and 2i + 1: top and bottom)
+    lay = np.repeat(np.arange(N), 2)
+    ends_s = np.stack([np.column_stack([np.zeros(N), row]).ravel() for row in l])
+    f1, d1, f2, d2, pp, dp = _basis_of(l[:, lay], rm[:, lay], rp[:, lay], exp_form[:, lay],
+                                       m_eff[:, lay], k[:, lay], q, ends_s)
+    kk, ss = k[:, lay], src[:, lay]
+    d1, d2 = d1 * kk, d2 * kk  # k f' at the ends
+    pp, dp = pp * ss, dp * kk * ss
+    ab = np.zeros((R, 5, n))  # bands: u=2, l=2 ; ab[:, 2 + r - c, c] = A[r, c]
+    rhs = np.zeros((R, n, K))
 
     def put(r, c, val):
-        ab[2 + r - c, c] = val
+        ab[:, 2 + r - c, c] = val
 
-    # the basis at both ends of every layer, in one call
-    tops_bottoms = np.column_stack([np.zeros(N), op.thickness]).ravel()
-    f1, d1, f2, d2, pp, dp = _basis(resp, np.repeat(np.arange(N), 2), tops_bottoms)
-    ends = []
-    for i in range(N):
-        e = slice(2 * i, 2 * i + 2)
-        ends.append((f1[e], d1[e] * op.k[i], f2[e], d2[e] * op.k[i], pp[e] * op.source[i],
-                     dp[e] * op.k[i] * op.source[i]))
     # top row
-    al, be, ga = op.top_u
-    f1, d1, f2, d2, pp, dp = ends[0]
-    sc = 1.0 / max(abs(al), abs(be) * op.k[0] / op.thickness[0], 1e-300)
-    put(0, 0, sc * (al * f1[0] + be * d1[0]))
-    put(0, 1, sc * (al * f2[0] + be * d2[0]))
-    rhs[0, 0] = sc
-    rhs[0, 2] = -sc * (al * pp[0] + be * dp[0])  # layer 0 source
+    al, be = (np.array([op.top_u[j] for op in ops]) for j in (0, 1))
+    sc = 1.0 / np.maximum(np.maximum(np.abs(al), np.abs(be) * k[:, 0] / l[:, 0]), 1e-300)
+    put(0, 0, sc * (al * f1[:, 0] + be * d1[:, 0]))
+    put(0, 1, sc * (al * f2[:, 0] + be * d2[:, 0]))
+    rhs[:, 0, 0] = sc
+    rhs[:, 0, 2] = -sc * (al * pp[:, 0] + be * dp[:, 0])  # layer 0 source
     for i in range(N - 1):
-        A_, B_ = ends[i], ends[i + 1]
+        bot, top = 2 * i + 1, 2 * i + 2  # the bottom of layer i, the top of layer i + 1
         r1, r2 = 2 * i + 1, 2 * i + 2
         c0 = 2 * i
-        put(r1, c0, A_[0][1])
-        put(r1, c0 + 1, A_[2][1])
-        put(r1, c0 + 2, -B_[0][0])
-        put(r1, c0 + 3, -B_[2][0])
-        rhs[r1, 2 + i] = -A_[4][1]
-        rhs[r1, 3 + i] = B_[4][0]
-        fs = 1.0 / max(op.k[i] / op.thickness[i], op.k[i + 1] / op.thickness[i + 1], abs(op.q))
-        put(r2, c0, fs * A_[1][1])
-        put(r2, c0 + 1, fs * A_[3][1])
-        put(r2, c0 + 2, -fs * B_[1][0])
-        put(r2, c0 + 3, -fs * B_[3][0])
-        rhs[r2, 2 + i] = -fs * A_[5][1]
-        rhs[r2, 3 + i] = fs * B_[5][0]
-    al, be, ga = op.bottom_u
-    f1, d1, f2, d2, pp, dp = ends[-1]
-    sc = 1.0 / max(abs(al), abs(be) * op.k[-1] / op.thickness[-1], 1e-300)
+        put(r1, c0, f1[:, bot])
+        put(r1, c0 + 1, f2[:, bot])
+        put(r1, c0 + 2, -f1[:, top])
+        put(r1, c0 + 3, -f2[:, top])
+        rhs[:, r1, 2 + i] = -pp[:, bot]
+        rhs[:, r1, 3 + i] = pp[:, top]
+        fs = 1.0 / np.maximum(np.maximum(k[:, i] / l[:, i], k[:, i + 1] / l[:, i + 1]),
+                              np.abs(q[:, 0]))
+        put(r2, c0, fs * d1[:, bot])
+        put(r2, c0 + 1, fs * d2[:, bot])
+        put(r2, c0 + 2, -fs * d1[:, top])
+        put(r2, c0 + 3, -fs * d2[:, top])
+        rhs[:, r2, 2 + i] = -fs * dp[:, bot]
+        rhs[:, r2, 3 + i] = fs * dp[:, top]
+    al, be = (np.array([op.bottom_u[j] for op in ops]) for j in (0, 1))
+    sc = 1.0 / np.maximum(np.maximum(np.abs(al), np.abs(be) * k[:, -1] / l[:, -1]), 1e-300)
     r = n - 1
-    put(r, n - 2, sc * (al * f1[1] + be * d1[1]))
-    put(r, n - 1, sc * (al * f2[1] + be * d2[1]))
-    rhs[r, 1] = sc
-    rhs[r, 1 + N] = -sc * (al * pp[1] + be * dp[1])  # last layer source
-    sol = solve_banded((2, 2), ab, rhs)
-    if not np.all(np.isfinite(sol)):
-        raise ArithmeticError("steady response is not finite: the column has no steady state "
-                              "for these boundaries")
-    c1 = sol[0::2]
-    c2 = sol[1::2]
-    return SteadyResponses(op, eps, rm, rp, exp_form, c1, c2, m_eff)
+    put(r, n - 2, sc * (al * f1[:, -1] + be * d1[:, -1]))
+    put(r, n - 1, sc * (al * f2[:, -1] + be * d2[:, -1]))
+    rhs[:, r, 1] = sc
+    rhs[:, r, 1 + N] = -sc * (al * pp[:, -1] + be * dp[:, -1])  # last layer source
+    sol = None
+    if R > 1 and np.isfinite(ab).all() and np.isfinite(rhs).all():
+        try:
+            sol = solve_banded((2, 2), np.concatenate(list(ab), axis=1),
+                               rhs.reshape(R * n, K)).reshape(R, n, K)
+        except np.linalg.LinAlgError:
+            sol = None
+        if sol is not None and not np.isfinite(sol).all():
+            sol = None
+    out = []
+    for j, op in enumerate(ops):
+        s_j = sol[j] if sol is not None else solve_banded((2, 2), ab[j], rhs[j])
+        if not np.all(np.isfinite(s_j)):
+            raise ArithmeticError("steady response is not finite: the column has no steady "
+                                  "state for these boundaries")
+        out.append(SteadyResponses(op, float(eps[j]), rm[j], rp[j], exp_form[j], s_j[0::2],
+                                   s_j[1::2], m_eff[j]))
+    return out
+
+
+def evaluate_many(resps, z) -> list:
+    """[r.evaluate(z) for r in resps]: u and k u' of each column's responses at depths
+    z, for columns with the same layer faces (a boring's Monte Carlo columns) side by
+    side, element by element as each alone (others one at a time)."""
+    z = np.atleast_1d(np.asarray(z, dtype=float))
+    op0 = resps[0].op
+    if any(not np.array_equal(r.op.z, op0.z) for r in resps):
+        return [evaluate_many([r], z)[0] for r in resps]
+    lay = np.clip(np.searchsorted(op0.z, z, side="right") - 1, 0, op0.n_layers - 1)
+    s = z - op0.z[lay]
+    q = np.array([r.op.q for r in resps])[:, None]
+
+    def at(name, owner="resp"):
+        return np.stack([getattr(r if owner == "resp" else r.op, name)[lay] for r in resps])
+    f1, d1, f2, d2, pp, dp = _basis_of(at("thickness", "op"), at("r_minus"), at("r_plus"),
+                                       at("exp_form"), at("m_eff"), at("k", "op"), q,
+                                       np.broadcast_to(s, (len(resps), z.size)))
+    rows = np.arange(z.size)
+    out = []
+    for j, r in enumerate(resps):
+        u = f1[j][:, None] * r.c1[lay] + f2[j][:, None] * r.c2[lay]
+        du = d1[j][:, None] * r.c1[lay] + d2[j][:, None] * r.c2[lay]
+        u[rows, 2 + lay] += r.op.source[lay] * pp[j]
+        du[rows, 2 + lay] += r.op.source[lay] * dp[j]
+        out.append((u, r.op.k[lay][:, None] * du))
+    return out
