@@ -164,13 +164,26 @@ class ModalSeries(TimeIntegrals):
             self._cache["atoms"] = (initial, groups)
         return self._cache["atoms"]
 
+    def _decays(self, t):
+        """e^{-lambda_n t_j} (:func:`_decay`); the last one of up to 65,536 entries is
+        kept, read-only: a realization's scan asks for the same samples in its rounding
+        bound and in its values."""
+        key = t.tobytes()
+        found = self._cache.get("decay")
+        if found is not None and found[0] == key:
+            return found[1]
+        out = _decay(self.modes.lam, t)
+        if out.size <= 1 << 16:
+            out.flags.writeable = False
+            self._cache["decay"] = (key, out)
+        return out
+
     def coefficients(self, t):
         """a_n(t), shape (n, t.size)."""
         t = np.atleast_1d(np.asarray(t, dtype=float))
         lam = self.modes.lam
         initial, groups = self._atom_groups()
-        out = _decay(lam, t)
-        out *= initial[:, None]
+        out = self._decays(t) * initial[:, None]
         for (kind, t0, rate), w in groups.items():
             unit = Schedule(((kind, t0, 1.0, rate),))
             out += w[:, None] * unit.modal(lam, t, self.eps, left=True)
@@ -289,7 +302,7 @@ class ModalSeries(TimeIntegrals):
         lam = self.modes.lam
         size = None  # a clean column: 0 x e^{-lambda t} (<= 1) is 0, not evaluated
         if np.any(self.proj0) or lam.min(initial=0.0) < 0:
-            size = np.abs(self.proj0)[:, None] * _decay(lam, t)
+            size = np.abs(self.proj0)[:, None] * self._decays(t)
         for k in self._active():
             sched = self.signals[k]
             amp = sum(abs(a) for _, _, a, _ in sched.atoms)
@@ -298,8 +311,8 @@ class ModalSeries(TimeIntegrals):
             i = np.searchsorted(changes, t, side="right")
             last = np.where(i > 0, changes[np.maximum(i - 1, 0)] if changes.size else 0.0,
                             0.0)
-            term = np.abs(self.lift_coef[k])[:, None] * amp * _decay(
-                lam, np.maximum(t - last, 0.0))
+            term = np.abs(self.lift_coef[k])[:, None] * amp * self._decays(
+                np.maximum(t - last, 0.0))
             size = term if size is None else size + term  # (0 + term is term: >= 0)
         if size is None:
             size = np.zeros((lam.size, t.size))
