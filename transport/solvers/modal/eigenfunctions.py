@@ -94,18 +94,16 @@ def evaluate_many(modes_list, z, exp_sign: int = 0) -> list:
     s = (z - first.z[lay])[:, None]
     l = first.thickness[lay][:, None]
 
-    def per_mode(name):  # (nz, modes): the mode's own operator's value in layer lay
-        return np.concatenate([np.broadcast_to(getattr(md.op, name)[lay][:, None],
-                                               (z.size, md.lam.size)) for md in batch],
-                              axis=1)
-    expo = exp_sign * np.concatenate(
-        [np.broadcast_to((md.op.A[lay] + md.op.alpha[lay] * s[:, 0])[:, None],
-                         (z.size, md.lam.size)) for md in batch], axis=1)
+    def per_mode(values):  # (nz, modes): each mode's own operator's value at z
+        return np.repeat(np.stack(values, axis=1), sizes, axis=1)
+
+    def layer(name):
+        return per_mode([getattr(md.op, name)[lay] for md in batch])
+    expo = exp_sign * per_mode([md.op.A[lay] + md.op.alpha[lay] * s[:, 0] for md in batch])
     lam = np.concatenate([md.lam for md in batch])
     V, P, L = (np.concatenate([getattr(md, name) for md in batch], axis=1)
                for name in ("v", "p", "logs"))
-    f, d = _values(lay, s, l, per_mode("k"), per_mode("a"), per_mode("s"), expo, lam, V, P,
-                   L)
+    f, d = _values(lay, s, l, layer("k"), layer("a"), layer("s"), expo, lam, V, P, L)
     parts = iter(zip(np.split(f, np.cumsum(sizes)[:-1], axis=1),
                      np.split(d, np.cumsum(sizes)[:-1], axis=1)))
     return [o if o is not None else next(parts) for o in out]
