@@ -27,6 +27,7 @@ from scipy import stats
 from scipy.optimize import brentq
 
 from reference import crank_slab_series
+from transport.model.column import InputError
 from transport.solvers.modal.series import solve
 from transport.scenario.schema import ScenarioError, load_scenario
 from transport.site.config import load_site, parse_site
@@ -455,3 +456,14 @@ def test_a_source_zone_is_refused_when_the_site_is_read(tmp_path):
     assert info.value.key == "top.kind" and "site runs" in str(info.value)
     assert "stratiflux run" in str(info.value)
 
+
+
+def test_a_column_the_engines_cannot_take_is_named(tmp_path):
+    """A boring whose column Peclet number (about 1370: 5 m/yr through sand with a
+    0.5 mm dispersivity) is beyond what double precision represents: the InputError
+    names the boring, as a refusal does (before, the message named no boring)."""
+    toml = SITE_TOML.replace('dispersivity = "0.1 m"', 'dispersivity = "0.5 mm"').replace(
+        'darcy_flux = "0.05 m/yr"', 'darcy_flux = "5 m/yr"')
+    site = load_site(write_small_site(tmp_path, toml=toml))
+    with pytest.raises(InputError, match=r"^boring T-1: the column Peclet number"):
+        solve_site(site, realizations=0, workers=1, chunk_size=2)

@@ -159,9 +159,11 @@ def peak(conc_at, depth, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
     c = np.asarray(conc_at(depth, t), float)
     i = int(np.nanargmax(c))
     best_t, best_c = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1 and not (_gap(t[i - 1], t[i], windows)
-                                   or _gap(t[i], t[i + 1], windows)):
-        res = minimize_scalar(lambda s: -_value(conc_at, depth, s), bounds=(t[i - 1], t[i + 1]),
+    # polished between the neighbouring samples (at the first or last sample: between
+    # it and the one inside, where a peak just after the start or before the end lies)
+    lo, hi = t[max(i - 1, 0)], t[min(i + 1, t.size - 1)]
+    if lo < hi and not (_gap(lo, t[i], windows) or _gap(t[i], hi, windows)):
+        res = minimize_scalar(lambda s: -_value(conc_at, depth, s), bounds=(lo, hi),
                               method="bounded", options={"xatol": TIME_RTOL * max(t_end, 1.0)})
         if res.success and -res.fun > best_c:
             best_t, best_c = float(res.x), float(-res.fun)

@@ -187,12 +187,15 @@ def _shared_series(site, cols, times, known, initial, depth) -> list:
 @contextlib.contextmanager
 def _naming(what):
     """Puts the boring (and realization) in front of a refusal's message: which column
-    of the site no engine could vouch for."""
+    of the site no engine could vouch for, or which one the engines cannot take (a
+    column Peclet number beyond what double precision represents)."""
     try:
         yield
     except UnreliableResultError as exc:
         raise UnreliableResultError(f"boring {what}: {exc}", exc.times,
                                     exc.quantities) from None
+    except InputError as exc:
+        raise InputError(f"boring {what}: {exc}") from None
 
 
 def _one_blas_thread():

@@ -89,8 +89,12 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
                 raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
     i = t.size - 1 if nondecreasing else int(np.argmax(c))
     t_peak, c_peak = float(t[i]), float(c[i])
-    if 0 < i < t.size - 1 and c_peak > floor:
-        res = minimize_scalar(lambda s: -one(s), bounds=(t[i - 1], t[i + 1]),
+    # polished between the neighbouring samples; at the window's first or last sample
+    # between it and the one inside (a peak just after the start or just before the
+    # end lies there), where the curve can fall
+    lo, hi = t[max(i - 1, 0)], t[min(i + 1, t.size - 1)]
+    if not nondecreasing and c_peak > floor and lo < hi:
+        res = minimize_scalar(lambda s: -one(s), bounds=(lo, hi),
                               method="bounded", options={"xatol": TIME_RTOL * t_end})
         if res.success and -res.fun > c_peak:
             t_peak, c_peak = float(res.x), float(-res.fun)
