@@ -139,7 +139,7 @@ def _drawn_layers(site, samples) -> list:
     return drawn
 
 
-def shared_modes(cols, times, tolerance: float) -> list:
+def shared_modes(cols, times, tolerance: float, compiled_modes: bool = False) -> list:
     """The modes each Monte Carlo column's series will ask for (the ``required_modes``
     first ones), computed for all the columns in shared passes over the layers
     (:func:`~transport.solvers.modal.spectrum.eigenvalues_many`, then
@@ -165,7 +165,8 @@ def shared_modes(cols, times, tolerance: float) -> list:
     if not ops:
         return out
     try:
-        found = modes_many(ops, eigenvalues_many(ops, ns, compiled=True))
+        found = modes_many(ops, eigenvalues_many(ops, ns, compiled=True),
+                           compiled=compiled_modes)
     except SpectrumError:
         return out
     for i, md in zip(where, found):
@@ -261,7 +262,7 @@ def _solve_chunk(site, start, stop, samples):
         found_all = [_METRICS_CACHE.get(key) for key in keys]
         todo = [j for j, f in enumerate(found_all) if f is None]
         known = dict(zip(todo, shared_modes([cols[j] for j in todo], times,
-                                            site.tolerance)))
+                                            site.tolerance, compiled_modes=True)))
         built = dict(zip(todo, _shared_series(site, [cols[j] for j in todo], times,
                                               [known[j] for j in todo], initial,
                                               boring.receptor_depth)))

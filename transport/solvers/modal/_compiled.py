@@ -1,7 +1,8 @@
 """Compiled code of :mod:`transport.solvers.modal.kernel` (imports numba: loaded only
 when the compiled mismatch is asked for).  The equations and their order are those of
 transfer.py (LayerTerms, shoot, AngleScales, increments, end_remap, layer_integrals)
-and spectrum._mismatch, one lambda at a time."""
+and spectrum._mismatch, one lambda at a time; :func:`modes` those of
+eigenfunctions._shot_modes (shots, matching face, normalisation, closed-form norms)."""
 import math
 
 import numba
@@ -259,3 +260,84 @@ def mismatch(lam, face_in, owner, slopes, k, l, a, s, kl, lk, mkl, hl, hl3, l2, 
             dsig = (1.0 if w2[lay] > 0 else (-1.0 if w2[lay] < 0 else 0.0)) * k_lay * a[lay, r]
         dsig /= 2.0 * sig
         dG[j] = sig * acc + dsig * (vl * pl / rl - vr * pr / rr)
+
+
+@numba.njit(**_JIT)
+def modes(lam, owner, k, l, a, s, kl, lk, mkl, hl, hl3, l2, ends, la, V, P, Ls):
+    """eigenfunctions._shot_modes, one lambda at a time: the face states (v, p) and
+    log-scales of the normalised eigenfunction of lam[j] (operator owner[j]) into
+    column j of V, P, Ls (N+1, m)."""
+    m = lam.size
+    nL = k.shape[0]
+    lay10 = np.empty((10, nL))
+    w2, x, c, b12, b21, logc = lay10[0], lay10[1], lay10[2], lay10[3], lay10[4], lay10[5]
+    alpha, beta, gamma = lay10[6], lay10[7], lay10[8]
+    trig = np.empty(nL, np.bool_)
+    big = np.empty(nL, np.bool_)
+    face9 = np.empty((9, nL + 1))
+    VL, PL, LL, VR, PR, LR, Vc, Pc, Lc = (face9[0], face9[1], face9[2], face9[3], face9[4],
+                                          face9[5], face9[6], face9[7], face9[8])
+    parts = np.empty(nL)
+    for j in range(m):
+        r = owner[j]
+        _terms(lam[j], r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, True, w2, x, trig, c,
+               b12, b21, logc, big, alpha, beta, gamma)
+        if not _shoot(True, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL,
+                      LL):
+            _shoot(True, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL, LL)
+        if not _shoot(False, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR,
+                      PR, LR):
+            _shoot(False, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR, PR, LR)
+        # the face where both shots agree best (least |sin| of the angle between them),
+        # not the bottom face, which the bottom shot meets exactly
+        js, low = 0, np.inf
+        for f in range(nL):
+            sc = kl[f, r]
+            XL, XR = sc * VL[f], sc * VR[f]
+            cross = abs(XL * PR[f] - PL[f] * XR)
+            cross /= math.sqrt(XL * XL + PL[f] * PL[f])
+            cross /= math.sqrt(XR * XR + PR[f] * PR[f])
+            if cross < low:
+                js, low = f, cross
+        sc = kl[js, r]
+        xl, pl, xr, pr = sc * VL[js], PL[js], sc * VR[js], PR[js]
+        coef = (xl * xr + pl * pr) / (xr * xr + pr * pr)
+        sign = 1.0 if coef >= 0 else -1.0
+        shift = LL[js] - LR[js] + math.log(abs(coef) + 1e-300)
+        for f in range(nL + 1):
+            sc = kl[min(f, nL - 1), r]
+            if f <= js:
+                v, p, lg = VL[f], PL[f], LL[f]
+            else:
+                v, p, lg = sign * VR[f], sign * PR[f], LR[f] + shift
+            X = sc * v
+            nrm = math.sqrt(X * X + p * p)
+            Vc[f], Pc[f], Lc[f] = v / nrm, p / nrm, lg + math.log(nrm)
+        # log of the weighted norm sum_i a_i int psi^2 (closed form per layer)
+        top = -np.inf
+        for i in range(nL):
+            v0 = Vc[i]
+            pk = Pc[i] / k[i, r]
+            integral = alpha[i] * v0 * v0 + gamma[i] * pk * pk + beta[i] * v0 * pk
+            lg = 2.0 * Lc[i]
+            if (not trig[i]) and x[i] > ENDPOINT:
+                L0, L1 = Lc[i], Lc[i + 1]
+                lm = max(L0, L1)
+                V0 = v0 * math.exp(L0 - lm)
+                V1 = Vc[i + 1] * math.exp(L1 - lm)
+                e = math.exp(-x[i])
+                det = -math.expm1(-2 * x[i])
+                E = (V0 - V1 * e) / det
+                F = (V1 - V0 * e) / det
+                w = math.sqrt(abs(w2[i]))
+                ws = w if w > 0 else 1.0
+                integral = (E * E + F * F) * det / (2 * ws) + 2 * E * F * l[i, r] * e
+                lg = 2.0 * lm
+            parts[i] = math.log(max(integral, 1e-300)) + lg + la[i, r]
+            top = max(top, parts[i])
+        total = 0.0
+        for i in range(nL):
+            total += math.exp(parts[i] - top)
+        half = 0.5 * (top + math.log(total))
+        for f in range(nL + 1):
+            V[f, j], P[f, j], Ls[f, j] = Vc[f], Pc[f], Lc[f] - half

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from transport.solvers.modal import kernel
 from transport.solvers.modal.operator import ENDPOINT_FORM_MIN, Operator
 from transport.solvers.modal.transfer import (LayerTerms, Prep, chunks, layer_integrals,
                                               normalise, shc, shoot)
@@ -165,11 +166,14 @@ def modes(op: Operator, lam) -> Modes:
     return modes_many([op], [lam])[0]
 
 
-def modes_many(ops, lams) -> list:
+def modes_many(ops, lams, compiled: bool = False) -> list:
     """:func:`modes` of several operators: the eigenfunctions of ``ops[r]`` for the
     eigenvalues ``lams[r]``.  Operators with the same number of layers are shot in
     shared passes over the layers (their modes side by side: :meth:`Prep.stack`), each
-    mode with the same arithmetic as for its own operator alone."""
+    mode with the same arithmetic as for its own operator alone.  ``compiled``: the
+    passes run one mode at a time in the compiled kernel where it is available
+    (:func:`transport.solvers.modal.kernel.modes`: the same equations, the same numbers
+    to rounding)."""
     lams = [np.asarray(lam, dtype=float) for lam in lams]
     out = [None] * len(ops)
     groups = {}
@@ -179,8 +183,11 @@ def modes_many(ops, lams) -> list:
         preps = [Prep(ops[r]) for r in members]
         whole = preps[0] if len(members) == 1 else Prep.stack(preps)
         owner = np.repeat(np.arange(len(members)), [lams[r].size for r in members])
-        V, P, Ls = _shot_modes(whole.select(owner),
-                               np.concatenate([lams[r] for r in members]))
+        lam = np.concatenate([lams[r] for r in members])
+        if compiled and kernel.modes_available():
+            V, P, Ls = kernel.modes(whole, lam, owner)
+        else:
+            V, P, Ls = _shot_modes(whole.select(owner), lam)
         cut = np.cumsum([lams[r].size for r in members])[:-1]
         for r, v, p, ls in zip(members, *(np.split(x, cut, axis=1) for x in (V, P, Ls))):
             out[r] = Modes(op=ops[r], lam=lams[r], v=v, p=p, logs=ls)
