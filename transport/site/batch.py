@@ -142,6 +142,7 @@ def iter_chunks(site, chunks, samples=None, *, workers: int | None = None,
     # workers inherit them instead of each compiling or loading them
     kernel.available()
     modal_kernel.available()
+    modal_kernel.modes_available()
     try:
         with ProcessPoolExecutor(max_workers=min(workers, len(chunks)),
                                  initializer=_init_worker,
