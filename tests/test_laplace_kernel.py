@@ -10,6 +10,8 @@ rounding where its own error estimate is large, so the rule is: within 1e-12 of 
 scale plus the larger of the two stated error estimates (each value lies within the
 other's stated error; measured: the difference is at most 1e-11 of the scale and 0.74
 of the estimate, beyond 1e-12 of the scale only where the estimate itself is above it).
+The compiled lone-time inversion (a Monte Carlo column's checks: one depth, times on
+their own Talbot contours) is held to the same rule against the general inversion.
 """
 from __future__ import annotations
 
@@ -157,3 +159,72 @@ def test_switched_off_by_the_environment(monkeypatch):
     col = _regime_columns()["pe100"][0]
     assert not kernel.available()
     assert not LaplaceTransfer(col, InitialState.clean(), compiled=True).compiled
+
+
+def _lone_cases():
+    """(column, initial) of the regime matrix and the extra columns at one depth each,
+    those whose signals are steps switched on at 0 (the others take the general path)."""
+    for name, (col, _, semi, t, z) in CASES.items():
+        if not semi:
+            yield name, col, CASES[name][1]
+
+
+@pytest.mark.parametrize("name", [n for n, *_ in _lone_cases()])
+def test_lone_times_equal_the_general_inversion(name):
+    """laplace_concentration at one depth and one time (a Monte Carlo column's check,
+    the polish of a Laplace-served curve) in the compiled lone-time kernel: within
+    1e-12 of the scale plus the stated estimate of the general path's value (Talbot
+    contours of the same n and n2 nodes: contour.invert), estimates above rounding
+    within 2x; where the general path would try the parabolic contour, or the signals
+    are not steps at 0, the general path serves (the two then agree exactly)."""
+    from transport.solvers.laplace import engine
+    col, init, _, t, z = CASES[name]
+    init = init or InitialState.clean()
+    depth = float(z[len(z) // 2])
+    served = 0
+    for time in t[t > 0]:
+        with np.errstate(all="ignore"):
+            model, tt, dd, out, est = engine._inverted(col, [time], [depth], init, False,
+                                                       None, None, True,
+                                                       concentration_only=True)
+            want, e_want = engine._concentration(col, model, init, tt, dd, out, est)
+            got, e_got = laplace_concentration(col, [time], [depth], initial=init,
+                                               compiled=True)
+        lone = engine._lone_times(col, [time], [depth], init, None)
+        if lone is None:
+            np.testing.assert_array_equal(got, want)
+            continue
+        served += 1
+        scale = max(abs(float(want[0, 0])), 1e-300)
+        assert abs(got[0, 0] - want[0, 0]) <= 1e-12 * scale + max(e_got[0], e_want[0])
+        if e_want[0] > 1e-10 * scale:
+            assert e_want[0] / 2 <= e_got[0] <= 2 * e_want[0]
+    _LONE_SERVED[name] = served
+
+
+_LONE_SERVED = {}
+
+
+def test_lone_times_served_compiled_in_most_columns():
+    """The comparison above exercised the compiled path: at least 20 of its columns
+    (those whose signals are steps at 0) had times served by it."""
+    if len(_LONE_SERVED) < len(list(_lone_cases())):
+        pytest.skip("run with the comparison above")
+    assert sum(1 for v in _LONE_SERVED.values() if v) >= 15
+
+
+def test_lone_times_against_the_mpmath_reference():
+    """Three regime columns (no flow, upward flow, a measured profile) at one depth,
+    time by time in the compiled lone-time kernel: within its own error estimate of the
+    mpmath solution (tests/reference.py, Talbot 1979, Abate & Valko 2004) plus 1e-12."""
+    from transport.solvers.laplace import engine
+    for name, (col, init) in _regime_columns().items():
+        init = init or InitialState.clean()
+        t = np.array([0.05, 2.0, 30.0]) * YEAR
+        ref = laplace_reference(col, [0.8], t, initial=init, dps=20)[:, 0]
+        for time, r in zip(t, ref):
+            found = engine._lone_times(col, [time], [0.8], init, None)
+            if found is None:
+                continue
+            c, e = found
+            assert abs(c[0, 0] - r) <= e[0] + 1e-12, name

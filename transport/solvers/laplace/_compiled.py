@@ -210,3 +210,69 @@ def transfer(s, k, c, mu, l, K, a0, b0, src, q, semi, last_clean, kinds, h, targ
             st[i, j] = c[i] * (acc + lin)
         capped[j] = cap
 
+
+
+EPS16 = 16 * np.finfo(np.float64).eps
+
+
+@numba.njit(cache=True, nogil=True)
+def _sums(C, first, count, w, t):
+    """Talbot sums of C[first:first + count, 0] with weights w at time t: (value, sum
+    of |terms|, |outermost term|) as contour._talbot_sums."""
+    val, size, end = 0.0, 0.0, 0.0
+    for m in range(count):
+        term = w[m] * C[first + m, 0] / t
+        val += term.imag
+        size += abs(term)
+        end = abs(term)
+    return val, size, end
+
+
+@numba.njit(cache=True, nogil=True)
+def talbot_points(times, shape1, w1, shape2, w2, k, c, mu, l, K, a0c, b0c, src_amp, q,
+                  kinds, h_end, t_amp, idx, zeta, out_f, out_e):
+    """C at one depth (segment idx[0], local depth zeta[0]) at each time (> 0) on the
+    Talbot contours of n and n2 nodes (contour.invert with contour.pair_estimate) for
+    signals that are steps switched on at 0: the boundary targets t_amp[end] / s (h
+    h_end[end] constant), the segments' sources src_amp / s, the initial state a0c +
+    b0c zeta per segment (with_initial 1).  Value into out_f, estimate into out_e
+    (infinite where an exponent was capped)."""
+    n1, n2 = shape1.size, shape2.size
+    ns = n1 + n2
+    n = k.size
+    s = np.empty(ns, np.complex128)
+    a0 = np.empty((n, ns), np.complex128)
+    b0 = np.empty((n, ns), np.complex128)
+    src = np.empty((n, ns), np.complex128)
+    h = np.empty((2, ns), np.complex128)
+    target = np.empty((2, ns), np.complex128)
+    C = np.empty((ns, 1), np.complex128)
+    F = np.empty((ns, 1), np.complex128)
+    st = np.empty((n, ns), np.complex128)
+    capped = np.zeros(ns, np.bool_)
+    for j in range(times.size):
+        t = times[j]
+        for m in range(n1):
+            s[m] = shape1[m] / t
+        for m in range(n2):
+            s[n1 + m] = shape2[m] / t
+        for m in range(ns):
+            for i in range(n):
+                a0[i, m] = a0c[i]
+                b0[i, m] = b0c[i]
+                src[i, m] = src_amp[i] / s[m]
+            for e in range(2):
+                h[e, m] = h_end[e]
+                target[e, m] = t_amp[e] / s[m]
+        transfer(s, k, c, mu, l, K, a0, b0, src, q, False, True, kinds, h, target, idx,
+                 zeta, C, F, st, capped)
+        f1, size1, end1 = _sums(C, 0, n1, w1, t)
+        f2, size2, end2 = _sums(C, n1, n2, w2, t)
+        cap = False
+        for m in range(ns):
+            cap = cap or capped[m]
+        diff = abs(f2 - f1)
+        rounding = EPS16 * (size1 + size2)
+        first = diff <= rounding
+        out_f[j] = f1 if first else f2
+        out_e[j] = np.inf if cap else 2 * diff + rounding + 2 * (end1 if first else end2)

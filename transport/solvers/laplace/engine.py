@@ -9,9 +9,11 @@ import math
 
 import numpy as np
 
-from transport.model.column import Column, InitialState, InputError, check_output_grid
-from transport.solvers.laplace.contour import default_nodes
-from transport.solvers.laplace.inversion import invert_best
+from transport.model.column import (Column, InitialState, InputError, check_output_grid,
+                                    has_source_zone)
+from transport.solvers.laplace import kernel
+from transport.solvers.laplace.contour import companion_nodes, default_nodes
+from transport.solvers.laplace.inversion import _RETRY, invert_best, plan_windows
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
@@ -124,9 +126,87 @@ def laplace_concentration(column: Column, times, depths, *, initial: InitialStat
     quantity keeps its first value here; each value keeps its own estimate.  For a
     curve read at one depth (a Monte Carlo realization's receptor)."""
     initial = initial if initial is not None else InitialState.clean()
+    if compiled:
+        found = _lone_times(column, times, depths, initial, enough)
+        if found is not None:
+            return found
     model, times, depths, out, est = _inverted(column, times, depths, initial, False, None,
                                                enough, compiled, concentration_only=True)
     return _concentration(column, model, initial, times, depths, out, est)
+
+
+def _lone_times(column, times, depths, initial, enough):
+    """:func:`laplace_concentration` at one depth and lone times (each on its own
+    Talbot contours: :func:`~transport.solvers.laplace.inversion.plan_windows` puts
+    no two of them in a window) of a column whose signals are steps switched on at 0,
+    in the compiled kernel (:func:`transport.solvers.laplace.kernel.talbot_points`:
+    :func:`~transport.solvers.laplace.contour.invert`'s equations, one time at a time;
+    a Monte Carlo realization's checks and the polish of its Laplace-served curve).
+    None where the case is another, or where the inversion :func:`invert_best` makes
+    would try the parabolic contour at some time, or gives a value that is not
+    finite: the general path then serves the whole call."""
+    if np.ndim(depths) > 1 or np.size(depths) != 1 or not isinstance(initial, InitialState):
+        return None
+    depth = float(np.ravel(depths)[0])
+    times = np.atleast_1d(np.asarray(times, dtype=float))
+    if (times.ndim != 1 or not times.size or not np.all(times > 0)
+            or not np.all(np.isfinite(times)) or not 0 <= depth <= column.length * (1 + 1e-12)):
+        return None
+    prep = _lone_prep(column, initial)
+    if prep is None or (times.size > 1 and plan_windows(times, prep.n)[0]):
+        return None
+    f, e = kernel.talbot_points(prep, times, depth)
+    if not (np.all(np.isfinite(f)) and np.all(np.isfinite(e))):
+        return None
+    if prep.s0 > 0:  # invert_best's test for the parabolic contour (_unsettled)
+        with np.errstate(invalid="ignore"):
+            trusted = np.abs(f)[e <= 1e-3 * np.abs(f)]
+        floor = float((enough or {}).get("concentration", 0.0))
+        limit = max(_RETRY * float(trusted.max(initial=0.0)), floor)
+        if not np.all(e <= limit):
+            return None
+    return f[:, None], e
+
+
+_LONE = []  # the last few columns' preparations: [(column, initial, prep or None)]
+
+
+def _lone_prep(column, initial):
+    """What :func:`_lone_times` needs of a column besides the times (None where the
+    case is not one it serves), kept for the last few columns asked for (a realization
+    checks its column several times); identity, not equality, picks an entry."""
+    for col, init, prep in _LONE:
+        if col is column and init is initial:
+            return prep
+    prep = _make_lone_prep(column, initial)
+    _LONE.insert(0, (column, initial, prep))
+    del _LONE[4:]
+    return prep
+
+
+def _make_lone_prep(column, initial):
+    if has_source_zone(column) or not kernel.points_available():
+        return None
+    model = LaplaceTransfer(column, initial, False, True)
+    if not model.compiled:
+        return None
+    g = model.seg
+    seg_layer = np.clip(np.searchsorted(column.interfaces, g["top"], side="right") - 1, 0,
+                        len(column.layers) - 1)
+    groups = signal_components(column, seg_layer)
+    if set(groups) != {0.0}:
+        return None
+    top, bottom, sources = groups[0.0]
+    if any(kind != "step" for _, kind, _, _ in top + bottom + [a for _, a in sources]):
+        return None
+    src = np.zeros(model.n, complex)
+    for mask, (_, _, amp, _) in sources:
+        src[mask] += amp
+    n = default_nodes(column)
+    return kernel.PointsPrep(model, n, companion_nodes(n),
+                             (sum(a for _, _, a, _ in top), sum(a for _, _, a, _ in bottom),
+                              src),
+                             float(np.max(model.q ** 2 / (4 * g["k"] * g["c"]))))
 
 
 def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enough,

@@ -103,3 +103,88 @@ def _last_clean(seg) -> bool:
     """A semi-infinite last segment holds no initial mass and no source (as
     LaplaceTransfer.stored: else its stored mass is infinite, NaN)."""
     return seg["a"][-1] == 0 and seg["b"][-1] == 0 and seg["sigma"][-1] == 0
+
+
+_POINTS = {}
+
+
+def points_available() -> bool:
+    """True when the compiled lone-time inversion (:func:`talbot_points`) can be used."""
+    return available() and load(_POINTS, _load_points) is not None
+
+
+def _load_points():
+    from transport.solvers.laplace._compiled import talbot_points as points
+
+    _warm_points(points)
+    return points
+
+
+class PointsPrep:
+    """A column's constants for :func:`talbot_points`: its transfer ``model``, the node
+    counts n and n2 and their Talbot nodes, ``steps`` = (top, bottom, per-segment
+    source amplitude) of signals that are steps switched on at 0, and ``s0`` (the
+    growth parabola of the advective branch, 0 without flow)."""
+
+    def __init__(self, model, n, n2, steps, s0):
+        from transport.solvers.laplace.contour import talbot_nodes
+
+        self.model, self.n, self.n2, self.s0 = model, n, n2, s0
+        g = model.seg
+        kinds = np.zeros(2, np.int64)
+        h = np.zeros(2, np.complex128)
+        amp = np.zeros(2, np.complex128)
+        one = np.ones(1, np.complex128)
+        for row, (end, value) in enumerate((("top", steps[0]), ("bottom", steps[1]))):
+            kind, h_row, target = model.end_row(end, value * one, one, 1.0)
+            kinds[row] = kind
+            h[row] = complex(np.broadcast_to(h_row, (1,))[0])
+            amp[row] = complex(np.broadcast_to(target, (1,))[0])
+        (shape1, w1), (shape2, w2) = talbot_nodes(n), talbot_nodes(n2)
+        self.nodes = tuple(_arg(x, np.complex128) for x in (shape1, w1, shape2, w2))
+        self.segments = tuple(_arg(g[name], float) for name in ("k", "c", "mu", "l", "K",
+                                                                 "a", "b"))
+        self.rest = (_arg(steps[2], np.complex128), float(model.q), kinds, h, amp)
+
+
+def talbot_points(prep, times, depth):
+    """C at one ``depth`` at ``times`` (> 0, each a lone time) and its estimate, on
+    Talbot contours of prep.n and prep.n2 nodes, compiled: the transforms of
+    :meth:`LaplaceTransfer.evaluate` and the sums and estimate of
+    :func:`transport.solvers.laplace.contour.invert`, one time at a time (the same
+    equations; the sums in another order, so the same numbers to rounding)."""
+    idx, zeta = prep.model.locate(np.array([depth]))
+    f, e = np.empty(times.size), np.empty(times.size)
+    _POINTS["kernel"](_arg(times, float), *prep.nodes, *prep.segments, *prep.rest,
+                      _arg(idx, np.int64), _arg(zeta, float), f, e)
+    return f, e
+
+
+def _warm_points(points):
+    """Compile (or load from numba's cache) and run the lone-time inversion on one
+    clean 10 m layer with a unit top concentration, no flow and a free-outflow bottom,
+    at a time its front has entered 0.5 m: C at 0.5 m against the closed form of a
+    semi-infinite medium, erfc(z / (2 sqrt(D t))) (Crank 1975, eq. 2.45; the bottom,
+    19 diffusion lengths away, changes it by less than 1e-100)."""
+    import math
+
+    t, z, D = 6.25e7, 0.5, 1e-9
+    s1, w1 = _nodes(32)
+    s2, w2 = _nodes(40)
+    f, e = np.empty(1), np.empty(1)
+    one = np.ones(1)
+    points(np.array([t]), s1, w1, s2, w2, D * one, one, 0 * one, 10 * one, one, 0 * one,
+           0 * one, np.zeros(1, np.complex128), 0.0, np.array([0, 2], np.int64),
+           np.zeros(2, np.complex128), np.array([1.0, 0.0], np.complex128),
+           np.zeros(1, np.int64), np.array([z]), f, e)
+    want = math.erfc(z / (2 * math.sqrt(D * t)))
+    if not (abs(f[0] - want) <= 1e-12 and e[0] <= 1e-10):
+        raise RuntimeError("the compiled lone-time inversion gave a wrong value on its "
+                           "check column")
+
+
+def _nodes(n):
+    from transport.solvers.laplace.contour import talbot_nodes
+
+    shape, w = talbot_nodes(n)
+    return _arg(shape, np.complex128), _arg(w, np.complex128)
