@@ -1,6 +1,6 @@
 """A boring's Monte Carlo series built side by side equal each column's own build.
 
-:func:`transport.solvers.modal.series.clean_series_many` builds the modal series of
+:func:`transport.solvers.modal.many.clean_series_many` builds the modal series of
 columns that share their layer faces (one boring's log, drawn properties) together:
 the steady responses in one block-diagonal banded solve
 (:func:`transport.solvers.modal.lifting.steady_responses_many`), the modes and the
@@ -27,11 +27,12 @@ import pytest
 
 from transport.model.column import Boundary, Column, InputError, Layer
 from transport.site.chunks import shared_modes
-from transport.solvers.modal import series as series_module
+from transport.solvers.modal import many as many_module
 from transport.solvers.modal.eigenfunctions import evaluate_many
 from transport.solvers.modal.lifting import steady_responses, steady_responses_many
 from transport.solvers.modal.operator import build_operator
-from transport.solvers.modal.series import build_series, clean_series_many
+from transport.solvers.modal.many import clean_series_many
+from transport.solvers.modal.series import build_series
 from transport.solvers.modal.sizing import earliest_time_after_change
 from transport.units import YEAR
 
@@ -167,5 +168,5 @@ def test_columns_not_served_are_left_to_their_own_build(monkeypatch):
 
     def fail(ops, eps):
         raise ArithmeticError("injected")
-    monkeypatch.setattr(series_module, "steady_responses_many", fail)
+    monkeypatch.setattr(many_module, "steady_responses_many", fail)
     assert clean_series_many(cols, t_mins, TOL, 4000, known) == [None] * 5

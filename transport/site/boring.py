@@ -458,7 +458,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     (:func:`verified_metrics`) on the scale the data allow, or where they allow none the
     column's own largest C at the end or the peak.  ``known``: modes of a shared solve;
     ``series``: the column's series built with the boring's other columns
-    (:func:`transport.solvers.modal.series.clean_series_many`, the same numbers)."""
+    (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers)."""
     initial = initial or InitialState.clean()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

@@ -30,7 +30,8 @@ from transport.site.columns import boring_column, check_draws, material_layers
 from transport.site.uncertainty import sample_matrix
 from transport.solvers.checks import UnreliableResultError
 from transport.solvers.modal.operator import SpectrumError, build_operator
-from transport.solvers.modal.series import clean_series_many, earliest_time_after_change
+from transport.solvers.modal.many import clean_series_many
+from transport.solvers.modal.series import earliest_time_after_change
 from transport.solvers.modal.sizing import required_modes
 from transport.solvers.modal.eigenfunctions import modes_many
 from transport.solvers.modal.spectrum import eigenvalues_many
@@ -176,7 +177,7 @@ def shared_modes(cols, times, tolerance: float, compiled_modes: bool = False) ->
 
 def _shared_series(site, cols, times, known, initial, depth) -> list:
     """The series of a boring's Monte Carlo columns built side by side, with their
-    fields at the receptor (:func:`~transport.solvers.modal.series.clean_series_many`:
+    fields at the receptor (:func:`~transport.solvers.modal.many.clean_series_many`:
     the numbers of each column's own build); None for a column built on its own (a
     measured initial state: every column)."""
     if initial is not None and initial.kind != "clean":

@@ -13,7 +13,7 @@ from transport.model.column import (Column, InitialState, InputError, check_outp
                                     has_source_zone)
 from transport.solvers.laplace import kernel
 from transport.solvers.laplace.contour import companion_nodes, default_nodes
-from transport.solvers.laplace.inversion import _RETRY, invert_best, plan_windows
+from transport.solvers.laplace.inversion import invert_best, plan_windows, tries_parabola
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
@@ -158,14 +158,11 @@ def _lone_times(column, times, depths, initial, enough):
     f, e = kernel.talbot_points(prep, times, depth)
     if not (np.all(np.isfinite(f)) and np.all(np.isfinite(e))):
         return None
-    if prep.s0 > 0:  # invert_best's test for the parabolic contour (_unsettled)
-        with np.errstate(invalid="ignore"):
-            trusted = np.abs(f)[e <= 1e-3 * np.abs(f)]
-        floor = float((enough or {}).get("concentration", 0.0))
-        limit = max(_RETRY * float(trusted.max(initial=0.0)), floor)
-        if not np.all(e <= limit):
-            return None
-    return f[:, None], e
+    f = f[:, None]
+    floor = float((enough or {}).get("concentration", 0.0))
+    if prep.s0 > 0 and tries_parabola(f, e[:, None], floor).any():
+        return None
+    return f, e
 
 
 _LONE = []  # the last few columns' preparations: [(column, initial, prep or None)]

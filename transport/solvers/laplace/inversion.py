@@ -30,7 +30,7 @@ import numpy as np
 from transport.solvers.laplace.contour import (companion_nodes, hyperbola_count, invert,
                                                invert_parabola, invert_window)
 
-__all__ = ["plan_windows", "invert_best", "WINDOW_LIMIT", "window_solves", "evaluations"]
+__all__ = ["plan_windows", "invert_best", "tries_parabola", "WINDOW_LIMIT", "window_solves", "evaluations"]
 
 WINDOW_LIMIT = 128.0  # widest window t_last / t_first (the table's)
 _RETRY = 1e-10  # an estimate above this fraction of the quantity's scale: try the parabola
@@ -106,6 +106,13 @@ def _unsettled(f, err, groups, floors, level):
         cols = np.concatenate([np.asarray(c, int) for c in groups])
         limit = np.repeat(limits, [len(c) for c in groups])
         return ~(err[:, cols] <= limit).all(axis=1)
+
+
+def tries_parabola(f, err, floor: float = 0.0) -> np.ndarray:
+    """Times (bool, nt) at which :func:`invert_best` tries the parabolic contour for an
+    advective transform, for values ``f`` and estimates ``err`` (nt, m) of one quantity
+    group with the floor ``floor``: step 3 of its rule."""
+    return _unsettled(f, err, [np.arange(f.shape[1])], [floor], _RETRY)
 
 
 def _keep_better(f, err, rows, f2, e2):

@@ -26,7 +26,7 @@ from scipy.linalg import solve_banded
 
 from transport.solvers.modal.operator import Operator
 
-__all__ = ["SteadyResponses", "steady_responses", "steady_responses_many", "evaluate_many"]
+__all__ = ["SteadyResponses", "steady_responses", "steady_shift", "steady_responses_many", "evaluate_many"]
 
 
 @dataclass(frozen=True)
@@ -244,3 +244,10 @@ def evaluate_many(resps, z) -> list:
         du[rows, 2 + lay] += r.op.source[lay] * dp[j]
         out.append((u, r.op.k[lay][:, None] * du))
     return out
+
+
+def steady_shift(lam) -> float:
+    """The shift eps of the steady responses: |lambda_1| where lambda_0 is zero (no
+    steady state), else 0."""
+    lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
+    return abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0

@@ -19,7 +19,7 @@ import numpy as np
 from transport.model.column import Column, InitialState, InputError
 from transport.solvers.modal.operator import Operator
 
-__all__ = ["gauss_nodes", "initial_profile", "green_flux"]
+__all__ = ["gauss_nodes", "initial_profile", "green_flux", "green_terms"]
 
 _GL_NODES = 32
 _GL_PANEL = 20.0
@@ -140,3 +140,15 @@ def green_flux(op: Operator, lift, z, w0_nodes, nodes, values: bool = False, lif
         if not values:
             return flux
         return flux, (u_z[:, 0:1] * I_L + u_z[:, 1:2] * I_R) / wr
+
+
+def green_terms(op, lam, K, psi_e, dpsi_e):
+    """(K, n) boundary terms of Green's identity, (lambda + eps) c_kn = boundary term +
+    source projection (the sources' projections are added by the caller), from psi and
+    k psi' at the two ends."""
+    green = np.zeros((K, lam.size))
+    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
+        c_v, c_p, G = op.v_condition(end)
+        j = 0 if end == "top" else 1
+        green[k] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
+    return green

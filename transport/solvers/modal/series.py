@@ -31,13 +31,11 @@ import numpy as np
 
 from transport.model.column import Column, InitialState, InputError, check_output_grid
 from transport.model.schedules import Schedule, phi
-from transport.solvers.modal.eigenfunctions import Modes, evaluate_many, modes
+from transport.solvers.modal.eigenfunctions import Modes, modes
 from transport.solvers.modal.integrals import TimeIntegrals
-from transport.solvers.modal.lifting import (SteadyResponses, steady_responses,
-                                            steady_responses_many)
-from transport.solvers.modal.lifting import evaluate_many as lifting_many
+from transport.solvers.modal.lifting import SteadyResponses, steady_responses, steady_shift
 from transport.solvers.modal.operator import Operator, build_operator
-from transport.solvers.modal.projection import gauss_nodes, initial_profile
+from transport.solvers.modal.projection import gauss_nodes, green_terms, initial_profile
 from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
                                             column_signals, earliest_time_after_change,
                                             mode_count, required_modes)
@@ -381,15 +379,15 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
         lam = eigenvalues(op, n_modes)
     shared = known_modes is not None and lam is known_modes.lam
     md = known_modes if shared else modes(op, lam)
-    eps = _shift(lam)
+    eps = steady_shift(lam)
     lift = steady_responses(op, eps)
     signals = column_signals(column, op)
-    green = _green(op, lam, len(signals), *md.evaluate(np.array([0.0, op.z[-1]]),
+    green = green_terms(op, lam, len(signals), *md.evaluate(np.array([0.0, op.z[-1]]),
                                                         exp_sign=0))
     skip = (not masses and not callable(initial) and initial.kind == "clean"
             and not np.any(op.source))
     if skip:
-        return _clean_series(column, op, md, lift, signals, green, initial)
+        return clean_series(column, op, md, lift, signals, green, initial)
     if not callable(initial) and initial.kind == "profile":
         breaks = tuple(breaks) + tuple(initial.depths)
     zq, wq, lq = gauss_nodes(op, lam, breaks, extra_rate)
@@ -424,26 +422,7 @@ def build_series(column: Column, initial=None, t_min: float = None, tolerance: f
                        breaks=tuple(breaks), extra_rate=extra_rate)
 
 
-def _shift(lam) -> float:
-    """The shift eps of the steady responses: |lambda_1| where lambda_0 is zero (no
-    steady state), else 0."""
-    lam1 = lam[1] if lam.size > 1 else abs(lam[0]) + 1.0
-    return abs(lam1) if lam[0] <= 1e-9 * max(abs(lam1), 1e-300) else 0.0
-
-
-def _green(op, lam, K, psi_e, dpsi_e):
-    """(K, n) boundary terms of Green's identity, (lambda + eps) c_kn = boundary term +
-    source projection (the sources' projections are added by the caller), from psi and
-    k psi' at the two ends."""
-    green = np.zeros((K, lam.size))
-    for k, end, sgn in ((0, "top", -1.0), (1, "bottom", +1.0)):
-        c_v, c_p, G = op.v_condition(end)
-        j = 0 if end == "top" else 1
-        green[k] = sgn * G * (c_p * psi_e[j] - c_v * dpsi_e[j]) / (c_p ** 2 + c_v ** 2)
-    return green
-
-
-def _clean_series(column, op, md, lift, signals, green, initial):
+def clean_series(column, op, md, lift, signals, green, initial):
     """The series of a clean column without sources whose layer masses are not asked
     for (``build_series(..., masses=False)``)."""
     lam, K = md.lam, len(signals)
@@ -452,58 +431,6 @@ def _clean_series(column, op, md, lift, signals, green, initial):
                        proj0=np.zeros(lam.size), lift_coef=green / (lam + lift.eps)[None, :],
                        mass_modes=undefined, mass_lift=np.full((op.n_layers, K), np.nan),
                        initial=initial)
-
-
-def clean_series_many(columns, t_mins, tolerance: float, max_modes: int, known_modes,
-                      depths=None) -> list:
-    """[``build_series(col, clean, t_min, tolerance, max_modes, masses=False,
-    known_modes=known)``] of a boring's Monte Carlo columns (one log: the same layer
-    faces), built side by side: the steady responses in one block-diagonal solve
-    (:func:`~transport.solvers.modal.lifting.steady_responses_many`), the modes at the
-    two ends and at ``depths`` (kept as the series' :meth:`ModalSeries.fields`) in one
-    pass (:func:`~transport.solvers.modal.eigenfunctions.evaluate_many`): the same
-    numbers, to the bit, as each column's own build, in a fraction of the calls.
-
-    An entry is None where the column is not served here, and its own build must run
-    (it then reports its own warnings and errors): a column with a source, without
-    known modes or whose mode count is not the known one, a mode-count warning, no
-    positive ``t_min``; and every entry when the shared steps warn or fail."""
-    out = [None] * len(columns)
-    todo = []
-    for i, (col, t_min, md) in enumerate(zip(columns, t_mins, known_modes)):
-        if md is None or t_min is None or t_min <= 0 or np.any(md.op.source):
-            continue
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            signals = column_signals(col, md.op)
-            rates = [r for sig in signals for kind, _, _, r in sig.atoms if kind == "decay"]
-            floor = max(rates, default=0.0) / math.sqrt(tolerance)
-            lam = mode_count(md.op, t_min, tolerance, max_modes, floor, md.lam)
-        if caught or lam is not md.lam:
-            continue
-        todo.append((i, col, md, signals))
-    if len(todo) < 2:  # nothing to share
-        return out
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            mds = [md for _, _, md, _ in todo]
-            lifts = steady_responses_many([md.op for md in mds], [_shift(md.lam) for md in mds])
-            ends = evaluate_many(mds, np.array([0.0, mds[0].op.z[-1]]), 0)
-            if depths is not None:
-                z = np.atleast_1d(np.asarray(depths, dtype=float))
-                at_z = zip(evaluate_many(mds, z, +1), lifting_many(lifts, z))
-        except (ArithmeticError, np.linalg.LinAlgError, ValueError):
-            return out
-    if caught:
-        return out
-    for k, ((i, col, md, signals), lift) in enumerate(zip(todo, lifts)):
-        green = _green(md.op, md.lam, len(signals), *ends[k])
-        out[i] = _clean_series(col, md.op, md, lift, signals, green, InitialState.clean())
-    if depths is not None:
-        for (i, *_), ((psi, dpsi), (u_l, du_l)) in zip(todo, at_z):
-            out[i]._keep_fields(z, psi, dpsi, u_l, du_l)
-    return out
 
 
 def _add_by_layer(out, lay, rows):
