@@ -1,10 +1,9 @@
 """Receptor metrics on the continuous solution (never read off the output grid).
 
-Crossings of the screening level are bracketed by dense sampling of C(z_r, t) (uniform
-plus logarithmic times, plus every change time of a schedule or stage) and polished with
-Brent's method (scipy.optimize.brentq; Brent 1973, Algorithms for Minimization without
-Derivatives, ch. 4).  Peaks are refined with bounded Brent minimisation.  Cumulative
-mass through the receptor depth comes from the closed-form time integral of the series.
+Crossings of the screening level and peaks are read on the continuous curve
+(:mod:`transport.analysis.curve_reading`: a dense scan of C(z_r, t) with every change
+time of a schedule or stage, polished with Brent's methods).  Cumulative mass through
+the receptor depth comes from the closed-form time integral of the series.
 
 A run is read over two windows (:func:`receptor_views`): the design life and the whole
 run.  Whether a window's peak lies beyond its end is read from the curve itself: the
@@ -17,15 +16,18 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.optimize import brentq, minimize_scalar
+
+from transport.analysis.curve_reading import (MAX_POLISHED, N_SCAN, crossings,
+                                              first_exceedance, local_extremes,
+                                              parabola_extreme, peak, scan_times,
+                                              time_above)
 
 __all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_views",
            "crossings", "first_exceedance", "peak", "time_above", "scan_times",
            "steady_concentration", "end_trend", "error_at", "concentration_bound",
-           "PLATEAU_RTOL", "DEFAULT_TOLERANCE"]
+           "PLATEAU_RTOL", "DEFAULT_TOLERANCE", "MAX_POLISHED", "local_extremes",
+           "parabola_extreme"]
 
-TIME_RTOL = 1e-10  # relative time tolerance of the root polish
-N_SCAN = 800
 #: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
 #: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
 N_SCAN_INVERTED = 160
@@ -69,105 +71,6 @@ def unresolved_windows(solution, tolerance: float = 1e-8):
         tau = series.resolved_after(tolerance)
         out += [(c, c + tau) for c in series.change_times()]
     return out
-
-
-def scan_times(t_start: float, t_end: float, extra=(), n: int = N_SCAN,
-               windows=()) -> np.ndarray:
-    """Uniform and log-spaced samples on [t_start, t_end], with change times bracketed;
-    samples inside unresolved windows are replaced by the window's ends."""
-    t = np.linspace(t_start, t_end, n)
-    if t_start > 0:
-        t = np.union1d(t, np.geomspace(t_start, t_end, n // 2))
-    else:
-        t = np.union1d(t, np.geomspace(max(t_end * 1e-6, 1e-9), t_end, n // 2))
-    pts = []
-    for c in extra:
-        if t_start < c < t_end:
-            d = 1e-9 * max(t_end, 1.0)
-            pts += [c - d, c, c + d]
-    t = np.union1d(t, pts)
-    for a, b in windows:
-        inside = (t > a) & (t < b)
-        t = np.union1d(t[~inside], [x for x in (a, b) if t_start <= x <= t_end])
-    return t
-
-
-def _gap(a, b, windows):
-    return any(a <= w0 and b >= w1 and a < b for w0, w1 in windows)
-
-
-def _value(conc_at, depth, s):
-    return float(np.asarray(conc_at(depth, np.array([s])), float)[0])
-
-
-def crossings(conc_at, depth: float, level: float, t_start: float, t_end: float,
-              extra=(), n: int = N_SCAN, windows=()):
-    """Times (and +1 up / -1 down directions) where C(depth, t) crosses ``level``.
-
-    A crossing inside an unresolved window (just after a change) is reported at the
-    window's start, the conservative end for a first exceedance."""
-    windows = [w for w in windows if w[1] > t_start and w[0] < t_end]
-    t = scan_times(t_start, t_end, extra, n, windows)
-    c = np.asarray(conc_at(depth, t), float)
-    ex = c - level
-    out = []
-    for i in np.flatnonzero(np.sign(ex[1:]) != np.sign(ex[:-1])):
-        a, b = t[i], t[i + 1]
-        if ex[i] == 0:
-            out.append((float(a), 1 if ex[i + 1] > 0 else -1))
-            continue
-        if ex[i + 1] == 0:
-            continue  # counted at the next interval
-        if _gap(a, b, windows):
-            out.append((float(a), 1 if ex[i + 1] > ex[i] else -1))
-            continue
-        root = brentq(lambda s: _value(conc_at, depth, s) - level, a, b,
-                      rtol=TIME_RTOL, xtol=1e-12 * max(abs(b), 1.0))
-        out.append((float(root), 1 if ex[i + 1] > ex[i] else -1))
-    return out, bool(ex[0] >= 0)
-
-
-def first_exceedance(conc_at, depth, level, t_start, t_end, extra=(), windows=(),
-                     n: int = N_SCAN):
-    """First time C reaches the level in [t_start, t_end]; t_start if already above;
-    None if never."""
-    cr, above0 = crossings(conc_at, depth, level, t_start, t_end, extra, n, windows=windows)
-    if above0:
-        return float(t_start)
-    ups = [t for t, d in cr if d > 0]
-    return ups[0] if ups else None
-
-
-def time_above(conc_at, depth, level, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
-    """Total time in [t_start, t_end] with C >= level."""
-    cr, above = crossings(conc_at, depth, level, t_start, t_end, extra, n, windows=windows)
-    total, since = 0.0, (t_start if above else None)
-    for t, d in cr:
-        if d > 0 and since is None:
-            since = t
-        elif d < 0 and since is not None:
-            total += t - since
-            since = None
-    if since is not None:
-        total += t_end - since
-    return total
-
-
-def peak(conc_at, depth, t_start, t_end, extra=(), windows=(), n: int = N_SCAN):
-    """(time, concentration) of the largest C(depth, t) on [t_start, t_end]."""
-    t = scan_times(t_start, t_end, extra, n, windows=windows)
-    c = np.asarray(conc_at(depth, t), float)
-    i = int(np.nanargmax(c))
-    best_t, best_c = float(t[i]), float(c[i])
-    # polished between the neighbouring samples (at the first or last sample: between
-    # it and the one inside, where a peak just after the start or before the end lies)
-    lo, hi = t[max(i - 1, 0)], t[min(i + 1, t.size - 1)]
-    if lo < hi and not (_gap(lo, t[i], windows) or _gap(t[i], hi, windows)):
-        res = minimize_scalar(lambda s: -_value(conc_at, depth, s), bounds=(lo, hi),
-                              method="bounded", options={"xatol": TIME_RTOL * max(t_end, 1.0)})
-        if res.success and -res.fun > best_c:
-            best_t, best_c = float(res.x), float(-res.fun)
-    return best_t, best_c
 
 
 def error_at(solution, t: float):
@@ -360,14 +263,18 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     # scanned more coarsely (its crossings and peak are still polished by Brent)
     n = N_SCAN if solution.series is not None else N_SCAN_INVERTED
     first = above = None
+    # the error bound of C: a crossing or a second peak between samples within it is
+    # not one the run can vouch for (a rounding bump)
+    within = (solution.tolerance or DEFAULT_TOLERANCE) * abs(
+        (solution.scale or {}).get("concentration") or 0.0)
     if screening_level is not None:
         curve = _Memo(conc_at)
         first = first_exceedance(curve, receptor_depth, screening_level, t_start, horizon,
-                                 extra, win, n)
+                                 extra, win, n, within)
         above = time_above(curve, receptor_depth, screening_level, t_start, horizon, extra,
-                           win, n)
+                           win, n, within)
         conc_at = curve
-    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win, n)
+    pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win, n, within)
     series = solution.series
     cum = c_ss = None
     if solution.mass_at is not None:  # vouched by two engines

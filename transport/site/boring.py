@@ -181,11 +181,23 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
                                         lambda t: series.resolved(t, times))
     t_start = float(times[positive].min())
     conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
-    m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES)
+    m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES,
+                      within=_error_bound(site, col, initial, times, conc))
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     views = window_views(site, col, initial, depth, times, conc_at, m, cum)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
             tuple(str(w.message) for w in caught))
+
+
+def _error_bound(site, col, initial, times, conc=None) -> float:
+    """The tolerance times the scale of C a boring's curve is read with (the bound the
+    data give over the run, or the largest C written): a second peak or a crossing
+    between scan samples that passes by less is a rounding bump."""
+    t_run = max(float(np.max(times)), site.design_life)
+    scale = concentration_bounds(col, initial, t_run).scale
+    if not scale and conc is not None:
+        scale = float(np.nanmax(np.abs(conc)))
+    return site.tolerance * (scale or 0.0)
 
 
 class _Remember:
@@ -218,7 +230,8 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum):
     t_start = float(times[times > 0].min())
     t_life = site.design_life
     t_run = max(float(times.max()), t_life)
-    run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES)
+    run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES,
+                        within=_error_bound(site, col, initial, times))
     mass_life = float(cum[-1, -1])
     mass_run = mass_life if t_run == t_life else float(cum[times.size - 1, -1])
     scale = concentration_bounds(col, initial, t_run).scale or max(abs(run[2]), 1e-300)

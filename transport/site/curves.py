@@ -17,6 +17,8 @@ import math
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
+from transport.analysis.curve_reading import MAX_POLISHED, local_extremes, parabola_extreme
+
 __all__ = ["SCAN_SAMPLES", "TIME_RTOL", "scan_times", "curve_metrics"]
 
 #: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
@@ -37,8 +39,21 @@ def scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
     return t
 
 
+def _worth_polishing(t, c, j, best, level, within) -> bool:
+    """Whether the local maximum of the scan at sample j (not the largest sample) can
+    matter: its parabola (:func:`transport.analysis.curve_reading.parabola_extreme`)
+    rises from the sample at least half way to ``best`` (the largest sample) or to a
+    level the samples stay below (a smooth peak between samples reaches about twice as
+    high again), and by more than ``within`` (the error bound of C).  Rounding ripples of a curve near zero or on a plateau are not
+    polished (each polish costs some 25 evaluations, of the Laplace engine where it
+    serves the curve)."""
+    rise = parabola_extreme(t, c, j) - c[j]
+    return bool(rise > within and (rise >= 0.5 * (best - c[j])
+                                   or (c[j] < level and rise >= 0.5 * (level - c[j]))))
+
+
 def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
-                  nondecreasing=False):
+                  nondecreasing=False, within=None):
     """(breakthrough time or NaN, peak time, peak concentration) of a continuous curve.
 
     Parameters
@@ -62,6 +77,10 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
     nondecreasing : bool, optional
         The curve cannot fall (:func:`transport.solvers.monotone.nondecreasing_in_time`):
         the peak is the window's end, not searched.
+    within : float, optional
+        The error bound of C (kg m-3; default ``floor``): another local maximum than
+        the largest sample's must beat it by more, and a maximum between samples below
+        the level must pass it by more, to count (less is a rounding bump).
 
     Returns
     -------
@@ -89,13 +108,32 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
                 raise RuntimeError(f"breakthrough root did not converge: {info.flag}")
     i = t.size - 1 if nondecreasing else int(np.argmax(c))
     t_peak, c_peak = float(t[i]), float(c[i])
-    # polished between the neighbouring samples; at the window's first or last sample
-    # between it and the one inside (a peak just after the start or just before the
-    # end lies there), where the curve can fall
-    lo, hi = t[max(i - 1, 0)], t[min(i + 1, t.size - 1)]
-    if not nondecreasing and c_peak > floor and lo < hi:
+    if nondecreasing:
+        return float(t_cross), t_peak, c_peak
+    within = floor if within is None else within
+    # the largest local maxima of the scan (a lower sample may hide the higher of two
+    # peaks), each polished between its neighbouring samples; at the window's first or
+    # last sample between it and the one inside (a peak just after the start or just
+    # before the end lies there)
+    tops = [j for j in local_extremes(c, 1) if c[j] > floor]
+    tops.sort(key=lambda j: -c[j])
+    c_top = float(c[i])
+    for j in tops[:MAX_POLISHED]:
+        if j != i and not _worth_polishing(t, c, j, c_top, level, within):
+            continue
+        lo, hi = t[max(j - 1, 0)], t[min(j + 1, t.size - 1)]
+        if not lo < hi:
+            continue
         res = minimize_scalar(lambda s: -one(s), bounds=(lo, hi),
                               method="bounded", options={"xatol": TIME_RTOL * t_end})
-        if res.success and -res.fun > c_peak:
-            t_peak, c_peak = float(res.x), float(-res.fun)
+        if not (res.success and -res.fun > c[j]):
+            continue
+        tj, cj = float(res.x), float(-res.fun)
+        if cj > c_peak + (0.0 if j == i else within):
+            t_peak, c_peak = tj, cj
+        # a polished maximum above the level between samples below it: the curve
+        # crosses the level before it (earlier than the scan's first crossing, if any)
+        if c[j] < level < cj - within and lo < tj and (math.isnan(t_cross) or tj < t_cross):
+            if one(lo) < level:
+                t_cross = brentq(lambda s: one(s) - level, lo, tj, rtol=TIME_RTOL)
     return float(t_cross), t_peak, c_peak
