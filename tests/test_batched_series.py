@@ -73,13 +73,15 @@ def _same_series(a, b):
     assert a.eps == b.eps and a.modes is b.modes
 
 
-@pytest.mark.parametrize("top", KINDS[:5] + ("inlet",))
-@pytest.mark.parametrize("bottom", KINDS[:5])
+PAIRS = [(top, bottom) for top in KINDS for bottom in KINDS[:5]
+         if not (top == "inlet" and bottom == "mass-transfer")]
+
+
+@pytest.mark.parametrize("top,bottom", PAIRS)
 def test_series_built_side_by_side_equal_each_columns_own(top, bottom):
-    """Every boundary-kind pair: the series, their fields at the receptor and their
-    concentration curve there equal each column's own build to the bit."""
-    if top == "inlet" and bottom == "mass-transfer":
-        pytest.skip("one pair per top kind is enough for the inlet")
+    """Every boundary-kind pair (the inlet top with four bottoms): the series, their
+    fields at the receptor and their concentration curve there equal each column's own
+    build to the bit."""
     rng = np.random.default_rng(zlib.crc32(f"{top}/{bottom}".encode()))
     try:
         cols = _columns(rng, top, bottom)

@@ -120,6 +120,20 @@ def _shoot(down, every, r, k, kl, ends, w2, x, c, b12, b21, logc, big, V, P, L):
 
 
 @numba.njit(**_JIT)
+def _terms_and_shots(lam, r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, slopes, ends, w2, x,
+                     trig, c, b12, b21, logc, big, alpha, beta, gamma, VL, PL, LL, VR,
+                     PR, LR):
+    """LayerTerms of one lambda, then both shots (a shot whose rescaling norm is not
+    finite is redone rescaled at every face)."""
+    _terms(lam, r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, slopes, w2, x, trig, c, b12, b21,
+           logc, big, alpha, beta, gamma)
+    if not _shoot(True, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL, LL):
+        _shoot(True, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL, LL)
+    if not _shoot(False, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR, PR, LR):
+        _shoot(False, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR, PR, LR)
+
+
+@numba.njit(**_JIT)
 def _remap(X, Y, rho):
     return math.atan2((rho - 1.0) * X * Y, Y * Y + rho * X * X)
 
@@ -149,14 +163,9 @@ def mismatch(lam, face_in, owner, slopes, k, l, a, s, kl, lk, mkl, hl, hl3, l2, 
                                  face7[5], face7[6])
     for j in range(m):
         r = owner[j]
-        _terms(lam[j], r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, slopes, w2, x, trig, c,
-               b12, b21, logc, big, alpha, beta, gamma)
-        if not _shoot(True, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL,
-                      LL):
-            _shoot(True, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL, LL)
-        if not _shoot(False, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR,
-                      PR, LR):
-            _shoot(False, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR, PR, LR)
+        _terms_and_shots(lam[j], r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, slopes, ends,
+                         w2, x, trig, c, b12, b21, logc, big, alpha, beta, gamma,
+                         VL, PL, LL, VR, PR, LR)
         # angle scales
         S[0] = kl0[r]
         for i in range(nL):
@@ -280,14 +289,9 @@ def modes(lam, owner, k, l, a, s, kl, lk, mkl, hl, hl3, l2, ends, la, V, P, Ls):
     parts = np.empty(nL)
     for j in range(m):
         r = owner[j]
-        _terms(lam[j], r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, True, w2, x, trig, c,
-               b12, b21, logc, big, alpha, beta, gamma)
-        if not _shoot(True, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL,
-                      LL):
-            _shoot(True, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VL, PL, LL)
-        if not _shoot(False, EVERY, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR,
-                      PR, LR):
-            _shoot(False, 1, r, k, kl, ends, w2, x, c, b12, b21, logc, big, VR, PR, LR)
+        _terms_and_shots(lam[j], r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, True, ends,
+                         w2, x, trig, c, b12, b21, logc, big, alpha, beta, gamma,
+                         VL, PL, LL, VR, PR, LR)
         # the face where both shots agree best (least |sin| of the angle between them),
         # not the bottom face, which the bottom shot meets exactly
         js, low = 0, np.inf
