@@ -139,3 +139,23 @@ def test_site_curve_reader_between_samples():
     b = _bump(0.5 * (t[110] + t[111]), 1.5 * (t[111] - t[110]), 1.01)
     _, pk_t, pk = curve_metrics(lambda s: a(s) + b(s), t_start, t_end, 2.0, 128)
     assert abs(pk - 1.01) <= 1e-9 and abs(pk_t - 0.5 * (t[110] + t[111])) <= 1e-6 * t_end
+
+
+def test_run_curve_reader_crossings_of_a_narrow_peak():
+    """The run's curve reader on a closed-form curve: a Gaussian bump a quarter of a
+    scan step wide, its top between two samples that read 0.24 and 0.0004 of it (the
+    parabola through the samples cannot see the top: found in a sweep, a run reported a
+    peak above the level with no exceedance). The peak's polish finds the top, and the
+    crossings come with it: t0 -+ w sqrt(ln(1/level)), the time above their distance."""
+    from transport.analysis.curve_reading import first_exceedance, peak, time_above
+    t0, w, level = 50.3, 0.25, 0.9999
+
+    def curve(depth, t):
+        return np.exp(-((np.asarray(t, float) - t0) / w) ** 2)
+    half = w * math.sqrt(math.log(1 / level))
+    pk_t, pk = peak(curve, 0.0, 1.0, 100.0, n=101)
+    assert abs(pk - 1.0) <= 1e-12 and abs(pk_t - t0) <= 1e-6
+    first = first_exceedance(curve, 0.0, level, 1.0, 100.0, n=101)
+    assert abs(first - (t0 - half)) <= 1e-9
+    above = time_above(curve, 0.0, level, 1.0, 100.0, n=101)
+    assert abs(above - 2 * half) <= 1e-9

@@ -174,7 +174,11 @@ def hidden_crossings(conc_at, depth, level, t, c, windows, t_end, within=0.0):
             return rise if rise > within else 0.0
         step = abs(c[i] - c[1 if i == 0 else last - 1]) if last else 0.0
         return 0.5 * step if step > within else 0.0
-    cands = [(i, k) for i, k in cands if reach(i, k) >= 0.5 * abs(ex[i])]
+    # the largest and the smallest sample's extremes always: the peak's polish reads
+    # them, and a peak reported above the level must come with its crossings
+    top, bottom = int(np.nanargmax(c)), int(np.nanargmin(c))
+    cands = [(i, k) for i, k in cands if (i, k) in ((top, 1), (bottom, -1))
+             or reach(i, k) >= 0.5 * abs(ex[i])]
     cands.sort(key=lambda p: abs(ex[p[0]]))
     out = []
 
