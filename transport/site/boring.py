@@ -189,15 +189,13 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
             tuple(str(w.message) for w in caught))
 
 
-def _error_bound(site, col, initial, times, conc=None) -> float:
+def _error_bound(site, col, initial, times, conc) -> float:
     """The tolerance times the scale of C a boring's curve is read with (the bound the
     data give over the run, or the largest C written): a second peak or a crossing
     between scan samples that passes by less is a rounding bump."""
     t_run = max(float(np.max(times)), site.design_life)
     scale = concentration_bounds(col, initial, t_run).scale
-    if not scale and conc is not None:
-        scale = float(np.nanmax(np.abs(conc)))
-    return site.tolerance * (scale or 0.0)
+    return site.tolerance * (scale or float(np.nanmax(np.abs(conc))))
 
 
 class _Remember:
@@ -230,11 +228,12 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum):
     t_start = float(times[times > 0].min())
     t_life = site.design_life
     t_run = max(float(times.max()), t_life)
+    bounded = concentration_bounds(col, initial, t_run).scale
     run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES,
-                        within=_error_bound(site, col, initial, times))
+                        within=tol * (bounded or 0.0))
     mass_life = float(cum[-1, -1])
     mass_run = mass_life if t_run == t_life else float(cum[times.size - 1, -1])
-    scale = concentration_bounds(col, initial, t_run).scale or max(abs(run[2]), 1e-300)
+    scale = bounded or max(abs(run[2]), 1e-300)
     bound = tol * scale
     out = []
 

@@ -120,6 +120,32 @@ def _shoot(down, every, r, k, kl, ends, w2, x, c, b12, b21, logc, big, V, P, L):
 
 
 @numba.njit(**_JIT)
+def _endpoint_integral(v0, v1, L0, L1, x, w2, l):
+    """int v^2 over a thick evanescent layer from the states v0 e^{L0} and v1 e^{L1} at
+    its faces (two-exponential form, as transfer.layer_integrals): (I, lg), the
+    integral being I e^{lg}."""
+    lm = max(L0, L1)
+    V0 = v0 * math.exp(L0 - lm)
+    V1 = v1 * math.exp(L1 - lm)
+    e = math.exp(-x)
+    det = -math.expm1(-2 * x)
+    E = (V0 - V1 * e) / det
+    F = (V1 - V0 * e) / det
+    w = math.sqrt(abs(w2))
+    ws = w if w > 0 else 1.0
+    return (E * E + F * F) * det / (2 * ws) + 2 * E * F * l * e, 2.0 * lm
+
+
+@numba.njit(**_JIT)
+def _layer_scratch(nL):
+    """Per-layer work arrays of one lambda: w2, x, c, b12, b21, logc, alpha, beta,
+    gamma (float) and trig, big (bool)."""
+    lay = np.empty((9, nL))
+    return (lay[0], lay[1], lay[2], lay[3], lay[4], lay[5], lay[6], lay[7], lay[8],
+            np.empty(nL, np.bool_), np.empty(nL, np.bool_))
+
+
+@numba.njit(**_JIT)
 def _terms_and_shots(lam, r, k, l, a, s, kl, lk, mkl, hl, hl3, l2, slopes, ends, w2, x,
                      trig, c, b12, b21, logc, big, alpha, beta, gamma, VL, PL, LL, VR,
                      PR, LR):
@@ -153,11 +179,7 @@ def mismatch(lam, face_in, owner, slopes, k, l, a, s, kl, lk, mkl, hl, hl3, l2, 
     operator in column owner[j] of the layer arrays (nL, R) and of the end constants."""
     m = lam.size
     nL = k.shape[0]
-    lay10 = np.empty((10, nL))
-    w2, x, c, b12, b21, logc = lay10[0], lay10[1], lay10[2], lay10[3], lay10[4], lay10[5]
-    alpha, beta, gamma = lay10[6], lay10[7], lay10[8]
-    trig = np.empty(nL, np.bool_)
-    big = np.empty(nL, np.bool_)
+    w2, x, c, b12, b21, logc, alpha, beta, gamma, trig, big = _layer_scratch(nL)
     face7 = np.empty((7, nL + 1))
     VL, PL, LL, VR, PR, LR, S = (face7[0], face7[1], face7[2], face7[3], face7[4],
                                  face7[5], face7[6])
@@ -248,17 +270,7 @@ def mismatch(lam, face_in, owner, slopes, k, l, a, s, kl, lk, mkl, hl, hl3, l2, 
             else:
                 v, p, L0, v1, L1, ref = VR[i], PR[i], LR[i], VR[i + 1], LR[i + 1], ref_r
             if (not trig[i]) and x[i] > ENDPOINT:
-                lm = max(L0, L1)
-                V0 = v * math.exp(L0 - lm)
-                V1 = v1 * math.exp(L1 - lm)
-                e = math.exp(-x[i])
-                det = -math.expm1(-2 * x[i])
-                E = (V0 - V1 * e) / det
-                F = (V1 - V0 * e) / det
-                w = math.sqrt(abs(w2[i]))
-                ws = w if w > 0 else 1.0
-                I = (E * E + F * F) * det / (2 * ws) + 2 * E * F * l[i, r] * e
-                lg = 2.0 * lm
+                I, lg = _endpoint_integral(v, v1, L0, L1, x[i], w2[i], l[i, r])
             else:
                 pk = p / k[i, r]
                 I = alpha[i] * v * v + gamma[i] * pk * pk + beta[i] * v * pk
@@ -278,11 +290,7 @@ def modes(lam, owner, k, l, a, s, kl, lk, mkl, hl, hl3, l2, ends, la, V, P, Ls):
     column j of V, P, Ls (N+1, m)."""
     m = lam.size
     nL = k.shape[0]
-    lay10 = np.empty((10, nL))
-    w2, x, c, b12, b21, logc = lay10[0], lay10[1], lay10[2], lay10[3], lay10[4], lay10[5]
-    alpha, beta, gamma = lay10[6], lay10[7], lay10[8]
-    trig = np.empty(nL, np.bool_)
-    big = np.empty(nL, np.bool_)
+    w2, x, c, b12, b21, logc, alpha, beta, gamma, trig, big = _layer_scratch(nL)
     face9 = np.empty((9, nL + 1))
     VL, PL, LL, VR, PR, LR, Vc, Pc, Lc = (face9[0], face9[1], face9[2], face9[3], face9[4],
                                           face9[5], face9[6], face9[7], face9[8])
@@ -326,17 +334,7 @@ def modes(lam, owner, k, l, a, s, kl, lk, mkl, hl, hl3, l2, ends, la, V, P, Ls):
             lg = 2.0 * Lc[i]
             if (not trig[i]) and x[i] > ENDPOINT:
                 L0, L1 = Lc[i], Lc[i + 1]
-                lm = max(L0, L1)
-                V0 = v0 * math.exp(L0 - lm)
-                V1 = Vc[i + 1] * math.exp(L1 - lm)
-                e = math.exp(-x[i])
-                det = -math.expm1(-2 * x[i])
-                E = (V0 - V1 * e) / det
-                F = (V1 - V0 * e) / det
-                w = math.sqrt(abs(w2[i]))
-                ws = w if w > 0 else 1.0
-                integral = (E * E + F * F) * det / (2 * ws) + 2 * E * F * l[i, r] * e
-                lg = 2.0 * lm
+                integral, lg = _endpoint_integral(v0, Vc[i + 1], L0, L1, x[i], w2[i], l[i, r])
             parts[i] = math.log(max(integral, 1e-300)) + lg + la[i, r]
             top = max(top, parts[i])
         total = 0.0
