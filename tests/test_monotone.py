@@ -133,10 +133,17 @@ def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch):
     asked = []
     real = site_boring.laplace_concentration
 
+    real_lone = site_boring.laplace_lone_times
+
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t).size)
         return real(col_, t, z, **kw)
+
+    def counting_lone(col_, t, z, **kw):  # the checks: each time on its own contours
+        asked.append(1)
+        return real_lone(col_, t, z, **kw)
     monkeypatch.setattr(site_boring, "laplace_concentration", counting)
+    monkeypatch.setattr(site_boring, "laplace_lone_times", counting_lone)
     site = SimpleNamespace(tolerance=tol, design_life=life, screening_level=level)
     bt, pk, _ = realization_metrics(site, col, depth, times[0], times)
     assert asked and max(asked) <= 2

@@ -141,12 +141,13 @@ def test_a_realization_no_engine_can_vouch_for_is_refused(monkeypatch):
     tolerance)."""
     from transport.solvers.checks import UnreliableResultError
 
-    real = site_boring.laplace_concentration
-
-    def loose(*args, **kw):
-        conc, err = real(*args, **kw)
-        return conc, np.full_like(err, 1e-3 * SCALE)
-    monkeypatch.setattr(site_boring, "laplace_concentration", loose)
+    def loosened(real):
+        def loose(*args, **kw):
+            conc, err = real(*args, **kw)
+            return conc, np.full_like(err, 1e-3 * SCALE)
+        return loose
+    for name in ("laplace_concentration", "laplace_lone_times"):  # curves; checks
+        monkeypatch.setattr(site_boring, name, loosened(getattr(site_boring, name)))
     col = column(0.4)
     with pytest.raises(UnreliableResultError, match="tolerance 1e-08"):
         realization_metrics(site(0.001), col, DEPTH, TIMES[0], TIMES)
@@ -204,13 +205,21 @@ def test_quiet_early_samples_are_not_asked_of_the_laplace_engine(monkeypatch):
     asked = []
     real = site_boring.laplace_concentration
 
+    real_lone = site_boring.laplace_lone_times
+
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t).size)
         return real(col_, t, z, **kw)
+
+    def counting_lone(col_, t, z, **kw):  # the checks: each time on its own contours
+        asked.append(1)
+        return real_lone(col_, t, z, **kw)
     monkeypatch.setattr(site_boring, "laplace_concentration", counting)
+    monkeypatch.setattr(site_boring, "laplace_lone_times", counting_lone)
     bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
     assert asked and max(asked) <= 2  # the check at the breakthrough and the peak only
     monkeypatch.setattr(site_boring, "laplace_concentration", real)
+    monkeypatch.setattr(site_boring, "laplace_lone_times", real_lone)
     old_bt, old_pk = _previous_path(col, level)
     assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
     assert pk == old_pk

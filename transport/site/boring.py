@@ -32,7 +32,7 @@ from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       describe_refusal, good_enough, own_errors,
                                       quantities, switched, vouched_from)
 from transport.solvers.laplace import solve_laplace
-from transport.solvers.laplace.engine import laplace_concentration
+from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.monotone import nondecreasing_in_time
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
@@ -346,9 +346,7 @@ def _at_lone_times(col, times, depth, initial, enough):
     inverted on its own (Talbot contours; compiled for a column of step signals:
     :func:`transport.solvers.laplace.engine.laplace_concentration`), not sharing a
     window of times: a realization's check of its breakthrough and peak."""
-    out = [laplace_concentration(col, [t], [depth], initial=initial, enough=enough,
-                                 compiled=True) for t in times]
-    return (np.array([c[0, 0] for c, _ in out]), np.array([e[0] for _, e in out]))
+    return laplace_lone_times(col, times, depth, initial=initial, enough=enough)
 
 
 def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,

@@ -17,8 +17,8 @@ from transport.solvers.laplace.inversion import invert_best, plan_windows, tries
 from transport.solvers.laplace.transfer import LaplaceTransfer, PiecewiseCubic, initial_values
 from transport.solvers.result import Solution
 
-__all__ = ["solve_laplace", "laplace_concentration", "laplace_solution", "signal_components",
-           "signals_for"]
+__all__ = ["solve_laplace", "laplace_concentration", "laplace_lone_times", "laplace_solution",
+           "signal_components", "signals_for"]
 
 
 def _atom_hat(kind, amp, rate, s):
@@ -135,7 +135,31 @@ def laplace_concentration(column: Column, times, depths, *, initial: InitialStat
     return _concentration(column, model, initial, times, depths, out, est)
 
 
-def _lone_times(column, times, depths, initial, enough):
+def laplace_lone_times(column: Column, times, depth: float, *, initial: InitialState = None,
+                       enough: dict = None):
+    """C at one ``depth`` and its error estimate at each of ``times``, each time inverted
+    on its own Talbot contours (sharing no window with the others): the numbers of
+    ``laplace_concentration(column, [t], [depth], compiled=True)`` for each t, in one
+    compiled call where every time is one :func:`_lone_times` serves (a Monte Carlo
+    realization's check of its breakthrough and peak), else one call per time.
+
+    Returns
+    -------
+    (numpy.ndarray, numpy.ndarray)
+        C (kg m-3) and its estimate, one value per time.
+    """
+    initial = initial if initial is not None else InitialState.clean()
+    times = np.atleast_1d(np.asarray(times, dtype=float))
+    found = _lone_times(column, times, [depth], initial, enough, each=True)
+    if found is not None:
+        return found[0][:, 0], found[1]
+    out = [laplace_concentration(column, [t], [depth], initial=initial, enough=enough,
+                                 compiled=True) for t in times]
+    return (np.array([c[0, 0] for c, _ in out], dtype=float),
+            np.array([e[0] for _, e in out], dtype=float))
+
+
+def _lone_times(column, times, depths, initial, enough, each=False):
     """:func:`laplace_concentration` at one depth and lone times (each on its own
     Talbot contours: :func:`~transport.solvers.laplace.inversion.plan_windows` puts
     no two of them in a window) of a column whose signals are steps switched on at 0,
@@ -144,7 +168,9 @@ def _lone_times(column, times, depths, initial, enough):
     a Monte Carlo realization's checks and the polish of its Laplace-served curve).
     None where the case is another, or where the inversion :func:`invert_best` makes
     would try the parabolic contour at some time, or gives a value that is not
-    finite: the general path then serves the whole call."""
+    finite: the general path then serves the whole call.  ``each``: the times are
+    wanted each on its own contours even where the general path would share a window
+    (:func:`laplace_lone_times`; the kernel inverts them one at a time either way)."""
     if np.ndim(depths) > 1 or np.size(depths) != 1 or not isinstance(initial, InitialState):
         return None
     depth = float(np.ravel(depths)[0])
@@ -153,14 +179,16 @@ def _lone_times(column, times, depths, initial, enough):
             or not np.all(np.isfinite(times)) or not 0 <= depth <= column.length * (1 + 1e-12)):
         return None
     prep = _lone_prep(column, initial)
-    if prep is None or (times.size > 1 and plan_windows(times, prep.n)[0]):
+    if prep is None or (not each and times.size > 1 and plan_windows(times, prep.n)[0]):
         return None
     f, e = kernel.talbot_points(prep, times, depth)
     if not (np.all(np.isfinite(f)) and np.all(np.isfinite(e))):
         return None
     f = f[:, None]
     floor = float((enough or {}).get("concentration", 0.0))
-    if prep.s0 > 0 and tries_parabola(f, e[:, None], floor).any():
+    # each time alone is asked as the general path would ask it for that time alone
+    rows = [slice(i, i + 1) for i in range(times.size)] if each else [slice(None)]
+    if prep.s0 > 0 and any(tries_parabola(f[r], e[r, None], floor).any() for r in rows):
         return None
     return f, e
 

@@ -22,6 +22,8 @@ import or to compile, leaves every transform to the array code.
 """
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from transport.solvers.jit import load
@@ -127,8 +129,6 @@ class PointsPrep:
     growth parabola of the advective branch, 0 without flow)."""
 
     def __init__(self, model, n, n2, steps, s0):
-        from transport.solvers.laplace.contour import talbot_nodes
-
         self.model, self.n, self.n2, self.s0 = model, n, n2, s0
         g = model.seg
         kinds = np.zeros(2, np.int64)
@@ -138,13 +138,22 @@ class PointsPrep:
         for row, (end, value) in enumerate((("top", steps[0]), ("bottom", steps[1]))):
             kind, h_row, target = model.end_row(end, value * one, one, 1.0)
             kinds[row] = kind
-            h[row] = complex(np.broadcast_to(h_row, (1,))[0])
-            amp[row] = complex(np.broadcast_to(target, (1,))[0])
-        (shape1, w1), (shape2, w2) = talbot_nodes(n), talbot_nodes(n2)
-        self.nodes = tuple(_arg(x, np.complex128) for x in (shape1, w1, shape2, w2))
+            h[row] = complex(np.ravel(h_row)[0])  # a scalar or one value
+            amp[row] = complex(np.ravel(target)[0])
+        self.nodes = _node_args(n, n2)
         self.segments = tuple(_arg(g[name], float) for name in ("k", "c", "mu", "l", "K",
                                                                  "a", "b"))
         self.rest = (_arg(steps[2], np.complex128), float(model.q), kinds, h, amp)
+
+
+@functools.lru_cache(maxsize=16)
+def _node_args(n, n2):
+    """The Talbot shapes and weights of n and n2 nodes as the kernel takes them (made
+    once per pair; the kernel only reads them)."""
+    from transport.solvers.laplace.contour import talbot_nodes
+
+    (shape1, w1), (shape2, w2) = talbot_nodes(n), talbot_nodes(n2)
+    return tuple(_arg(x, np.complex128) for x in (shape1, w1, shape2, w2))
 
 
 def talbot_points(prep, times, depth):
