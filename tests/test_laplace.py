@@ -420,9 +420,9 @@ def test_concentration_alone_is_not_inverted_again_for_other_quantities(monkeypa
     count = []
     real = transfer.LaplaceTransfer.evaluate
 
-    def counted(self, s, signals, depths):
+    def counted(self, s, signals, depths, stored=True):
         count.append(np.size(s))
-        return real(self, s, signals, depths)
+        return real(self, s, signals, depths, stored)
     monkeypatch.setattr(transfer.LaplaceTransfer, "evaluate", counted)
     solve_laplace(col, t, z, initial=init, enough=enough)
     full, count[:] = sum(count), []

@@ -270,7 +270,7 @@ def _inverted(column, times, depths, initial, semi_infinite_bottom, nodes, enoug
         def transform(s, group=group, first=(t0 == 0.0)):
             if concentration_only:
                 C, _, _, capped = model.evaluate(s, signals_for(group, s, model.n, first),
-                                                 depths)
+                                                 depths, stored=False)
                 return C, capped
             C, F, st, capped = model.evaluate(s, signals_for(group, s, model.n, first),
                                               np.concatenate([depths, ends]))

@@ -45,11 +45,12 @@ def _load():
     return transfer
 
 
-def evaluate(model, s, signals, depths):
+def evaluate(model, s, signals, depths, stored=True):
     """:meth:`~transport.solvers.laplace.transfer.LaplaceTransfer.evaluate`, compiled:
-    C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment (nseg, ns) and
-    capped (ns,) bool (an exponent cut at 600, a singular system or non-finite
-    coefficients: those s carry no value)."""
+    C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment (nseg, ns;
+    without ``stored`` an empty (0, ns) array, not computed) and capped (ns,) bool (an
+    exponent cut at 600, a singular system or non-finite coefficients: those s carry
+    no value)."""
     s = np.asarray(s, dtype=complex)
     top_hat, bot_hat, src_hat, with_initial = signals
     g, ns, n, q = model.seg, s.size, model.n, model.q
@@ -65,7 +66,7 @@ def evaluate(model, s, signals, depths):
     idx, zeta = model.locate(depths)
     C = np.empty((ns, idx.size), np.complex128)
     F = np.empty((ns, idx.size), np.complex128)
-    st = np.empty((n, ns), np.complex128)
+    st = np.empty((n if stored else 0, ns), np.complex128)
     capped = np.zeros(ns, np.bool_)
     f = _arg
     _STATE["kernel"](f(s, np.complex128), f(g["k"], float), f(g["c"], float),

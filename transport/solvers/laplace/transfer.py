@@ -189,16 +189,17 @@ class LaplaceTransfer:
         self.compiled = (compiled and not np.any(self.seg["a2"]) and not np.any(self.seg["a3"])
                          and kernel.available())
 
-    def evaluate(self, s, signals, depths):
+    def evaluate(self, s, signals, depths, stored=True):
         """C^ and F^ at ``depths`` ((ns, nz) each), the stored mass per segment (nseg,
         ns) and the capped flags (ns,) for s (ns,): :meth:`solve`, :meth:`fields` and
         :meth:`stored` in one, compiled where the transfer was built with
-        ``compiled`` and the case allows (the same numbers to rounding)."""
+        ``compiled`` and the case allows (the same numbers to rounding).  Without
+        ``stored`` the stored mass is not computed (None, or an empty array compiled)."""
         if not self.compiled:
             coef = self.solve(s, signals)
             C, F = self.fields(coef, depths)
-            return C, F, self.stored(coef), self.capped.copy()
-        return kernel.evaluate(self, s, signals, depths)
+            return C, F, self.stored(coef) if stored else None, self.capped.copy()
+        return kernel.evaluate(self, s, signals, depths, stored)
 
     def solve(self, s, signals, forcing=None):
         """Per-segment roots, anchors, particular parts and coefficients for s (ns,).
