@@ -169,3 +169,40 @@ def test_peak_inside_the_window_is_not_flagged():
     assert views.whole_run.trend_at_end == "falling"
     assert not views.whole_run.peak_beyond_horizon
     assert views.design_life.trend_at_end == "rising" and views.peak_after_design_life
+
+
+def test_a_level_reached_before_the_earliest_output_time_is_flagged():
+    """No flow, three layers, a constant top concentration; receptor 0.3 m, level 0.37
+    of the source. The metrics window starts at the earliest positive output time
+    (11.4 yr here); per the mpmath reference (tests/reference.py; Talbot 1979, Abate &
+    Valko 2004) C crosses the level near 4.2 yr, before it. The first exceedance is then
+    the window start, a later time than the crossing: the metrics say so
+    (exceeded_at_start), as do the NetCDF flag and the comparison table. With the
+    earliest output time at 1 yr the crossing is resolved and not flagged."""
+    from reference import laplace_reference
+    from transport.analysis.compare import _at_start
+    from transport.analysis.metrics import receptor_views
+    from transport.io.netcdf_metrics import metric_variables
+    from transport.model.column import Boundary, Column, Layer
+    from transport.solvers.engines import solve_column
+
+    year = 365.25 * 86400
+    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
+                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
+                 Boundary("sealed"), 0.0)
+    level, depth = 0.37, 0.3
+    late = np.array([11.4, 40.0, 100.0]) * year
+    views = receptor_views(solve_column(col, late, [depth]), depth, level)
+    m = views.whole_run
+    ref = laplace_reference(col, [depth], np.array([2.0, 11.4]) * year, dps=20)[:, 0]
+    assert ref[0] < level < ref[1]  # the case: the crossing lies before 11.4 yr
+    assert m.first_exceedance == m.window_start == late[0] and m.exceeded_at_start
+    variables = metric_variables(views)
+    assert variables["exceedance_at_metrics_start_whole_run"][1] == 1
+    assert variables["metrics_start"][1] == pytest.approx(11.4 * 365.25)
+    assert _at_start(m) == "yes"
+    early = receptor_views(solve_column(col, np.append(1.0 * year, late), [depth]), depth,
+                           level).whole_run
+    assert not early.exceeded_at_start and _at_start(early) == "no"
+    c_cross = laplace_reference(col, [depth], [early.first_exceedance], dps=20)[0, 0]
+    assert abs(c_cross - level) <= 2e-8  # the resolved crossing, per the reference

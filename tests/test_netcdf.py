@@ -436,9 +436,12 @@ def test_metrics_variables_pass_cf_checker(run_with_metrics):
     assert failed_items(report, "high") == [] and failed_items(report, "medium") == []
     with netCDF4.Dataset(path) as nc:
         names = [n for n in nc.variables if n.endswith(("_design_life", "_whole_run"))]
-        assert len(names) == 2 * 6 + 1  # six metrics per window, peak_after_design_life
+        # six metrics and the flag of an exceedance at the start per window, and
+        # peak_after_design_life
+        assert len(names) == 2 * 7 + 1
         assert nc["peak_after_run_end"].flag_meanings == "no yes"
+        assert nc["metrics_start"].units == "d"
         for name in names:
             assert nc[name].long_name
-            if not name.startswith("peak_after"):  # flags: flag_values, no units
+            if not name.startswith(("peak_after", "exceedance_at")):  # flags: no units
                 assert not cf_units.Unit(nc[name].units).is_unknown(), name

@@ -133,6 +133,8 @@ def comparison_table(alts):
             else ("yes" if m.stays_below_level else "no"),
             "first_exceedance_yr": None if m.first_exceedance is None
             else m.first_exceedance / YEAR,
+            # already reached at the earliest output time: the crossing lies earlier
+            "first_exceedance_at_start": _at_start(m),
             "time_above_level_yr": None if m.time_above_level is None
             else m.time_above_level / YEAR,
             "peak_mg_L": m.peak_concentration * _MG_L_PER_SI,
@@ -144,6 +146,7 @@ def comparison_table(alts):
             "run_stays_below_level": None if w.stays_below_level is None
             else ("yes" if w.stays_below_level else "no"),
             "run_first_exceedance_yr": _yr(w.first_exceedance),
+            "run_first_exceedance_at_start": _at_start(w),
             "run_time_above_level_yr": _yr(w.time_above_level),
             "run_peak_mg_L": w.peak_concentration * _MG_L_PER_SI,
             "run_peak_time_yr": w.peak_time / YEAR,
@@ -158,6 +161,15 @@ def comparison_table(alts):
             "budget_residual_mg_m2": b.get("residual", np.nan) * _MG_M2_PER_SI,
         })
     return rows
+
+
+def _at_start(m):
+    """"yes" where the level is already reached at the start of the metrics window (the
+    earliest positive output time: the first crossing lies earlier, not resolved), "no"
+    where it is first reached later or never, None without a screening level."""
+    if m.screening_level is None:
+        return None
+    return "yes" if m.exceeded_at_start else "no"
 
 
 def _fmt(v):
@@ -220,7 +232,9 @@ def comparison_dataset(alts, title="stratiflux comparison", history=None):
                {"long_name": "name of the remediation alternative"}))
     for name, field, units, long in (
             ("first_exceedance_time", "first_exceedance", "s", "first time the receptor "
-             "reaches the screening level, per alternative (fill: never)"),
+             "reaches the screening level, per alternative (fill: never; the earliest "
+             "positive output time where the level is already reached there: the "
+             "crossing is then earlier and not resolved)"),
             ("peak", "peak_concentration", "kg m-3", "peak concentration at the receptor "
              "per alternative"),
             ("mass_to_receptor", "cumulative_mass", "kg m-2", "mass per area through the "

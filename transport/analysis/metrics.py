@@ -193,9 +193,19 @@ class ReceptorMetrics:
     end_concentration: float | None = None  # kg m-3 at the horizon
     trend_at_end: str | None = None  # "rising", "falling", "flat" (end_trend) or None
     concentration_bound: float | None = None  # kg m-3, error bound of C at the horizon
+    window_start: float | None = None  # s, start of the window (earliest positive output)
 
     def as_dict(self):
         return asdict(self)
+
+    @property
+    def exceeded_at_start(self) -> bool:
+        """The level is already reached at the start of the window: the first
+        exceedance then equals the window start, and the crossing itself lies earlier,
+        between time 0 and the earliest positive output time, where it is not resolved
+        (a later time than the crossing: add earlier output times)."""
+        return (self.first_exceedance is not None and self.window_start is not None
+                and self.first_exceedance <= self.window_start)
 
     @property
     def peak_at_end(self) -> bool:
@@ -307,7 +317,7 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     trend = end_trend(solution.concentration_at, receptor_depth, t_start, horizon, bound,
                       n, extra, win)
     return ReceptorMetrics(float(receptor_depth), screening_level, horizon, first, above,
-                           pk_t, pk_c, cum, c_ss, t95, stays, c_end, trend, bound)
+                           pk_t, pk_c, cum, c_ss, t95, stays, c_end, trend, bound, t_start)
 
 
 def receptor_views(solution, receptor_depth: float, screening_level=None,

@@ -117,6 +117,16 @@ def _time_cell(t):
     return _cell(None, "not reached" if t is None else format_time(t), t)
 
 
+def _first_cell(m):
+    """The first exceedance; where the level is already reached at the earliest output
+    time, said so (the crossing lies earlier and is not resolved)."""
+    if m.exceeded_at_start:
+        return _cell(None, f"already reached at the earliest output time, "
+                           f"{format_time(m.first_exceedance)} (the crossing is earlier)",
+                     m.first_exceedance)
+    return _time_cell(m.first_exceedance)
+
+
 def _conc_cell(c):
     return _cell(None, "–" if c is None else format_concentration(c), c)
 
@@ -134,7 +144,7 @@ def _metrics(views) -> str:
         ("receptor depth", [_cell(None, f"{x.receptor_depth:g} m", x.receptor_depth)
                             for x in m]),
         ("screening level", [_conc_cell(x.screening_level) for x in m]),
-        ("first reaches the screening level", [_time_cell(x.first_exceedance) for x in m]),
+        ("first reaches the screening level", [_first_cell(x) for x in m]),
         ("time above the screening level", [_time_cell(x.time_above_level) for x in m]),
         ("highest concentration", [_conc_cell(x.peak_concentration) for x in m]),
         ("time of the highest concentration", [_time_cell(x.peak_time) for x in m]),

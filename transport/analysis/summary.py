@@ -359,6 +359,11 @@ def _window_text(m, start=None) -> str:
     if level is not None:
         if m.first_exceedance is None:
             parts.append(f"screening level {format_concentration(level)} not reached")
+        elif m.exceeded_at_start:
+            parts.append(f"screening level {format_concentration(level)} already reached "
+                         f"at the earliest output time {format_time(m.first_exceedance, start)}"
+                         f" (the crossing is earlier, not resolved), above it for "
+                         f"{format_time(m.time_above_level)}")
         else:
             parts.append(f"screening level {format_concentration(level)} first reached at "
                          f"{format_time(m.first_exceedance, start)}, above it for "
@@ -486,8 +491,10 @@ def verdict_line(label: str, metrics, views=None) -> str:
                 f"{m.receptor_depth:g} m over {m.horizon / YEAR:.4g} yr "
                 f"(peak {m.peak_concentration / MG_PER_L:.3g} mg/L).")
     else:
+        since = (f"already at the earliest output time, {m.first_exceedance / YEAR:.4g} yr"
+                 if m.exceeded_at_start else f"from {m.first_exceedance / YEAR:.4g} yr")
         line = (f"{label}: exceeds {m.screening_level / MG_PER_L:.4g} mg/L at "
-                f"{m.receptor_depth:g} m from {m.first_exceedance / YEAR:.4g} yr, "
+                f"{m.receptor_depth:g} m {since}, "
                 f"for {m.time_above_level / YEAR:.4g} yr within "
                 f"{m.horizon / YEAR:.4g} yr.")
     if views is None:

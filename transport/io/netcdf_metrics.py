@@ -26,7 +26,9 @@ _FILL = -9999.0
 METRIC_FIELDS = (
     ("first_exceedance", "first_exceedance_time", "d",
      "elapsed time at which the pore-water concentration at the receptor first reaches "
-     "the screening level (fill: not reached)"),
+     "the screening level (fill: not reached; where the level is already reached at "
+     "metrics_start, that start: the crossing is then earlier and not resolved, see "
+     "exceedance_at_metrics_start)"),
     ("time_above_level", "time_above_level", "d",
      "total time the pore-water concentration at the receptor is at or above the "
      "screening level"),
@@ -84,7 +86,27 @@ def metric_variables(views) -> dict:
                 {"long_name": f"{long_name}, {window}", "units": units,
                  "coverage_content_type": "modelResult", "comment": CAUTION},
                 {"dtype": "float64", "_FillValue": _FILL})
-    flags = (("peak_after_design_life", views.peak_after_design_life,
+    start = views.whole_run.window_start
+    if start is not None:
+        out["metrics_start"] = (
+            (), _value("horizon", start),
+            {"long_name": "elapsed time at the start of the window of the receptor "
+                          "metrics: the earliest positive output time (earlier times are "
+                          "not read)", "units": "d",
+             "coverage_content_type": "modelResult", "comment": CAUTION},
+            {"dtype": "float64", "_FillValue": _FILL})
+    flags = []
+    for attr, suffix, window in _WINDOWS:
+        m = getattr(views, attr)
+        if m.screening_level is not None and m.window_start is not None:
+            flags.append((
+                f"exceedance_at_metrics_start_{suffix}", m.exceeded_at_start,
+                "whether the screening level is already reached at the receptor at "
+                f"metrics_start, {window}: the first crossing then lies earlier, between "
+                "time 0 and metrics_start, where it is not resolved, and "
+                f"first_exceedance_time_{suffix} is metrics_start, a later time than the "
+                "crossing (add earlier output times)"))
+    flags += (("peak_after_design_life", views.peak_after_design_life,
               "whether the peak concentration at the receptor lies after the design life "
               "(still rising at its end beyond twice the error bound of the concentration, "
               "or higher later in the run)"),

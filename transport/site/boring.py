@@ -246,7 +246,7 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum):
         c_end = float(curve(np.array([t_end]))[0])
         first = None if np.isnan(bt) else bt
         out.append(ReceptorMetrics(depth, level, t_end, first, above, pk_t, pk, mass, None,
-                                   None, first is None, c_end, trend, bound))
+                                   None, first is None, c_end, trend, bound, t_start))
     return ReceptorViews(out[0], out[1])
 
 
