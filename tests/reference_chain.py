@@ -81,7 +81,13 @@ def _transform(chain, s, depths):
 
 def chain_reference(chain, depths, times, dps: int = 30) -> np.ndarray:
     """C (nt, n_species, nz) of a clean layered chain with constant concentration tops
-    and free-outflow bottoms, by mpmath (matrix exponentials + Talbot inversion)."""
+    and free-outflow bottoms, by mpmath (matrix exponentials + Talbot inversion).
+
+    ``dps`` carries no guard digits for advection: the transform holds factors up to
+    exp(int |q| / (2 theta D) dz) that cancel in the inversion sum, so at a column
+    Peclet number beyond about 10 raise it by
+    :func:`reference.advection_guard_digits` of the species' columns (a sweep of the
+    same method at Pe 100 gave values of 1e19 at early times without them)."""
     n = len(chain.columns)
     res = np.zeros((len(times), n, len(depths)))
     memo = {}
