@@ -473,3 +473,29 @@ def test_failed_studies_leave_earlier_files_byte_identical(tmp_path, monkeypatch
     failed = invoke("sensitivity", study, "-o", out)
     assert failed.exit_code == 2 and "No space left on device" in failed.output
     assert _snapshot(out) == before
+
+
+def test_first_exceedance_already_reached_at_the_earliest_output_is_noted(monkeypatch):
+    """A run whose receptor is above the level at the earliest output time gives that
+    time as its first exceedance (the crossing lies earlier, unresolved): the study
+    notes it with the run, as the metrics say (ReceptorMetrics.exceeded_at_start, whose
+    case is checked against mpmath in test_metrics). Here the metrics are those of a
+    run above the level from the start, by construction."""
+    from types import SimpleNamespace
+
+    from transport.analysis import sensitivity as sens
+    from transport.analysis.metrics import ReceptorMetrics
+
+    year = 365.25 * 86400
+    m = ReceptorMetrics(1.0, 1e-3, 50 * year, 1 * year, 49 * year, 10 * year, 0.5, None,
+                        None, None, False, window_start=1 * year)
+    monkeypatch.setattr(sens, "solve_scenario", lambda *a, **k: (None, []))
+    monkeypatch.setattr(sens, "receptor_metrics", lambda *a, **k: m)
+    out = SimpleNamespace(receptor_depth=1.0, design_life=50 * year, times=[year],
+                          screening_level=1e-3)
+    spec = SimpleNamespace(window="design-life",
+                           metric=SimpleNamespace(name="first_exceedance",
+                                                  field="first_exceedance"))
+    value, censored, notes = sens.measure(SimpleNamespace(output=out), spec, None)
+    assert value == 1 * year and not censored
+    assert any("already reached at the earliest output time (1 yr)" in str(w) for w in notes)

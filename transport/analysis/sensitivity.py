@@ -232,6 +232,11 @@ def measure(scenario: Scenario, spec: SensitivitySpec, tolerance: float = None):
                                       tolerance=tolerance)
     m = receptor_metrics(solution, depth, out.screening_level, horizon)
     value = getattr(m, spec.metric.field)
+    if spec.metric.name == "first_exceedance" and m.exceeded_at_start:
+        caught = list(caught) + [UserWarning(
+            f"the screening level is already reached at the earliest output time "
+            f"({m.window_start / YEAR:.4g} yr): the first exceedance taken is that time, "
+            "later than the crossing, which is not resolved; add earlier output times")]
     if value is None and spec.metric.name == "first_exceedance":
         return float(horizon), True, caught
     if value is None:
