@@ -341,14 +341,6 @@ def _laplace_curve(col, depth, initial, enough):
     return laplace_at
 
 
-def _at_lone_times(col, times, depth, initial, enough):
-    """The Laplace engine's C at ``depth`` and its error bound at each of ``times``
-    inverted on its own (Talbot contours; compiled for a column of step signals:
-    :func:`transport.solvers.laplace.engine.laplace_concentration`), not sharing a
-    window of times: a realization's check of its breakthrough and peak."""
-    return laplace_lone_times(col, times, depth, initial=initial, enough=enough)
-
-
 def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
                      scale):
     """Check a realization's breakthrough and peak against the Laplace engine: the
@@ -361,7 +353,8 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     if not probe_t:
         return bt, pk
     enough = good_enough(col, scale, tol)
-    c, e = _at_lone_times(col, probe_t, depth, initial, enough)
+    # each time on its own Talbot contours (not sharing a window)
+    c, e = laplace_lone_times(col, probe_t, depth, initial=initial, enough=enough)
     want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
     with np.errstate(invalid="ignore"):
         if np.all(np.abs(c - np.array(want)) + e <= tol * scale):
@@ -370,7 +363,7 @@ def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, 
     bt2, pk2_t, pk2 = curve_metrics(_laplace_curve(col, depth, initial, enough), t_start, t_end, level, SCAN_SAMPLES)
     at = [t for t in (bt2, pk2_t) if np.isfinite(t) and t > 0]
     if at:
-        err = _at_lone_times(col, at, depth, initial, enough)[1]
+        err = laplace_lone_times(col, at, depth, initial=initial, enough=enough)[1]
         with np.errstate(invalid="ignore"):
             vouched = np.all(err <= tol * scale)
         if not vouched:

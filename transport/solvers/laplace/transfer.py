@@ -195,11 +195,12 @@ class LaplaceTransfer:
         ns) and the capped flags (ns,) for s (ns,): :meth:`solve`, :meth:`fields` and
         :meth:`stored` in one, compiled where the transfer was built with
         ``compiled`` and the case allows (the same numbers to rounding).  Without
-        ``stored`` the stored mass is not computed (None, or an empty array compiled)."""
+        ``stored`` the stored mass is not computed (an empty (0, ns) array)."""
         if not self.compiled:
             coef = self.solve(s, signals)
             C, F = self.fields(coef, depths)
-            return C, F, self.stored(coef) if stored else None, self.capped.copy()
+            st = self.stored(coef) if stored else np.empty((0, np.size(s)), complex)
+            return C, F, st, self.capped.copy()
         return kernel.evaluate(self, s, signals, depths, stored)
 
     def solve(self, s, signals, forcing=None):
