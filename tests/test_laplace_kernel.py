@@ -12,6 +12,8 @@ other's stated error; measured: the difference is at most 1e-11 of the scale and
 of the estimate, beyond 1e-12 of the scale only where the estimate itself is above it).
 The compiled lone-time inversion (a Monte Carlo column's checks: one depth, times on
 their own Talbot contours) is held to the same rule against the general inversion.
+Several lone times in one call, and transforms without the stored mass, are held to
+the one-time call and the full transform bit for bit (identities: no check value).
 """
 from __future__ import annotations
 
