@@ -270,7 +270,9 @@ PHASES = (
     ("transport.site.boring", "modal_scan", "  modal scan and rounding bound"),
     ("transport.site.boring", "curve_metrics", "  receptor curve: scan and polish"),
     ("transport.site.boring", "verified_metrics", "  Laplace check of breakthrough, peak"),
-    ("transport.site.boring", "laplace_concentration", "  Laplace engine, receptor curves"),
+    ("transport.site.boring", "early_metrics", "  window before the earliest output time"),
+    ("transport.site.laplace_checks", "laplace_concentration",
+     "  Laplace engine, receptor curves"),
     ("transport.site.boring", "solve_laplace", "  Laplace engine, fields and curves"),
     ("transport.plot.site_map", "plot_site_map", "the site map (drawn after the chunks)"),
 )

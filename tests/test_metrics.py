@@ -171,14 +171,16 @@ def test_peak_inside_the_window_is_not_flagged():
     assert views.design_life.trend_at_end == "rising" and views.peak_after_design_life
 
 
-def test_a_level_reached_before_the_earliest_output_time_is_flagged():
+def test_a_crossing_before_the_earliest_output_time_is_resolved_or_flagged():
     """No flow, three layers, a constant top concentration; receptor 0.3 m, level 0.37
-    of the source. The metrics window starts at the earliest positive output time
-    (11.4 yr here); per the mpmath reference (tests/reference.py; Talbot 1979, Abate &
-    Valko 2004) C crosses the level near 4.2 yr, before it. The first exceedance is then
-    the window start, a later time than the crossing: the metrics say so
-    (exceeded_at_start), as do the NetCDF flag and the comparison table. With the
-    earliest output time at 1 yr the crossing is resolved and not flagged."""
+    of the source, output times from 11.4 yr. Per the mpmath reference
+    (tests/reference.py; Talbot 1979, Abate & Valko 2004) C crosses the level near
+    4.4 yr, before the earliest output time. A checked run reads its curve from the
+    release on (the Laplace engine before the earliest output time): the crossing is
+    found (C there equals the level per the reference) and not flagged. A modal series
+    alone is sized for the output times only: its window starts at 11.4 yr, and its
+    first exceedance, that time, is flagged (exceeded_at_start), as it is in the NetCDF
+    flag and the comparison table."""
     from reference import laplace_reference
     from transport.analysis.compare import _at_start
     from transport.analysis.metrics import receptor_views
@@ -192,17 +194,49 @@ def test_a_level_reached_before_the_earliest_output_time_is_flagged():
                  Boundary("sealed"), 0.0)
     level, depth = 0.37, 0.3
     late = np.array([11.4, 40.0, 100.0]) * year
-    views = receptor_views(solve_column(col, late, [depth]), depth, level)
-    m = views.whole_run
     ref = laplace_reference(col, [depth], np.array([2.0, 11.4]) * year, dps=20)[:, 0]
     assert ref[0] < level < ref[1]  # the case: the crossing lies before 11.4 yr
-    assert m.first_exceedance == m.window_start == late[0] and m.exceeded_at_start
-    variables = metric_variables(views)
-    assert variables["exceedance_at_metrics_start_whole_run"][1] == 1
-    assert variables["metrics_start"][1] == pytest.approx(11.4 * 365.25)
-    assert _at_start(m) == "yes"
-    early = receptor_views(solve_column(col, np.append(1.0 * year, late), [depth]), depth,
-                           level).whole_run
-    assert not early.exceeded_at_start and _at_start(early) == "no"
-    c_cross = laplace_reference(col, [depth], [early.first_exceedance], dps=20)[0, 0]
+    checked = receptor_views(solve_column(col, late, [depth]), depth, level)
+    m = checked.whole_run
+    assert m.window_start == 0.0 and 2.0 * year < m.first_exceedance < late[0]
+    assert not m.exceeded_at_start and _at_start(m) == "no"
+    c_cross = laplace_reference(col, [depth], [m.first_exceedance], dps=20)[0, 0]
     assert abs(c_cross - level) <= 2e-8  # the resolved crossing, per the reference
+    variables = metric_variables(checked)
+    assert variables["exceedance_at_metrics_start_whole_run"][1] == 0
+    assert variables["metrics_start"][1] == 0.0
+    alone = receptor_views(solve(col, late, [depth]), depth, level).whole_run
+    assert alone.first_exceedance == alone.window_start == late[0]
+    assert alone.exceeded_at_start and _at_start(alone) == "yes"
+    flagged = metric_variables(receptor_views(solve(col, late, [depth]), depth, level))
+    assert flagged["exceedance_at_metrics_start_whole_run"][1] == 1
+    assert flagged["metrics_start"][1] == pytest.approx(11.4 * 365.25)
+
+
+def test_a_peak_before_the_earliest_output_time_is_found():
+    """A depleting source zone over three layers with downward flow; receptor 0.3 m,
+    output times from 30 yr. The receptor peaks within the first years, long before
+    the earliest output time; the peak read there (C at 30 yr) was 175 x too low. A
+    checked run reads the curve from the release: its peak time and value are checked
+    against the mpmath reference (tests/reference.py; Talbot 1979, Abate & Valko
+    2004): C at the peak equals the reference within the tolerance, and C a little
+    before and after it is lower per the reference."""
+    from reference import laplace_reference
+    from transport.model.column import Boundary, Column, Layer
+    from transport.solvers.engines import solve_column
+
+    col = Column((Layer(0.2, 0.3, 1e-9, 2.0), Layer(0.3, 0.45, 2e-10, 4.0),
+                  Layer(1.5, 0.25, 1e-9, 1.5)),
+                 Boundary("source-zone", 1.0, capacity=0.05, decay_rate=0.0),
+                 Boundary("free-outflow"), 0.05 / YEAR)
+    depth = 0.3
+    times = np.array([30.0, 60.0, 100.0]) * YEAR
+    sol = solve_column(col, times, [depth])
+    m = receptor_metrics(sol, depth, None, times[-1])
+    at_start = laplace_reference(col, [depth], [times[0]], dps=20)[0, 0]
+    assert m.window_start == 0.0 and m.peak_time < times[0]
+    assert m.peak_concentration > 10 * at_start  # the case: the start value is far off
+    t = np.array([0.97, 1.0, 1.03]) * m.peak_time
+    ref = laplace_reference(col, [depth], t, dps=20)[:, 0]
+    assert abs(m.peak_concentration - ref[1]) <= 1e-8 * 1.0  # tolerance x the zone's C0
+    assert ref[0] < ref[1] and ref[2] < ref[1]

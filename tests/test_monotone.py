@@ -23,6 +23,7 @@ from reference import laplace_reference
 from transport.model.column import Boundary, Column, InitialState, Layer
 from transport.model.schedules import Schedule
 from transport.site import boring as site_boring
+from transport.site import laplace_checks as site_checks
 from transport.site.boring import _Probe, realization_metrics
 from transport.solvers.modal.series import build_series
 from transport.solvers.monotone import nondecreasing_in_time
@@ -131,9 +132,9 @@ def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch):
     assert t_modal > times[0] and scan is None  # the case needs the shortcut
     assert site_boring.modal_scan(probe, times[0], life, tol, C0, level, True)[1] is not None
     asked = []
-    real = site_boring.laplace_concentration
+    real = site_checks.laplace_concentration
 
-    real_lone = site_boring.laplace_lone_times
+    real_lone = site_checks.laplace_lone_times
 
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t).size)
@@ -142,8 +143,8 @@ def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch):
     def counting_lone(col_, t, z, **kw):  # the checks: each time on its own contours
         asked.append(1)
         return real_lone(col_, t, z, **kw)
-    monkeypatch.setattr(site_boring, "laplace_concentration", counting)
-    monkeypatch.setattr(site_boring, "laplace_lone_times", counting_lone)
+    monkeypatch.setattr(site_checks, "laplace_concentration", counting)
+    monkeypatch.setattr(site_checks, "laplace_lone_times", counting_lone)
     site = SimpleNamespace(tolerance=tol, design_life=life, screening_level=level)
     bt, pk, _ = realization_metrics(site, col, depth, times[0], times)
     assert asked and max(asked) <= 2

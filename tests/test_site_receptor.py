@@ -26,6 +26,7 @@ from transport.model.column import Boundary, Column, Layer
 from transport.model.schedules import Schedule
 from transport.site import boring as site_boring
 from transport.site import curves as site_curves
+from transport.site import laplace_checks as site_checks
 from transport.site.boring import realization_metrics, solve_boring
 from transport.solvers.modal.series import build_series, earliest_time_after_change
 from transport.site.boring import _Probe
@@ -114,12 +115,17 @@ def test_deterministic_boring_metrics_and_receptor_curve(monkeypatch):
     level = 0.5 * at_life
     grid = np.arange(0.0, 5.4, 0.2)
     asked = []
-    real = site_boring.solve_laplace
+    real, real_curve = site_boring.solve_laplace, site_checks.laplace_concentration
 
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t))
         return real(col_, t, z, **kw)
+
+    def counting_curve(col_, t, z, **kw):
+        asked.append(np.atleast_1d(t))
+        return real_curve(col_, t, z, **kw)
     monkeypatch.setattr(site_boring, "solve_laplace", counting)
+    monkeypatch.setattr(site_checks, "laplace_concentration", counting_curve)
     keep, conc, cum, metrics, notes = solve_boring(site(level), col, DEPTH, TIMES, grid)
     bt, pk_t, pk = metrics[:3]
     _check_metrics(col, bt, pk_t, pk, level)
@@ -147,7 +153,7 @@ def test_a_realization_no_engine_can_vouch_for_is_refused(monkeypatch):
             return conc, np.full_like(err, 1e-3 * SCALE)
         return loose
     for name in ("laplace_concentration", "laplace_lone_times"):  # curves; checks
-        monkeypatch.setattr(site_boring, name, loosened(getattr(site_boring, name)))
+        monkeypatch.setattr(site_checks, name, loosened(getattr(site_checks, name)))
     col = column(0.4)
     with pytest.raises(UnreliableResultError, match="tolerance 1e-08"):
         realization_metrics(site(0.001), col, DEPTH, TIMES[0], TIMES)
@@ -203,9 +209,9 @@ def test_quiet_early_samples_are_not_asked_of_the_laplace_engine(monkeypatch):
     t_modal, scan = site_boring.modal_scan(probe, TIMES[0], LIFE, TOL, SCALE, level)
     assert scan is not None and t_modal > TIMES[0]  # the case exercises the shortcut
     asked = []
-    real = site_boring.laplace_concentration
+    real = site_checks.laplace_concentration
 
-    real_lone = site_boring.laplace_lone_times
+    real_lone = site_checks.laplace_lone_times
 
     def counting(col_, t, z, **kw):
         asked.append(np.atleast_1d(t).size)
@@ -214,12 +220,12 @@ def test_quiet_early_samples_are_not_asked_of_the_laplace_engine(monkeypatch):
     def counting_lone(col_, t, z, **kw):  # the checks: each time on its own contours
         asked.append(1)
         return real_lone(col_, t, z, **kw)
-    monkeypatch.setattr(site_boring, "laplace_concentration", counting)
-    monkeypatch.setattr(site_boring, "laplace_lone_times", counting_lone)
+    monkeypatch.setattr(site_checks, "laplace_concentration", counting)
+    monkeypatch.setattr(site_checks, "laplace_lone_times", counting_lone)
     bt, pk, _ = realization_metrics(site(level), col, DEPTH, TIMES[0], TIMES)
     assert asked and max(asked) <= 2  # the check at the breakthrough and the peak only
-    monkeypatch.setattr(site_boring, "laplace_concentration", real)
-    monkeypatch.setattr(site_boring, "laplace_lone_times", real_lone)
+    monkeypatch.setattr(site_checks, "laplace_concentration", real)
+    monkeypatch.setattr(site_checks, "laplace_lone_times", real_lone)
     old_bt, old_pk = _previous_path(col, level)
     assert (np.isnan(bt) and np.isnan(old_bt)) or bt == old_bt
     assert pk == old_pk

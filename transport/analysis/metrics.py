@@ -193,18 +193,20 @@ class ReceptorMetrics:
     end_concentration: float | None = None  # kg m-3 at the horizon
     trend_at_end: str | None = None  # "rising", "falling", "flat" (end_trend) or None
     concentration_bound: float | None = None  # kg m-3, error bound of C at the horizon
-    window_start: float | None = None  # s, start of the window (earliest positive output)
+    window_start: float | None = None  # s, start of the window: 0 (a checked run) or
+    # the earliest positive output time (a modal series alone)
 
     def as_dict(self):
         return asdict(self)
 
     @property
     def exceeded_at_start(self) -> bool:
-        """The level is already reached at the start of the window: the first
-        exceedance then equals the window start, and the crossing itself lies earlier,
-        between time 0 and the earliest positive output time, where it is not resolved
-        (a later time than the crossing: add earlier output times)."""
-        return (self.first_exceedance is not None and self.window_start is not None
+        """The level is already reached at the start of a window that starts at the
+        earliest positive output time (a modal series alone): the first exceedance then
+        equals the window start, and the crossing itself lies earlier, between time 0
+        and that time, where it is not resolved (a later time than the crossing: add
+        earlier output times). Never for a window from time 0 (a checked run)."""
+        return (self.first_exceedance is not None and bool(self.window_start)
                 and self.first_exceedance <= self.window_start)
 
     @property
@@ -264,8 +266,14 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     times = np.asarray(solution.times, float)
     horizon = float(horizon if horizon is not None else times.max())
     positive = times[times > 0]
-    t_start = float(positive.min()) if positive.size else horizon * 1e-3
-    t_start = min(t_start, horizon)
+    if solution.evaluator is not None:
+        # a checked run's curve is vouched at any time (before the earliest output time
+        # by the Laplace engine): the window starts at the release, so that a crossing
+        # or a peak before the earliest output time is found, not read as that time
+        t_start = 0.0
+    else:  # a series alone is sized for the output times: not resolved before them
+        t_start = float(positive.min()) if positive.size else horizon * 1e-3
+        t_start = min(t_start, horizon)
     conc_at = solution.concentration_at
     extra = _change_times(solution)
     win = unresolved_windows(solution)

@@ -207,7 +207,8 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
     design_life : float, optional
         Design life, s: a first exceedance is said to fall within or after it.
     t_start, t_end : float
-        Earliest resolved output time and horizon of the run, s.
+        Earliest resolved output time and horizon of the run, s (the metrics' own
+        window start replaces ``t_start`` where they carry one: 0 for a checked run).
     start_date : datetime.datetime, optional
         Calendar date of time 0: points in time show their date (:func:`format_time`).
 
@@ -218,14 +219,17 @@ def receptor_lines(solution, metrics, *, design_life=None, t_start: float,
     lines = []
     receptor, level = metrics.receptor_depth, metrics.screening_level
     where = f"Receptor at {receptor:g} m"
+    if metrics.window_start is not None:  # the metrics' own window (0: from the release)
+        t_start = metrics.window_start
     if level is not None:
         t_cross = metrics.first_exceedance
         shown = format_concentration(level)
         if t_cross is None:
+            since = f"{format_time(t_start, start_date)} to " if t_start > 0 else "up to "
             lines.append(f"{where}: screening level {shown} not reached within the run "
-                         f"({format_time(t_start, start_date)} to "
-                         f"{format_time(t_end, start_date)}).")
-        elif t_cross <= t_start:
+                         f"({since}{format_time(t_end, start_date)}).")
+        elif metrics.exceeded_at_start or (metrics.window_start is None
+                                           and t_cross <= t_start):
             lines.append(f"{where}: screening level {shown} already reached at the "
                          f"earliest output time {format_time(t_start, start_date)}; "
                          "earlier times are not resolved (add earlier output times)."

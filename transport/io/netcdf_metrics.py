@@ -91,8 +91,9 @@ def metric_variables(views) -> dict:
         out["metrics_start"] = (
             (), _value("horizon", start),
             {"long_name": "elapsed time at the start of the window of the receptor "
-                          "metrics: the earliest positive output time (earlier times are "
-                          "not read)", "units": "d",
+                          "metrics: 0 where the curve is read from the release (a checked "
+                          "run), else the earliest positive output time (earlier times "
+                          "are not read)", "units": "d",
              "coverage_content_type": "modelResult", "comment": CAUTION},
             {"dtype": "float64", "_FillValue": _FILL})
     flags = []

@@ -35,9 +35,8 @@ _ZLIB = {"zlib": True, "complevel": 4, "shuffle": True}
 #: name, units, long_name (time metrics are durations in days since the run start)
 STATION_METRICS = (
     ("breakthrough_time", "d", "elapsed time to the first crossing of the screening level "
-     "at the receptor depth within the design life (fill: not reached; the earliest "
-     "positive output time where the level is already reached there: the crossing is "
-     "then earlier and not resolved)"),
+     "at the receptor depth within the design life, read from time 0 on (fill: not "
+     "reached)"),
     ("peak_time", "d", "elapsed time of the highest pore-water concentration at the "
      "receptor depth within the design life"),
     ("peak_concentration", "kg m-3", "highest pore-water concentration at the receptor "
@@ -51,9 +50,8 @@ STATION_METRICS = (
     ("peak_after_design_life", "1", "whether the peak at the receptor depth lies after "
      "the design life, still rising at its end or higher later in the run (1: yes, 0: no)"),
     ("run_breakthrough_time", "d", "elapsed time to the first crossing of the screening "
-     "level at the receptor depth over the whole run (fill: not reached; the earliest "
-     "positive output time where the level is already reached there: the crossing is "
-     "then earlier and not resolved)"),
+     "level at the receptor depth over the whole run, read from time 0 on (fill: not "
+     "reached)"),
     ("run_time_above_level", "d", "total time at or above the screening level at the "
      "receptor depth over the whole run"),
     ("run_peak_time", "d", "elapsed time of the highest pore-water concentration at the "
@@ -71,17 +69,14 @@ MC_METRICS = (
     ("exceedance_probability", "1", "Monte Carlo fraction of realizations in which the "
      "screening level is reached at the receptor within the design life"),
     ("breakthrough_time_p5", "d", "5th percentile over realizations of the breakthrough "
-     "time (fill: not reached within the design life; a realization already above the "
-     "level at the earliest positive output time counts at that time, later than its "
-     "crossing)"),
+     "time (fill: not reached within the design life; each realization read from time 0 "
+     "on)"),
     ("breakthrough_time_p50", "d", "median over realizations of the breakthrough time "
-     "(fill: not reached within the design life; a realization already above the "
-     "level at the earliest positive output time counts at that time, later than its "
-     "crossing)"),
+     "(fill: not reached within the design life; each realization read from time 0 "
+     "on)"),
     ("breakthrough_time_p95", "d", "95th percentile over realizations of the breakthrough "
-     "time (fill: not reached within the design life; a realization already above the "
-     "level at the earliest positive output time counts at that time, later than its "
-     "crossing)"),
+     "time (fill: not reached within the design life; each realization read from time 0 "
+     "on)"),
     ("peak_concentration_p5", "kg m-3", "5th percentile over realizations of the peak "
      "concentration at the receptor within the design life"),
     ("peak_concentration_p50", "kg m-3", "median over realizations of the peak "

@@ -25,14 +25,16 @@ import numpy as np
 from transport.analysis.metrics import (ReceptorMetrics, ReceptorViews, end_trend,
                                         time_above)
 from transport.model.column import InitialState
-from transport.site.curves import SCAN_SAMPLES, TIME_RTOL, scan_times, curve_metrics
+from transport.site.curves import (SCAN_SAMPLES, TIME_RTOL, curve_metrics, scan_times,
+                                   with_early_window)
+from transport.site.laplace_checks import (early_metrics, laplace_curve, laplace_largest,
+                                           verified_metrics)
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
                                       describe_refusal, good_enough, own_errors,
                                       quantities, switched, vouched_from)
 from transport.solvers.laplace import solve_laplace
-from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.monotone import nondecreasing_in_time
 from transport.solvers.modal.series import (AccuracyWarning, build_series,
@@ -181,10 +183,14 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
                                         lambda t: series.resolved(t, times))
     t_start = float(times[positive].min())
     conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
+    within = _error_bound(site, col, initial, times, conc)
     m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES,
-                      within=_error_bound(site, col, initial, times, conc))
+                      within=within)
+    # the window from the release (the curve is the Laplace engine's before t_start)
+    rising = nondecreasing_in_time(col, initial)
+    m = with_early_window(conc_at, t_start, site.screening_level, m, rising, within)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
-    views = window_views(site, col, initial, depth, times, conc_at, m, cum)
+    views = window_views(site, col, initial, depth, times, conc_at, m, cum, rising)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
             tuple(str(w.message) for w in caught))
 
@@ -213,24 +219,27 @@ class _Remember:
         return self.seen[key]
 
 
-def window_views(site, col, initial, depth, times, conc_at, design, cum):
-    """The receptor read over the design life and over the whole run (to the last output
-    time, or the design life if later) as
+def window_views(site, col, initial, depth, times, conc_at, design, cum, rising=False):
+    """The receptor read from the release (time 0) over the design life and over the
+    whole run (to the last output time, or the design life if later) as
     :class:`transport.analysis.metrics.ReceptorViews`: the design-life breakthrough and
     peak ``design`` (from :func:`curve_metrics`), the time above the level
     (:func:`transport.analysis.metrics.time_above`), the whole run's metrics, and
     whether C still rises at each window's end
     (:func:`transport.analysis.metrics.end_trend`, against twice the tolerance times the
     scale of C). ``cum`` holds the cumulative mass at the output times and the design
-    life (last row), the receptor in the last column."""
+    life (last row), the receptor in the last column. ``rising``: the curve cannot fall
+    (:func:`transport.site.curves.with_early_window`)."""
     curve = _Remember(conc_at)
     level, tol = site.screening_level, site.tolerance
     t_start = float(times[times > 0].min())
     t_life = site.design_life
     t_run = max(float(times.max()), t_life)
     bounded = concentration_bounds(col, initial, t_run).scale
-    run = curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES,
-                        within=tol * (bounded or 0.0))
+    run = with_early_window(curve, t_start, level,
+                            curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES,
+                                          within=tol * (bounded or 0.0)),
+                            rising, tol * (bounded or 0.0))
     mass_life = float(cum[-1, -1])
     mass_run = mass_life if t_run == t_life else float(cum[times.size - 1, -1])
     scale = bounded or max(abs(run[2]), 1e-300)
@@ -241,12 +250,15 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum):
         return curve(t)
     for (bt, pk_t, pk), t_end, mass in ((design, t_life, mass_life),
                                         (run, t_run, mass_run)):
-        above = time_above(at, depth, level, t_start, t_end, n=SCAN_SAMPLES)
+        # from the release where the level is crossed before t_start (else no time
+        # above lies there)
+        above = time_above(at, depth, level, 0.0 if bt < t_start else t_start, t_end,
+                           n=SCAN_SAMPLES)
         trend = end_trend(at, depth, t_start, t_end, bound, SCAN_SAMPLES)
         c_end = float(curve(np.array([t_end]))[0])
         first = None if np.isnan(bt) else bt
         out.append(ReceptorMetrics(depth, level, t_end, first, above, pk_t, pk, mass, None,
-                                   None, first is None, c_end, trend, bound, t_start))
+                                   None, first is None, c_end, trend, bound, 0.0))
     return ReceptorViews(out[0], out[1])
 
 
@@ -302,78 +314,29 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at, res
     conc = clip_to_bounds(col, bounds, z, conc, choice.error["concentration"][:-1])
     cum = np.where(modal[:, None], cum, lq["cumulative_mass"])
     depth = float(z[-1])
-
-    def laplace_at(t):
-        t = np.atleast_1d(np.asarray(t, float))
-        return solve_laplace(col, t, [depth], initial=initial, enough=enough,
-                             compiled=True).concentration[:, 0]
     # the receptor curve, as solve_column's (transport.solvers.engines.modal_evaluator):
     # the modal series from the first output time after which it agreed with the Laplace
     # engine AT THE RECEPTOR DEPTH at every output time, within the tolerance and the
     # Laplace engine's bound (the curve is read there only; deeper rows of an advective
     # column cancel to rounding at early times), the Laplace engine before it and where
     # ``resolved(t)`` is False (right after a signal change, where the truncated series
-    # rings), the Laplace engine alone if no such tail exists
+    # rings), the Laplace engine alone if no such tail exists; the Laplace engine before
+    # the earliest output time, where the series is not sized (the initial state at 0)
     scale = choice.scale["concentration"]
     gap = np.abs(mq["concentration"][:-1, -1] - lq["concentration"][:-1, -1])
     with np.errstate(invalid="ignore"):  # the error of the modal value: |gap| + the
         used = gap + le["concentration"][:-1] <= tol * scale  # Laplace bound (as choose)
     cut = vouched_from(used, times)
+    early = laplace_curve(col, depth, initial, enough)  # before the earliest output time
     if cut >= times.size:
-        return conc, cum, laplace_at
-    if cut == 0 and resolved is None:
-        return conc, cum, modal_at
-    return conc, cum, _switched(laplace_at, modal_at, float(times[cut]) if cut else -np.inf,
-                                resolved)
+        return conc, cum, early
+    return conc, cum, _switched(early, modal_at, max(float(times[cut]),
+                                                     float(times[times > 0].min())), resolved)
 
 
 def _switched(early, late, t_switch, keep=None):
     """C(t): ``early`` before t_switch, then ``late`` where ``keep(t)``, else ``early``."""
     return lambda t: switched(t, t_switch, early, late, keep)
-
-
-def _laplace_curve(col, depth, initial, enough):
-    """The Laplace engine's concentration at ``depth`` as a curve C(t) (a realization's
-    receptor; its concentration alone, :func:`laplace_concentration`)."""
-    def laplace_at(t):
-        return laplace_concentration(col, np.atleast_1d(t), [depth], initial=initial,
-                                     enough=enough, compiled=True)[0][:, 0]
-    return laplace_at
-
-
-def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
-                     scale):
-    """Check a realization's breakthrough and peak against the Laplace engine: the
-    curve's value there is vouched for when its distance from the Laplace value plus
-    the Laplace engine's own error bound is within the tolerance (the rule of
-    :func:`transport.solvers.checks.choose`).  If not, both metrics are read from the
-    Laplace curve instead, and its own bound must meet the tolerance at them, else
-    :class:`UnreliableResultError`."""
-    probe_t = [t for t in (bt, pk_t) if np.isfinite(t) and t > 0]
-    if not probe_t:
-        return bt, pk
-    enough = good_enough(col, scale, tol)
-    # each time on its own Talbot contours (not sharing a window)
-    c, e = laplace_lone_times(col, probe_t, depth, initial=initial, enough=enough)
-    want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
-    with np.errstate(invalid="ignore"):
-        if np.all(np.abs(c - np.array(want)) + e <= tol * scale):
-            return bt, pk
-
-    bt2, pk2_t, pk2 = curve_metrics(_laplace_curve(col, depth, initial, enough), t_start, t_end, level, SCAN_SAMPLES)
-    at = [t for t in (bt2, pk2_t) if np.isfinite(t) and t > 0]
-    if at:
-        err = laplace_lone_times(col, at, depth, initial=initial, enough=enough)[1]
-        with np.errstate(invalid="ignore"):
-            vouched = np.all(err <= tol * scale)
-        if not vouched:
-            raise UnreliableResultError(
-                f"Monte Carlo column of {col.length:g} m: neither the modal series nor "
-                f"the Laplace engine can vouch for the receptor's breakthrough and peak "
-                f"within the tolerance {tol:g} (Laplace error bound up to "
-                f"{float(np.nanmax(err)) / scale:.2g} of the scale); loosen [output] "
-                "tolerance, or narrow the distributions that give this column", at)
-    return bt2, pk2
 
 
 def steps_only(series) -> bool:
@@ -388,17 +351,6 @@ def steps_only(series) -> bool:
     reports 1e-14.  A Monte Carlo column's receptor curve, which is checked against the
     Laplace engine only at its breakthrough and peak, is then the Laplace engine's."""
     return all(kind == "step" for sig in series.signals for kind, *_ in sig.atoms)
-
-
-def _laplace_largest(col, initial, t: float, n: int = 41) -> float:
-    """The Laplace engine's largest |C| at time t over ``n`` evenly spaced depths and
-    the layer faces, less its error bound, or 0: a lower estimate of the largest C
-    (the scale of a column whose data bound nothing; :meth:`ModalSeries.largest_vouched`
-    where the modal series serves)."""
-    z = np.union1d(np.linspace(0.0, col.length, n), col.interfaces)
-    c, err = laplace_concentration(col, [t], z, initial=initial, compiled=True)
-    big = float(np.max(np.abs(c[0]))) - float(err[0])
-    return big if np.isfinite(big) and big > 0 else 0.0
 
 
 def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
@@ -472,20 +424,20 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     bounded = concentration_bounds(col, initial, t_end).scale
     steps = steps_only(series)
     scale = bounded or (series.largest_vouched(t_end) if steps else
-                        _laplace_largest(col, initial, t_end))
+                        laplace_largest(col, initial, t_end))
 
     def modal_at(t):
         return probe.concentration(t)[:, 0]
     curve, scan = modal_at, None
     rising = nondecreasing_in_time(col, initial)
     if not steps:  # a ramp or an exponential signal: the Laplace engine's curve
-        curve = _laplace_curve(col, depth, initial,
+        curve = laplace_curve(col, depth, initial,
                                good_enough(col, scale, tol) if scale else None)
     elif scale:
         t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level,
                                    rising)
         enough = good_enough(col, scale, tol)
-        laplace_at = _laplace_curve(col, depth, initial, enough)
+        laplace_at = laplace_curve(col, depth, initial, enough)
         # the Laplace engine right after a signal change (series.resolved)
         keep = (functools.partial(series.resolved, times=times)
                 if any(c > 0 for c in series.change_times()) else None)
@@ -497,4 +449,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     scale = bounded or max(scale, abs(pk), 1e-300)
     bt, pk = verified_metrics(col, initial, depth, t_start, t_end, site.screening_level,
                               tol, bt, pk_t, pk, scale)
+    # the window from the release: a crossing or a peak before the earliest output time
+    bt, pk = early_metrics(col, initial, depth, t_start, site.screening_level, tol, scale,
+                           bt, pk, rising)
     return bt, pk, tuple(str(w.message) for w in caught)

@@ -19,7 +19,8 @@ from scipy.optimize import brentq, minimize_scalar
 
 from transport.analysis.curve_reading import MAX_POLISHED, local_extremes, parabola_extreme
 
-__all__ = ["SCAN_SAMPLES", "TIME_RTOL", "scan_times", "curve_metrics"]
+__all__ = ["SCAN_SAMPLES", "EARLY_SAMPLES", "TIME_RTOL", "scan_times", "curve_metrics",
+           "with_early_window"]
 
 #: Samples of the receptor curve used to bracket the crossing and the peak: log-spaced
 #: from the earliest output time plus uniform to the design life (SCAN_SAMPLES uniform
@@ -28,13 +29,18 @@ __all__ = ["SCAN_SAMPLES", "TIME_RTOL", "scan_times", "curve_metrics"]
 #: the spacing can be missed (the series itself is continuous in time).
 SCAN_SAMPLES = 128
 TIME_RTOL = 1e-10  # Brent tolerance on time, relative
+#: Uniform scan samples (plus half as many log-spaced, from 1e-6 of it) of the window
+#: from the release (time 0) to the earliest output time, where it is read
+#: (:func:`with_early_window`)
+EARLY_SAMPLES = 64
 
 
 @functools.lru_cache(maxsize=64)
 def scan_times(t_start: float, t_end: float, n: int) -> np.ndarray:
     """The scan samples of a window, made once per window (every realization of a run
     scans the same ones); read-only."""
-    t = np.union1d(np.linspace(t_start, t_end, n), np.geomspace(t_start, t_end, n // 2))
+    first = t_start if t_start > 0 else t_end * 1e-6  # from the release: 6 decades
+    t = np.union1d(np.linspace(t_start, t_end, n), np.geomspace(first, t_end, n // 2))
     t.setflags(write=False)
     return t
 
@@ -137,3 +143,29 @@ def curve_metrics(conc, t_start, t_end, level, n_scan, scan=None, floor=0.0,
             if one(lo) < level:
                 t_cross = brentq(lambda s: one(s) - level, lo, tj, rtol=TIME_RTOL)
     return float(t_cross), t_peak, c_peak
+
+
+def with_early_window(curve, t_start, level, found, nondecreasing=False, within=0.0,
+                      n_scan=EARLY_SAMPLES):
+    """(breakthrough time or NaN, peak time, peak concentration) over the window from the
+    release (time 0) to the end, from ``found``, those of :func:`curve_metrics` from
+    ``t_start`` (the earliest output time) to the end, and the curve before ``t_start``
+    (``curve(times)``, also at time 0: the initial state).
+
+    A crossing or a peak before the earliest output time is not read as that time (a
+    later crossing and a lower peak than the curve's): the early window [0, t_start] is
+    scanned and polished as the rest (:func:`curve_metrics`). Its first crossing comes
+    first; its peak counts where it is higher than ``found``'s by more than ``within``
+    (the error bound of C). A ``nondecreasing`` curve is read there only where the level
+    is already reached at ``t_start`` (its crossing lies earlier; its peak is the end);
+    else nothing can lie there and ``found`` is returned as it is."""
+    bt, pk_t, pk = found
+    if nondecreasing and not bt <= t_start:  # (NaN: not reached at all)
+        return found
+    e_bt, e_pk_t, e_pk = curve_metrics(curve, 0.0, t_start, level, n_scan,
+                                       nondecreasing=nondecreasing, within=within)
+    if e_bt < t_start and not bt < e_bt:  # (NaN compares False)
+        bt = e_bt
+    if not nondecreasing and e_pk > pk + within:
+        pk_t, pk = e_pk_t, e_pk
+    return float(bt), float(pk_t), float(pk)

@@ -1,0 +1,109 @@
+"""A Monte Carlo column's receptor metrics checked by the Laplace engine, and the window
+before the earliest output time read on its curve.
+
+:func:`verified_metrics` checks the breakthrough and the peak read on the receptor curve
+(the modal series where it serves) against the Laplace engine at those times;
+:func:`early_metrics` reads the window from the release (time 0) to the earliest output
+time, where the modal series is not sized, on the Laplace engine's curve
+(:func:`transport.site.curves.with_early_window`). Both refuse a column whose metrics
+neither engine can vouch for within the tolerance.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
+from transport.solvers.checks import UnreliableResultError, good_enough
+from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
+from transport.solvers.modal.projection import initial_profile
+
+__all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest"]
+
+
+def laplace_curve(col, depth, initial, enough):
+    """The Laplace engine's concentration at ``depth`` as a curve C(t) (a realization's
+    receptor; its concentration alone, :func:`laplace_concentration`); at t <= 0 the
+    initial state."""
+    def laplace_at(t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        if t.size and t.min() > 0:
+            return laplace_concentration(col, t, [depth], initial=initial,
+                                         enough=enough, compiled=True)[0][:, 0]
+        out = np.full(t.size, float(initial_profile(col, initial, np.array([depth]))[0]))
+        if (t > 0).any():
+            out[t > 0] = laplace_at(t[t > 0])
+        return out
+    return laplace_at
+
+
+def _vouch(col, initial, depth, at, enough, tol, scale):
+    """Refuse the column unless the Laplace engine's own bound meets the tolerance at
+    the times ``at`` (the metrics read on its curve)."""
+    at = [t for t in at if np.isfinite(t) and t > 0]
+    if not at:
+        return
+    err = laplace_lone_times(col, at, depth, initial=initial, enough=enough)[1]
+    with np.errstate(invalid="ignore"):
+        vouched = np.all(err <= tol * scale)
+    if not vouched:
+        raise UnreliableResultError(
+            f"Monte Carlo column of {col.length:g} m: neither the modal series nor "
+            f"the Laplace engine can vouch for the receptor's breakthrough and peak "
+            f"within the tolerance {tol:g} (Laplace error bound up to "
+            f"{float(np.nanmax(err)) / scale:.2g} of the scale); loosen [output] "
+            "tolerance, or narrow the distributions that give this column", at)
+
+
+def verified_metrics(col, initial, depth, t_start, t_end, level, tol, bt, pk_t, pk,
+                     scale):
+    """Check a realization's breakthrough and peak against the Laplace engine: the
+    curve's value there is vouched for when its distance from the Laplace value plus
+    the Laplace engine's own error bound is within the tolerance (the rule of
+    :func:`transport.solvers.checks.choose`).  If not, both metrics are read from the
+    Laplace curve instead, and its own bound must meet the tolerance at them, else
+    :class:`UnreliableResultError`."""
+    probe_t = [t for t in (bt, pk_t) if np.isfinite(t) and t > 0]
+    if not probe_t:
+        return bt, pk
+    enough = good_enough(col, scale, tol)
+    # each time on its own Talbot contours (not sharing a window)
+    c, e = laplace_lone_times(col, probe_t, depth, initial=initial, enough=enough)
+    want = ([level] if np.isfinite(bt) and bt > 0 else []) + [pk]
+    with np.errstate(invalid="ignore"):
+        if np.all(np.abs(c - np.array(want)) + e <= tol * scale):
+            return bt, pk
+    bt2, pk2_t, pk2 = curve_metrics(laplace_curve(col, depth, initial, enough), t_start,
+                                    t_end, level, SCAN_SAMPLES)
+    _vouch(col, initial, depth, (bt2, pk2_t), enough, tol, scale)
+    return bt2, pk2
+
+
+def early_metrics(col, initial, depth, t_start, level, tol, scale, bt, pk, rising):
+    """(breakthrough, peak) over the window from the release, from those of the window
+    from ``t_start`` (the earliest output time): the Laplace engine's curve before it read by
+    :func:`transport.site.curves.with_early_window` (only where the level is already
+    reached at ``t_start`` when the curve is ``rising``), its own bound checked at a
+    crossing or peak found there (else :class:`UnreliableResultError`)."""
+    if rising and not bt <= t_start:  # nothing can lie before t_start
+        return bt, pk
+    enough = good_enough(col, scale, tol)
+    bt2, pk2_t, pk2 = with_early_window(laplace_curve(col, depth, initial, enough),
+                                        t_start, level, (bt, math.nan, pk), rising,
+                                        tol * scale)
+    moved = [t for t, new, old in ((bt2, bt2, bt), (pk2_t, pk2, pk))
+             if not (new == old or (math.isnan(new) and math.isnan(old)))]
+    _vouch(col, initial, depth, moved, enough, tol, scale)
+    return bt2, pk2
+
+
+def laplace_largest(col, initial, t: float, n: int = 41) -> float:
+    """The Laplace engine's largest |C| at time t over ``n`` evenly spaced depths and
+    the layer faces, less its error bound, or 0: a lower estimate of the largest C
+    (the scale of a column whose data bound nothing; :meth:`ModalSeries.largest_vouched`
+    where the modal series serves)."""
+    z = np.union1d(np.linspace(0.0, col.length, n), col.interfaces)
+    c, err = laplace_concentration(col, [t], z, initial=initial, compiled=True)
+    big = float(np.max(np.abs(c[0]))) - float(err[0])
+    return big if np.isfinite(big) and big > 0 else 0.0
