@@ -17,6 +17,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from transport.solvers.checks import clip_to_bounds
 from transport.analysis.curve_reading import (MAX_POLISHED, N_SCAN, crossings,
                                               first_exceedance, local_extremes,
                                               parabola_extreme, peak, scan_times,
@@ -322,6 +323,12 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
     c_end = float(np.asarray(solution.concentration_at(receptor_depth,
                                                        np.array([horizon])))[0])
     bound = concentration_bound(solution, horizon, max(abs(pk_c), abs(c_end), 1e-300))
+    # as the fields: a peak or end value outside the physical bounds by no more than
+    # its error bound (a plateau at the source concentration) is moved onto them
+    if getattr(solution, "bounds", None) is not None:
+        pk_c, c_end = (float(v) for v in clip_to_bounds(
+            solution.column, solution.bounds, [receptor_depth],
+            np.array([[pk_c], [c_end]]), np.array([bound, bound]))[:, 0])
     trend = end_trend(solution.concentration_at, receptor_depth, t_start, horizon, bound,
                       n, extra, win)
     return ReceptorMetrics(float(receptor_depth), screening_level, horizon, first, above,

@@ -28,7 +28,7 @@ from transport.model.column import InitialState
 from transport.site.curves import (SCAN_SAMPLES, TIME_RTOL, curve_metrics, scan_times,
                                    with_early_window)
 from transport.site.laplace_checks import (early_metrics, laplace_curve, laplace_largest,
-                                           verified_metrics)
+                                           onto_bounds, verified_metrics)
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
@@ -189,6 +189,8 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
     # the window from the release (the curve is the Laplace engine's before t_start)
     rising = nondecreasing_in_time(col, initial)
     m = with_early_window(conc_at, t_start, site.screening_level, m, rising, within)
+    m = m[:2] + tuple(onto_bounds(col, concentration_bounds(col, initial, t_end), depth,
+                                  m[2:], within))  # as the fields
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     views = window_views(site, col, initial, depth, times, conc_at, m, cum, rising)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
@@ -235,7 +237,8 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum, rising=
     t_start = float(times[times > 0].min())
     t_life = site.design_life
     t_run = max(float(times.max()), t_life)
-    bounded = concentration_bounds(col, initial, t_run).scale
+    bounds = concentration_bounds(col, initial, t_run)
+    bounded = bounds.scale
     run = with_early_window(curve, t_start, level,
                             curve_metrics(curve, t_start, t_run, level, SCAN_SAMPLES,
                                           within=tol * (bounded or 0.0)),
@@ -255,7 +258,9 @@ def window_views(site, col, initial, depth, times, conc_at, design, cum, rising=
         above = time_above(at, depth, level, 0.0 if bt < t_start else t_start, t_end,
                            n=SCAN_SAMPLES)
         trend = end_trend(at, depth, t_start, t_end, bound, SCAN_SAMPLES)
-        c_end = float(curve(np.array([t_end]))[0])
+        # as the fields: onto the physical bounds where outside within the error bound
+        pk, c_end = onto_bounds(col, bounds, depth, [pk, curve(np.array([t_end]))[0]],
+                                bound)
         first = None if np.isnan(bt) else bt
         out.append(ReceptorMetrics(depth, level, t_end, first, above, pk_t, pk, mass, None,
                                    None, first is None, c_end, trend, bound, 0.0))
@@ -421,7 +426,8 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
             series = site_series(col, earliest_time_after_change(col, times),
                                  site.tolerance, initial=initial, known=known)
     probe, tol, t_end = _Probe(series, [depth]), site.tolerance, site.design_life
-    bounded = concentration_bounds(col, initial, t_end).scale
+    bounds = concentration_bounds(col, initial, t_end)
+    bounded = bounds.scale
     steps = steps_only(series)
     scale = bounded or (series.largest_vouched(t_end) if steps else
                         laplace_largest(col, initial, t_end))
@@ -452,4 +458,5 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     # the window from the release: a crossing or a peak before the earliest output time
     bt, pk = early_metrics(col, initial, depth, t_start, site.screening_level, tol, scale,
                            bt, pk, rising)
+    pk, = onto_bounds(col, bounds, depth, [pk], tol * scale)  # as the fields
     return bt, pk, tuple(str(w.message) for w in caught)

@@ -15,11 +15,12 @@ import math
 import numpy as np
 
 from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
-from transport.solvers.checks import UnreliableResultError, good_enough
+from transport.solvers.checks import UnreliableResultError, clip_to_bounds, good_enough
 from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
 
-__all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest"]
+__all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest",
+           "onto_bounds"]
 
 
 def laplace_curve(col, depth, initial, enough):
@@ -107,3 +108,12 @@ def laplace_largest(col, initial, t: float, n: int = 41) -> float:
     c, err = laplace_concentration(col, [t], z, initial=initial, compiled=True)
     big = float(np.max(np.abs(c[0]))) - float(err[0])
     return big if np.isfinite(big) and big > 0 else 0.0
+
+
+def onto_bounds(col, bounds, depth, values, error) -> list:
+    """Receptor values (kg m-3) moved onto the physical ``bounds`` of C where they lie
+    outside by no more than ``error`` (a plateau at the source concentration), as the
+    fields are (:func:`transport.solvers.checks.clip_to_bounds`)."""
+    v = np.asarray(values, dtype=float)[:, None]
+    return [float(c) for c in clip_to_bounds(col, bounds, [depth], v,
+                                             np.full(v.shape[0], float(error)))[:, 0]]

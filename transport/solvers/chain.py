@@ -82,7 +82,7 @@ def solve_chain(chain: Chain, times, depths, *, initials=None, tolerance: float 
                             evaluator=_evaluator(chain, initials, j),
                             mass_at=_mass_at(chain, initials, j),
                             diagnostics={"species": name},
-                            **checked_fields(choice, vals, budget, tolerance)))
+                            **checked_fields(choice, vals, budget, tolerance, b)))
     return tuple(out)
 
 

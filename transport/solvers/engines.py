@@ -358,7 +358,7 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
                     n_modes=n_modes, series=series, evaluator=evaluator,
                     mass_at=_laplace_mass_at(column, initial, semi_infinite_bottom),
                     diagnostics={"engine_choice": note} if note else {},
-                    **checked_fields(choice, vals, budget, tolerance))
+                    **checked_fields(choice, vals, budget, tolerance, bounds))
 
 
 def _cheaper_plan(column, times, depths, rows, tolerance, max_modes, initial, bounds,
@@ -395,15 +395,16 @@ def modal_evaluator(choice, times, series, fallback):
     return None, fallback
 
 
-def checked_fields(choice, vals, budget, tolerance) -> dict:
+def checked_fields(choice, vals, budget, tolerance, bounds=None) -> dict:
     """The fields a checked :class:`transport.solvers.result.Solution` takes from a choice
-    between engines."""
+    between engines, and the physical ``bounds`` its concentrations were moved onto."""
     names = sorted({e for e in choice.engine if e not in ("", "initial")})
     return dict(concentration=vals["concentration"], total_flux=vals["total_flux"],
                 cumulative_mass=vals["cumulative_mass"], budget=budget,
                 engine="+".join(names) or "none", engine_by_time=choice.engine,
                 error_estimate=choice.error["concentration"], error=choice.error,
-                reliable=choice.reliable, tolerance=float(tolerance), scale=choice.scale)
+                reliable=choice.reliable, tolerance=float(tolerance), scale=choice.scale,
+                bounds=bounds)
 
 
 def _laplace_mass_at(column, initial, semi_infinite_bottom):

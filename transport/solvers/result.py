@@ -90,6 +90,10 @@ class Solution:
         Continuous evaluators (not compared): the modal series (``ModalSeries`` or a
         staged ``TimelineSeries``), C(depth, times) from the engine that serves those
         times, and the vouched cumulative mass (depth, t) -> (value, bound).
+    bounds : Bounds, optional
+        The physical bounds of C (:func:`transport.solvers.checks.concentration_bounds`)
+        the concentrations of a checked run were moved onto where they lay outside by
+        no more than their error bound (None: unbounded, or not a checked run).
     """
 
     column: Column
@@ -114,6 +118,7 @@ class Solution:
     series: object = field(default=None, repr=False, compare=False)
     evaluator: object = field(default=None, repr=False, compare=False)
     mass_at: object = field(default=None, repr=False, compare=False)
+    bounds: object = field(default=None, repr=False, compare=False)
 
     def concentration_at(self, depth, times):
         """C (kg m-3) at one depth for any times (s), continuous in time.

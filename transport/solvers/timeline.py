@@ -290,7 +290,8 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
     eig = modal_sol.eigenvalues if n_modes else np.empty(0)
     return Solution(column=col0, times=times, depths=depths, eigenvalues=eig,
                     n_modes=n_modes, series=series, evaluator=evaluator, timeline=timeline,
-                    mass_at=staged.mass_at, **checked_fields(choice, vals, budget, tolerance))
+                    mass_at=staged.mass_at,
+                    **checked_fields(choice, vals, budget, tolerance, bounds))
 
 
 def solve_timeline_modal(timeline: Timeline, times, depths, *, initial=None,
