@@ -6,7 +6,8 @@ without the quadrature a clean column does not need). Concentration and cumulati
 are evaluated only on the written grid, in one pass with the receptor depth (depth
 functions evaluated once), giving the numbers of :func:`transport.solvers.modal.series.solve`
 on the same column, and vouched for by the Laplace engine (:func:`checked_fields`). At the
-receptor depth: the first crossing of the screening level within the design life
+receptor depth, read from the release (time 0; before the earliest output time the curve
+is the Laplace engine's): the first crossing of the screening level within the design life
 (Brent's method on the continuous series after a bracketing scan; Brent 1973,
 *Algorithms for Minimization without Derivatives*, ch. 4), the peak concentration and
 its time (bounded Brent minimisation around the best scan sample), and the cumulative
@@ -416,7 +417,9 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     a rising column peaks at the end); a peak within the tolerance of zero is not
     polished (:func:`curve_metrics`); both are checked against the Laplace engine
     (:func:`verified_metrics`) on the scale the data allow, or where they allow none the
-    column's own largest C at the end or the peak.  ``known``: modes of a shared solve;
+    column's own largest C at the end or the peak; the window before ``t_start`` is then
+    read on the Laplace engine's curve (:func:`early_metrics`), and the peak moved onto
+    the physical bounds where it lies outside by no more than the tolerance.  ``known``: modes of a shared solve;
     ``series``: the column's series built with the boring's other columns
     (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers)."""
     initial = initial or InitialState.clean()
@@ -438,7 +441,7 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     rising = nondecreasing_in_time(col, initial)
     if not steps:  # a ramp or an exponential signal: the Laplace engine's curve
         curve = laplace_curve(col, depth, initial,
-                               good_enough(col, scale, tol) if scale else None)
+                              good_enough(col, scale, tol) if scale else None)
     elif scale:
         t_modal, scan = modal_scan(probe, t_start, t_end, tol, scale, site.screening_level,
                                    rising)
