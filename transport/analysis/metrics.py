@@ -17,11 +17,11 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from transport.solvers.checks import clip_to_bounds
 from transport.analysis.curve_reading import (MAX_POLISHED, N_SCAN, crossings,
                                               first_exceedance, local_extremes,
                                               parabola_extreme, peak, scan_times,
                                               time_above)
+from transport.solvers.checks import clip_to_bounds
 
 __all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_views",
            "crossings", "first_exceedance", "peak", "time_above", "scan_times",

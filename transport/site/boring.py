@@ -190,10 +190,10 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
     # the window from the release (the curve is the Laplace engine's before t_start)
     rising = nondecreasing_in_time(col, initial)
     m = with_early_window(conc_at, t_start, site.screening_level, m, rising, within)
-    m = m[:2] + tuple(onto_bounds(col, concentration_bounds(col, initial, t_end), depth,
-                                  m[2:], within))  # as the fields
-    metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     views = window_views(site, col, initial, depth, times, conc_at, m, cum, rising)
+    # the design-life peak as the view has it: on the physical bounds (as the fields)
+    m = m[:2] + (views.design_life.peak_concentration,)
+    metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
     return (keep, conc[:, :-1], cum[:-1, :-1], metrics + views_metrics(views),
             tuple(str(w.message) for w in caught))
 

@@ -93,8 +93,8 @@ def early_metrics(col, initial, depth, t_start, level, tol, scale, bt, pk, risin
     bt2, pk2_t, pk2 = with_early_window(laplace_curve(col, depth, initial, enough),
                                         t_start, level, (bt, math.nan, pk), rising,
                                         tol * scale)
-    moved = [t for t, new, old in ((bt2, bt2, bt), (pk2_t, pk2, pk))
-             if not (new == old or (math.isnan(new) and math.isnan(old)))]
+    # the metrics read on the Laplace curve there (a NaN breakthrough is not one)
+    moved = [t for t, changed in ((bt2, bt2 != bt), (pk2_t, pk2 != pk)) if changed]
     _vouch(col, initial, depth, moved, enough, tol, scale)
     return bt2, pk2
 
