@@ -59,8 +59,10 @@ def test_a_crossing_before_the_earliest_output_time_is_resolved():
     """Rising column, level 0.5: per the reference C is below the level at 1 yr and
     above it at 30 yr. The deterministic boring and the realization both put the
     breakthrough where C equals the level (reference, within twice the tolerance), well
-    before 30 yr; the curve stays above the level from then on (it cannot fall), so
-    the time above the level within the design life is the life less the crossing."""
+    before 30 yr; the curve stays above the level from then on (under constant inputs a
+    clean column's concentration cannot fall in time: the comparison principle of
+    parabolic equations, Protter & Weinberger 1967, ch. 3, from memory), so the time
+    above the level within the design life is the life less the crossing."""
     col, level = _rising(), 0.5
     below, above = _ref(col, [1.0 * YEAR, TIMES[0]])
     assert below < level < above  # the case
@@ -95,3 +97,43 @@ def test_a_peak_before_the_earliest_output_time_is_found():
     assert abs(_ref(col, bt + time_above)[0] - level) <= 2 * TOL
     bt_mc, pk_mc, _ = realization_metrics(_site(level), col, DEPTH, TIMES[0], TIMES)
     assert abs(pk_mc - pk) <= 2 * TOL and bt_mc == pytest.approx(bt, rel=1e-8)
+
+
+def test_a_staged_removal_before_the_earliest_output_time():
+    """A staged remedy (the source removed at 3 yr; single-column, solve_timeline) read
+    from output times that start at 5 yr, column Peclet number about 100, receptor
+    1.5 m. Removing a constant top concentration is the same column with its top
+    stepped from 1 to 0 at 3 yr, which the mpmath reference solves (tests/reference.py;
+    Talbot 1979, Abate & Valko 2004): the first crossing of 0.05 and the peak, both
+    before 5 yr, equal the reference within twice the tolerance (before this change
+    the run read a crossing at 5 yr and a peak of C at 5 yr, 0.76 where the curve
+    reaches 0.99). The mass budget holds no negative stored or decayed mass (every C
+    is >= 0: the maximum principle; Protter & Weinberger 1967, ch. 3, from memory;
+    rounding left -3.2e-18 kg/m2 stored at 100 yr), and its residual is the sum of its
+    terms (the budget identity stored - initial - entered + left + decayed)."""
+    from transport.analysis.metrics import receptor_views
+    from transport.solvers.checks import budget_residual
+    from transport.solvers.timeline import Timeline, remove_source, solve_timeline
+
+    theta, q, length = 0.3, 0.5, 2.0
+    d = q / YEAR * length / (theta * 100)
+    layers = (Layer(1.0, theta, d, 1.5), Layer(0.3, 0.45, d / 5, 4.0),
+              Layer(0.7, theta, d, 2.0, 1e-9))
+    col = Column(layers, Boundary("concentration", 1.0), Boundary("free-outflow"),
+                 q / YEAR)
+    times = np.array([0.0, 5.0, 10.0, 20.0, 40.0, 100.0]) * YEAR
+    sol = solve_timeline(Timeline.single(col).then(3 * YEAR, remove_source()), times,
+                         np.linspace(0.0, length, 41))
+    m = receptor_views(sol, 1.5, 0.05, design_life=LIFE).whole_run
+    assert m.window_start == 0.0 and m.peak_time < times[1]
+    stepped = Column(layers, Boundary("concentration", 0.0, schedule=Schedule.steps(
+        [0.0, 3 * YEAR], [1.0, 0.0])), Boundary("free-outflow"), q / YEAR)
+    ref = laplace_reference(stepped, [1.5], [m.first_exceedance, m.peak_time,
+                                             times[1]], dps=30)[:, 0]
+    assert abs(ref[0] - 0.05) <= 2 * TOL and abs(ref[1] - m.peak_concentration) <= 2 * TOL
+    assert ref[2] < m.peak_concentration - 0.1  # the case: C at 5 yr is far lower
+    assert np.all(sol.budget["stored"] >= 0) and np.all(sol.budget["decayed"] >= 0)
+    res, big = budget_residual(sol.budget)
+    np.testing.assert_allclose(np.abs(sol.budget["residual"]), res, rtol=0,
+                               atol=1e-15 * big.max())
+    assert np.all(res <= TOL * big)

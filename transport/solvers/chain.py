@@ -13,8 +13,9 @@ import numpy as np
 from transport.model.chain import Chain
 from transport.model.column import InitialState, InputError
 from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError, assemble,
-                                      choose, clip_to_bounds, concentration_bounds,
-                                      describe_refusal, own_errors, quantities)
+                                      budget_onto_bounds, choose, clip_to_bounds,
+                                      concentration_bounds, describe_refusal, own_errors,
+                                      quantities)
 from transport.solvers.engines import checked_fields
 from transport.solvers.laplace.chain import solve_chain_laplace
 from transport.solvers.modal.sizing import DEFAULT_TOLERANCE
@@ -77,6 +78,7 @@ def solve_chain(chain: Chain, times, depths, *, initials=None, tolerance: float 
         vals, budget = assemble(cand, choice, [sol.budget])
         vals["concentration"] = clip_to_bounds(col, b, depths, vals["concentration"],
                                                choice.error["concentration"])
+        budget = budget_onto_bounds(b, budget, choice.error["budget"])
         j = len(out)
         out.append(Solution(column=col, times=times, depths=depths,
                             evaluator=_evaluator(chain, initials, j),

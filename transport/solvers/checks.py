@@ -37,12 +37,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from transport.solvers.onto_bounds import budget_onto_bounds, clip_to_bounds
 from transport.solvers.result import Solution
 from transport.units import YEAR
 
 __all__ = ["UnreliableResultError", "Bounds", "concentration_bounds", "bound_violation",
            "budget_residual", "QUANTITIES", "quantities", "choose",
-           "describe_refusal", "clip_to_bounds", "input_scales", "good_enough", "vouched_from",
+           "describe_refusal", "clip_to_bounds", "budget_onto_bounds", "input_scales", "good_enough", "vouched_from",
            "switched"]
 
 #: The reported quantities and their names in messages.
@@ -464,28 +465,6 @@ def assemble(candidates, choice: Choice, budgets):
             base[zero] = candidates[-1][1][q][zero]
         out[q] = base
     return out, budget
-
-
-def clip_to_bounds(column, bounds: Bounds | None, depths, conc, error):
-    """C moved onto its physical bounds where it lies outside them by no more than its
-    error bound (rounding-level negatives of a clean column become 0): a change within
-    the stated error, so a reader never meets a negative concentration the model cannot
-    produce.  Larger violations were already rejected by :func:`choose`."""
-    if bounds is None:
-        return conc
-    depths = np.asarray(depths, float)
-    lay = np.clip(np.searchsorted(column.interfaces, depths, side="right") - 1, 0,
-                  bounds.kappa.size - 1)
-    kap = bounds.kappa[lay][None, :]
-    err = np.asarray(error, float)[:, None]
-    out = conc.copy()
-    if bounds.lo is not None:
-        lo = bounds.lo * kap
-        out = np.where((out < lo) & (out >= lo - err), lo, out)
-    if bounds.hi is not None:
-        hi = bounds.hi * kap
-        out = np.where((out > hi) & (out <= hi + err), hi, out)
-    return out
 
 
 def describe_refusal(times, choice: Choice, tolerance: float, tried: str,

@@ -27,9 +27,9 @@ import numpy as np
 
 from transport.model.column import Column, InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, assemble, choose,
-                                      clip_to_bounds, concentration_bounds, describe_refusal,
-                                      good_enough, own_errors, quantities, switched,
-                                      vouched_from)
+                                      budget_onto_bounds, clip_to_bounds,
+                                      concentration_bounds, describe_refusal, good_enough,
+                                      own_errors, quantities, switched, vouched_from)
 from transport.solvers.fv.defaults import DEFAULT_TOLERANCE as FV_TOLERANCE
 from transport.solvers.laplace import solve_laplace
 from transport.solvers.laplace.contour import default_nodes
@@ -352,6 +352,7 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
                             [c[2] for n, c in cands])
     vals["concentration"] = clip_to_bounds(column, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
+    budget = budget_onto_bounds(bounds, budget, choice.error["budget"])
     series, evaluator = modal_evaluator(choice, times, series, evaluator)
     eig, n_modes = (eig, n_modes) if series is not None else (np.empty(0), 0)
     return Solution(column=column, times=times, depths=depths, eigenvalues=eig,

@@ -21,7 +21,7 @@ import numpy as np
 
 from transport.model.column import InitialState, InputError, has_source_zone
 from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError, assemble,
-                                      budget_terms, choose, clip_to_bounds,
+                                      budget_onto_bounds, budget_terms, choose, clip_to_bounds,
                                       concentration_bounds, describe_refusal, quantities)
 from transport.solvers.engines import checked_fields, modal_evaluator
 from transport.solvers.modal.operator import ZONE_NOT_MODAL
@@ -285,6 +285,7 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
     vals, budget = assemble([c[:3] for c in cands], choice, [c[3] for c in cands])
     vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
+    budget = budget_onto_bounds(bounds, budget, choice.error["budget"])
     series, evaluator = modal_evaluator(choice, times, series, staged.concentration_at)
     n_modes = modal_sol.n_modes if series is not None else 0
     eig = modal_sol.eigenvalues if n_modes else np.empty(0)
