@@ -137,3 +137,30 @@ def test_a_staged_removal_before_the_earliest_output_time():
     np.testing.assert_allclose(np.abs(sol.budget["residual"]), res, rtol=0,
                                atol=1e-15 * big.max())
     assert np.all(res <= TOL * big)
+
+
+def test_a_boring_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+    """The 2 yr pulse: the deterministic boring's crossing and peak lie before the
+    earliest output time, where the Laplace engine serves the receptor curve, so the
+    boring checks that engine's own error bound there. The peak matches the reference
+    (within twice the tolerance of the pulse's concentration, 1). The check can fail:
+    with the Laplace engine's bounds made 1e9 x larger (its values left as they are),
+    the boring is refused, naming the first metric read there (the breakthrough) and its
+    time, instead of written."""
+    from transport.site import laplace_checks
+    from transport.solvers.checks import UnreliableResultError
+
+    col, level = _pulse(), 0.05
+    grid = np.linspace(0.0, 2.0, 11)
+    *_, metrics, _ = solve_boring(_site(level), col, DEPTH, TIMES, grid)
+    pk_t, pk = metrics[1], metrics[2]
+    assert pk_t < TIMES[0]
+    assert abs(_ref(col, pk_t)[0] - pk) <= 2 * TOL
+    real = laplace_checks.laplace_lone_times
+
+    def inflated(*args, **kwargs):
+        c, e = real(*args, **kwargs)
+        return c, 1e9 * e
+    monkeypatch.setattr(laplace_checks, "laplace_lone_times", inflated)
+    with pytest.raises(UnreliableResultError, match=r"the breakthrough at the receptor"):
+        solve_boring(_site(level), col, DEPTH, TIMES, grid)

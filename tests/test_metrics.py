@@ -280,3 +280,47 @@ def test_a_plateau_at_the_source_concentration_is_not_reported_above_it(peclet, 
                             dps=20 + advection_guard_digits(col))[0, 0]
     assert abs(views.whole_run.end_concentration - ref) <= 2e-8
     assert min(peaks) >= ref - 2e-8
+
+
+def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+    """The column of the test above (crossing near 4.4 yr, output times from 11.4 yr):
+    the crossing is read where the Laplace engine serves the curve, so the run checks
+    that engine's own error bound there. Its bound at the crossing is the bound
+    solve_laplace reports at that time, and within the tolerance times the scale of C;
+    C there equals the level per the mpmath reference (tests/reference.py; Talbot 1979,
+    Abate & Valko 2004). The check can fail: with the Laplace engine's bounds made
+    1e9 x larger after the solve, the metric is refused (naming the first exceedance
+    and its time), never printed; the peak, read at the last output time where the
+    modal series serves the curve, is not."""
+    from reference import laplace_reference
+    from transport.analysis.metrics import vouch_read_times
+    from transport.solvers import engines
+    from transport.solvers.checks import UnreliableResultError, own_errors
+    from transport.solvers.engines import solve_column
+    from transport.solvers.laplace import solve_laplace
+
+    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
+                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
+                 Boundary("sealed"), 0.0)
+    level, depth = 0.37, 0.3
+    late = np.array([11.4, 40.0, 100.0]) * YEAR
+    sol = solve_column(col, late, [depth])
+    m = receptor_metrics(sol, depth, level)
+    t_cross = m.first_exceedance
+    assert t_cross < late[0]
+    bound = sol.evaluator.laplace_bound(depth, [t_cross, late[-1]])
+    lap = solve_laplace(col, [t_cross], [depth])
+    assert bound[0] == pytest.approx(own_errors(lap)["concentration"][0], rel=1e-12)
+    limit = sol.tolerance * sol.scale["concentration"]
+    assert 0 < bound[0] <= limit
+    assert bound[1] == 0.0  # the modal series serves the last output time
+    c_ref = laplace_reference(col, [depth], [t_cross], dps=20)[0, 0]
+    assert abs(c_ref - level) <= 2 * limit
+
+    real = engines.own_errors
+    monkeypatch.setattr(engines, "own_errors",
+                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
+        receptor_metrics(sol, depth, level)
+    # the peak of this rising curve lies at the end, where the series serves
+    vouch_read_times(sol, depth, limit, (("peak", late[-1]),))

@@ -21,13 +21,14 @@ from transport.analysis.curve_reading import (MAX_POLISHED, N_SCAN, crossings,
                                               first_exceedance, local_extremes,
                                               parabola_extreme, peak, scan_times,
                                               time_above)
-from transport.solvers.checks import clip_to_bounds
+from transport.solvers.checks import UnreliableResultError, clip_to_bounds
+from transport.units import YEAR
 
 __all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_views",
            "crossings", "first_exceedance", "peak", "time_above", "scan_times",
            "steady_concentration", "end_trend", "error_at", "concentration_bound",
            "PLATEAU_RTOL", "DEFAULT_TOLERANCE", "MAX_POLISHED", "local_extremes",
-           "parabola_extreme"]
+           "parabola_extreme", "vouch_read_times"]
 
 #: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
 #: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
@@ -294,6 +295,8 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
                            win, n, within)
         conc_at = curve
     pk_t, pk_c = peak(conc_at, receptor_depth, t_start, horizon, extra, win, n, within)
+    vouch_read_times(solution, receptor_depth, within,
+                     (("first exceedance", first), ("peak", pk_t)))
     series = solution.series
     cum = c_ss = None
     if solution.mass_at is not None:  # vouched by two engines
@@ -333,6 +336,29 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
                       n, extra, win)
     return ReceptorMetrics(float(receptor_depth), screening_level, horizon, first, above,
                            pk_t, pk_c, cum, c_ss, t95, stays, c_end, trend, bound, t_start)
+
+
+def vouch_read_times(solution, depth: float, limit: float, read) -> None:
+    """Refuse a metric read where the Laplace engine serves the curve (before the
+    earliest output time, between output times before the modal series takes over)
+    unless the engine's own error bound of C there is within ``limit`` (the run's
+    tolerance times its scale of C): the output times were vouched for by the
+    cross-check, the times between them by this.  ``read``: ((what, time or None), ...).
+    A curve without such a bound (a series alone, the finite-volume engine, chains and
+    staged runs) is not checked here."""
+    bound = getattr(getattr(solution, "evaluator", None), "laplace_bound", None)
+    read = [(what, float(t)) for what, t in read if t is not None and np.isfinite(t)]
+    if bound is None or not read or not limit > 0:
+        return
+    err = np.asarray(bound(float(depth), np.array([t for _, t in read])), float)
+    bad = [(what, t, e) for (what, t), e in zip(read, err) if not e <= limit]
+    if bad:
+        what, t, e = bad[0]
+        raise UnreliableResultError(
+            f"the {what} at {depth:g} m is read at {t / YEAR:.4g} yr, where the Laplace "
+            f"engine serves the receptor curve with an error bound of {e:.3g} kg/m3, above "
+            f"the tolerance times the scale of C ({limit:.3g} kg/m3); add output times "
+            "around that time, or loosen [output] tolerance", np.array([t]))
 
 
 def receptor_views(solution, receptor_depth: float, screening_level=None,

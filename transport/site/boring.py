@@ -29,7 +29,7 @@ from transport.model.column import InitialState
 from transport.site.curves import (SCAN_SAMPLES, TIME_RTOL, curve_metrics, scan_times,
                                    with_early_window)
 from transport.site.laplace_checks import (early_metrics, laplace_curve, laplace_largest,
-                                           onto_bounds, verified_metrics)
+                                           onto_bounds, verified_metrics, vouch_read_times)
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
@@ -183,6 +183,7 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
                                         conc, cum, lambda t: receptor.concentration(t)[:, 0],
                                         lambda t: series.resolved(t, times))
     t_start = float(times[positive].min())
+    served = conc_at
     conc_at = _Remember(conc_at)  # the same values; the later scans reuse its samples
     within = _error_bound(site, col, initial, times, conc)
     m = curve_metrics(conc_at, t_start, t_end, site.screening_level, SCAN_SAMPLES,
@@ -191,6 +192,11 @@ def solve_boring(site, col, depth, times, grid, initial=None, known=None):
     rising = nondecreasing_in_time(col, initial)
     m = with_early_window(conc_at, t_start, site.screening_level, m, rising, within)
     views = window_views(site, col, initial, depth, times, conc_at, m, cum, rising)
+    # where the Laplace engine serves the curve, its own bound vouches for what is read
+    run = views.whole_run
+    vouch_read_times(served, col, depth, (("breakthrough", m[0]), ("peak", m[1]),
+                                          ("whole run's breakthrough", run.first_exceedance),
+                                          ("whole run's peak", run.peak_time)), within)
     # the design-life peak as the view has it: on the physical bounds (as the fields)
     m = m[:2] + (views.design_life.peak_concentration,)
     metrics = m + (float(cum[-1, -1]), depth, series.eigenvalues.size, col.length)
@@ -341,8 +347,14 @@ def checked_fields(site, col, initial, times, z, t_end, conc, cum, modal_at, res
 
 
 def _switched(early, late, t_switch, keep=None):
-    """C(t): ``early`` before t_switch, then ``late`` where ``keep(t)``, else ``early``."""
-    return lambda t: switched(t, t_switch, early, late, keep)
+    """C(t): ``early`` before t_switch, then ``late`` where ``keep(t)``, else ``early``;
+    with ``early``'s ``laplace_bound`` where early serves (0 elsewhere)."""
+    def curve(t):
+        return switched(t, t_switch, early, late, keep)
+    if hasattr(early, "laplace_bound"):
+        curve.laplace_bound = lambda t: switched(t, t_switch, early.laplace_bound,
+                                                 np.zeros_like, keep)
+    return curve
 
 
 def steps_only(series) -> bool:

@@ -18,9 +18,10 @@ from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
 from transport.solvers.checks import UnreliableResultError, clip_to_bounds, good_enough
 from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
+from transport.units import YEAR
 
 __all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest",
-           "onto_bounds"]
+           "onto_bounds", "vouch_read_times"]
 
 
 def laplace_curve(col, depth, initial, enough):
@@ -36,7 +37,40 @@ def laplace_curve(col, depth, initial, enough):
         if (t > 0).any():
             out[t > 0] = laplace_at(t[t > 0])
         return out
+
+    def bound(t):
+        """The engine's own error bound of those values (0 at t <= 0, the state)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.zeros(t.size)
+        if (t > 0).any():
+            out[t > 0] = laplace_lone_times(col, t[t > 0], depth, initial=initial,
+                                            enough=enough)[1]
+        return out
+    laplace_at.laplace_bound = bound
     return laplace_at
+
+
+def vouch_read_times(curve, col, depth, read, limit) -> None:
+    """Refuse a boring whose receptor metrics ``read`` ((what, time), ...) lie where the
+    Laplace engine serves its curve (before the earliest output time; between output
+    times before the modal series takes over) unless that engine's own error bound of C
+    there (``curve.laplace_bound``, 0 where the series serves) is within ``limit`` (the
+    tolerance times the scale of C): the output times were vouched for by the
+    cross-check, the times between them by this."""
+    read = [(what, float(t)) for what, t in read if t is not None and np.isfinite(t)]
+    bound = getattr(curve, "laplace_bound", None)
+    if bound is None or not read:
+        return
+    err = np.asarray(bound(np.array([t for _, t in read])), float)
+    bad = [(what, t, e) for (what, t), e in zip(read, err) if not e <= limit]
+    if bad:
+        what, t, e = bad[0]
+        raise UnreliableResultError(
+            f"boring column of {col.length:g} m: the {what} at the receptor "
+            f"({depth:g} m) is read at {t / YEAR:.4g} yr, where the Laplace engine serves "
+            f"the curve with an error bound of {e:.3g} kg/m3, above the tolerance times "
+            f"the scale of C ({limit:.3g} kg/m3); add output times around that time, or "
+            "loosen [output] tolerance", [t])
 
 
 def _vouch(col, initial, depth, at, enough, tol, scale):

@@ -209,18 +209,38 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom, enough=None):
         if (~pos).any():
             out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
         return out
+
+    def bound(depth, t):
+        """The Laplace engine's own error bound of C (kg m-3) at each of ``t``, as
+        :func:`transport.solvers.checks.own_errors` reads it (0 at t <= 0: the initial
+        state itself)."""
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        out = np.zeros(t.size)
+        pos = t > 0
+        if pos.any():
+            lap = solve_laplace(column, t[pos], [depth], initial=initial,
+                                semi_infinite_bottom=semi_infinite_bottom, enough=enough)
+            out[pos] = own_errors(lap)["concentration"]
+        return out
+    at.laplace_bound = bound
     return at
 
 
 def _auto_evaluator(series, t_modal, laplace_at, times=None):
     """Modal series from ``t_modal`` on (where it was vouched for) where it is resolved
-    after each signal change (:meth:`ModalSeries.resolved`), Laplace elsewhere."""
+    after each signal change (:meth:`ModalSeries.resolved`), Laplace elsewhere.  Its
+    ``laplace_bound(depth, t)``: the Laplace engine's own error bound of C where it
+    serves the curve, 0 where the series does (whose values the cross-check vouched for
+    at the output times from ``t_modal`` on)."""
     keep = (functools.partial(series.resolved, times=times)
             if times is not None and hasattr(series, "resolved") else None)
 
     def at(depth, t):
         return switched(t, t_modal, lambda s: laplace_at(depth, s),
                         lambda s: series.concentration_at(depth, s), keep)
+    if hasattr(laplace_at, "laplace_bound"):
+        at.laplace_bound = lambda depth, t: switched(
+            t, t_modal, lambda s: laplace_at.laplace_bound(depth, s), np.zeros_like, keep)
     return at
 
 
