@@ -34,6 +34,30 @@ def test_split_layer_changes_nothing():
     np.testing.assert_allclose(lam, exact, rtol=1e-12)
 
 
+def test_many_layers_run_in_the_compiled_kernel_and_match_crank(monkeypatch):
+    """A uniform slab split into 60 layers (from spectrum.COMPILED_LAYERS on the default
+    eigen-solve runs its passes in the compiled kernel; checked by counting its calls):
+    Dirichlet/no-flux lambda = ((n + 1/2) pi / L)^2 D/R (Crank 1975, eq. 4.18), to
+    1e-12, as the array code gives it (Carr & Turner 2016, invariance test)."""
+    from transport.solvers.modal import kernel, spectrum
+
+    assert kernel.available(), "the compiled mismatch kernel did not load"
+    assert spectrum.COMPILED_LAYERS <= 60
+    thick = np.linspace(0.5, 1.5, 60)
+    thick *= 2.0 / thick.sum()
+    col = _column([Layer(float(t), 0.4, 1e-9, 2.0) for t in thick], bottom="sealed")
+    op = sp.build_operator(col)
+    calls = []
+    real = kernel.mismatch
+    monkeypatch.setattr(kernel, "mismatch", lambda *a, **k: calls.append(1) or real(*a, **k))
+    lam = sp.eigenvalues(op, 200)
+    assert calls
+    exact = ((np.arange(200) + 0.5) * np.pi / 2.0) ** 2 * 1e-9 / 2.0
+    np.testing.assert_allclose(lam, exact, rtol=1e-12)
+    array = sp.eigenvalues_many([op], [200], compiled=False)[0]
+    np.testing.assert_allclose(array, exact, rtol=1e-12)
+
+
 def test_decay_shifts_every_eigenvalue():
     """First-order decay adds mu to every eigenvalue (Danckwerts 1951 transform)."""
     mu = 3e-9

@@ -58,6 +58,12 @@ _QUAD_STEP = 1e-3
 # column): relative for every eigenvalue but one within 1e-6 of that scale from zero.
 _SPAN_FLOOR = 1e-6
 _HALLEY_REL = 1e-14
+#: Layers from which :func:`eigenvalues` runs in the compiled kernel (where it is
+#: available). Measured (500 modes, one process): 2.2x faster than the array code at 20
+#: to 100 layers, 2.9x at 1000; at 10 layers x 5000 modes 0.6x (the array code
+#: vectorises over the lambdas); loading the compiled library costs 0.3-0.5 s once per
+#: process, repaid from about 50 layers on by a run's few eigen-solves.
+COMPILED_LAYERS = 50
 # Grid points for the bracketing pass: n + _GRID_EXTRA.
 _GRID_EXTRA = 64
 #: floating-point conditions that the iterations handle themselves (overflowing
@@ -234,8 +240,15 @@ def eigenvalues(op: Operator, n: int) -> np.ndarray:
     each root starts from a Newton step on the two-shot mismatch (:func:`_mismatch`,
     of the same sign as f_j) at the better end of its bracket, or from the root of the
     cubic through both ends where they were matched at the same face.
+
+    A column of :data:`COMPILED_LAYERS` layers or more runs its passes in the compiled
+    kernel where it is available (the same eigenvalues to rounding, 2-3x faster); fewer
+    layers keep the array code, which vectorises over the lambdas and whose first call
+    does not load the compiled kernel's library (a few tenths of a second, once per
+    process).
     """
-    return eigenvalues_many([op], [n])[0]
+    many = op.n_layers >= COMPILED_LAYERS
+    return eigenvalues_many([op], [n], compiled=many and kernel.available())[0]
 
 
 def eigenvalues_many(ops, ns, compiled: bool = False) -> list:
