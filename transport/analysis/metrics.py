@@ -28,7 +28,7 @@ __all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_vie
            "crossings", "first_exceedance", "peak", "time_above", "scan_times",
            "steady_concentration", "end_trend", "error_at", "concentration_bound",
            "PLATEAU_RTOL", "DEFAULT_TOLERANCE", "MAX_POLISHED", "local_extremes",
-           "parabola_extreme", "vouch_read_times"]
+           "parabola_extreme", "vouch_read_times", "first_unvouched"]
 
 #: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
 #: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
@@ -338,6 +338,20 @@ def receptor_metrics(solution, receptor_depth: float, screening_level=None, hori
                            pk_t, pk_c, cum, c_ss, t95, stays, c_end, trend, bound, t_start)
 
 
+def first_unvouched(bound, read, limit: float):
+    """The first metric of ``read`` ((what, time or None), ...) whose time is not
+    vouched for by ``bound(times)`` (an engine's own error bound of C at those times)
+    within ``limit`` (kg m-3): (what, time, bound there), or None."""
+    read = [(what, float(t)) for what, t in read if t is not None and np.isfinite(t)]
+    if not read:
+        return None
+    err = np.asarray(bound(np.array([t for _, t in read])), float)
+    for (what, t), e in zip(read, err):
+        if not e <= limit:  # (NaN: no bound, not vouched for)
+            return what, t, float(e)
+    return None
+
+
 def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     """Refuse a metric read where the Laplace engine serves the curve (before the
     earliest output time, between output times before the modal series takes over)
@@ -347,13 +361,11 @@ def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     A curve without such a bound (a series alone, the finite-volume engine, chains and
     staged runs) is not checked here."""
     bound = getattr(getattr(solution, "evaluator", None), "laplace_bound", None)
-    read = [(what, float(t)) for what, t in read if t is not None and np.isfinite(t)]
-    if bound is None or not read or not limit > 0:
+    if bound is None or not limit > 0:
         return
-    err = np.asarray(bound(float(depth), np.array([t for _, t in read])), float)
-    bad = [(what, t, e) for (what, t), e in zip(read, err) if not e <= limit]
+    bad = first_unvouched(lambda t: bound(float(depth), t), read, limit)
     if bad:
-        what, t, e = bad[0]
+        what, t, e = bad
         raise UnreliableResultError(
             f"the {what} at {depth:g} m is read at {t / YEAR:.4g} yr, where the Laplace "
             f"engine serves the receptor curve with an error bound of {e:.3g} kg/m3, above "

@@ -14,6 +14,7 @@ import math
 
 import numpy as np
 
+from transport.analysis.metrics import first_unvouched
 from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
 from transport.solvers.checks import UnreliableResultError, clip_to_bounds, good_enough
 from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
@@ -57,14 +58,10 @@ def vouch_read_times(curve, col, depth, read, limit) -> None:
     there (``curve.laplace_bound``, 0 where the series serves) is within ``limit`` (the
     tolerance times the scale of C): the output times were vouched for by the
     cross-check, the times between them by this."""
-    read = [(what, float(t)) for what, t in read if t is not None and np.isfinite(t)]
     bound = getattr(curve, "laplace_bound", None)
-    if bound is None or not read:
-        return
-    err = np.asarray(bound(np.array([t for _, t in read])), float)
-    bad = [(what, t, e) for (what, t), e in zip(read, err) if not e <= limit]
+    bad = None if bound is None else first_unvouched(bound, read, limit)
     if bad:
-        what, t, e = bad[0]
+        what, t, e = bad
         raise UnreliableResultError(
             f"boring column of {col.length:g} m: the {what} at the receptor "
             f"({depth:g} m) is read at {t / YEAR:.4g} yr, where the Laplace engine serves "
