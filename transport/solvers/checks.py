@@ -267,7 +267,8 @@ def _maxabs(a):
 
 def scales(a: dict, b: dict | None, bounds: Bounds | None, column=None) -> dict:
     """Scale of each quantity over the run: the largest of min(|a|, |b|) pointwise
-    (finite values only); concentration: the bounds' scale where it exists.  With the
+    (finite values only: where one candidate has none, the other's, as for an engine
+    alone); concentration: the bounds' scale where it exists.  With the
     ``column``, fluxes and masses are measured against at least the scales its inputs
     set: F_in = C_s (|q| + max theta D / L) and M_in = C_s sum theta R L, with C_s the
     concentration scale (a run shown only after the plume has left would otherwise
@@ -275,8 +276,8 @@ def scales(a: dict, b: dict | None, bounds: Bounds | None, column=None) -> dict:
     out = {}
     for q in QUANTITIES:
         x = np.abs(a[q])
-        if b is not None:
-            x = np.minimum(x, np.abs(b[q]))
+        if b is not None:  # where one has no value (NaN), the other's counts
+            x = np.fmin(x, np.abs(b[q]))
         x = x[np.isfinite(x)]
         out[q] = float(x.max()) if x.size else 0.0
     if bounds is not None and bounds.scale is not None:
