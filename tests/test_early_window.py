@@ -142,8 +142,9 @@ def test_a_staged_removal_before_the_earliest_output_time():
 def test_a_boring_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
     """The 2 yr pulse: the deterministic boring's crossing and peak lie before the
     earliest output time, where the Laplace engine serves the receptor curve, so the
-    boring checks that engine's own error bound there. The peak matches the reference
-    (within twice the tolerance of the pulse's concentration, 1). The check can fail:
+    boring checks that engine's own error bound there. The peak matches the mpmath
+    reference (tests/reference.py; Talbot 1979, Abate & Valko 2004) within twice the
+    tolerance of the pulse's concentration, 1. The check can fail:
     with the Laplace engine's bounds made 1e9 x larger (its values left as they are),
     the boring is refused, naming the first metric read there (the breakthrough) and its
     time, instead of written."""

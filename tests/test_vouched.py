@@ -225,7 +225,8 @@ def test_an_inlet_without_flow_is_a_sealed_end():
 def test_late_mass_of_an_advective_column_is_measured_against_its_own_size():
     """Column Peclet number about 300, downward flow through three layers with a thin
     slow one (5 cm, D 1e-11 m2/s), a constant top: at 100 yr about 142 kg/m2 has passed
-    1 m, while the column holds about 1 kg/m2. The modal series gives no cumulative mass
+    1 m (q C t, a mass balance of the steady throughflow; common practice), while the
+    column holds about 1 kg/m2. The modal series gives no cumulative mass
     here (NaN), and the scale of the check was taken where both engines had a value
     (min over candidates), so it fell to the column's holding (0.98 kg/m2) and the
     Laplace engine's bound of 1.2e-8 kg/m2 on 142 kg/m2 (8e-11 relative) refused the

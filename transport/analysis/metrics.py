@@ -28,7 +28,7 @@ __all__ = ["ReceptorMetrics", "ReceptorViews", "receptor_metrics", "receptor_vie
            "crossings", "first_exceedance", "peak", "time_above", "scan_times",
            "steady_concentration", "end_trend", "error_at", "concentration_bound",
            "PLATEAU_RTOL", "DEFAULT_TOLERANCE", "MAX_POLISHED", "local_extremes",
-           "parabola_extreme", "vouch_read_times", "first_unvouched"]
+           "parabola_extreme", "vouch_read_times", "first_unvouched", "refuse_unvouched"]
 
 #: Uniform samples (plus half as many log-spaced) of a curve served by Laplace inversion:
 #: 0.4 yr steps over 60 yr; a receptor curve of a metre-scale column varies over years.
@@ -352,6 +352,20 @@ def first_unvouched(bound, read, limit: float):
     return None
 
 
+def refuse_unvouched(bound, read, limit: float, where: str, prefix: str = "") -> None:
+    """Raise :class:`UnreliableResultError` for the first metric of ``read`` that
+    ``bound`` does not vouch for within ``limit`` (:func:`first_unvouched`), naming it,
+    ``where`` it is read (e.g. "at 4 m") and its time; nothing where all are vouched."""
+    bad = first_unvouched(bound, read, limit)
+    if bad:
+        what, t, e = bad
+        raise UnreliableResultError(
+            f"{prefix}the {what} {where} is read at {t / YEAR:.4g} yr, where the Laplace "
+            f"engine serves the receptor curve with an error bound of {e:.3g} kg/m3, above "
+            f"the tolerance times the scale of C ({limit:.3g} kg/m3); add output times "
+            "around that time, or loosen [output] tolerance", np.array([t]))
+
+
 def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     """Refuse a metric read where the Laplace engine serves the curve (before the
     earliest output time, between output times before the modal series takes over)
@@ -361,16 +375,8 @@ def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     A curve without such a bound (a series alone, the finite-volume engine, chains and
     staged runs) is not checked here."""
     bound = getattr(getattr(solution, "evaluator", None), "laplace_bound", None)
-    if bound is None or not limit > 0:
-        return
-    bad = first_unvouched(lambda t: bound(float(depth), t), read, limit)
-    if bad:
-        what, t, e = bad
-        raise UnreliableResultError(
-            f"the {what} at {depth:g} m is read at {t / YEAR:.4g} yr, where the Laplace "
-            f"engine serves the receptor curve with an error bound of {e:.3g} kg/m3, above "
-            f"the tolerance times the scale of C ({limit:.3g} kg/m3); add output times "
-            "around that time, or loosen [output] tolerance", np.array([t]))
+    if bound is not None and limit > 0:
+        refuse_unvouched(lambda t: bound(float(depth), t), read, limit, f"at {depth:g} m")
 
 
 def receptor_views(solution, receptor_depth: float, screening_level=None,

@@ -14,12 +14,11 @@ import math
 
 import numpy as np
 
-from transport.analysis.metrics import first_unvouched
+from transport.analysis.metrics import refuse_unvouched
 from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
 from transport.solvers.checks import UnreliableResultError, clip_to_bounds, good_enough
 from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
-from transport.units import YEAR
 
 __all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest",
            "onto_bounds", "vouch_read_times"]
@@ -57,17 +56,12 @@ def vouch_read_times(curve, col, depth, read, limit) -> None:
     times before the modal series takes over) unless that engine's own error bound of C
     there (``curve.laplace_bound``, 0 where the series serves) is within ``limit`` (the
     tolerance times the scale of C): the output times were vouched for by the
-    cross-check, the times between them by this."""
+    cross-check, the times between them by this
+    (:func:`transport.analysis.metrics.refuse_unvouched`)."""
     bound = getattr(curve, "laplace_bound", None)
-    bad = None if bound is None else first_unvouched(bound, read, limit)
-    if bad:
-        what, t, e = bad
-        raise UnreliableResultError(
-            f"boring column of {col.length:g} m: the {what} at the receptor "
-            f"({depth:g} m) is read at {t / YEAR:.4g} yr, where the Laplace engine serves "
-            f"the curve with an error bound of {e:.3g} kg/m3, above the tolerance times "
-            f"the scale of C ({limit:.3g} kg/m3); add output times around that time, or "
-            "loosen [output] tolerance", [t])
+    if bound is not None:
+        refuse_unvouched(bound, read, limit, f"at the receptor ({depth:g} m)",
+                         f"boring column of {col.length:g} m: ")
 
 
 def _vouch(col, initial, depth, at, enough, tol, scale):
