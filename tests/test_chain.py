@@ -121,3 +121,34 @@ def test_chain_input_errors():
     with pytest.raises(InputError, match="names must differ"):
         Chain(cols, ("a", "a"), (0.0, 1.0))
     assert math.isclose(molar_yield(PCE, TCE), 131.38 / 165.822, rel_tol=1e-4)
+
+
+def test_a_chain_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+    """The layered chain above, output times from 10 yr: the daughter's crossing of half
+    its 10 yr value at 0.65 m comes earlier, where the run reads the Laplace engine's
+    curve. That engine's own bound there is within the tolerance times the species'
+    scale of C, and C there equals the matrix-exponential reference
+    (tests/reference_chain.py) within 2 x that limit. With the bounds made 1e9 x larger
+    after the solve, the metric is refused, naming it."""
+    from transport.analysis.metrics import receptor_metrics
+    from transport.solvers import chain as chain_solver
+    from transport.solvers.checks import UnreliableResultError
+
+    chain = _layered()
+    late, depth = np.array([10.0, 40.0]) * YEAR, 0.65
+    daughter = chain_solver.solve_chain(chain, late, [depth])[1]
+    level = 0.5 * float(daughter.concentration[0, 0])
+    m = receptor_metrics(daughter, depth, level)
+    t_cross = m.first_exceedance
+    assert t_cross < late[0]
+    limit = daughter.tolerance * daughter.scale["concentration"]
+    bound = daughter.evaluator.laplace_bound(depth, [t_cross])[0]
+    assert 0 < bound <= limit
+    ref = chain_reference(chain, [depth], [t_cross], dps=30)[0, 1, 0]
+    assert abs(ref - level) <= 2 * limit
+
+    real = chain_solver.own_errors
+    monkeypatch.setattr(chain_solver, "own_errors",
+                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    with pytest.raises(UnreliableResultError, match="first exceedance at 0.65 m"):
+        receptor_metrics(daughter, depth, level)

@@ -324,3 +324,46 @@ def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypa
         receptor_metrics(sol, depth, level)
     # the peak of this rising curve lies at the end, where the series serves
     vouch_read_times(sol, depth, limit, (("peak", late[-1]),))
+
+
+def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+    """The column above with its source removed at 6 yr (a staged run), output times
+    from 11.4 yr: the crossing (stage one) and the peak of the pulse (stage two) are both
+    read on the staged Laplace engine's curve. Its bound there (the stage's inversion
+    bound plus the hand-over's carried error) is within the tolerance times the scale
+    of C, and C at both times equals the mpmath reference of the same column with a
+    stepped top (tests/reference.py; Talbot 1979, Abate & Valko 2004) within 2 x that
+    limit. With the staged engine's own bounds made 1e9 x larger after the solve, the
+    run refuses the metric, naming it; the peak alone is refused too."""
+    from reference import laplace_reference
+    from transport.analysis.metrics import vouch_read_times
+    from transport.model.schedules import Schedule
+    from transport.solvers import staged
+    from transport.solvers.checks import UnreliableResultError
+
+    layers = (Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
+              Layer(0.9, 0.25, 1e-9, 1.5, 0.0))
+    col = Column(layers, Boundary("concentration", 1.0), Boundary("sealed"), 0.0)
+    level, depth, removal = 0.37, 0.3, 6.0 * YEAR
+    late = np.array([11.4, 40.0, 100.0]) * YEAR
+    sol = solve_timeline(Timeline.single(col).then(removal, remove_source()), late, [depth])
+    m = receptor_metrics(sol, depth, level)
+    t_cross, t_peak = m.first_exceedance, m.peak_time
+    assert t_cross < removal < t_peak < late[0]
+    bound = sol.evaluator.laplace_bound(depth, [t_cross, t_peak, late[-1]])
+    limit = sol.tolerance * sol.scale["concentration"]
+    assert 0 < bound[0] <= limit and 0 < bound[1] <= limit
+    assert bound[2] == 0.0  # the modal stages serve the last output time
+    pulse = Column(layers, Boundary("concentration", 1.0, schedule=Schedule.steps(
+        [0.0, removal], [1.0, 0.0])), Boundary("sealed"), 0.0)
+    ref = laplace_reference(pulse, [depth], [t_cross, t_peak], dps=20)[:, 0]
+    assert abs(ref[0] - level) <= 2 * limit
+    assert abs(ref[1] - m.peak_concentration) <= 2 * limit
+
+    real = staged.own_errors
+    monkeypatch.setattr(staged, "own_errors",
+                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
+        receptor_metrics(sol, depth, level)
+    with pytest.raises(UnreliableResultError, match="peak at 0.3 m"):
+        vouch_read_times(sol, depth, limit, (("peak", t_peak),))

@@ -372,8 +372,9 @@ def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     unless the engine's own error bound of C there is within ``limit`` (the run's
     tolerance times its scale of C): the output times were vouched for by the
     cross-check, the times between them by this.  ``read``: ((what, time or None), ...).
-    A curve without such a bound (a series alone, the finite-volume engine, chains and
-    staged runs) is not checked here."""
+    Staged runs and chains carry the bound too (a staged run's includes what its
+    hand-overs carried in); a curve without one (a series alone, the finite-volume
+    engine) is not checked here."""
     bound = getattr(getattr(solution, "evaluator", None), "laplace_bound", None)
     if bound is not None and limit > 0:
         refuse_unvouched(lambda t: bound(float(depth), t), read, limit, f"at {depth:g} m")

@@ -180,8 +180,22 @@ class StagedLaplace:
     mass_errors: tuple  # mass bound carried into each stage (kg m-2)
 
     def concentration_at(self, depth, times):
+        return self._read(depth, times, bound=False)
+
+    def __call__(self, depth, times):
+        """C (kg m-3) at one depth for any times: the evaluator of a staged run."""
+        return self._read(depth, times, bound=False)
+
+    def laplace_bound(self, depth, times):
+        """The error bound of C (kg m-3) at one depth and any times, as the run's own
+        bound at its output times reads it: the stage's inversion bound plus what the
+        hand-overs carried in (the stage's initial state alone at its start; 0 at the
+        release). 0 where the depth lies outside the stage's column (no C there)."""
+        return self._read(depth, times, bound=True)
+
+    def _read(self, depth, times, bound):
         t = np.atleast_1d(np.asarray(times, float))
-        out = np.full(t.size, np.nan)
+        out = np.full(t.size, 0.0 if bound else np.nan)
         stages = self.timeline.stages
         idx = _stage_times(stages, t)
         for i in np.unique(idx):
@@ -200,10 +214,15 @@ class StagedLaplace:
                 # the worst case: every time retried on a contour of its own
                 work = at.size * default_nodes(col) * segments
                 for part in np.array_split(at, max(1, int(np.ceil(work / READ_BLOCK)))):
-                    vals[part] = solve_laplace(col, tl[part], [max(zl, 0.0)],
-                                               initial=self.initials[i]).concentration[:, 0]
+                    r = solve_laplace(col, tl[part], [max(zl, 0.0)], initial=self.initials[i])
+                    if bound:
+                        e = own_errors(r)["concentration"]
+                        vals[part] = np.where(np.isnan(e), np.inf, e) + self.errors[i]
+                    else:
+                        vals[part] = r.concentration[:, 0]
             if (~pos).any():
-                vals[~pos] = initial_profile(col, self.initials[i], np.array([max(zl, 0.0)]))[0]
+                vals[~pos] = (self.errors[i] if i else 0.0) if bound else initial_profile(
+                    col, self.initials[i], np.array([max(zl, 0.0)]))[0]
             out[sel] = vals
         return out
 

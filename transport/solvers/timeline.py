@@ -286,7 +286,7 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
     vals["concentration"] = clip_to_bounds(col0, bounds, depths, vals["concentration"],
                                            choice.error["concentration"])
     budget = budget_onto_bounds(bounds, budget, choice.error["budget"])
-    series, evaluator = modal_evaluator(choice, times, series, staged.concentration_at)
+    series, evaluator = modal_evaluator(choice, times, series, staged)
     n_modes = modal_sol.n_modes if series is not None else 0
     eig = modal_sol.eigenvalues if n_modes else np.empty(0)
     return Solution(column=col0, times=times, depths=depths, eigenvalues=eig,
