@@ -367,3 +367,44 @@ def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(m
         receptor_metrics(sol, depth, level)
     with pytest.raises(UnreliableResultError, match="peak at 0.3 m"):
         vouch_read_times(sol, depth, limit, (("peak", t_peak),))
+
+
+def test_a_finite_volume_metric_read_between_output_times_is_cross_checked(monkeypatch):
+    """The column of the tests above on the finite-volume engine (tolerance 1e-4),
+    output times from 11.4 yr: the crossing near 4.4 yr is read on the finite-volume
+    curve, away from the cross-checked output times. Its bound there is the
+    distance of the finite-volume value from solve_laplace's plus that engine's own
+    estimate (computed here independently), within the tolerance times the scale of
+    C; C there equals the level per the mpmath reference (tests/reference.py; Talbot
+    1979, Abate & Valko 2004) within 2 x that limit. With the Laplace engine's bounds
+    made 1e12 x larger after the solve, the metric is refused."""
+    from reference import laplace_reference
+    from transport.solvers import engines
+    from transport.solvers.checks import UnreliableResultError, own_errors
+    from transport.solvers.engines import solve_column
+    from transport.solvers.laplace import solve_laplace
+
+    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
+                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
+                 Boundary("sealed"), 0.0)
+    level, depth = 0.37, 0.3
+    late = np.array([11.4, 40.0, 100.0]) * YEAR
+    sol = solve_column(col, late, [depth], engine="finite-volume", tolerance=1e-4)
+    m = receptor_metrics(sol, depth, level)
+    t_cross = m.first_exceedance
+    assert t_cross < late[0]
+    bound = sol.evaluator.laplace_bound(depth, [t_cross])[0]
+    lap = solve_laplace(col, [t_cross], [depth])
+    fv_c = sol.concentration_at(depth, [t_cross])[0]
+    want = abs(fv_c - lap.concentration[0, 0]) + own_errors(lap)["concentration"][0]
+    assert bound == pytest.approx(want, rel=1e-6)
+    limit = sol.tolerance * sol.scale["concentration"]
+    assert 0 < bound <= limit
+    c_ref = laplace_reference(col, [depth], [t_cross], dps=20)[0, 0]
+    assert abs(c_ref - level) <= 2 * limit
+
+    real = engines.own_errors
+    monkeypatch.setattr(engines, "own_errors",
+                        lambda s: {k: 1e12 * v for k, v in real(s).items()})
+    with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
+        receptor_metrics(sol, depth, level)

@@ -360,10 +360,12 @@ def refuse_unvouched(bound, read, limit: float, where: str, prefix: str = "") ->
     if bad:
         what, t, e = bad
         raise UnreliableResultError(
-            f"{prefix}the {what} {where} is read at {t / YEAR:.4g} yr, where the Laplace "
-            f"engine serves the receptor curve with an error bound of {e:.3g} kg/m3, above "
-            f"the tolerance times the scale of C ({limit:.3g} kg/m3); add output times "
-            "around that time, or loosen [output] tolerance", np.array([t]))
+            f"{prefix}the {what} {where} is read at {t / YEAR:.4g} yr, away from the vouched "
+            f"output times, where the receptor curve's error bound is {e:.3g} kg/m3 (the "
+            "Laplace engine's own bound there, or for the finite-volume engine its distance "
+            "from the Laplace engine plus that bound), above the tolerance times the scale "
+            f"of C ({limit:.3g} kg/m3); add output times around that time, or loosen "
+            "[output] tolerance", np.array([t]))
 
 
 def vouch_read_times(solution, depth: float, limit: float, read) -> None:
@@ -373,8 +375,9 @@ def vouch_read_times(solution, depth: float, limit: float, read) -> None:
     tolerance times its scale of C): the output times were vouched for by the
     cross-check, the times between them by this.  ``read``: ((what, time or None), ...).
     Staged runs and chains carry the bound too (a staged run's includes what its
-    hand-overs carried in); a curve without one (a series alone, the finite-volume
-    engine) is not checked here."""
+    hand-overs carried in), and the finite-volume engine's curve its distance from the
+    Laplace engine plus that engine's bound; a series alone (no other engine) is not
+    checked here."""
     bound = getattr(getattr(solution, "evaluator", None), "laplace_bound", None)
     if bound is not None and limit > 0:
         refuse_unvouched(lambda t: bound(float(depth), t), read, limit, f"at {depth:g} m")

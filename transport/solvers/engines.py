@@ -226,6 +226,22 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom, enough=None):
     return at
 
 
+def _cross_checked(served_at, laplace_at):
+    """The finite-volume engine's curve ``served_at(depth, t)``, with ``laplace_bound(depth,
+    t)``: at each time its distance from the Laplace engine's value plus that engine's
+    own bound, the cross-check of the output times at any time (what a metric read
+    between them is vouched for by)."""
+    def at(depth, t):
+        return served_at(depth, t)
+
+    def bound(depth, t):
+        t = np.atleast_1d(np.asarray(t, dtype=float))
+        return (np.abs(np.asarray(served_at(depth, t), float) - laplace_at(depth, t))
+                + laplace_at.laplace_bound(depth, t))
+    at.laplace_bound = bound
+    return at
+
+
 def _auto_evaluator(series, t_modal, laplace_at, times=None):
     """Modal series from ``t_modal`` on (where it was vouched for) where it is resolved
     after each signal change (:meth:`ModalSeries.resolved`), Laplace elsewhere.  Its
@@ -340,7 +356,7 @@ def solve_column(column: Column, times, depths, *, initial: InitialState = None,
         fv = solve_fv_result(column, times, depths, initial=initial, tolerance=tolerance,
                              cells_per_layer=cells_per_layer)
         cands = [("finite-volume", _expand(fv, everything, nt)), ("laplace", lap_c)]
-        evaluator = fv.evaluator
+        evaluator = _cross_checked(fv.evaluator, laplace_at)
     else:
         rows = _modal_rows(column, times, tolerance, max_modes, forced=engine == "modal")
         if engine == "auto" and rows.size:
