@@ -19,10 +19,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from transport.model.column import Boundary, Column, InputError
+from transport.model.schedules import Schedule
 
 __all__ = ["Stage", "Timeline", "local_column", "remove_source", "excavate", "place_cap",
            "amend_layer", "set_flow", "set_boundary", "clean_boundary", "compose_carry",
-           "EXCAVATION_SOURCE"]
+           "EXCAVATION_SOURCE", "boundary_steps_merged"]
 
 
 @dataclass(frozen=True)
@@ -137,6 +138,58 @@ def local_column(stage: Stage) -> Column:
                    bottom=replace(col.bottom, schedule=sh(col.bottom.schedule)),
                    layers=tuple(replace(l, source_schedule=sh(l.source_schedule))
                                 for l in col.layers))
+
+
+def _from(schedule, start: float):
+    """The part of ``schedule`` from ``start`` on (zero before), as atoms: the
+    schedule seen from a clock started at ``start`` (:meth:`Schedule.shifted`), moved
+    back onto the run's clock."""
+    return Schedule(tuple((k, t0 + start, a, r) for k, t0, a, r in
+                          schedule.shifted(start).atoms))
+
+
+def _signal(boundary: Boundary):
+    return boundary.schedule or Schedule.constant(boundary.value)
+
+
+def _boundary_step(before: Boundary, after: Boundary, start: float):
+    """One boundary whose value is ``before``'s until ``start`` and ``after``'s from then
+    on, or None where the two differ in more than the value in time (another kind or
+    law, or a source zone, whose state is not a value in time)."""
+    if before == after:
+        return before
+    if (before.kind != after.kind or before.kind == "source-zone"
+            or replace(before, value=0.0, schedule=None)
+            != replace(after, value=0.0, schedule=None)):
+        return None
+    old = _signal(before)
+    atoms = (old.atoms + tuple((k, t0, -a, r) for k, t0, a, r in _from(old, start).atoms)
+             + _from(_signal(after), start).atoms)
+    return replace(before, schedule=Schedule(tuple(a for a in atoms if a[2] != 0.0)))
+
+
+def boundary_steps_merged(timeline: "Timeline") -> "Timeline":
+    """The same run with every stage that changes nothing but the value in time of a
+    boundary (the source removed, a new top concentration) folded into the stage
+    before it, as a scheduled boundary of that stage: the same problem, solved without
+    handing a state over at that time (a stepped boundary value is exact for the
+    Laplace engine; a handed-over state loses digits at late times in an advective
+    column). Stages that change the layers, the flow, the depth frame or what is carried
+    stay as they are."""
+    stages = list(timeline.stages[:1])
+    for st in timeline.stages[1:]:
+        prev = stages[-1]
+        pc, nc = prev.column, st.column
+        n = len(nc.layers)
+        same = (st.offset == prev.offset and replace(pc, top=nc.top, bottom=nc.bottom) == nc
+                and (st.carry is None or tuple(st.carry) == (1.0,) * n))
+        top = _boundary_step(pc.top, nc.top, st.start) if same else None
+        bottom = _boundary_step(pc.bottom, nc.bottom, st.start) if same else None
+        if top is None or bottom is None:
+            stages.append(st)
+            continue
+        stages[-1] = replace(prev, column=replace(pc, top=top, bottom=bottom))
+    return Timeline(tuple(stages))
 
 
 # --- actions (Stage -> Stage) ---------------------------------------------------------

@@ -24,7 +24,7 @@ from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError,
                                       budget_onto_bounds, budget_terms, choose, clip_to_bounds,
                                       concentration_bounds, describe_refusal, quantities)
 from transport.solvers.engines import checked_fields, modal_evaluator
-from transport.solvers.modal.operator import ZONE_NOT_MODAL
+from transport.solvers.modal.operator import ZONE_NOT_MODAL, build_operator
 from transport.solvers.modal.projection import initial_profile
 from transport.solvers.modal.series import build_series, outside_change_windows
 from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, ModeCapWarning,
@@ -32,7 +32,8 @@ from transport.solvers.modal.sizing import (DEFAULT_TOLERANCE, AccuracyWarning, 
 from transport.solvers.result import Solution, checked_arithmetic
 from transport.solvers.staged import solve_staged_laplace
 from transport.solvers.stages import (EXCAVATION_SOURCE, Stage, Timeline, amend_layer,
-                                      clean_boundary, compose_carry, excavate, local_column,
+                                      boundary_steps_merged, clean_boundary, compose_carry,
+                                      excavate, local_column,
                                       place_cap, remove_source, set_boundary, set_flow)
 
 __all__ = ["Stage", "Timeline", "solve_timeline", "solve_timeline_modal", "build_timeline",
@@ -200,6 +201,17 @@ def build_timeline(timeline: Timeline, initial=None, times=(), tolerance=1e-8,
     return TimelineSeries(timeline, tuple(series), tuple(carried))
 
 
+def _modal_range(timeline) -> bool:
+    """Whether every stage's column lies within the modal engine's column Peclet range
+    (else auto runs on the staged Laplace engine alone, as a single column does)."""
+    try:
+        for st in timeline.stages:
+            build_operator(local_column(st))
+    except InputError:
+        return False
+    return True
+
+
 @checked_arithmetic
 def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance=None,
                    engine: str = "auto", max_modes=4000,
@@ -250,7 +262,7 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
     zone = any(has_source_zone(st.column) for st in timeline.stages)
     if zone and engine == "modal":
         raise InputError(ZONE_NOT_MODAL)
-    if engine in ("auto", "modal") and not zone:
+    if engine == "modal" or (engine == "auto" and not zone and _modal_range(timeline)):
         with warnings.catch_warnings():
             if engine == "auto":
                 warnings.simplefilter("ignore", AccuracyWarning)
@@ -265,8 +277,11 @@ def solve_timeline(timeline: Timeline, times, depths, *, initial=None, tolerance
         c = np.abs(modal_sol.concentration) if modal_sol is not None else np.zeros(1)
         c = c[np.isfinite(c)]
         scale = float(c.max()) if c.size and c.max() > 0 else 1.0
-    lv, lown, lbudget, staged, lwit = solve_staged_laplace(timeline, times, depths, initial,
-                                                     tolerance, scale, local_column)
+    # the second engine solves a change of a boundary value alone as a scheduled
+    # boundary (exact for it), not as a hand-over of the state
+    lv, lown, lbudget, staged, lwit = solve_staged_laplace(
+        boundary_steps_merged(timeline), times, depths, initial, tolerance, scale,
+        local_column)
     lq = dict(lv)
     lq["budget"] = budget_terms(lbudget, nt)
     cands.append(("laplace", lq, lown, lbudget))
