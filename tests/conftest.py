@@ -4,6 +4,7 @@ import sys
 # make the test helper module ``reference`` importable
 sys.path.insert(0, os.path.dirname(__file__))
 
+import pytest
 from hypothesis import settings
 
 # Property tests run the same examples on every machine so CI is repeatable; set
@@ -11,3 +12,15 @@ from hypothesis import settings
 settings.register_profile("repeatable", derandomize=True)
 settings.register_profile("explore", derandomize=False)
 settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
+
+
+@pytest.fixture
+def inflate_own_errors(monkeypatch):
+    """``inflate(module, factor)``: the engines' own error bounds as ``module`` reads them
+    (its ``own_errors``) made ``factor`` x larger from then on, the solve already done:
+    a check that relies on them must then refuse."""
+    def inflate(module, factor):
+        real = module.own_errors
+        monkeypatch.setattr(module, "own_errors",
+                            lambda s: {k: factor * v for k, v in real(s).items()})
+    return inflate

@@ -123,7 +123,8 @@ def test_chain_input_errors():
     assert math.isclose(molar_yield(PCE, TCE), 131.38 / 165.822, rel_tol=1e-4)
 
 
-def test_a_chain_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+def test_a_chain_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(
+        inflate_own_errors):
     """The layered chain above, output times from 10 yr: the daughter's crossing of half
     its 10 yr value at 0.65 m comes earlier, where the run reads the Laplace engine's
     curve. That engine's own bound there is within the tolerance times the species'
@@ -147,8 +148,6 @@ def test_a_chain_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(mo
     ref = chain_reference(chain, [depth], [t_cross], dps=30)[0, 1, 0]
     assert abs(ref - level) <= 2 * limit
 
-    real = chain_solver.own_errors
-    monkeypatch.setattr(chain_solver, "own_errors",
-                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    inflate_own_errors(chain_solver, 1e9)
     with pytest.raises(UnreliableResultError, match="first exceedance at 0.65 m"):
         receptor_metrics(daughter, depth, level)

@@ -18,6 +18,14 @@ def _column():
                   darcy_flux=0.01 / YEAR)
 
 
+def _slow_middle_column():
+    """Three layers with a slow, decaying middle one under a constant top, sealed
+    bottom, no flow (the metric tests below)."""
+    return Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
+                   Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
+                  Boundary("sealed"), 0.0)
+
+
 def _dense_first_crossing(conc_at, z, level, t0, t1):
     """Brute force: 200001 samples, then linear interpolation inside the first interval."""
     t = np.linspace(t0, t1, 200001)
@@ -185,13 +193,10 @@ def test_a_crossing_before_the_earliest_output_time_is_resolved_or_flagged():
     from transport.analysis.compare import _at_start
     from transport.analysis.metrics import receptor_views
     from transport.io.netcdf_metrics import metric_variables
-    from transport.model.column import Boundary, Column, Layer
     from transport.solvers.engines import solve_column
 
     year = 365.25 * 86400
-    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
-                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
-                 Boundary("sealed"), 0.0)
+    col = _slow_middle_column()
     level, depth = 0.37, 0.3
     late = np.array([11.4, 40.0, 100.0]) * year
     ref = laplace_reference(col, [depth], np.array([2.0, 11.4]) * year, dps=20)[:, 0]
@@ -282,7 +287,7 @@ def test_a_plateau_at_the_source_concentration_is_not_reported_above_it(peclet, 
     assert min(peaks) >= ref - 2e-8
 
 
-def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(inflate_own_errors):
     """The column of the test above (crossing near 4.4 yr, output times from 11.4 yr):
     the crossing is read where the Laplace engine serves the curve, so the run checks
     that engine's own error bound there. Its bound at the crossing is the bound
@@ -299,9 +304,7 @@ def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypa
     from transport.solvers.engines import solve_column
     from transport.solvers.laplace import solve_laplace
 
-    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
-                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
-                 Boundary("sealed"), 0.0)
+    col = _slow_middle_column()
     level, depth = 0.37, 0.3
     late = np.array([11.4, 40.0, 100.0]) * YEAR
     sol = solve_column(col, late, [depth])
@@ -317,16 +320,15 @@ def test_a_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypa
     c_ref = laplace_reference(col, [depth], [t_cross], dps=20)[0, 0]
     assert abs(c_ref - level) <= 2 * limit
 
-    real = engines.own_errors
-    monkeypatch.setattr(engines, "own_errors",
-                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    inflate_own_errors(engines, 1e9)
     with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
         receptor_metrics(sol, depth, level)
     # the peak of this rising curve lies at the end, where the series serves
     vouch_read_times(sol, depth, limit, (("peak", late[-1]),))
 
 
-def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(monkeypatch):
+def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(
+        inflate_own_errors):
     """The column above with its source removed at 6 yr (a staged run), output times
     from 11.4 yr: the crossing (stage one) and the peak of the pulse (stage two) are both
     read on the staged Laplace engine's curve. Its bound there (the stage's inversion
@@ -341,9 +343,8 @@ def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(m
     from transport.solvers import staged
     from transport.solvers.checks import UnreliableResultError
 
-    layers = (Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
-              Layer(0.9, 0.25, 1e-9, 1.5, 0.0))
-    col = Column(layers, Boundary("concentration", 1.0), Boundary("sealed"), 0.0)
+    col = _slow_middle_column()
+    layers = col.layers
     level, depth, removal = 0.37, 0.3, 6.0 * YEAR
     late = np.array([11.4, 40.0, 100.0]) * YEAR
     sol = solve_timeline(Timeline.single(col).then(removal, remove_source()), late, [depth])
@@ -360,16 +361,15 @@ def test_a_staged_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(m
     assert abs(ref[0] - level) <= 2 * limit
     assert abs(ref[1] - m.peak_concentration) <= 2 * limit
 
-    real = staged.own_errors
-    monkeypatch.setattr(staged, "own_errors",
-                        lambda s: {k: 1e9 * v for k, v in real(s).items()})
+    inflate_own_errors(staged, 1e9)
     with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
         receptor_metrics(sol, depth, level)
     with pytest.raises(UnreliableResultError, match="peak at 0.3 m"):
         vouch_read_times(sol, depth, limit, (("peak", t_peak),))
 
 
-def test_a_finite_volume_metric_read_between_output_times_is_cross_checked(monkeypatch):
+def test_a_finite_volume_metric_read_between_output_times_is_cross_checked(
+        inflate_own_errors):
     """The column of the tests above on the finite-volume engine (tolerance 1e-4),
     output times from 11.4 yr: the crossing near 4.4 yr is read on the finite-volume
     curve, away from the cross-checked output times. Its bound there is the
@@ -384,9 +384,7 @@ def test_a_finite_volume_metric_read_between_output_times_is_cross_checked(monke
     from transport.solvers.engines import solve_column
     from transport.solvers.laplace import solve_laplace
 
-    col = Column((Layer(0.6, 0.3, 8e-10, 2.0, 0.0), Layer(0.5, 0.45, 2e-10, 5.0, 1e-9),
-                  Layer(0.9, 0.25, 1e-9, 1.5, 0.0)), Boundary("concentration", 1.0),
-                 Boundary("sealed"), 0.0)
+    col = _slow_middle_column()
     level, depth = 0.37, 0.3
     late = np.array([11.4, 40.0, 100.0]) * YEAR
     sol = solve_column(col, late, [depth], engine="finite-volume", tolerance=1e-4)
@@ -403,8 +401,6 @@ def test_a_finite_volume_metric_read_between_output_times_is_cross_checked(monke
     c_ref = laplace_reference(col, [depth], [t_cross], dps=20)[0, 0]
     assert abs(c_ref - level) <= 2 * limit
 
-    real = engines.own_errors
-    monkeypatch.setattr(engines, "own_errors",
-                        lambda s: {k: 1e12 * v for k, v in real(s).items()})
+    inflate_own_errors(engines, 1e12)
     with pytest.raises(UnreliableResultError, match="first exceedance at 0.3 m"):
         receptor_metrics(sol, depth, level)
