@@ -103,3 +103,38 @@ def test_upward_flow_budget_measured_against_what_passed():
     for got, want in ((sol.cumulative_mass, ref.cumulative_mass),
                       (sol.budget["stored"], ref.budget["stored"])):
         np.testing.assert_allclose(got, want, rtol=0, atol=TOL * passed)
+
+
+def test_probe_times_let_a_stage_restart_before_its_first_output_time(monkeypatch):
+    """A source removed at 2 yr from a column at Peclet number 100 with a thin slow
+    layer, output times 20 to 100 yr only, solved through the hand-over path itself (the
+    timeline as written, not merged into a scheduled top). The stage's first output time
+    already misses the restart share, so output times alone offer no restart: its own
+    bound of C reaches 2e-7 of the source (measured with PROBES = 0). With probe times
+    it restarts between the removal and 20 yr, its own bounds of C and of the
+    cumulative mass meet the tolerance at every output time, and the values are within
+    those bounds of the mpmath reference of the column with a step-off top."""
+    layers = (Layer(0.6, 0.3, 8e-10, 2.0), Layer(0.05, 0.45, 1e-11, 5.0, 1e-9),
+              Layer(1.35, 0.25, 1e-9, 1.5))
+    q = 100 * 3e-10 / 2.0
+    removal = 2.0 * YEAR
+    col = Column(layers, Boundary("concentration", 1.0), Boundary("free-outflow"), q)
+    tl = Timeline.single(col).then(removal, remove_source())
+    times, depths = np.array([20.0, 40.0, 60.0, 100.0]) * YEAR, np.array([0.3, 1.0])
+
+    def solve(probes):
+        monkeypatch.setattr(staged, "PROBES", probes)
+        return staged.solve_staged_laplace(tl, times, depths, None, TOL, 1.0, local_column)
+    probes = staged.PROBES
+    without = solve(0)
+    assert without[1]["concentration"].max() > 10 * TOL
+    vals, own, _, state, _ = solve(probes)
+    starts = [st.start for st in state.timeline.stages]
+    assert len(starts) == 3 and removal < starts[2] < times[0]  # restarted at a probe
+    assert np.all(own["concentration"] <= TOL) and np.all(own["cumulative_mass"] <= TOL)
+    step = Boundary("concentration", 0.0, schedule=Schedule.steps([0.0, removal], [1.0, 0.0]))
+    ref = laplace_reference_full(Column(layers, step, Boundary("free-outflow"), q), depths,
+                                 times, dps=20)
+    for name in ("concentration", "cumulative_mass"):
+        err = np.abs(vals[name] - getattr(ref, name)).max(axis=1)
+        assert np.all(err <= own[name]), name

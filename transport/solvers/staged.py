@@ -34,6 +34,9 @@ START_SAMPLES, MAX_SAMPLES = 16, 20000
 #: Rounds of restarts (see :func:`solve_staged_laplace`), and the share of the tolerance
 #: above which a stage's own inversion error at a late output time asks for one.
 RESTART_ROUNDS, RESTART_SHARE = 3, 0.1
+#: Probe times per stage (its span halved that many times toward its start) added as
+#: restart candidates where a run's output times leave some unvouched for.
+PROBES = 6
 
 
 def _stage_times(stages, times):
@@ -283,27 +286,67 @@ def solve_staged_laplace(timeline, times, depths, initial, tolerance, scale, loc
     stage is handed over to itself at the latest such time (the same column, a fresh
     hand-over, no mass removed) and the run is solved again, up to RESTART_ROUNDS times
     while the number of such output times falls (else the run before the last round
-    serves).
+    serves).  Where output times still miss it, the rounds are run again with probe
+    times between them (:func:`_probe_times`), so that a stage whose first output time
+    is already missed can restart earlier; that run serves (read at the output times)
+    where it leaves fewer output times missing it.
     """
-    stages, virtual = tuple(timeline.stages), frozenset()
     times = np.asarray(times, float)
     initial = initial or InitialState.clean()
-    best, memo = None, {}
+    memo = {}
+    args = (type(timeline), depths, initial, tolerance, scale, local_column, memo)
+    rows = np.arange(times.size)
+    out, n_bad = _restart_rounds(timeline.stages, times, rows, *args)
+    if n_bad and PROBES:
+        # restart candidates between the output times too: kept where they leave fewer
+        # output times missing the share
+        grid = np.union1d(times, _probe_times(timeline.stages, times))
+        rows = np.searchsorted(grid, times)
+        alt, alt_bad = _restart_rounds(timeline.stages, grid, rows, *args)
+        if alt_bad < n_bad:
+            vals, own, budget, state, inversion = alt
+            out = ({q: v[rows] for q, v in vals.items()}, {q: v[rows] for q, v in own.items()},
+                   {k: v[rows] for k, v in budget.items()}, state,
+                   {q: v[rows] for q, v in inversion.items()})
+    return out
+
+
+def _restart_rounds(stages, grid, rows, kind, depths, initial, tolerance, scale,
+                    local_column, memo):
+    """The rounds of restarts of :func:`solve_staged_laplace` on the times ``grid``
+    (restart candidates), counting the misses at ``grid[rows]`` (the output times):
+    (outputs on the grid, misses)."""
+    stages, virtual = tuple(stages), frozenset()
+    best = None
     for _ in range(RESTART_ROUNDS + 1):
-        out = _solve_stages(type(timeline)(stages), virtual, times, depths, initial,
-                            tolerance, scale, local_column, memo)
-        more, n_bad = _restarts(stages, times, out, tolerance, scale)
+        out = _solve_stages(kind(stages), virtual, grid, depths, initial, tolerance, scale,
+                            local_column, memo)
+        more, bad = _restarts(stages, grid, out, tolerance, scale)
+        n_bad = int(np.count_nonzero(bad[rows]))
         if best is not None and n_bad >= best[1]:
-            return best[0]  # the restarts did not help: the run without them
+            break  # the restarts did not help: the run without them
         best = (out, n_bad)
-        if not more:
-            return out
+        if not more or not n_bad:
+            break
         stages, virtual = _with_restarts(stages, virtual, more)
-    return best[0]
+    return best
+
+
+def _probe_times(stages, times):
+    """Per stage, its span up to the last output time (or its end) halved PROBES times
+    toward its start: times at which a stage whose first output time its inversion
+    misses can be restarted (``times``: the output times)."""
+    end = float(np.max(times))
+    out = []
+    for i, st in enumerate(stages):
+        stop = min(stages[i + 1].start if i + 1 < len(stages) else end, end)
+        if stop > st.start:
+            out.append(st.start + (stop - st.start) * 0.5 ** np.arange(1, PROBES + 1))
+    return np.concatenate(out) if out else np.empty(0)
 
 
 def _restarts(stages, times, out, tolerance, scale):
-    """({stage index: restart time}, number of output times missing it) where a stage's
+    """({stage index: restart time}, which of ``times`` miss it) where a stage's
     inversion misses RESTART_SHARE of the tolerance at an output time after one where it
     met it."""
     budget, inversion = out[2], out[4]
@@ -318,7 +361,7 @@ def _restarts(stages, times, out, tolerance, scale):
         first = np.flatnonzero(bad[own])
         if first.size and first[0] > 0:
             more[int(i)] = float(times[own[first[0] - 1]])
-    return more, int(np.count_nonzero(bad))
+    return more, bad
 
 
 def _with_restarts(stages, virtual, more):
