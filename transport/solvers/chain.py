@@ -16,7 +16,7 @@ from transport.solvers.checks import (QUANTITIES, Bounds, UnreliableResultError,
                                       budget_onto_bounds, choose, clip_to_bounds,
                                       concentration_bounds, describe_refusal, own_errors,
                                       quantities)
-from transport.solvers.engines import checked_fields
+from transport.solvers.engines import checked_fields, own_bound_at
 from transport.solvers.laplace.chain import solve_chain_laplace
 from transport.solvers.modal.sizing import DEFAULT_TOLERANCE
 from transport.solvers.result import Solution, checked_arithmetic
@@ -94,20 +94,9 @@ def _evaluator(chain, initials, j):
         t = np.atleast_1d(np.asarray(t, float))
         sol = solve_chain_laplace(chain, t, [float(depth)], initials=initials)[j]
         return np.asarray(sol.concentration[:, 0], float)
-
-    def bound(depth, t):
-        """The Laplace engine's own error bound of C (kg m-3) of species j at each of
-        ``t``, as the run's check reads it at its output times (0 at t <= 0: the
-        initial state itself)."""
-        t = np.atleast_1d(np.asarray(t, float))
-        out = np.zeros(t.size)
-        pos = t > 0
-        if pos.any():
-            sol = solve_chain_laplace(chain, t[pos], [float(depth)], initials=initials)[j]
-            e = np.asarray(own_errors(sol)["concentration"], float)
-            out[pos] = np.where(np.isnan(e), np.inf, e)
-        return out
-    at.laplace_bound = bound
+    # the Laplace engine's own bound of species j's C, as the run's check reads it
+    at.laplace_bound = lambda depth, t: own_bound_at(t, lambda s: solve_chain_laplace(
+        chain, s, [float(depth)], initials=initials)[j])
     return at
 
 

@@ -42,7 +42,7 @@ from transport.solvers.result import Solution, checked_arithmetic
 
 __all__ = ["solve_column", "ENGINES", "ON_UNRELIABLE", "modal_evaluator", "checked_fields",
            "DEFAULT_TOLERANCE", "FV_TOLERANCE", "CostEstimate", "estimate_costs",
-           "COSTLIER_BY", "COST_FLOOR", "laplace_cost", "modal_cost", "READS"]
+           "COSTLIER_BY", "COST_FLOOR", "laplace_cost", "modal_cost", "READS", "own_bound_at"]
 
 ENGINES = ("auto", "modal", "laplace", "finite-volume")
 ON_UNRELIABLE = ("raise", "flag")
@@ -210,20 +210,24 @@ def _laplace_evaluator(column, initial, semi_infinite_bottom, enough=None):
             out[~pos] = initial_profile(column, initial, np.array([depth]))[0]
         return out
 
-    def bound(depth, t):
-        """The Laplace engine's own error bound of C (kg m-3) at each of ``t``, as
-        :func:`transport.solvers.checks.own_errors` reads it (0 at t <= 0: the initial
-        state itself)."""
-        t = np.atleast_1d(np.asarray(t, dtype=float))
-        out = np.zeros(t.size)
-        pos = t > 0
-        if pos.any():
-            lap = solve_laplace(column, t[pos], [depth], initial=initial,
-                                semi_infinite_bottom=semi_infinite_bottom, enough=enough)
-            out[pos] = own_errors(lap)["concentration"]
-        return out
-    at.laplace_bound = bound
+    at.laplace_bound = lambda depth, t: own_bound_at(t, lambda s: solve_laplace(
+        column, s, [depth], initial=initial, semi_infinite_bottom=semi_infinite_bottom,
+        enough=enough))
     return at
+
+
+def own_bound_at(t, solve) -> np.ndarray:
+    """The Laplace engine's own error bound of C (kg m-3) at each of ``t``, as
+    :func:`transport.solvers.checks.own_errors` reads it from ``solve(positive times)``
+    (a solution at one depth); 0 at t <= 0 (the initial state itself), infinite where it
+    gives none (not vouched for)."""
+    t = np.atleast_1d(np.asarray(t, dtype=float))
+    out = np.zeros(t.size)
+    pos = t > 0
+    if pos.any():
+        e = np.asarray(own_errors(solve(t[pos]))["concentration"], float)
+        out[pos] = np.where(np.isnan(e), np.inf, e)
+    return out
 
 
 def _cross_checked(served_at, laplace_at):

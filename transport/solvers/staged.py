@@ -183,11 +183,10 @@ class StagedLaplace:
     mass_errors: tuple  # mass bound carried into each stage (kg m-2)
 
     def concentration_at(self, depth, times):
+        """C (kg m-3) at one depth for any times (also as the run's evaluator, called)."""
         return self._read(depth, times, bound=False)
 
-    def __call__(self, depth, times):
-        """C (kg m-3) at one depth for any times: the evaluator of a staged run."""
-        return self._read(depth, times, bound=False)
+    __call__ = concentration_at
 
     def laplace_bound(self, depth, times):
         """The error bound of C (kg m-3) at one depth and any times, as the run's own
