@@ -129,7 +129,8 @@ def test_a_chain_metric_read_on_the_laplace_curve_is_vouched_by_its_own_bound(
     its 10 yr value at 0.65 m comes earlier, where the run reads the Laplace engine's
     curve. That engine's own bound there is within the tolerance times the species'
     scale of C, and C there equals the matrix-exponential reference
-    (tests/reference_chain.py) within 2 x that limit. With the bounds made 1e9 x larger
+    (tests/reference_chain.py: the Laplace-domain system by mpmath's matrix exponential,
+    inverted by Talbot's rule, Talbot 1979; Abate & Valko 2004) within 2 x that limit. With the bounds made 1e9 x larger
     after the solve, the metric is refused, naming it."""
     from transport.analysis.metrics import receptor_metrics
     from transport.solvers import chain as chain_solver
