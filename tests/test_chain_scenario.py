@@ -140,6 +140,43 @@ def test_run_writes_every_species_and_they_equal_the_engine(demo_run):
     assert "CAUTION" in text
 
 
+def test_allow_unreliable_leaves_out_each_species_metrics_it_cannot_vouch_for(
+        tmp_path, monkeypatch):
+    """A chain's receptor curves are the Laplace engine's, so a crossing or peak read
+    between output times is vouched for by its own bound. With that bound made 1e9 x
+    larger where a metric is read (the output times are vouched for as before), a plain
+    run is refused (exit 3, no file); with --allow-unreliable the file is written with
+    every species' fields equal to the chain engine's (as the test above) and no
+    receptor metric, and the summary and the ``receptor_metrics`` attribute name each
+    species left out."""
+    from transport.solvers import engines
+
+    path = tmp_path / "chain.toml"
+    path.write_text(_text(more='receptor_depth = "1 m"\nscreening_level = "5 ug/L"'),
+                    encoding="utf-8")
+    real = engines.own_bound_at
+    monkeypatch.setattr(engines, "own_bound_at", lambda t, solve: 1e9 * real(t, solve))
+    res = CliRunner().invoke(main, ["run", str(path), "-o", str(tmp_path / "no.nc")])
+    assert res.exit_code == 3, res.output
+    assert not (tmp_path / "no.nc").exists()
+    out = tmp_path / "chain.nc"
+    res = CliRunner().invoke(main, ["run", str(path), "-o", str(out), "--allow-unreliable"])
+    assert res.exit_code == 0, res.output
+    text = " ".join(res.output.split())
+    sc = load_scenario(path)
+    ref = solve_chain_laplace(sc.chain, sc.times, sc.depths,
+                              initials=(sc.initial, InitialState.clean()))
+    with xr.open_dataset(out, decode_times=False) as ds:
+        note = ds.attrs["receptor_metrics"]
+        assert "peak_concentration" not in ds
+        for j, (name, sol) in enumerate(zip(sc.chain.names, ref)):
+            assert f"{name}: not reported: the" in note
+            np.testing.assert_allclose(ds["concentration"].isel(species=j).values,
+                                       sol.concentration, rtol=0,
+                                       atol=1e-8 * np.abs(sol.concentration).max())
+    assert text.count("CAUTION: receptor metrics not reported") == 2
+
+
 def test_chain_file_passes_the_cf_checker(demo_run):
     report = run_cf_checker(demo_run[0])
     assert failed_items(report, "high") == []

@@ -169,6 +169,48 @@ def test_run_refuses_missing_output_directory(slab, tmp_path):
     assert_clean_failure(result, "does not exist")
 
 
+def test_allow_unreliable_leaves_out_a_metric_no_engine_vouches_for(tmp_path, monkeypatch):
+    """The slab read from 5 yr: the crossing of the level (Crank 1975, eq. 2.45
+    inverted: 2.93 yr) lies before the earliest output time, where the Laplace engine
+    serves the curve and its own bound vouches for what is read there. With that bound
+    made 1e9 x larger (as read at the metric's time only; the output times are vouched
+    for as before), a plain run is refused (exit 3, no file); with --allow-unreliable
+    the fields are written, within the tolerance 1e-8 of the 100 mg/L scale of Crank's
+    erfc solution (the far face changes it by less than erfc(7.7) ~ 1e-27 up to 8 yr),
+    and no receptor metric is: the summary and the file's ``receptor_metrics``
+    attribute say why (the first exceedance at 0.5 m)."""
+    from transport.solvers import engines
+
+    scenario = tmp_path / "late.toml"
+    scenario.write_text(SLAB.replace('start = "0.1 yr", stop = "5 yr", count = 6',
+                                     'start = "5 yr", stop = "8 yr", count = 4'),
+                        encoding="utf-8")
+    real = engines.own_bound_at
+    monkeypatch.setattr(engines, "own_bound_at", lambda t, solve: 1e9 * real(t, solve))
+    refused = invoke("run", scenario, "-o", tmp_path / "refused.nc")
+    assert refused.exit_code == 3, refused.output
+    assert "first exceedance at 0.5 m" in " ".join(refused.output.split())
+    assert not (tmp_path / "refused.nc").exists()
+
+    out = tmp_path / "late.nc"
+    result = invoke("run", scenario, "-o", out, "--allow-unreliable")
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.output.split())
+    assert "CAUTION: receptor metrics not reported: the first exceedance at 0.5 m" in text
+    assert "first reached" not in text and "stays below" not in text
+    ds = read_column_netcdf(out)
+    assert "first exceedance at 0.5 m" in ds.attrs["receptor_metrics"]
+    assert "first_exceedance_time" not in ds and "peak_concentration" not in ds
+    assert bool(ds["reliable"].all())
+    t = elapsed_seconds(ds)
+    z = ds["depth"].values
+    j = int(np.argmin(np.abs(z - SLAB_Z)))
+    assert z[j] == pytest.approx(SLAB_Z, abs=1e-12)
+    want = SLAB_C0 * erfc(SLAB_Z / np.sqrt(4 * SLAB_D / SLAB_R * t))
+    got = ds["concentration"].values[:, j]
+    assert np.max(np.abs(got - want)) <= 1e-8 * SLAB_C0
+
+
 # -------------------------------------------------------------------- metric functions
 def test_first_crossing_inverts_crank_erfc():
     """first_exceedance on eq. 2.45 returns the closed-form time to 1e-9 (relative)."""

@@ -11,12 +11,13 @@ from pathlib import Path
 
 import click
 
+from transport.analysis.summary import run_views, summary_lines
 from transport.api import solve_scenario
 from transport.io.atomic import OutputSet
 from transport.solvers.checks import UnreliableResultError
 
 __all__ = ["EXIT_INPUT", "EXIT_REFUSED", "UserError", "Refused", "describe", "fail",
-           "progress", "echo_wrapped", "setting", "solve", "write_plots"]
+           "progress", "echo_wrapped", "setting", "solve", "read_receptor", "write_plots"]
 
 EXIT_INPUT = 2
 EXIT_REFUSED = 3
@@ -123,6 +124,33 @@ def solve(scenario, depths=None, engine="auto", tolerance=None, allow_unreliable
     for message in caught:
         click.echo(textwrap.fill(f"Warning: {message}", width=WIDTH), err=True)
     return solution
+
+
+def read_receptor(solution, receptor_depth, screening_level, design_life, *, title: str,
+                  allow_unreliable=False, start_date=None):
+    """The receptor reading of a run and its printed summary: (views, lines, note).
+
+    ``views``: :func:`transport.analysis.summary.run_views`; ``lines``:
+    :func:`transport.analysis.summary.summary_lines`.  A metric read where no engine's
+    bound vouches for it refuses the run (:class:`Refused`, nothing written) unless
+    ``allow_unreliable``: then no receptor metric is reported (``views`` None), the
+    summary says so under its title line, and ``note`` holds the reason (for the file's
+    ``receptor_metrics`` attribute); the fields at the output times are written as
+    vouched for. ``note`` is None when the metrics are reported."""
+    try:
+        views = run_views(solution, receptor_depth, screening_level, design_life)
+    except UnreliableResultError as exc:
+        if not allow_unreliable:
+            raise
+        note = (f"not reported: {exc}. The output times were vouched for and their "
+                "values are written; no breakthrough, peak, time above the level or "
+                "mass is given for this run.")
+        lines = summary_lines(solution, title=title, design_life=design_life,
+                              start_date=start_date)
+        return None, lines[:1] + [f"CAUTION: receptor metrics {note}"] + lines[1:], note
+    return views, summary_lines(solution, title=title, receptor_depth=receptor_depth,
+                                screening_level=screening_level, design_life=design_life,
+                                views=views, start_date=start_date), None
 
 
 def write_plots(source, out_dir, stem, *, receptor_depth, screening_level, title,

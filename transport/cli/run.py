@@ -7,10 +7,9 @@ from pathlib import Path
 
 import click
 
-from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
-from transport.cli.common import (UserError, echo_wrapped, progress, setting, solve,
-                                  write_plots)
+from transport.cli.common import (UserError, echo_wrapped, progress, read_receptor, setting,
+                                  solve, write_plots)
 from transport.io.atomic import OutputSet, terminate_as_exit
 from transport.io.netcdf_file import write_column_netcdf
 from transport.scenario.schema import load_scenario
@@ -42,7 +41,8 @@ def _total_porosity(sc, solution):
                    "[output] tolerance, 1e-8 unless set).")
 @click.option("--allow-unreliable", is_flag=True,
               help="Write the times the engines can vouch for and leave the others empty "
-                   "(NaN, flagged) instead of refusing the run.")
+                   "(NaN, flagged) instead of refusing the run; receptor metrics that "
+                   "cannot be vouched for are left out, with the reason.")
 def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     """Solve SCENARIO, write a CF NetCDF file and print a summary.
 
@@ -85,10 +85,9 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
     receptor, level = setting(sc, "receptor_depth"), setting(sc, "screening_level")
     # the reading of the run comes first: a failure there must not cost an old file
     design_life = setting(sc, "design_life")
-    views = run_views(solution, receptor, level, design_life)  # printed and written
-    lines = summary_lines(solution, title=sc.title, receptor_depth=receptor,
-                          screening_level=level, design_life=design_life, views=views,
-                          start_date=setting(sc, "start_date"))
+    views, lines, note = read_receptor(solution, receptor, level, design_life,
+                                       title=sc.title, allow_unreliable=allow_unreliable,
+                                       start_date=setting(sc, "start_date"))
     progress(3, total, f"writing {output}")
     command = ["stratiflux", "run", str(scenario), "-o", str(output), "--engine", engine]
     if tolerance is not None:
@@ -105,7 +104,7 @@ def run(scenario, output, plots_dir, engine, tolerance, allow_unreliable):
                             screening_level=level, receptor_depth=receptor,
                             history=shlex.join(command), stage=stage,
                             porosity=_total_porosity(sc, solution), metrics=views,
-                            start_date=setting(sc, "start_date"))
+                            start_date=setting(sc, "start_date"), metrics_note=note)
         if plots_dir:
             progress(4, total, f"drawing figures in {plots_dir}")
             figures = write_plots(solution, plots_dir, Path(output).stem,

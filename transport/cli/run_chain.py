@@ -10,9 +10,9 @@ from pathlib import Path
 import click
 import numpy as np
 
-from transport.analysis.summary import run_views, summary_lines
 from transport.caution import CAUTION
-from transport.cli.common import echo_wrapped, progress, setting, solve, write_plots
+from transport.cli.common import (echo_wrapped, progress, read_receptor, setting, solve,
+                                  write_plots)
 from transport.io.atomic import OutputSet, terminate_as_exit
 from transport.io.netcdf_chain import write_chain_netcdf
 
@@ -56,13 +56,14 @@ def run_chain(sc, scenario, output, plots_dir, engine, tolerance, allow_unreliab
     receptor = setting(sc, "receptor_depth")
     design_life = setting(sc, "design_life")
     levels = (setting(sc, "screening_level"),) + tuple(sc.chain_levels)
-    views, lines = [], []
+    views, lines, notes = [], [], []
     for name, sol, level in zip(names, solutions, levels):
-        v = run_views(sol, receptor, level, design_life)
+        v, species_lines, note = read_receptor(
+            sol, receptor, level, design_life, title=f"{sc.title}; species {name}",
+            allow_unreliable=allow_unreliable, start_date=setting(sc, "start_date"))
         views.append(v)
-        lines += summary_lines(sol, title=f"{sc.title}; species {name}", receptor_depth=receptor,
-                               screening_level=level, design_life=design_life, views=v,
-                               start_date=setting(sc, "start_date"))
+        notes.append(note)
+        lines += species_lines
         if level is None and receptor is not None:
             lines.append(f"No screening level given for {name}: add screening_level to its "
                          "[[chain]] table to read its receptor curve against one.")
@@ -71,7 +72,7 @@ def run_chain(sc, scenario, output, plots_dir, engine, tolerance, allow_unreliab
     with terminate_as_exit(), OutputSet() as stage:
         write_chain_netcdf(solutions, names, output, stage=stage, title=sc.title,
                            yields=sc.chain.yields, screening_levels=levels,
-                           receptor_depth=receptor, metrics=views,
+                           receptor_depth=receptor, metrics=views, metrics_notes=notes,
                            scenario_text=getattr(sc, "source_text", None),
                            history=shlex.join(command), start_date=setting(sc, "start_date"))
         figures = []

@@ -22,10 +22,13 @@ SHARED = ("depth_bnds", "layer_name", "layer_top", "layer_bottom", "water_conten
 
 
 def chain_dataset(solutions, names, *, title: str, yields, screening_levels=None,
-                  receptor_depth=None, metrics=None, **kwargs) -> xr.Dataset:
+                  receptor_depth=None, metrics=None, metrics_notes=None,
+                  **kwargs) -> xr.Dataset:
     """The CF dataset of a chain run: ``solutions`` and ``names`` parent first,
-    ``yields`` (kg/kg, 0 for the parent), ``screening_levels`` and ``metrics`` one per
-    species (None where absent); other keywords as :func:`column_dataset`."""
+    ``yields`` (kg/kg, 0 for the parent), ``screening_levels``, ``metrics`` and
+    ``metrics_notes`` (why a species' metrics are not written: the global attribute
+    ``receptor_metrics``) one per species (None where absent); other keywords as
+    :func:`column_dataset`."""
     n = len(solutions)
     levels = list(screening_levels or [None] * n)
     views = list(metrics or [None] * n)
@@ -62,6 +65,9 @@ def chain_dataset(solutions, names, *, title: str, yields, screening_levels=None
                                "decay (variable decay_yield); its mass budget counts that "
                                "gain as produced.")
     joined.attrs["decay_chain"] = chain_text
+    notes = [f"{name}: {note}" for name, note in zip(names, metrics_notes or ()) if note]
+    if notes:
+        joined.attrs["receptor_metrics"] = " ".join(notes)
     return joined
 
 

@@ -103,7 +103,7 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
                         screening_level: float | None = None,
                         receptor_depth: float | None = None,
                         history: str | None = None, stage=None, porosity=None,
-                        metrics=None, start_date=None) -> str:
+                        metrics=None, start_date=None, metrics_note=None) -> str:
     """Write one column run to a CF-1.11 NetCDF file, atomically.
 
     The file goes to a temporary name in the same directory and is renamed over
@@ -113,7 +113,9 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
     is left untouched.
 
     See :func:`transport.io.netcdf_layout.column_layout` for the parameters and the
-    layout. Returns the path.
+    layout; ``metrics_note``: why no receptor metric is written (the global attribute
+    ``receptor_metrics``; ``run --allow-unreliable`` where a metric cannot be vouched
+    for). Returns the path.
 
     Examples
     --------
@@ -123,6 +125,8 @@ def write_column_netcdf(solution, path, *, title: str, scenario_text: str | None
                            screening_level=screening_level, receptor_depth=receptor_depth,
                            history=history, porosity=porosity, metrics=metrics,
                            start_date=start_date)
+    if metrics_note:
+        layout.attrs["receptor_metrics"] = str(metrics_note)
     path = os.fspath(path)
     directory = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(directory):  # name the directory the user asked for
