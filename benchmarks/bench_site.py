@@ -261,6 +261,8 @@ def measure_memory(n: int, chunk: int, work: Path) -> dict:
 #: run inside the ones above them, so their times overlap.
 PHASES = (
     ("transport.site.chunks", "solve_boring", "a boring's column (its eigen-solve below)"),
+    ("transport.site.chunks", "stays_below",
+     "a realization below the level (Laplace alone)"),
     ("transport.site.chunks", "shared_modes", "eigen-solves (realizations, then the column)"),
     ("transport.site.chunks", "required_modes", "  mode counts"),
     ("transport.site.chunks", "eigenvalues_many", "  eigenvalues"),

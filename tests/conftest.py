@@ -24,3 +24,14 @@ def inflate_own_errors(monkeypatch):
         monkeypatch.setattr(module, "own_errors",
                             lambda s: {k: factor * v for k, v in real(s).items()})
     return inflate
+
+
+@pytest.fixture
+def modal_read(monkeypatch):
+    """A Monte Carlo column read on its modal curve even where its curve cannot fall and
+    ends below the level (the Laplace-alone reading of
+    :func:`transport.site.laplace_checks.stays_below` turned off): for the tests of the
+    modal scan and its checks."""
+    from transport.site import boring
+
+    monkeypatch.setattr(boring, "stays_below", lambda *args, **kwargs: None)

@@ -116,7 +116,7 @@ def _yard(q):
                   darcy_flux=q / YEAR)
 
 
-def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch):
+def test_a_rising_realization_skips_the_early_laplace_scan(monkeypatch, modal_read):
     """A plume that has not arrived by the end of the design life (q = 0.2 m/yr): the
     early modal samples are far below the level but not below half the later ones, so
     a column that might fall needs the Laplace engine for them; a rising one does not
@@ -185,3 +185,67 @@ def test_rising_realizations_match_the_reference(name):
     assert abs(ref[0] - level) <= 2 * tol * C0
     assert abs(pk - at_life) <= 2 * tol * C0
     assert ref[1:].max() <= pk + 2 * tol * C0
+
+
+@pytest.mark.parametrize("name", ["diffusion", "downward Pe ~300"])
+def test_a_rising_realization_below_the_level_is_read_on_the_laplace_engine_alone(
+        name, monkeypatch):
+    """A rising column whose curve ends below the level (the level at twice C(50 yr)),
+    its C bounded by the data (the source concentration):
+    no breakthrough, and the peak is C(50 yr) of the mpmath reference within twice the
+    tolerance, read without modes or a series: the Laplace engine is asked once, at the
+    end of the life. The modal curve read in full (the shortcut turned off) agrees
+    within twice the tolerance."""
+    col, tol, life = REGIMES[name], 1e-8, 50 * YEAR
+    depth = 0.4 if col.darcy_flux < 0 else 1.6
+    times = np.geomspace(0.5, 100.0, 25) * YEAR
+    at_life = laplace_reference(col, [depth], [life], dps=20)[0, 0]
+    site = SimpleNamespace(tolerance=tol, design_life=life, screening_level=2 * at_life)
+    asked = []
+    real_lone = site_checks.laplace_lone_times
+
+    def counting_lone(col_, t, z, **kw):
+        asked.append(np.atleast_1d(t).tolist())
+        return real_lone(col_, t, z, **kw)
+
+    def no_series(*args, **kwargs):
+        raise AssertionError("a modal series was built")
+    monkeypatch.setattr(site_checks, "laplace_lone_times", counting_lone)
+    monkeypatch.setattr(site_boring, "site_series", no_series)
+    bt, pk, notes = realization_metrics(site, col, depth, times[0], times)
+    assert math.isnan(bt) and notes == ()
+    assert asked == [[life]]
+    assert abs(pk - at_life) <= 2 * tol * C0
+    assert at_life > 1e-3 * tol * C0  # a peak to see
+    monkeypatch.undo()
+    monkeypatch.setattr(site_boring, "stays_below", lambda *args, **kwargs: None)
+    bt_modal, pk_modal, _ = realization_metrics(site, col, depth, times[0], times)
+    assert math.isnan(bt_modal) and abs(pk_modal - pk) <= 2 * tol * C0
+
+
+def test_the_laplace_alone_reading_declines_what_it_cannot_settle(monkeypatch):
+    """:func:`stays_below` reads only a curve that cannot fall and ends below the level
+    by more than the Laplace engine's own bound there; it declines (None: the curve is
+    then read in full) a level below C(50 yr) (a crossing to find), a level at the
+    Laplace value itself, a source switched off at 5 yr (the curve may fall), a column
+    whose data bound no scale of C (``concentration_bounds`` gives none for upward
+    flow against a sealed top) and a Laplace bound above the tolerance times the scale (made so after
+    the solve). The one it reads is C(50 yr) of the mpmath reference within twice the
+    tolerance."""
+    col, tol, life, depth = REGIMES["diffusion"], 1e-8, 50 * YEAR, 1.6
+    t0 = 0.5 * YEAR
+    at_life = laplace_reference(col, [depth], [life], dps=20)[0, 0]
+    read = site_checks.stays_below(col, None, depth, t0, life, 2 * at_life, tol)
+    assert math.isnan(read[0]) and abs(read[1] - at_life) <= 2 * tol * C0
+    assert site_checks.stays_below(col, None, depth, t0, life, 0.5 * at_life, tol) is None
+    c, e = site_checks.laplace_lone_times(col, [life], depth)
+    assert site_checks.stays_below(col, None, depth, t0, life, float(c[0]), tol) is None
+    off = Column(col.layers, Boundary("concentration", C0, schedule=Schedule.steps(
+        [0.0, 5 * YEAR], [1.0, 0.0])), col.bottom, col.darcy_flux)
+    assert site_checks.stays_below(off, None, depth, t0, life, 2 * at_life, tol) is None
+    assert site_checks.stays_below(REGIMES["upward, sealed top"], None, 0.4, t0, life,
+                                   2 * at_life, tol) is None
+    real_lone = site_checks.laplace_lone_times
+    monkeypatch.setattr(site_checks, "laplace_lone_times", lambda *a, **k: (
+        real_lone(*a, **k)[0], np.full(1, 2 * tol * C0)))
+    assert site_checks.stays_below(col, None, depth, t0, life, 2 * at_life, tol) is None

@@ -29,7 +29,8 @@ from transport.model.column import InitialState
 from transport.site.curves import (SCAN_SAMPLES, TIME_RTOL, curve_metrics, scan_times,
                                    with_early_window)
 from transport.site.laplace_checks import (early_metrics, laplace_curve, laplace_largest,
-                                           onto_bounds, verified_metrics, vouch_read_times)
+                                           onto_bounds, stays_below, verified_metrics,
+                                           vouch_read_times)
 from transport.units import YEAR
 from transport.solvers.checks import (QUANTITIES, UnreliableResultError, choose,
                                       clip_to_bounds, concentration_bounds,
@@ -421,7 +422,9 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
                         series=None):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 
-    The receptor curve is the modal series from the scan sample on which its rounding
+    A curve that cannot fall and ends below the level is read on the Laplace engine
+    alone (:func:`transport.site.laplace_checks.stays_below`: not reached, its end
+    value). Otherwise the receptor curve is the modal series from the scan sample on which its rounding
     bound stays within the tolerance, the Laplace engine before it (an advective
     column's modal sum cancels to rounding early: a spurious 'peak' of 1e-6 of the
     scale at the first sample of a plume that never arrives), not asked where the modal
@@ -435,6 +438,10 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     ``series``: the column's series built with the boring's other columns
     (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers)."""
     initial = initial or InitialState.clean()
+    fast = stays_below(col, initial, depth, t_start, site.design_life, site.screening_level,
+                       site.tolerance)
+    if fast is not None:  # a curve that cannot fall, below the level at its end
+        return fast + ((),)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         if series is None:

@@ -26,6 +26,7 @@ from threadpoolctl import threadpool_limits
 from transport.scenario.reader import ScenarioError
 from transport.model.column import InputError
 from transport.site.boring import MAX_MODES, realization_metrics, solve_boring
+from transport.site.laplace_checks import stays_below
 from transport.site.columns import boring_column, check_draws, material_layers
 from transport.site.uncertainty import sample_matrix
 from transport.solvers.checks import UnreliableResultError
@@ -261,6 +262,15 @@ def _solve_chunk(site, start, stop, samples):
         cols = [boring_column(site, boring, layers_j, q_j) for layers_j, q_j in drawn]
         keys = [(col_j, boring.receptor_depth, boring.initial) for col_j in cols]
         found_all = [_METRICS_CACHE.get(key) for key in keys]
+        # a curve that cannot fall and ends below the level: the Laplace engine alone
+        # (as realization_metrics reads it), without modes or a series
+        for j, f in enumerate(found_all):
+            if f is None:
+                fast = stays_below(cols[j], initial, boring.receptor_depth, t_start,
+                                   site.design_life, site.screening_level, site.tolerance)
+                if fast is not None:
+                    found_all[j] = fast + ((),)
+                    _METRICS_CACHE.put(keys[j], found_all[j])
         todo = [j for j, f in enumerate(found_all) if f is None]
         known = dict(zip(todo, shared_modes([cols[j] for j in todo], times,
                                             site.tolerance, compiled_modes=True)))

@@ -6,7 +6,8 @@ before the earliest output time read on its curve.
 :func:`early_metrics` reads the window from the release (time 0) to the earliest output
 time, where the modal series is not sized, on the Laplace engine's curve
 (:func:`transport.site.curves.with_early_window`). Both refuse a column whose metrics
-neither engine can vouch for within the tolerance.
+neither engine can vouch for within the tolerance. :func:`stays_below` reads, on the
+Laplace engine alone, a column whose curve cannot fall and ends below the level.
 """
 from __future__ import annotations
 
@@ -16,12 +17,14 @@ import numpy as np
 
 from transport.analysis.metrics import refuse_unvouched
 from transport.site.curves import SCAN_SAMPLES, curve_metrics, with_early_window
-from transport.solvers.checks import UnreliableResultError, clip_to_bounds, good_enough
+from transport.solvers.checks import (UnreliableResultError, clip_to_bounds,
+                                      concentration_bounds, good_enough)
 from transport.solvers.laplace.engine import laplace_concentration, laplace_lone_times
 from transport.solvers.modal.projection import initial_profile
+from transport.solvers.monotone import nondecreasing_in_time
 
 __all__ = ["laplace_curve", "verified_metrics", "early_metrics", "laplace_largest",
-           "onto_bounds", "vouch_read_times"]
+           "onto_bounds", "vouch_read_times", "stays_below"]
 
 
 def laplace_curve(col, depth, initial, enough):
@@ -142,3 +145,33 @@ def onto_bounds(col, bounds, depth, values, error) -> list:
     v = np.asarray(values, dtype=float)[:, None]
     return [float(c) for c in clip_to_bounds(col, bounds, [depth], v,
                                              np.full(v.shape[0], float(error)))[:, 0]]
+
+
+def stays_below(col, initial, depth, t_start, t_end, level, tol):
+    """(NaN, peak concentration) of a Monte Carlo column whose receptor curve cannot
+    fall (:func:`transport.solvers.monotone.nondecreasing_in_time`) and is below the
+    screening ``level`` at the end of the window, read on the Laplace engine alone;
+    None for any other column (its curve is then read in full).
+
+    A curve that cannot fall peaks at the window's end ``t_end`` and stays below the
+    level before it when it is below there: its breakthrough is "not reached" and its
+    peak is C(t_end). The Laplace engine's value c there (the value the modal curve's
+    peak is checked against, :func:`verified_metrics`) serves where its own error bound
+    e is within the tolerance times the scale of C the data give and c + e is below the
+    level; the peak is then moved onto the physical bounds as the other columns' are
+    (:func:`onto_bounds`). The modal series and its scan are not needed for such a
+    column (most of a site's realizations, where few reach the level)."""
+    if not (level is not None and np.isfinite(level) and 0 < t_start < t_end
+            and nondecreasing_in_time(col, initial)):
+        return None
+    bounds = concentration_bounds(col, initial, t_end)
+    if not bounds.scale:
+        return None
+    limit = tol * bounds.scale
+    c, e = laplace_lone_times(col, [t_end], depth, initial=initial,
+                              enough=good_enough(col, bounds.scale, tol))
+    c, e = float(c[0]), float(e[0])
+    if not (e <= limit and c + e < level):
+        return None
+    pk, = onto_bounds(col, bounds, depth, [c], limit)
+    return math.nan, pk
