@@ -4,7 +4,7 @@ command line, against the previous implementation run in the same process; peak 
 of runs streamed to disk as the borings grow.
 
     python benchmarks/bench_site.py                  # about 15 minutes on 2 cores
-    python benchmarks/bench_site.py --borings 64 --realizations 32
+    python benchmarks/bench_site.py --borings 64 --realizations 1000
     python benchmarks/bench_site.py --memory 1000 10000 20000 --no-dask --no-previous
     python benchmarks/bench_site.py --phases            # where a run's time goes
 
@@ -13,12 +13,15 @@ borings, each with a FIVE-layer log (made ground, silty sand, clay, silty sand, 
 whose thicknesses differ from boring to boring (no two stacks alike, so the per-stack
 cache does not help; ``--repeat-logs`` cycles 48 stacks instead), 100 log-spaced output
 times and the demo's three uncertain parameters (``--realizations`` Monte Carlo
-realizations per boring, Latin hypercube, seed 7).
+realizations per boring, Latin hypercube, seed 7; 128 by default: an ordinary
+uncertainty study runs hundreds to a thousand realizations per boring, and a site's
+throughput is then that of its realizations).
 
 A column solve is one boring's deterministic column (fields on the grid, both time
 windows, checked by the Laplace engine at every output time) or one Monte Carlo
 realization's column (receptor metrics, checked by the Laplace engine at the
-breakthrough and the peak); rates are column solves per wall second of
+breakthrough and the peak, or read on the Laplace engine alone where the curve cannot
+fall and ends below the level); rates are column solves per wall second of
 :func:`transport.site.run.run_site`, every output written (NetCDF, GeoPackage,
 GeoJSON, CSV, map). Each configuration runs the current code and the previous one
 (``benchmarks/legacy_site``, the site modules before this work) on the same site,
@@ -338,8 +341,8 @@ def _row(label, results, columns):
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--borings", type=int, default=32, help="borings for the rates")
-    parser.add_argument("--realizations", type=int, default=16,
+    parser.add_argument("--borings", type=int, default=64, help="borings for the rates")
+    parser.add_argument("--realizations", type=int, default=128,
                         help="Monte Carlo realizations per boring (rates)")
     parser.add_argument("--memory", type=int, nargs="*", default=[1000, 10000],
                         help="boring counts for the memory runs (fresh processes)")
