@@ -17,7 +17,8 @@ from transport.io.atomic import OutputSet
 from transport.solvers.checks import UnreliableResultError
 
 __all__ = ["EXIT_INPUT", "EXIT_REFUSED", "UserError", "Refused", "describe", "fail",
-           "progress", "echo_wrapped", "setting", "solve", "read_receptor", "write_plots"]
+           "progress", "echo_wrapped", "setting", "solve", "read_receptor",
+           "write_plots"]
 
 EXIT_INPUT = 2
 EXIT_REFUSED = 3

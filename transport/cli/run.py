@@ -8,8 +8,8 @@ from pathlib import Path
 import click
 
 from transport.caution import CAUTION
-from transport.cli.common import (UserError, echo_wrapped, progress, read_receptor, setting,
-                                  solve, write_plots)
+from transport.cli.common import (UserError, echo_wrapped, progress, read_receptor,
+                                  setting, solve, write_plots)
 from transport.io.atomic import OutputSet, terminate_as_exit
 from transport.io.netcdf_file import write_column_netcdf
 from transport.scenario.schema import load_scenario

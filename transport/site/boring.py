@@ -424,22 +424,23 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
 
     A curve that cannot fall and ends below the level is read on the Laplace engine
     alone (:func:`transport.site.laplace_checks.stays_below`: not reached, its end
-    value). Otherwise the receptor curve is the modal series from the scan sample on which its rounding
-    bound stays within the tolerance, the Laplace engine before it (an advective
-    column's modal sum cancels to rounding early: a spurious 'peak' of 1e-6 of the
-    scale at the first sample of a plume that never arrives), not asked where the modal
-    bounds show those samples cannot hold the crossing or the peak (:func:`modal_scan`;
-    a rising column peaks at the end); a peak within the tolerance of zero is not
-    polished (:func:`curve_metrics`); both are checked against the Laplace engine
-    (:func:`verified_metrics`) on the scale the data allow, or where they allow none the
-    column's own largest C at the end or the peak; the window before ``t_start`` is then
-    read on the Laplace engine's curve (:func:`early_metrics`), and the peak moved onto
-    the physical bounds where it lies outside by no more than the tolerance.  ``known``: modes of a shared solve;
+    value). Otherwise the receptor curve is the modal series from the scan sample on
+    which its rounding bound stays within the tolerance, the Laplace engine before it
+    (an advective column's modal sum cancels to rounding early: a spurious 'peak' of
+    1e-6 of the scale at the first sample of a plume that never arrives), not asked
+    where the modal bounds show those samples cannot hold the crossing or the peak
+    (:func:`modal_scan`; a rising column peaks at the end); a peak within the tolerance
+    of zero is not polished (:func:`curve_metrics`); both are checked against the
+    Laplace engine (:func:`verified_metrics`) on the scale the data allow, or where they
+    allow none the column's own largest C at the end or the peak; the window before
+    ``t_start`` is then read on the Laplace engine's curve (:func:`early_metrics`), and
+    the peak moved onto the physical bounds where it lies outside by no more than the
+    tolerance.  ``known``: modes of a shared solve;
     ``series``: the column's series built with the boring's other columns
     (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers)."""
     initial = initial or InitialState.clean()
-    fast = stays_below(col, initial, depth, t_start, site.design_life, site.screening_level,
-                       site.tolerance)
+    fast = stays_below(col, initial, depth, t_start, site.design_life,
+                       site.screening_level, site.tolerance)
     if fast is not None:  # a curve that cannot fall, below the level at its end
         return fast + ((),)
     with warnings.catch_warnings(record=True) as caught:

@@ -267,7 +267,8 @@ def _solve_chunk(site, start, stop, samples):
         for j, f in enumerate(found_all):
             if f is None:
                 fast = stays_below(cols[j], initial, boring.receptor_depth, t_start,
-                                   site.design_life, site.screening_level, site.tolerance)
+                                   site.design_life, site.screening_level,
+                                   site.tolerance)
                 if fast is not None:
                     found_all[j] = fast + ((),)
                     _METRICS_CACHE.put(keys[j], found_all[j])
