@@ -189,7 +189,7 @@ def run_folders(run_baseline, tmp_path):
 
 RUN_FAULTS = {
     "solve": ("transport.cli.common.solve_scenario", raiser),
-    "summary": ("transport.cli.run.summary_lines", raiser),
+    "summary": ("transport.cli.common.summary_lines", raiser),
     "netcdf writer": ("transport.cli.run.write_column_netcdf", raiser),
     "netcdf disk full": (netcdf_file, "write_layout", partial_write_layout),
     "profiles figure": ("transport.plot.column.plot_profiles", raiser),
