@@ -149,13 +149,13 @@ def test_allow_unreliable_leaves_out_each_species_metrics_it_cannot_vouch_for(
     every species' fields equal to the chain engine's (as the test above) and no
     receptor metric, and the summary and the ``receptor_metrics`` attribute name each
     species left out."""
-    from transport.solvers import engines
+    from transport.solvers import chain
 
     path = tmp_path / "chain.toml"
     path.write_text(_text(more='receptor_depth = "1 m"\nscreening_level = "5 ug/L"'),
                     encoding="utf-8")
-    real = engines.own_bound_at
-    monkeypatch.setattr(engines, "own_bound_at", lambda t, solve: 1e9 * real(t, solve))
+    real = chain.own_bound_at  # as the chain's evaluator reads it
+    monkeypatch.setattr(chain, "own_bound_at", lambda t, solve: 1e9 * real(t, solve))
     res = CliRunner().invoke(main, ["run", str(path), "-o", str(tmp_path / "no.nc")])
     assert res.exit_code == 3, res.output
     assert not (tmp_path / "no.nc").exists()
