@@ -305,9 +305,9 @@ def test_monte_carlo_eigenvalues_are_shared(runs, monkeypatch):
     built_alone = []
     real_metrics = chunks.realization_metrics
 
-    def metrics(*args):  # the last argument: the series built side by side, or None
-        built_alone.append(args[-1] is None)
-        return real_metrics(*args)
+    def metrics(*args, **kwargs):  # the last positional argument: the series built
+        built_alone.append(args[-1] is None)  # side by side, or None
+        return real_metrics(*args, **kwargs)
     monkeypatch.setattr(sizing, "eigenvalues", counted)
     monkeypatch.setattr(series_module, "modes", counted_modes)
     monkeypatch.setattr(chunks, "realization_metrics", metrics)

@@ -419,7 +419,7 @@ def modal_scan(probe, t_start, t_end, tol, scale, level, nondecreasing=False):
 
 @checked_arithmetic
 def realization_metrics(site, col, depth, t_start, times, initial=None, known=None,
-                        series=None):
+                        series=None, shortcut=True):
     """(breakthrough time, peak concentration) of one Monte Carlo column, warnings.
 
     A curve that cannot fall and ends below the level is read on the Laplace engine
@@ -437,11 +437,13 @@ def realization_metrics(site, col, depth, t_start, times, initial=None, known=No
     the peak moved onto the physical bounds where it lies outside by no more than the
     tolerance.  ``known``: modes of a shared solve;
     ``series``: the column's series built with the boring's other columns
-    (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers)."""
+    (:func:`transport.solvers.modal.many.clean_series_many`, the same numbers);
+    ``shortcut=False``: the caller has already found that :func:`stays_below` does not
+    serve this column (it is not asked again)."""
     initial = initial or InitialState.clean()
-    fast = stays_below(col, initial, depth, t_start, site.design_life,
-                       site.screening_level, site.tolerance)
-    if fast is not None:  # a curve that cannot fall, below the level at its end
+    fast = shortcut and stays_below(col, initial, depth, t_start, site.design_life,
+                                    site.screening_level, site.tolerance)
+    if fast:  # a curve that cannot fall, below the level at its end
         return fast + ((),)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")

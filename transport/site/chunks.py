@@ -284,7 +284,7 @@ def _solve_chunk(site, start, stop, samples):
                 with _naming(f"{boring.id}, Monte Carlo realization {j + 1}"):
                     found = realization_metrics(site, col_j, boring.receptor_depth,
                                                 t_start, times, initial, known[j],
-                                                built[j])
+                                                built[j], shortcut=False)
                 _METRICS_CACHE.put(keys[j], found)
             bt[j], pk[j], msgs = found
             notes += [(boring.id, f"realization {j + 1}: {m}") for m in msgs]
